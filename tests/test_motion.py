@@ -1,0 +1,180 @@
+"""Tests of the Dormand–Prince kernel: its tableau, its dense output, and its rays against scipy."""
+
+import dataclasses
+
+import numpy as np
+import pytest
+from scipy import constants
+from scipy.integrate import solve_ivp
+from scipy.integrate._ivp.rk import RK45
+
+from tracer import motion
+from tracer.beam import symmetry_code, trace
+from tracer.config import loads
+from tracer.fieldmap import PotentialMap, hermite_eval_many
+from tracer.geometry import rasterize, shape_table
+from tracer.grid import Grid
+
+SMOOTH = """
+title = "a smooth test field (illustrative)"
+[domain]
+symmetry = "{symmetry}"
+z_mm = [0.0, 40.0]
+{r_key} = {r_val}
+cell_mm = {cell}
+edges = "ground"
+[[electrode]]
+name = "corner"
+voltage_V = 0.0
+[[electrode.rect]]
+z_mm = [39.0, 40.0]
+{r_key} = [9.0, 10.0]
+[[beam]]
+name = "p"
+species = "p+"
+energy_eV = 500.0
+count = 3
+seed = 4
+start_z_mm = 2.0
+start_{r_key} = {start_r}
+radius_mm = 2.0
+half_angle_deg = 3.0
+"""
+
+
+def smooth_potential(z, r):
+    """An illustrative potential, cubic in z and quadratic in r, with its exact derivatives
+    (V, dV/dz, dV/dr, d2V/dzdr): V = A (s - s^3 / 3) + B s (r / b)^2, s = (z - 20 mm) / 20 mm.
+
+    A bicubic Hermite patch reproduces it exactly, so the interpolant is smooth across cells and
+    an integrator comparison measures integration error alone (not a Laplace solution: the kernel
+    tests need only a smooth, non-uniform field).
+    """
+    a, bb, zc, w, b = 300.0, 100.0, 20e-3, 20e-3, 10e-3
+    s = (z - zc) / w
+    rho = r / b
+    return np.array([a * (s - s**3 / 3) + bb * s * rho**2,
+                     (a * (1 - s**2) + bb * rho**2) / w,
+                     2 * bb * s * rho / b + 0 * z,
+                     2 * bb * rho / (b * w) + 0 * z])
+
+
+def smooth_map(symmetry="axial", cell_mm=0.5):
+    """A PotentialMap whose Hermite data are the smooth potential's node values and derivatives,
+    and the beam of the same setup."""
+    r_key, r_val, start_r = {"axial": ("r_mm", "10.0", "0.0"),
+                             "mirror": ("r_mm", "10.0", "1.0"),
+                             "planar": ("y_mm", "[-10.0, 10.0]", "-1.0")}[symmetry]
+    setup = loads(SMOOTH.format(symmetry="axial" if symmetry == "axial" else "planar",
+                                r_key=r_key, r_val=r_val, start_r=start_r, cell=cell_mm))
+    grid = Grid.from_domain(setup.domain)
+    table = shape_table(setup.electrodes, setup.domain)
+    raster = rasterize(table, grid)
+    zz, rr = np.meshgrid(grid.z, grid.r, indexing="ij")
+    field = PotentialMap(grid, table, raster, tuple(e.name for e in setup.electrodes), (0.0,),
+                         np.ascontiguousarray(smooth_potential(zz, rr)))
+    return field, setup.beams[0]
+
+
+def test_tableau_matches_scipy_rk45():
+    """The Dormand–Prince 5(4) coefficients (Dormand & Prince 1980) equal scipy's RK45 tableau
+    (library: scipy.integrate.RK45, which implements the same pair)."""
+    assert np.allclose(motion.DP_C[:6], RK45.C, rtol=0, atol=1e-15)
+    assert np.allclose(motion.DP_A[:6, :5], RK45.A, rtol=0, atol=1e-15)
+    assert np.allclose(motion.DP_B[:6], RK45.B, rtol=0, atol=1e-15)
+    assert np.allclose(motion.DP_A[6], RK45.B, rtol=0, atol=1e-15)
+    # scipy's E is (b_hat - b), ours is (b - b_hat)
+    assert np.allclose(motion.DP_E, -RK45.E, rtol=0, atol=1e-15)
+
+
+def test_tableau_order_conditions():
+    """Row sums equal the nodes, and the fifth-order weights satisfy the order conditions of the
+    bushy and tall trees up to order 5 (Butcher's conditions; Hairer, Norsett & Wanner 1993)."""
+    a, b, c = motion.DP_A, motion.DP_B, motion.DP_C
+    assert np.allclose(a.sum(axis=1), c[:, None].ravel(), atol=1e-14)
+    for k in range(1, 6):
+        assert b @ c ** (k - 1) == pytest.approx(1.0 / k, abs=1e-14)
+    assert b @ (np.pad(a, ((0, 0), (0, 1))) @ c) == pytest.approx(1 / 6, abs=1e-14)
+    # the embedded weights are fourth order: they satisfy up to k = 4 but differ from b
+    bh = motion.DP_B_HAT
+    for k in range(1, 5):
+        assert bh @ c ** (k - 1) == pytest.approx(1.0 / k, abs=1e-14)
+    assert np.abs(motion.DP_E).max() > 1e-3
+
+
+def test_dense_output_matches_scipy_interpolant():
+    """The continuous extension in Hairer's form equals scipy's RK45 dense output polynomial
+    (Shampine 1986; library: scipy.integrate.RK45.P) for arbitrary stage values."""
+    rng = np.random.default_rng(3)
+    h = 0.37
+    ks = rng.normal(size=(7, 6))
+    y0 = rng.normal(size=6)
+    y1 = y0 + h * (motion.DP_B @ ks)
+    rc = np.zeros((5, 6))
+    motion.dense_coefficients(y0, y1, ks, h, rc)
+    out = np.empty(6)
+    for theta in (0.0, 0.13, 0.5, 0.77, 1.0):
+        motion.dense(rc, theta, out)
+        q = ks.T @ RK45.P
+        ref = y0 + h * q @ (theta ** np.arange(1, 5))
+        assert np.allclose(out, ref, rtol=0, atol=1e-13)
+
+
+def equations(field, mass, charge, sym):
+    """Right-hand side for solve_ivp: the same physics as the kernel, written with numpy, on the
+    same interpolant (tracer.fieldmap.hermite_eval)."""
+    g = field.grid
+    c = constants.c
+
+    def rhs(_t, s):
+        x, y, z, px, py, pz = s
+        r = np.hypot(x, y) if sym == 0 else (abs(y) if sym == 2 else y)
+        _, dvdz, dvdr = hermite_eval_many(field.hermite, g.z0, g.r0, g.hz, g.hr, g.nz, g.nr,
+                                          sym != 1, np.array([z]), np.array([r]))
+        er = -dvdr[0]
+        if sym == 0:
+            ex, ey = (er * x / r, er * y / r) if r > 0 else (0.0, 0.0)
+        else:
+            ex, ey = 0.0, (er * np.sign(y) if sym == 2 else er)
+        gm = mass * np.sqrt(1.0 + (px * px + py * py + pz * pz) / (mass * c) ** 2)
+        return [px / gm, py / gm, pz / gm, charge * ex, charge * ey, -charge * dvdz[0]]
+
+    return rhs
+
+
+@pytest.mark.parametrize("symmetry", ["axial", "planar", "mirror"])
+def test_kernel_agrees_with_solve_ivp_dop853(symmetry):
+    """Rays of the numba kernel end where scipy's DOP853 at rtol 1e-12 puts them on the same
+    interpolated field (library: scipy.integrate.solve_ivp)."""
+    field, beam = smooth_map(symmetry)
+    assert symmetry_code(field.grid) == motion.SYMMETRY_CODE[symmetry]
+    t_max = 1.0e-7  # protons at 500 eV fly about 30 mm in this time, through the bump
+    run = trace(field, beam, rtol=1e-11, max_time_s=t_max)
+    rec = run.records
+    assert (rec["status"] == "time").all()
+    sym = symmetry_code(field.grid)
+    rhs = equations(field, beam.species.mass_kg, beam.species.charge_C, sym)
+    for s0, end in zip(run.starts, rec):
+        y0 = [s0[k] for k in ("x_m", "y_m", "z_m", "px", "py", "pz")]
+        sol = solve_ivp(rhs, (0.0, t_max), y0, method="DOP853", rtol=1e-12, atol=1e-30)
+        ref = sol.y[:, -1]
+        got = np.array([end[k] for k in ("x_m", "y_m", "z_m", "px", "py", "pz")])
+        p_scale = np.linalg.norm(ref[3:])
+        print(np.abs(got[:3] - ref[:3]).max() / field.grid.hz, np.abs(got[3:] - ref[3:]).max() / p_scale)
+        assert np.abs(got[:3] - ref[:3]).max() < 1e-8 * field.grid.hz
+        assert np.abs(got[3:] - ref[3:]).max() < 1e-8 * p_scale
+        assert abs(end["time_s"] - t_max) <= 1e-15 * t_max
+
+
+def test_mirrored_planar_rays_are_mirror_images():
+    """In a planar domain with a mirror plane a ray started at -y is the mirror image of the ray
+    started at +y (the field's y component is odd in y: common practice)."""
+    field, beam = smooth_map("mirror")
+    up = dataclasses.replace(beam, start_r_m=1.5e-3, radius_m=0.0, half_angle_rad=0.0, count=1)
+    down = dataclasses.replace(up, start_r_m=-1.5e-3)
+    a = trace(field, up, max_time_s=1.0e-7).records[0]
+    b = trace(field, down, max_time_s=1.0e-7).records[0]
+    assert a["y_m"] == pytest.approx(-b["y_m"], rel=1e-12)
+    assert a["py"] == pytest.approx(-b["py"], rel=1e-12)
+    assert a["z_m"] == pytest.approx(b["z_m"], rel=1e-12)
+    assert abs(a["py"]) > 1e-3 * abs(a["pz"])  # the bump did deflect the ray

@@ -1,0 +1,329 @@
+"""Field solver: Shortley–Weller stencils and multigrid against analytic potentials.
+
+Each physics check names its source.  Grids stay below ~1e5 nodes.
+"""
+
+import math
+
+import numpy as np
+import pytest
+import scipy.sparse.linalg as spla
+from scipy.constants import epsilon_0
+from scipy.special import j1, jn_zeros
+
+from solve_cases import setup, solve, spheres, staircase
+from tracer.config import Arc, Rect
+from tracer.geometry import Raster, rasterize
+from tracer.grid import Grid
+from tracer.solve import SolveError, assemble, solve_poisson, solve_unit_maps
+from tracer.solve.multigrid import operator
+from tracer.solve.relax import add_boundary, add_fixed, residual
+from tracer.solve.stencil import AXIS, GROUND, OPEN, coefficients
+
+MM = 1e-3
+
+
+def _max_error(u, raster, exact):
+    free = raster.owner < 0
+    return np.abs(u[free] - exact[free]).max()
+
+
+# ---------------------------------------------------------------------------- the stencil itself
+
+
+@pytest.mark.parametrize("axial", [0.0, 1.0])
+def test_stencil_is_exact_for_quadratics(axial):
+    """The distance-weighted differences reproduce the Laplacian of any quadratic exactly
+    (Shortley & Weller 1938: the unequal-arm formula is exact to second degree), with hz != hr."""
+    rng = np.random.default_rng(1)
+    hz, hr, r0 = 0.7e-3, 0.45e-3, 0.0
+    geo = np.array([hz, hr, r0, axial])
+    edges = np.array([GROUND, GROUND, AXIS, GROUND])
+    nz, nr = 9, 9
+    # u = c0 z^2 + c1 r^2 + c2 z + c3 r + c4 z r; Laplacian 2 c0 + 2 c1 (+ (2 c1 r + c3 + c4 z) / r)
+    for _ in range(50):
+        c = rng.normal(size=5)
+        if axial:
+            c[3] = c[4] = 0.0  # an axially symmetric potential is smooth (even) in r
+        iz, ir = rng.integers(1, nz - 1), rng.integers(1, nr - 1)
+        t = rng.uniform(0.05, 1.0, size=4)
+        z, r = r0 + iz * hz, ir * hr
+        u = lambda zz, rr: c[0] * zz**2 + c[1] * rr**2 + c[2] * zz + c[3] * rr + c[4] * zz * rr
+        ends = [(z + t[0] * hz, r), (z - t[1] * hz, r), (z, r + t[2] * hr), (z, r - t[3] * hr)]
+        ck = coefficients(iz, ir, nz, nr, t[0], t[1], t[2], t[3], geo, edges)
+        lap = sum(ck[k] * (u(*ends[k]) - u(z, r)) for k in range(4))
+        exact = 2 * c[0] + 2 * c[1] + (axial * (2 * c[1] * r + c[3] + c[4] * z) / r)
+        assert lap == pytest.approx(exact, rel=1e-9, abs=1e-6)
+
+
+def test_axis_and_open_edge_limits():
+    """On the axis u_rr + u_r / r -> 2 u_rr (l'Hopital, with u even in r); an open edge mirrors
+    the inward arm (zero normal derivative).  Checked on u = r^2 (Laplacian 4) and u = (z - z_edge)^2."""
+    hz, hr = 0.5e-3, 0.3e-3
+    geo = np.array([hz, hr, 0.0, 1.0])
+    edges = np.array([OPEN, OPEN, AXIS, OPEN])
+    nz, nr = 6, 6
+    for t in (1.0, 0.37):
+        ce, cw, cn, cs = coefficients(2, 0, nz, nr, 1.0, 1.0, t, 1.0, geo, edges)
+        assert cs == 0.0 and cn * (t * hr) ** 2 == pytest.approx(4.0)  # Lap r^2 = 4 on the axis
+        ce, cw, cn, cs = coefficients(0, 2, nz, nr, t, 1.0, 1.0, 1.0, geo, edges)
+        assert cw == 0.0 and ce * (t * hz) ** 2 == pytest.approx(2.0)  # Lap (z - z0)^2 = 2
+        ce, cw, cn, cs = coefficients(2, nr - 1, nz, nr, 1.0, 1.0, 1.0, t, geo, edges)
+        # at the open outer edge the mirrored first-derivative terms cancel: only u_rr remains
+        assert cn == 0.0 and cs * (t * hr) ** 2 == pytest.approx(2.0)
+
+
+def test_kernels_and_sparse_matrix_are_one_operator():
+    """A hand-made raster (a box with ground edges, a conductor block with cut arms around it):
+    the residual kernel and the assembled CSR matrix apply the same operator."""
+    nz, nr = 14, 11
+    grid = Grid("planar", False, 0.0, -5e-3, 1e-3, 1e-3, nz, nr, ("ground", "ground", "ground", "open"))
+    owner = np.full((nz, nr), -1, dtype=np.int64)
+    owner[5:8, 3:6] = 0
+    arm = np.ones((nz, nr, 4))
+    arm_owner = np.full((nz, nr, 4), -1, dtype=np.int64)
+    arm[4, 3:6, 0], arm_owner[4, 3:6, 0] = 0.4, 0  # -z side of the block: surface 0.4 cell away
+    arm[8, 3:6, 1], arm_owner[8, 3:6, 1] = 1.0, 0  # +z side: surface on the block's nodes
+    arm[5:8, 2, 2], arm_owner[5:8, 2, 2] = 0.7, 0
+    arm[5:8, 6, 3], arm_owner[5:8, 6, 3] = 0.25, 0
+    raster = Raster(owner=owner, arm=arm, arm_owner=arm_owner, cell=np.full((nz - 1, nr - 1), -1))
+    system = assemble(grid, raster)
+    op = operator(grid, raster)
+    rng = np.random.default_rng(3)
+    x = rng.normal(size=system.matrix.shape[0])
+    out = np.zeros((nz, nr))
+    residual(system.scatter(x), np.zeros((nz, nr)), out, *op)
+    np.testing.assert_allclose(-system.gather(out), system.matrix @ x, rtol=1e-12)
+    assert system.free.sum() == (nz - 2) * (nr - 1) - 9  # ground z and y_min edges, the block
+    b = np.zeros((nz, nr))
+    add_boundary(b, np.array([2.0]), *op[2:])
+    assert b[4, 4] == pytest.approx(2.0 * 2.0 / (0.4e-3 * 1.4e-3))  # c_+z * V at the cut arm
+    assert np.count_nonzero(b) == 12
+
+
+# ---------------------------------------------------------------------------- analytic potentials
+
+
+def test_parallel_plates_planar_exact():
+    """Planar plates: V is linear in z between them (uniform field, any electrostatics text), which
+    the Shortley–Weller stencil reproduces to round-off with the plate faces between nodes, an
+    open top edge and the mirror plane, on a coarse grid with hz != hr."""
+    grid, table = setup(
+        "planar", (0.0, 10 * MM), (0.0, 5.2 * MM), 0.5 * MM, ("ground", "ground", "axis", "open"),
+        [("hot", [Rect((0.0, 1.3 * MM), (0.0, 5.2 * MM))]), ("cold", [Rect((8.7 * MM, 10 * MM), (0.0, 5.2 * MM))])],
+    )
+    assert grid.hz != grid.hr
+    u, raster, _ = solve(grid, table, [1.0, 0.0], rtol=1e-13)
+    exact = np.broadcast_to(((8.7 * MM - grid.z) / (7.4 * MM))[:, None], grid.shape)
+    assert _max_error(u, raster, exact) < 1e-10
+
+
+def test_planar_full_range_deflector_is_antisymmetric():
+    """Plates at +V and -V over a full y range: V(z, -y) = -V(z, y) by symmetry, and between long
+    plates the field is nearly uniform, V = V0 y / d (parallel-plate capacitor, common practice)."""
+    grid, table = setup(
+        "planar", (0.0, 40 * MM), (-10 * MM, 10 * MM), 0.25 * MM, ("ground",) * 4,
+        [("top", [Rect((10 * MM, 30 * MM), (2.5 * MM, 3.5 * MM))]),
+         ("bottom", [Rect((10 * MM, 30 * MM), (-3.5 * MM, -2.5 * MM))])],
+    )
+    sol = solve_unit_maps(grid, table)
+    v = sol.unit[0] - sol.unit[1]  # +1 V on top, -1 V on the bottom plate
+    np.testing.assert_allclose(v, -v[:, ::-1], atol=1e-9)
+    mid = np.argmin(np.abs(grid.z - 20 * MM))
+    gap = np.abs(grid.r) < 2.5 * MM
+    np.testing.assert_allclose(v[mid, gap], grid.r[gap] / (2.5 * MM), atol=5e-3)
+
+
+@pytest.mark.parametrize("order_cells", [(0.5 * MM, 0.25 * MM)])
+def test_coaxial_cylinders(order_cells):
+    """Coaxial cylinders (a rod of radius a at 1 V in a tube of inner radius b at 0 V, open ends):
+    V = ln(b / r) / ln(b / a) (Jackson 1999, Classical Electrodynamics); second-order convergence."""
+    a, b = 2.3 * MM, 7.7 * MM
+    errors = []
+    for cell in order_cells:
+        grid, table = setup(
+            "axial", (0.0, 4 * MM), (0.0, 10 * MM), cell, ("open", "open", "axis", "ground"),
+            [("rod", [Rect((0.0, 4 * MM), (0.0, a))]), ("tube", [Rect((0.0, 4 * MM), (b, 10 * MM))])],
+        )
+        u, raster, _ = solve(grid, table, [1.0, 0.0])
+        r = np.broadcast_to(grid.r[None, :], grid.shape)
+        with np.errstate(divide="ignore"):
+            exact = np.log(b / r) / np.log(b / a)
+        errors.append(_max_error(u, raster, exact))
+    order = math.log2(errors[0] / errors[1])
+    assert errors[1] < 5e-4
+    assert order >= 1.8
+
+
+def _sphere_errors(transform, cells):
+    a, b = 10 * MM, 20 * MM
+    errors = []
+    for n in cells:
+        grid, table = spheres(a, b, n)
+        u, raster, _ = solve(grid, table, [1.0, 0.0], transform=transform)
+        rho = np.hypot(*np.meshgrid(grid.z, grid.r, indexing="ij"))
+        with np.errstate(divide="ignore"):
+            exact = (1.0 / rho - 1.0 / b) / (1.0 / a - 1.0 / b)
+        errors.append(_max_error(u, raster, exact))
+    return errors
+
+
+def test_concentric_spheres_second_order():
+    """A ball of radius a at 1 V inside a grounded shell of inner radius b:
+    V = (1/rho - 1/b) / (1/a - 1/b) (Jackson 1999).  Curved surfaces between nodes converge at
+    second order with Shortley–Weller arms: order >= 1.8 from 10 to 20 cells per radius and a
+    maximum error below 0.1 % of the ball's voltage at 20 cells per radius."""
+    e10, e20 = _sphere_errors(None, (10, 20))
+    assert math.log2(e10 / e20) >= 1.8
+    assert e20 < 1e-3
+
+
+def test_concentric_spheres_staircase_is_first_order():
+    """The same spheres with every arm forced to a whole spacing (a staircase boundary): the error
+    is tens of times larger and falls at about first order, the contrast to the test above."""
+    e10, e20 = _sphere_errors(staircase, (10, 20))
+    order = math.log2(e10 / e20)
+    assert e20 > 20 * _sphere_errors(None, (20,))[0]
+    assert 0.4 < order < 1.3
+
+
+def _two_tube_axis(z, radius, terms=400):
+    """Axial potential of two coaxial tubes of radius R with a zero-width gap at z = 0, at -1 V and
+    +1 V: by separation of variables (Fourier–Bessel series over the zeros j_n of J0)
+    V(0, z) = sign(z) [1 - 2 sum_n exp(-j_n |z| / R) / (j_n J1(j_n))]."""
+    j = jn_zeros(0, terms)
+    s = np.exp(-np.outer(np.abs(z), j) / radius) / (j * j1(j))
+    return np.sign(z) * (1.0 - 2.0 * s.sum(axis=1))
+
+
+def test_two_tube_series_matches_tanh_approximation():
+    """The series above against Harting & Read (1976), Electrostatic Lenses: V ~ tanh(1.318 z / R)
+    for a narrow gap, a published fit good to about 1 % of the step."""
+    z = np.linspace(-3.0, 3.0, 601)
+    series = _two_tube_axis(z, 1.0)
+    assert np.abs(series - np.tanh(1.318 * z)).max() < 0.01
+
+
+def test_two_tube_lens_axial_potential():
+    """Two equal tubes (radius R, gap 0.1 R) held at -1 V and +1 V, long (8 R each way, open ends)
+    inside a grounded can: the axial potential follows the zero-gap Bessel series to 0.1 % of the
+    step (the finite gap changes it at order (gap / R)^2)."""
+    radius, length, wall, gap = 10 * MM, 80 * MM, 1 * MM, 1 * MM
+    grid, table = setup(
+        "axial", (-length, length), (0.0, 1.5 * radius), radius / 20, ("open", "open", "axis", "ground"),
+        [("left", [Rect((-length, -gap / 2), (radius, radius + wall))]),
+         ("right", [Rect((gap / 2, length), (radius, radius + wall))])],
+    )
+    sol = solve_unit_maps(grid, table)
+    axis = sol.unit[1][:, 0] - sol.unit[0][:, 0]
+    near = np.abs(grid.z) < 4 * radius
+    err = np.abs(axis[near] - _two_tube_axis(grid.z[near], radius)).max()
+    assert err < 2e-3  # 0.1 % of the 2 V step
+
+
+def test_open_edge_is_a_mirror_plane():
+    """A geometry symmetric about z = 0 solved on the full domain and on the half z >= 0 with an
+    open z_min edge: the two agree node by node (method of images, common practice)."""
+    ball = lambda cz: Arc(cz, (0.0, 1.7 * MM), (0.0, math.pi))
+    ring = lambda z_lo: Rect((z_lo, 3.3 * MM), (4.1 * MM, 5.2 * MM))
+    full_g, full_t = setup("axial", (-8 * MM, 8 * MM), (0.0, 8 * MM), 0.25 * MM,
+                           ("ground", "ground", "axis", "ground"),
+                           [("ring", [ring(-3.3 * MM)]), ("balls", [ball(6 * MM), ball(-6 * MM)])])
+    half_g, half_t = setup("axial", (0.0, 8 * MM), (0.0, 8 * MM), 0.25 * MM,
+                           ("open", "ground", "axis", "ground"), [("ring", [ring(0.0)]), ("balls", [ball(6 * MM)])])
+    full, _, _ = solve(full_g, full_t, [1.0, 0.3], rtol=1e-12)
+    half, _, _ = solve(half_g, half_t, [1.0, 0.3], rtol=1e-12)
+    assert full.shape[0] == 2 * half.shape[0] - 1
+    np.testing.assert_allclose(full[half_g.nz - 1:], half, atol=1e-9)
+
+
+# ---------------------------------------------------------------------------- linear algebra
+
+
+def _lens(cell):
+    """Three tubes and an end disc (a small einzel-like column), open z edges."""
+    return setup(
+        "axial", (0.0, 60 * MM), (0.0, 12 * MM), cell, ("open", "open", "axis", "ground"),
+        [("entrance", [Rect((5 * MM, 20 * MM), (4.05 * MM, 5.0 * MM))]),
+         ("focus", [Rect((21.1 * MM, 38.9 * MM), (4.05 * MM, 5.0 * MM))]),
+         ("exit", [Rect((40 * MM, 55 * MM), (4.05 * MM, 5.0 * MM)), Arc(58 * MM, (0.0, 1.3 * MM), (0.0, math.pi))])],
+    )
+
+
+def test_superposition_of_unit_maps():
+    """Laplace's equation is linear: the unit maps sum to the solve with every electrode at 1 V
+    (superposition, any electrostatics text)."""
+    grid, table = _lens(0.2 * MM)
+    sol = solve_unit_maps(grid, table)
+    together, _, _ = solve(grid, table, [1.0, 1.0, 1.0])
+    np.testing.assert_allclose(sol.unit.sum(axis=0), together, atol=1e-9)
+    weighted, _, _ = solve(grid, table, [250.0, -1200.0, 40.0])
+    np.testing.assert_allclose(np.tensordot([250.0, -1200.0, 40.0], sol.unit, 1), weighted, atol=1e-9 * 1200)
+    for k in range(3):  # each map is 1 V on its electrode and 0 V on the others
+        inside = sol.raster.owner >= 0
+        np.testing.assert_array_equal(sol.unit[k][inside], (sol.raster.owner[inside] == k).astype(float))
+
+
+def test_multigrid_matches_sparse_direct_solve():
+    """The multigrid maps equal scipy.sparse.linalg.spsolve on the same CSR system: to 1e-9 V per
+    volt at rtol = 1e-11, and to 1e-8 at the default 1e-10 (the node error is about ten times the
+    diagonally scaled relative residual on this grid)."""
+    grid, table = _lens(0.25 * MM)
+    raster = rasterize(table, grid)
+    system = assemble(grid, raster)
+    op = operator(grid, raster)
+    for rtol, tol in ((1e-11, 1e-9), (1e-10, 1e-8)):
+        sol = solve_unit_maps(grid, table, rtol=rtol)
+        for k in range(3):
+            values = np.eye(3)[k]
+            b = np.zeros(grid.shape)
+            add_boundary(b, values, *op[2:])
+            direct = system.scatter(spla.spsolve(system.matrix.tocsc(), system.gather(b)))
+            add_fixed(direct, values, raster.owner)
+            np.testing.assert_allclose(sol.unit[k], direct, rtol=0, atol=tol)
+
+
+def test_residual_history_and_failure():
+    """The residual falls every cycle to the default 1e-10; a cap of one cycle raises SolveError
+    naming the electrode instead of returning a map."""
+    grid, table = _lens(0.25 * MM)
+    calls = []
+    sol = solve_unit_maps(grid, table, progress=lambda done, total: calls.append((done, total)))
+    assert calls == [(1, 3), (2, 3), (3, 3)]
+    for h in sol.history:
+        assert h[0] == 1.0 and h[-1] <= 1e-10
+        assert np.all(np.diff(h) < 0)
+        assert len(h) - 1 <= 20
+    with pytest.raises(SolveError, match="entrance"):
+        solve_unit_maps(grid, table, max_cycles=1)
+
+
+# ---------------------------------------------------------------------------- Poisson
+
+
+def test_poisson_slab_between_grounded_plates():
+    """A uniform charge between grounded planes a distance L apart: V = rho z (L - z) / (2 eps0)
+    (Gauss's law, any electrostatics text; epsilon_0 from scipy.constants).  The five-point
+    stencil is exact for quadratics, so the match is to round-off."""
+    length = 10 * MM
+    grid, table = setup("planar", (0.0, length), (0.0, 3 * MM), 0.5 * MM, ("ground", "ground", "axis", "open"), [])
+    v = solve_poisson(grid, table, np.full(grid.shape, 1e-6), rtol=1e-13)
+    z = grid.z[:, None]
+    exact = np.broadcast_to(1e-6 * z * (length - z) / (2 * epsilon_0), grid.shape)
+    np.testing.assert_allclose(v, exact, rtol=0, atol=1e-9 * exact.max())
+
+
+def test_poisson_charged_column_in_grounded_tube():
+    """A uniform charge filling a grounded tube of radius b (open ends):
+    V = rho (b^2 - r^2) / (4 eps0) (Gauss's law; epsilon_0 from scipy.constants), exact for the
+    axial stencil, which is exact for r^2."""
+    b = 5 * MM
+    grid, table = setup("axial", (0.0, 3 * MM), (0.0, b), 0.25 * MM, ("open", "open", "axis", "ground"),
+                        [("tube", [Rect((0.0, 3 * MM), (b - 0.5 * MM, b))])])
+    rho = np.full(grid.shape, 2e-6)
+    raster = rasterize(table, grid)
+    v = solve_poisson(grid, table, rho, raster=raster, rtol=1e-13)
+    bi = b - 0.5 * MM  # the tube's inner face
+    r = np.broadcast_to(grid.r[None, :], grid.shape)
+    exact = 2e-6 * (bi**2 - r**2) / (4 * epsilon_0)
+    assert _max_error(v, raster, exact) < 1e-9 * exact.max()

@@ -1,0 +1,41 @@
+"""tracer: electrostatic ion and electron optics.
+
+The public API (DESIGN §6).  Names are imported lazily, on first use, so that
+``import tracer`` and the command line start quickly and the numerical kernels
+are compiled (or loaded from numba's cache) only when they are needed.
+"""
+
+from importlib import import_module
+
+__version__ = "0.1.0"
+
+_PUBLIC = {
+    "ConfigError": "tracer.config",
+    "Setup": "tracer.config",
+    "load": "tracer.config",
+    "loads": "tracer.config",
+    "Species": "tracer.species",
+    "species": "tracer.species",
+    "BasisMaps": "tracer.fieldmap",
+    "PotentialMap": "tracer.fieldmap",
+    "solve": "tracer.api",
+    "trace": "tracer.beam",
+    "BeamRun": "tracer.beam",
+    "run": "tracer.api",
+    "RunResult": "tracer.api",
+}
+
+__all__ = sorted(_PUBLIC) + ["__version__"]
+
+
+def __getattr__(name):
+    module = _PUBLIC.get(name)
+    if module is None:
+        raise AttributeError(f"module 'tracer' has no attribute {name!r}")
+    value = getattr(import_module(module), name)
+    globals()[name] = value
+    return value
+
+
+def __dir__():
+    return __all__

@@ -1,0 +1,320 @@
+"""Batch tracing of a beam through a potential map: landing records, plane crossings, summary.
+
+:func:`trace` draws the beam's start states (:func:`start_states`), hands them to the parallel
+kernel of :mod:`tracer.motion`, and packs what comes back into a :class:`BeamRun`.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import asdict, dataclass, field as dataclass_field
+
+import numpy as np
+from scipy import constants
+
+from tracer import ledger, motion, sources, stats
+
+STATUS = {
+    motion.LANDED: "landed",      # hit an electrode; the state is at its surface
+    motion.PLANE: "plane",        # stopped on a detector plane with stop = true
+    motion.LEFT: "left",          # left the domain through an outer edge
+    motion.TIME: "time",          # still flying at max_time
+    motion.INSIDE: "inside",      # started inside an electrode; not traced
+    motion.STALLED: "stalled",    # step size underflow or max_steps reached
+}
+
+STATE_FIELDS = [
+    ("ray", np.int64),
+    ("status", "U8"),
+    ("time_s", np.float64),
+    ("x_m", np.float64), ("y_m", np.float64), ("z_m", np.float64),
+    ("px", np.float64), ("py", np.float64), ("pz", np.float64),
+    ("energy_eV", np.float64),
+    ("ledger_eV", np.float64),
+]
+
+
+def state_dtype(names, extra=()):
+    """Record dtype: the state fields plus ``electrode`` wide enough for the electrode names."""
+    width = max([1] + [len(n) for n in names])
+    return np.dtype(STATE_FIELDS[:2] + [("electrode", f"U{width}")] + STATE_FIELDS[2:] + list(extra))
+
+
+def symmetry_code(grid):
+    """Kernel code of a grid's symmetry: 0 axial, 1 planar, 2 planar with a mirror plane at r0."""
+    if grid.symmetry == "axial":
+        return motion.SYMMETRY_CODE["axial"]
+    return motion.SYMMETRY_CODE["mirror" if grid.mirror else "planar"]
+
+
+def start_states(beam, field):
+    """Start state of every ray of a beam, as records.
+
+    The rays are drawn by :func:`tracer.sources.start_states` (disc or CSV rays, cone of directions,
+    energy spread; seeded). Rays that start inside an electrode are marked ``"inside"`` with the
+    electrode's name; all other rows have status "" and electrode "".
+
+    Parameters
+    ----------
+    beam : tracer.config.Beam
+    field : tracer.fieldmap.PotentialMap
+
+    Returns
+    -------
+    numpy.ndarray
+        Structured array of :func:`state_dtype` with ``time_s`` = 0, ``ledger_eV`` = 0 and the
+        current each ray carries, ``weight_A`` (0 when the beam gives no current).
+    """
+    drawn = sources.start_states(beam, symmetry=field.grid.symmetry)
+    out = np.zeros(len(drawn), dtype=state_dtype(field.names, [("weight_A", np.float64)]))
+    for name in ("ray", "x_m", "y_m", "z_m", "px", "py", "pz", "energy_eV", "weight_A"):
+        out[name] = drawn[name]
+    return out
+
+
+@dataclass(frozen=True)
+class BeamRun:
+    """The result of tracing one beam.
+
+    Attributes
+    ----------
+    name : str
+        The beam's name.
+    species : tracer.species.Species
+    starts : numpy.ndarray
+        Start state of each ray (fields as ``records``).
+    records : numpy.ndarray
+        One row per ray: ``ray``, ``status`` ("landed", "plane", "left", "time", "inside",
+        "stalled"), ``electrode`` (where it landed, else ""), ``time_s``, ``x_m``, ``y_m``, ``z_m``,
+        ``px``, ``py``, ``pz`` (kg m/s), ``energy_eV`` (kinetic), ``ledger_eV`` (worst
+        |ΔKE − qΔV| over the ray's steps), ``weight_A`` (the current it carries), ``steps``
+        (accepted steps), ``evaluations`` (field evaluations).
+    crossings : numpy.ndarray
+        Every plane crossing: the state fields plus ``plane`` (name) and ``crossing`` (0 for the
+        ray's first crossing of that plane, 1 for the next, ...); ``ledger_eV`` is the ray's worst
+        residual up to the crossing.
+    paths : tuple of numpy.ndarray
+        Path points of the first ``keep_paths`` rays, one array per ray with ``time_s``, ``x_m``,
+        ``y_m``, ``z_m``, ``px``, ``py``, ``pz``, ``energy_eV`` and the signed per-step ledger
+        ``ledger_eV`` = ΔKE − qΔV (a point per accepted step, thinned evenly for long rays).
+    planes : tuple of str
+        Names of the detector planes.
+    ledger : tracer.ledger.LedgerReport
+    energy_scale_eV : numpy.ndarray
+        The per-ray energy scale the ledger threshold refers to.
+    crossings_lost : int
+        Crossings beyond the per-ray buffer (``max_crossings``), not recorded.
+    symmetry : str
+        The map's symmetry ("axial" or "planar"), for the landing radius.
+    """
+
+    name: str
+    species: object
+    starts: np.ndarray
+    records: np.ndarray
+    crossings: np.ndarray
+    paths: tuple
+    planes: tuple
+    ledger: ledger.LedgerReport
+    energy_scale_eV: np.ndarray = dataclass_field(repr=False)
+    crossings_lost: int = 0
+    symmetry: str = "axial"
+
+    def at_plane(self, name):
+        """The rays where they crossed plane ``name``, one row per crossing (time order per ray).
+
+        Raises
+        ------
+        KeyError
+            When there is no plane of that name.
+        """
+        if name not in self.planes:
+            raise KeyError(f"no plane {name!r}; the planes are {list(self.planes)}")
+        return self.crossings[self.crossings["plane"] == name]
+
+    def summary(self):
+        """The beam's figures: what landed where, what crossed each plane, what was lost, the ledger.
+
+        Returns
+        -------
+        dict
+            ``beam``, ``species``, ``rays``, ``current_A`` (the beam's current, or NaN);
+            ``status`` {status: count} for every status; ``transmission`` {plane: fraction of the
+            rays that crossed it at least once}; ``planes`` {plane: :class:`tracer.stats.PlaneStats`
+            fields as a dict}; ``landing`` {electrode: :class:`tracer.stats.LandingStats` fields as
+            a dict}; ``ledger_worst_eV``, ``ledger_worst_relative``, ``ledger_threshold``,
+            ``ledger_suspects``; ``warning`` (a one-line warning, or "").
+        """
+        rec = self.records
+        n = len(rec)
+        status = {s: int(np.count_nonzero(rec["status"] == s)) for s in STATUS.values()}
+        planes = {p: asdict(stats.plane_stats(self.at_plane(p), self.species, n)) for p in self.planes}
+        current = float(self.starts["weight_A"].sum())
+        weights = rec["weight_A"] if current > 0 else np.full(n, math.nan)
+        landing = {name: asdict(ls) for name, ls in
+                   stats.landings(rec, weight_A=weights, symmetry=self.symmetry).items()}
+        warnings = [w for w in (self.ledger.warning,) if w]
+        if status["stalled"]:
+            warnings.append(f"{status['stalled']} ray(s) stalled (step size underflow or max_steps)")
+        if self.crossings_lost:
+            warnings.append(f"{self.crossings_lost} plane crossing(s) not recorded (raise max_crossings)")
+        return {
+            "beam": self.name,
+            "species": self.species.name,
+            "rays": n,
+            "current_A": current if current > 0 else math.nan,
+            "status": status,
+            "transmission": {p: planes[p]["fraction"] if n else 0.0 for p in self.planes},
+            "planes": planes,
+            "landing": landing,
+            "ledger_worst_eV": self.ledger.worst_eV,
+            "ledger_worst_relative": self.ledger.worst_relative,
+            "ledger_threshold": self.ledger.threshold,
+            "ledger_suspects": self.ledger.suspects,
+            "warning": "; ".join(warnings),
+        }
+
+
+def trace(field, beam, planes=(), rtol=1e-9, max_time_s=1e-4, *, keep_paths=0,
+          max_path_points=4096, ledger_threshold=ledger.DEFAULT_THRESHOLD, max_step_cells=1.0,
+          sample_cells=0.5, fine_cells=1 / 32, max_steps=10_000_000, max_crossings=16,
+          progress=None):
+    """Trace a beam through a potential map.
+
+    Parameters
+    ----------
+    field : tracer.fieldmap.PotentialMap
+    beam : tracer.config.Beam
+        The source (species, energies, positions, directions, count, seed).
+    planes : sequence of tracer.config.Plane
+        Detector planes z = const (``name``, ``z_m``, ``stop``); every crossing is recorded, and a
+        plane with ``stop`` true ends the ray there (status "plane").
+    rtol : float
+        Relative tolerance of the Runge–Kutta steps; absolute tolerances are rtol × cell for
+        positions and rtol × the ray's momentum scale (the momentum at its energy scale, see
+        :mod:`tracer.ledger`) for momenta.
+    max_time_s : float
+        Flight time after which a ray stops with status "time".
+    keep_paths : int
+        Keep the path points and the per-step ledger of the first ``keep_paths`` rays.
+    max_path_points : int
+        Points kept per path (at least 3); longer paths are thinned evenly.
+    ledger_threshold : float
+        Relative ledger threshold for the suspect count (default 1e-6 of the energy scale).
+    max_step_cells, sample_cells, fine_cells : float
+        Longest step, the spacing at which each step's dense output is checked, and the finer
+        spacing used next to surfaces, all in cells (see :mod:`tracer.motion`).
+    max_steps : int
+        Step budget per ray (accepted plus rejected) before it is stopped as "stalled".
+    max_crossings : int
+        Plane crossings recorded per ray.
+    progress : callable, optional
+        Called as ``progress(done, total)`` as the rays are traced (in chunks of about 1 %).
+
+    Returns
+    -------
+    BeamRun
+    """
+    if rtol <= 0.0 or max_time_s <= 0.0:
+        raise ValueError("rtol and max_time_s must be positive")
+    grid = field.grid
+    sym = symmetry_code(grid)
+    sp = beam.species
+    starts = start_states(beam, field)
+    n = len(starts)
+    scale = ledger.energy_scale_eV(starts["energy_eV"], sp.charge_C, field.voltages)
+    atol_p = rtol * sources.momentum(scale, sp.mass_kg)
+    cell = min(grid.hz, grid.hr)
+    planes = tuple(planes)
+    plane_z = np.array([p.z_m for p in planes], dtype=np.float64)
+    plane_stop = np.array([bool(getattr(p, "stop", False)) for p in planes], dtype=np.bool_)
+    keep = min(int(keep_paths), n)
+    paths_buf = np.zeros((keep, max(3, int(max_path_points)), 9))
+    grid_vec = np.array([grid.z0, grid.r0, grid.hz, grid.hr, grid.nz, grid.nr, grid.z1, grid.r1],
+                        dtype=np.float64)
+    bounds = np.array([grid.z0, grid.z1, grid.r0, grid.r1], dtype=np.float64)
+    state = np.stack([starts[k] for k in ("x_m", "y_m", "z_m", "px", "py", "pz")], axis=1)
+    herm = np.ascontiguousarray(field.hermite, dtype=np.float64)
+    geo = tuple(field.table.arrays())
+    cell_map = np.ascontiguousarray(field.raster.cell)
+    chunk = max(1, n if progress is None else max(64, -(-n // 100)))
+    parts = []
+    for lo in range(0, max(n, 1), chunk):
+        hi = min(n, lo + chunk)
+        parts.append(motion.trace_rays(
+            np.ascontiguousarray(state[lo:hi]), herm, grid_vec, sym, bounds, cell_map, geo,
+            float(sp.mass_kg), float(sp.charge_C), float(max_time_s), float(rtol), atol_p[lo:hi],
+            max_step_cells * cell, sample_cells * cell, fine_cells * cell, plane_z, plane_stop,
+            int(max_steps), int(max_crossings), paths_buf[lo:min(hi, keep)]))
+        if progress is not None:
+            progress(hi, n)
+    final, info, cross_plane, cross_state = (np.concatenate([p[k] for p in parts]) for k in range(4))
+
+    names = np.array(list(field.names) + [""])
+    electrode = names[info[:, 1]]          # index -1 picks ""
+    codes = info[:, 0]
+    inside = codes == motion.INSIDE
+    starts["status"] = np.where(inside, "inside", "")
+    starts["electrode"] = np.where(inside, electrode, "")
+
+    dtype = state_dtype(field.names, [("weight_A", np.float64), ("steps", np.int64),
+                                      ("evaluations", np.int64)])
+    records = np.zeros(n, dtype=dtype)
+    records["ray"] = starts["ray"]
+    records["weight_A"] = starts["weight_A"]
+    records["status"] = [STATUS[c] for c in codes]
+    records["electrode"] = np.where(codes == motion.LANDED, electrode, "")
+    records["electrode"][inside] = electrode[inside]
+    _fill_state(records, final)
+    records["steps"] = info[:, 4]
+    records["evaluations"] = info[:, 6]
+
+    n_cross = np.minimum(info[:, 2], max_crossings)
+    ray_idx = np.repeat(np.arange(n), n_cross)
+    slot = np.concatenate([np.arange(k) for k in n_cross]) if n else np.zeros(0, dtype=int)
+    plane_idx = cross_plane[ray_idx, slot]
+    crossings = np.zeros(len(ray_idx), dtype=state_dtype(
+        field.names, [("plane", f"U{max([1] + [len(p.name) for p in planes])}"),
+                      ("crossing", np.int64)]))
+    crossings["ray"] = ray_idx
+    crossings["status"] = "plane"
+    _fill_state(crossings, cross_state[ray_idx, slot])
+    crossings["plane"] = np.array([p.name for p in planes] + [""])[plane_idx]
+    crossings["crossing"] = _occurrence(ray_idx, plane_idx, len(planes))
+
+    paths = tuple(_path_records(paths_buf[k, :info[k, 3]]) for k in range(keep))
+    report = ledger.ledger_report(records["ledger_eV"], scale, ledger_threshold, traced=~inside)
+    return BeamRun(name=getattr(beam, "name", ""), species=sp, starts=starts, records=records,
+                   crossings=crossings, paths=paths, planes=tuple(p.name for p in planes),
+                   ledger=report, energy_scale_eV=scale,
+                   crossings_lost=int((info[:, 2] - n_cross).sum()), symmetry=grid.symmetry)
+
+
+def _fill_state(rec, rows):
+    """Copy kernel rows (t, x, y, z, px, py, pz, ke_J, ledger_J) into record fields."""
+    for k, name in enumerate(("time_s", "x_m", "y_m", "z_m", "px", "py", "pz")):
+        rec[name] = rows[:, k]
+    rec["energy_eV"] = rows[:, 7] / constants.e
+    rec["ledger_eV"] = rows[:, 8] / constants.e
+
+
+def _occurrence(ray, plane, n_planes):
+    """For each crossing, how many earlier crossings the same ray made of the same plane."""
+    key = ray * max(n_planes, 1) + plane
+    order = np.argsort(key, kind="stable")
+    sorted_key = key[order]
+    first = np.searchsorted(sorted_key, sorted_key, side="left")
+    out = np.empty(len(key), dtype=np.int64)
+    out[order] = np.arange(len(key)) - first
+    return out
+
+
+PATH_DTYPE = np.dtype([(k, np.float64) for k in (
+    "time_s", "x_m", "y_m", "z_m", "px", "py", "pz", "energy_eV", "ledger_eV")])
+
+
+def _path_records(rows):
+    """Path points as a structured array (the per-step ledger is signed)."""
+    out = np.zeros(len(rows), dtype=PATH_DTYPE)
+    _fill_state(out, rows)
+    return out

@@ -1,0 +1,1137 @@
+"""Read a setup from TOML into frozen dataclasses.
+
+The schema is that of the house design (DESIGN section 5). Every key that
+carries a unit says so in its suffix; inside, everything is SI (mm -> m,
+deg -> rad, us/ns -> s). All checks happen here, before any work: every
+problem raises a :class:`ConfigError` whose text is ``"<key path>: <message>"``
+and names the bad value, e.g.
+``electrode[2].rect[0].r_mm: inner radius 7.0 exceeds outer 6.0`` (indices
+count from 0, in file order).
+
+The second coordinate of shapes and of a beam's start follows the domain:
+``r_mm`` when the domain gives ``r_mm`` (axial, or planar above a mirror plane
+y = 0), ``y_mm`` when a planar domain gives ``y_mm = [lower, upper]``.
+
+Keys (defaults in brackets; "r" stands for "y" in a domain with y_mm)::
+
+    title                               [""]
+    [domain]     symmetry "axial"|"planar", z_mm [a, b], r_mm R or y_mm [a, b], cell_mm,
+                 edges "ground"|"open" or {z_min, z_max, r_max | y_min, y_max} ["ground"]
+    [[electrode]] name, voltage_V, and one or more of
+                 [[electrode.rect]] z_mm, r_mm;  [[electrode.polygon]] points_mm [[z, r], ...];
+                 [[electrode.arc]] center_z_mm, radii_mm, angles_deg (polar angle from +z, 0..180)
+    [[beam]]     name, species (or mass_u + charge_e), energy_eV, start_z_mm, energy_spread_eV [0],
+                 temperature_K, count [100], seed [0], start_r_mm [0], radius_mm [0],
+                 profile "uniform"|"gaussian", half_angle_deg [0; 90 for cosine] (0..90),
+                 angles "uniform"|"gaussian"|"cosine", current_A;
+                 or rays_csv (a file of start rays) in place of the distribution keys
+    [[plane]]    name, z_mm, stop [false]
+    [trace]      max_time_us or max_time_ns [100 us], rtol [1e-9], ledger_threshold [1e-6],
+                 keep_paths [50]
+    [scan]       <electrode> = [from_V, to_V, count], ...;  or csv = "sets.csv" (<electrode>_V columns)
+    [tune]       vary = {<electrode> = [lo_V, hi_V], ...}, goal = "smallest_spot" | "most_transmitted"
+                 | {landing_energy_eV = E} | {focus_z_mm = z}, at (a plane), seed [0]
+    [gun]        cathode, emission "space_charge"|"thermionic", rays [200], temperature_K and
+                 work_function_eV (thermionic), schottky [false], relaxation [0.3],
+                 max_iterations [50], tolerance [1e-3], species ["e-"]
+    [optics]     species, energy_eV, object_z_mm [at infinity]
+"""
+
+from __future__ import annotations
+
+import csv
+import dataclasses
+import datetime
+import difflib
+import hashlib
+import json
+import math
+import os
+import pathlib
+import re
+import tomllib
+from dataclasses import dataclass, field
+
+from scipy import constants
+
+from .species import Species, custom_species, species
+
+_MM_PER_M = round(1 / constants.milli)   # conversions divide, so 52 mm -> 0.052 m exactly rounded
+_DEG = constants.degree
+_PER_S = {"max_time_us": round(1 / constants.micro), "max_time_ns": round(1 / constants.nano)}
+
+# Memory estimate for the field solution: per node and electrode, the unit map and
+# its Hermite data, the multigrid work arrays and a share of the raster (rounded up).
+_BYTES_PER_NODE_PER_ELECTRODE = 200
+_MEMORY_SHARE = 0.5          # refuse a grid needing more than this share of physical memory
+_MAX_NODES = 2e8             # fallback cap where physical memory cannot be asked
+_MAX_CELLS = 1e9             # per side, so that node counts stay finite numbers
+_INT64_MAX = 2**63 - 1
+_NAME = re.compile(r"[A-Za-z0-9_][A-Za-z0-9_.+\-]*")
+_BARE_KEY = re.compile(r"[A-Za-z0-9_\-]+")
+_REQUIRED = object()
+
+_TOP = ("title", "domain", "electrode", "beam", "plane", "trace", "scan", "tune", "gun", "optics")
+
+
+class ConfigError(ValueError):
+    """A bad setup: ``str(error) == f"{key}: {message}"``.
+
+    Parameters
+    ----------
+    key : str
+        Key path of the bad entry (``"electrode[2].rect[0].r_mm"``), or
+        ``"line L, column C"`` for a TOML syntax error.
+    message : str
+        What is wrong, naming the bad value.
+    """
+
+    def __init__(self, key: str, message: str):
+        super().__init__(f"{key}: {message}")
+        self.key = key
+        self.message = message
+
+    def __reduce__(self):
+        return (type(self), (self.key, self.message))
+
+
+# ---------------------------------------------------------------- dataclasses
+
+
+@dataclass(frozen=True)
+class Rect:
+    """A rectangle in the (z, r) half-plane; in axial symmetry a tube or a disc.
+
+    Parameters
+    ----------
+    z_m : tuple of float
+        (start, end) along z, metres.
+    r_m : tuple of float
+        (inner, outer) radius, or (lower, upper) y in planar symmetry, metres.
+    """
+
+    z_m: tuple[float, float]
+    r_m: tuple[float, float]
+
+
+@dataclass(frozen=True)
+class Polygon:
+    """A closed polygon in the (z, r) half-plane.
+
+    Parameters
+    ----------
+    points_m : tuple of (float, float)
+        Vertices (z, r) in metres, at least 3, non-zero area.
+    """
+
+    points_m: tuple[tuple[float, float], ...]
+
+
+@dataclass(frozen=True)
+class Arc:
+    """A spherical-shell sector about (center_z, 0) (an annular sector in planar symmetry).
+
+    Parameters
+    ----------
+    center_z_m : float
+        Centre on the axis, metres.
+    radii_m : tuple of float
+        (inner, outer) radius, metres; inner may be 0 (a solid sector).
+    angles_rad : tuple of float
+        (first, second) polar angle from the +z direction, within 0..pi.
+    """
+
+    center_z_m: float
+    radii_m: tuple[float, float]
+    angles_rad: tuple[float, float]
+
+
+@dataclass(frozen=True)
+class Electrode:
+    """A named conductor held at a voltage.
+
+    Parameters
+    ----------
+    name : str
+        Unique name.
+    voltage_V : float
+        Voltage in volts.
+    shapes : tuple of Rect, Polygon or Arc
+        Its shapes: the rects, then the polygons, then the arcs, each in file order.
+    """
+
+    name: str
+    voltage_V: float
+    shapes: tuple[Rect | Polygon | Arc, ...]
+
+
+@dataclass(frozen=True)
+class Domain:
+    """The solved region.
+
+    Parameters
+    ----------
+    symmetry : str
+        ``"axial"`` (rotation about z, coordinates (z, r)) or ``"planar"`` ((z, y), invariant in x).
+    z_m : tuple of float
+        (start, end) along z, metres.
+    r_m : tuple of float
+        (0, r_max) for axial or mirrored planar; (y_min, y_max) for planar with y_mm.
+    cell_m : float
+        Grid spacing, metres.
+    edges : tuple of str
+        (z_min, z_max, r_min, r_max), each ``"ground"`` or ``"open"`` (zero normal field);
+        r_min is ``"axis"`` when r = 0 is the axis or a mirror plane.
+    """
+
+    symmetry: str
+    z_m: tuple[float, float]
+    r_m: tuple[float, float]
+    cell_m: float
+    edges: tuple[str, str, str, str]
+
+    @property
+    def mirror(self) -> bool:
+        """True when r_min is the axis (axial) or a mirror plane (planar without y_mm)."""
+        return self.edges[2] == "axis"
+
+
+@dataclass(frozen=True)
+class Beam:
+    """A set of rays and where and how they start.
+
+    Parameters
+    ----------
+    name : str
+        Unique name.
+    species : Species
+        What the rays are.
+    energy_eV : float or None
+        Mean start kinetic energy, eV (None when the rays come from ``rays_csv``).
+    start_z_m : float or None
+        Source plane, metres (None with ``rays_csv``).
+    energy_spread_eV : float
+        Standard deviation of the start energy, eV.
+    temperature_K : float or None
+        Source temperature for thermal start energies, kelvin.
+    count : int or None
+        Number of rays (None with ``rays_csv``).
+    seed : int
+        Random seed for the start rays.
+    start_r_m : float
+        The source centre's offset from the axis (along x), or its y in planar symmetry, metres.
+    radius_m : float
+        Source radius (``"uniform"``) or its standard deviation (``"gaussian"``), metres.
+    profile : str
+        ``"uniform"`` or ``"gaussian"``.
+    half_angle_rad : float
+        Cone half-angle (standard deviation for ``"gaussian"``; cut-off for ``"cosine"``), 0..pi/2.
+    angles : str
+        ``"uniform"`` in solid angle, ``"gaussian"`` or ``"cosine"`` (Lambert).
+    current_A : float or None
+        Beam current, amperes.
+    rays_csv : pathlib.Path or None
+        A file of start rays (resolved against the config file's folder).
+    """
+
+    name: str
+    species: Species
+    energy_eV: float | None
+    start_z_m: float | None
+    energy_spread_eV: float = 0.0
+    temperature_K: float | None = None
+    count: int | None = 100
+    seed: int = 0
+    start_r_m: float = 0.0
+    radius_m: float = 0.0
+    profile: str = "uniform"
+    half_angle_rad: float = 0.0
+    angles: str = "uniform"
+    current_A: float | None = None
+    rays_csv: pathlib.Path | None = None
+
+
+@dataclass(frozen=True)
+class Plane:
+    """A detector plane z = const.
+
+    Parameters
+    ----------
+    name : str
+        Unique name.
+    z_m : float
+        Position, metres (inside the domain).
+    stop : bool
+        Whether rays end when they cross it.
+    """
+
+    name: str
+    z_m: float
+    stop: bool = False
+
+
+@dataclass(frozen=True)
+class TraceOptions:
+    """How rays are traced.
+
+    Parameters
+    ----------
+    max_time_s : float
+        Longest flight time of a ray, seconds.
+    rtol : float
+        Relative tolerance of the integrator, in (0, 1).
+    ledger_threshold : float
+        Relative energy-ledger error above which a ray is flagged.
+    keep_paths : int
+        Number of rays whose path points are kept for plots.
+    """
+
+    max_time_s: float = 1e-4
+    rtol: float = 1e-9
+    ledger_threshold: float = 1e-6
+    keep_paths: int = 50
+
+
+@dataclass(frozen=True)
+class ScanSpec:
+    """A batch of voltage sets.
+
+    Parameters
+    ----------
+    ranges : tuple of (str, float, float, int)
+        (electrode name, from_V, to_V, count); the scan is the product of the ranges.
+    csv : pathlib.Path or None
+        Instead of ranges, a CSV file whose header names ``<electrode>_V`` columns and
+        whose rows are the voltage sets.
+    """
+
+    ranges: tuple[tuple[str, float, float, int], ...]
+    csv: pathlib.Path | None = None
+
+
+@dataclass(frozen=True)
+class TuneSpec:
+    """An optimiser over electrode voltages.
+
+    Parameters
+    ----------
+    vary : tuple of (str, float, float)
+        (electrode name, lo_V, hi_V).
+    goal : str
+        ``"smallest_spot"``, ``"most_transmitted"``, ``"landing_energy"`` or ``"focus"``.
+    goal_value : float or None
+        The target landing energy (eV) or focus position z (m) for those goals, else None.
+    at : str or None
+        The plane where the goal is measured; None means where the rays end.
+    seed : int
+        Random seed of the optimiser.
+    """
+
+    vary: tuple[tuple[str, float, float], ...]
+    goal: str
+    goal_value: float | None = None
+    at: str | None = None
+    seed: int = 0
+
+
+@dataclass(frozen=True)
+class GunSpec:
+    """A self-consistent run with space charge from an emitting electrode.
+
+    Parameters
+    ----------
+    cathode : str
+        The emitting electrode.
+    emission : str
+        ``"space_charge"`` (space-charge-limited) or ``"thermionic"`` (Richardson-Dushman).
+    rays : int
+        Number of emitted rays.
+    temperature_K : float or None
+        Cathode temperature, kelvin (needed for thermionic emission).
+    work_function_eV : float or None
+        Cathode work function, eV (needed for thermionic emission).
+    schottky : bool
+        Lower the work function by the Schottky effect (thermionic only).
+    relaxation : float
+        Under-relaxation of the space charge between iterations, in (0, 1].
+    max_iterations : int
+        Iteration budget.
+    tolerance : float
+        Relative change of the current at which the iteration has converged.
+    species : Species
+        The emitted particles (electrons unless given).
+    """
+
+    cathode: str
+    emission: str = "space_charge"
+    rays: int = 200
+    temperature_K: float | None = None
+    work_function_eV: float | None = None
+    schottky: bool = False
+    relaxation: float = 0.3
+    max_iterations: int = 50
+    tolerance: float = 1e-3
+    species: Species = field(default_factory=lambda: species("e-"))
+
+
+@dataclass(frozen=True)
+class OpticsSpec:
+    """Paraxial lens properties to compute.
+
+    Parameters
+    ----------
+    species : Species
+        The particles.
+    energy_eV : float
+        Kinetic energy where the potential is 0 V, eV (> 0).
+    object_z_m : float or None
+        Object position, metres; None for an object at infinity.
+    """
+
+    species: Species
+    energy_eV: float
+    object_z_m: float | None = None
+
+
+@dataclass(frozen=True)
+class Setup:
+    """Everything a config file describes.
+
+    Parameters
+    ----------
+    title : str
+        What this setup is.
+    domain : Domain
+    electrodes : tuple of Electrode
+    beams : tuple of Beam
+    planes : tuple of Plane
+    trace : TraceOptions
+    scan, tune, gun, optics : ScanSpec, TuneSpec, GunSpec, OpticsSpec or None
+        The optional sections.
+    source : pathlib.Path or None
+        The config file, for relative paths.
+    """
+
+    title: str
+    domain: Domain
+    electrodes: tuple[Electrode, ...]
+    beams: tuple[Beam, ...] = ()
+    planes: tuple[Plane, ...] = ()
+    trace: TraceOptions = TraceOptions()
+    scan: ScanSpec | None = None
+    tune: TuneSpec | None = None
+    gun: GunSpec | None = None
+    optics: OpticsSpec | None = None
+    source: pathlib.Path | None = None
+
+    def voltages(self) -> dict[str, float]:
+        """Return the electrode voltages by name, in electrode order."""
+        return {e.name: e.voltage_V for e in self.electrodes}
+
+    def geometry_hash(self) -> str:
+        """Return the sha256 hex digest of the domain, electrode names and shapes (not voltages)."""
+        payload = {
+            "format": "tracer-geometry-1",
+            "domain": dataclasses.asdict(self.domain),
+            "electrodes": [
+                {"name": e.name, "shapes": [{"kind": type(s).__name__, **dataclasses.asdict(s)} for s in e.shapes]}
+                for e in self.electrodes
+            ],
+        }
+        text = json.dumps(payload, sort_keys=True, separators=(",", ":"), allow_nan=False)
+        return hashlib.sha256(text.encode()).hexdigest()
+
+
+# ---------------------------------------------------------------- entry points
+
+
+def load(path) -> Setup:
+    """Read a setup from a TOML file.
+
+    Parameters
+    ----------
+    path : str or os.PathLike
+        The config file; relative paths inside it are taken from its folder.
+
+    Returns
+    -------
+    Setup
+
+    Raises
+    ------
+    ConfigError
+        For an unreadable file or any bad entry.
+    """
+    source = pathlib.Path(path).resolve()
+    try:
+        text = source.read_bytes().decode("utf-8")
+    except OSError as error:
+        raise ConfigError(str(path), f"cannot read the file: {error.strerror or error}") from None
+    except UnicodeDecodeError as error:
+        raise ConfigError(str(path), f"not UTF-8 text (byte {error.start})") from None
+    return loads(text, source=source)
+
+
+def loads(text: str, source=None) -> Setup:
+    """Read a setup from TOML text.
+
+    Parameters
+    ----------
+    text : str
+        The TOML document.
+    source : str, os.PathLike or None
+        The file it came from; relative paths are taken from its folder (else the current folder).
+
+    Returns
+    -------
+    Setup
+
+    Raises
+    ------
+    ConfigError
+        For a TOML syntax error (key ``"line L, column C"``) or any bad entry.
+    """
+    source = None if source is None else pathlib.Path(source)
+    try:
+        data = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as error:
+        raise _syntax_error(str(error), text) from None
+    except RecursionError:
+        raise ConfigError("document", "nested too deeply to read") from None
+    return _setup(data, source)
+
+
+def _syntax_error(message, text):
+    """Turn a tomllib message '... (at line L, column C)' into a ConfigError keyed 'line L, column C'."""
+    match = re.fullmatch(r"(.*) \(at line (\d+), column (\d+)\)", message, flags=re.S)
+    if match:
+        return ConfigError(f"line {match[2]}, column {match[3]}", match[1])
+    match = re.fullmatch(r"(.*) \(at end of document\)", message, flags=re.S)
+    lines = text.split("\n")
+    where = f"line {len(lines)}, column {len(lines[-1]) + 1}"
+    return ConfigError(where, (match[1] if match else message) + " (at the end of the file)")
+
+
+# ---------------------------------------------------------------- the reading machinery
+
+
+def _show(value) -> str:
+    """A short display of a TOML value, in TOML spelling."""
+    if isinstance(value, bool):
+        return "true" if value else "false"
+    if isinstance(value, dict):
+        return "a table"
+    if isinstance(value, (datetime.date, datetime.time)):
+        return f"the date/time {value.isoformat()}"
+    text = repr(value)
+    return text if len(text) <= 60 else text[:57] + "..."
+
+
+def _join(path: str, key: str) -> str:
+    """Key path of `key` inside `path`, quoting keys that are not bare TOML keys."""
+    shown = key if _BARE_KEY.fullmatch(key) else json.dumps(key)
+    return f"{path}.{shown}" if path else shown
+
+
+def _not_found(path, name, choices, what, none="there is none to choose from"):
+    """The error for a `name` that is not one of `choices`, with a did-you-mean hint."""
+    close = difflib.get_close_matches(name, choices, n=1)
+    if close:
+        hint = f"did you mean {close[0]!r}?"
+    elif choices:
+        hint = "expected one of " + ", ".join(repr(c) for c in choices)
+    else:
+        hint = none
+    return ConfigError(path, f"{what} {name!r}; {hint}")
+
+
+def _unknown(path, key, choices, what="unknown key"):
+    """The error for a key of the table at `path` that is not one of `choices`."""
+    return _not_found(_join(path, key), key, choices, what)
+
+
+class _Table:
+    """A TOML table being read: its key path, checked against the keys it may hold."""
+
+    def __init__(self, value, path, keys, what="unknown key", hints=None):
+        if not isinstance(value, dict):
+            raise ConfigError(path, f"expected a table, got {_show(value)}")
+        for key in value:
+            if key not in keys:
+                if hints and key in hints:
+                    raise ConfigError(_join(path, key), hints[key])
+                raise _unknown(path, key, tuple(keys), what)
+        self.data = value
+        self.path = path
+
+    def has(self, key):
+        return key in self.data
+
+    def at(self, key):
+        return _join(self.path, key)
+
+    def get(self, key, read, default=_REQUIRED, **options):
+        """Read `key` with `read(value, path, **options)`, or return the default when absent."""
+        if key not in self.data:
+            if default is _REQUIRED:
+                raise ConfigError(self.at(key), "missing (required)")
+            return default
+        return read(self.data[key], self.at(key), **options)
+
+
+def _number(value, path, low=None, high=None, low_open=False, high_open=False):
+    """A finite number within optional bounds, as float."""
+    if isinstance(value, bool) or not isinstance(value, (int, float)):
+        raise ConfigError(path, f"expected a number, got {_show(value)}")
+    try:
+        number = float(value)
+    except OverflowError:
+        raise ConfigError(path, f"{_show(value)} is too large") from None
+    if not math.isfinite(number):
+        raise ConfigError(path, f"must be finite, got {_show(value)}")
+    if low is not None and (number <= low if low_open else number < low):
+        raise ConfigError(path, f"must be {'>' if low_open else '>='} {low:g}, got {_show(value)}")
+    if high is not None and (number >= high if high_open else number > high):
+        raise ConfigError(path, f"must be {'<' if high_open else '<='} {high:g}, got {_show(value)}")
+    return number
+
+
+def _positive(value, path):
+    return _number(value, path, low=0.0, low_open=True)
+
+
+def _fraction(value, path):
+    """A number in the open interval (0, 1)."""
+    return _number(value, path, low=0.0, high=1.0, low_open=True, high_open=True)
+
+
+def _integer(value, path, low=0):
+    """An integer >= low (a float such as 100.0 is refused)."""
+    if isinstance(value, bool) or not isinstance(value, int):
+        raise ConfigError(path, f"expected an integer, got {_show(value)}")
+    if value < low:
+        raise ConfigError(path, f"must be >= {low}, got {value}")
+    if value > _INT64_MAX:
+        raise ConfigError(path, f"{_show(value)} is too large")
+    return value
+
+
+def _raw(value, path):
+    return value
+
+
+def _string(value, path):
+    if not isinstance(value, str):
+        raise ConfigError(path, f"expected a string, got {_show(value)}")
+    return value
+
+
+def _boolean(value, path):
+    if not isinstance(value, bool):
+        raise ConfigError(path, f"expected true or false, got {_show(value)}")
+    return value
+
+
+def _choice(value, path, choices):
+    """One of the strings `choices`."""
+    text = _string(value, path)
+    if text not in choices:
+        raise _not_found(path, text, choices, "unknown value")
+    return text
+
+
+def _name(value, path):
+    """A name: letters, digits and _ . + - (it becomes a column and group name)."""
+    text = _string(value, path)
+    if not _NAME.fullmatch(text):
+        raise ConfigError(path, f"bad name {text!r}: use letters, digits and _ . + - (not starting with . + -)")
+    return text
+
+
+def _array(value, path, length=None):
+    if not isinstance(value, list):
+        raise ConfigError(path, f"expected an array, got {_show(value)}")
+    if length is not None and len(value) != length:
+        raise ConfigError(path, f"expected {length} values, got {len(value)}: {_show(value)}")
+    return value
+
+
+def _range(value, path, words, low=None):
+    """A pair [a, b] of numbers with a < b; `words` names the two ends in messages."""
+    pair = _array(value, path, 2)
+    a, b = (_number(v, f"{path}[{i}]") for i, v in enumerate(pair))
+    if a > b:
+        raise ConfigError(path, f"{words[0]} {_show(pair[0])} exceeds {words[1]} {_show(pair[1])}")
+    if a == b:
+        raise ConfigError(path, f"{words[0]} {_show(pair[0])} equals {words[1]} {_show(pair[1])}: an empty range")
+    if low is not None and a < low[0]:
+        raise ConfigError(path, f"{words[0]} {_show(pair[0])} is below {low[0]:g} ({low[1]})")
+    return a, b
+
+
+def _tables(value, path, header):
+    """An array of tables ([[header]]): yields (item, key path)."""
+    if isinstance(value, dict):
+        raise ConfigError(path, f"expected an array of tables [[{header}]], got a single table [{header}]")
+    for i, item in enumerate(_array(value, path)):
+        yield item, f"{path}[{i}]"
+
+
+def _file(value, path, base):
+    """An existing file, resolved against `base`."""
+    text = _string(value, path)
+    try:
+        resolved = (base / text).resolve()
+        exists = resolved.is_file()
+    except (OSError, ValueError) as error:
+        raise ConfigError(path, f"bad file name {text!r}: {error}") from None
+    if not exists:
+        raise ConfigError(path, f"no such file {text!r} (looked for {str(resolved)!r})")
+    return resolved
+
+
+def _unique(names, path, what):
+    """Refuse duplicate names; `names` are in file order."""
+    seen = {}
+    for i, name in enumerate(names):
+        if name in seen:
+            raise ConfigError(f"{path}[{i}].name", f"duplicate {what} name {name!r} (also {path}[{seen[name]}])")
+        seen[name] = i
+
+
+def _metres(values_mm):
+    """A tuple of lengths in mm as metres."""
+    return tuple(v / _MM_PER_M for v in values_mm)
+
+
+def _within(x, span, path, shown, axis):
+    """Refuse a position `x` (m) outside `span` (m); `shown` is the value as written."""
+    if not span[0] <= x <= span[1]:
+        lo, hi = (v * _MM_PER_M for v in span)
+        raise ConfigError(path, f"{_show(shown)} is outside the domain's {axis} range {lo:g}..{hi:g} mm")
+
+
+# ---------------------------------------------------------------- the sections
+
+
+def _setup(data, source):
+    top = _Table(data, "", _TOP, what="unknown top-level key")
+    base = source.parent if source is not None else pathlib.Path.cwd()
+    title = top.get("title", _string, default="")
+    domain = _domain(top.get("domain", _raw))
+    if not top.has("electrode"):
+        raise ConfigError("electrode", "missing: give at least one [[electrode]]")
+    electrodes = tuple(_electrode(v, p, domain) for v, p in _tables(top.data["electrode"], "electrode", "electrode"))
+    if not electrodes:
+        raise ConfigError("electrode", "empty: give at least one [[electrode]]")
+    names = tuple(e.name for e in electrodes)
+    _unique(names, "electrode", "electrode")
+    _check_memory(domain, len(electrodes))
+    beams = tuple(_beam(v, p, domain, base) for v, p in _tables(top.data.get("beam", []), "beam", "beam"))
+    _unique([b.name for b in beams], "beam", "beam")
+    planes = tuple(_plane(v, p, domain) for v, p in _tables(top.data.get("plane", []), "plane", "plane"))
+    plane_names = tuple(p.name for p in planes)
+    _unique(plane_names, "plane", "plane")
+    return Setup(
+        title=title,
+        domain=domain,
+        electrodes=electrodes,
+        beams=beams,
+        planes=planes,
+        trace=top.get("trace", _trace, default=TraceOptions()),
+        scan=top.get("scan", _scan, default=None, names=names, base=base),
+        tune=top.get("tune", _tune, default=None, names=names, planes=plane_names, domain=domain),
+        gun=top.get("gun", _gun, default=None, names=names),
+        optics=top.get("optics", _optics, default=None),
+        source=source,
+    )
+
+
+@dataclass(frozen=True)
+class _Side:
+    """How the domain names its second coordinate ("r" or "y"), the words for a range's two
+    ends, the lower limit of shapes with its name (mirror domains), and why the other letter is wrong."""
+
+    letter: str
+    words: tuple[str, str]
+    below: tuple[float, str] | None
+    why_not_other: str
+
+    def hint(self, key):
+        """The hint for `key` (with "{}" for the letter) written with the other letter."""
+        other = "y" if self.letter == "r" else "r"
+        return {key.format(other): self.why_not_other}
+
+
+def _side(domain):
+    if not domain.mirror:
+        return _Side("y", ("lower y", "upper"), None, "this planar domain gives y_mm, so positions across z are y")
+    why = "positions across z are r here (y only when the domain gives y_mm)"
+    if domain.symmetry == "axial":
+        return _Side("r", ("inner radius", "outer"), (0.0, "the axis"), why)
+    return _Side("r", ("lower r", "upper"), (0.0, "the mirror plane"), why)
+
+
+def _domain(value):
+    t = _Table(value, "domain", ("symmetry", "z_mm", "r_mm", "y_mm", "cell_mm", "edges"))
+    symmetry = t.get("symmetry", _choice, choices=("axial", "planar"))
+    z = t.get("z_mm", _range, words=("start", "end"))
+    if t.has("r_mm") and t.has("y_mm"):
+        raise ConfigError("domain.y_mm", f"give r_mm or y_mm, not both (r_mm = {_show(t.data['r_mm'])} is also given)")
+    if t.has("y_mm"):
+        if symmetry == "axial":
+            raise ConfigError("domain.y_mm", "axial symmetry takes r_mm (the outer radius), not y_mm")
+        r = t.get("y_mm", _range, words=("lower y", "upper"))
+    else:
+        r = (0.0, t.get("r_mm", _positive))
+    cell = t.get("cell_mm", _positive)
+    shown = _show(t.data["cell_mm"])
+    for axis, (lo, hi) in (("z", z), ("r" if t.has("r_mm") else "y", r)):
+        cells = (hi - lo) / cell
+        if not cells >= 2:
+            raise ConfigError("domain.cell_mm", f"{shown} is coarser than half the {axis} extent {hi - lo:g} mm")
+        if not cells <= _MAX_CELLS:
+            raise ConfigError("domain.cell_mm", f"{shown} gives more than {_MAX_CELLS:g} cells across {axis}")
+    mirror = not t.has("y_mm")
+    edges = _edges(t.data.get("edges", "ground"), symmetry, mirror)
+    return Domain(symmetry, _metres(z), _metres(r), cell / _MM_PER_M, edges)
+
+
+def _edges(value, symmetry, mirror):
+    path = "domain.edges"
+    kinds = ("ground", "open")
+    if mirror:
+        sides = ("z_min", "z_max", "r_max")
+        axis = "the axis" if symmetry == "axial" else "the mirror plane"
+        only = "only with domain.y_mm; here the sides are z_min, z_max, r_max"
+        hints = {"r_min": f"not allowed: r = 0 is {axis}", "y_min": only, "y_max": only}
+    else:
+        sides = ("z_min", "z_max", "y_min", "y_max")
+        hints = dict.fromkeys(("r_min", "r_max"), "this domain gives y_mm: its sides are z_min, z_max, y_min, y_max")
+    if isinstance(value, str):
+        kind = _choice(value, path, kinds)
+        chosen = dict.fromkeys(sides, kind)
+    else:
+        t = _Table(value, path, sides, hints=hints)
+        chosen = {side: t.get(side, _choice, default="ground", choices=kinds) for side in sides}
+    if mirror:
+        return (chosen["z_min"], chosen["z_max"], "axis", chosen["r_max"])
+    return (chosen["z_min"], chosen["z_max"], chosen["y_min"], chosen["y_max"])
+
+
+def _check_memory(domain, n_electrodes):
+    """Refuse a grid whose field solution would not fit in memory."""
+    (z0, z1), (r0, r1), cell = domain.z_m, domain.r_m, domain.cell_m
+    nodes = ((z1 - z0) / cell + 1) * ((r1 - r0) / cell + 1)
+    need = nodes * _BYTES_PER_NODE_PER_ELECTRODE * n_electrodes
+    try:
+        limit = _MEMORY_SHARE * os.sysconf("SC_PAGE_SIZE") * os.sysconf("SC_PHYS_PAGES")
+    except (AttributeError, ValueError, OSError):
+        limit = _MAX_NODES * _BYTES_PER_NODE_PER_ELECTRODE
+    if need > limit:
+        coarser = cell * _MM_PER_M * math.sqrt(need / limit) * 1.01   # margin for the +1 node per side
+        step = 10.0 ** (math.floor(math.log10(coarser)) - 1) if math.isfinite(coarser) else math.inf
+        raise ConfigError(
+            "domain.cell_mm",
+            f"{cell * _MM_PER_M:g} mm gives a grid of {nodes:.3g} nodes, which for {n_electrodes} electrode(s) "
+            f"needs about {need / 1e9:.3g} GB, more than {limit / 1e9:.3g} GB ({_MEMORY_SHARE:.0%} of this "
+            f"machine's memory); use a coarser cell_mm, e.g. {math.ceil(coarser / step) * step:.3g}",
+        )
+
+
+def _electrode(value, path, domain):
+    t = _Table(value, path, ("name", "voltage_V", "rect", "polygon", "arc"))
+    name = t.get("name", _name)
+    if name == "csv":
+        raise ConfigError(t.at("name"), "'csv' is reserved (it is the [scan] key for a file of voltage sets)")
+    voltage = t.get("voltage_V", _number)
+    side = _side(domain)
+    shapes = []
+    for kind, read in (("rect", _rect), ("polygon", _polygon), ("arc", _arc)):
+        for item, item_path in _tables(t.data.get(kind, []), t.at(kind), f"electrode.{kind}"):
+            shape, box = read(item, item_path, side)
+            _check_inside(box, item_path, domain, side)
+            shapes.append(shape)
+    if not shapes:
+        tables = "[[electrode.rect]], [[electrode.polygon]] or [[electrode.arc]]"
+        raise ConfigError(path, f"electrode {name!r} has no shapes; give {tables}")
+    return Electrode(name, voltage, tuple(shapes))
+
+
+def _rect(value, path, side):
+    key = f"{side.letter}_mm"
+    t = _Table(value, path, ("z_mm", key), hints=side.hint("{}_mm"))
+    z = t.get("z_mm", _range, words=("start", "end"))
+    r = t.get(key, _range, words=side.words, low=side.below)
+    return Rect(_metres(z), _metres(r)), (*z, *r)
+
+
+def _polygon(value, path, side):
+    t = _Table(value, path, ("points_mm",))
+    points_path = t.at("points_mm")
+    raw = t.get("points_mm", _array)
+    if len(raw) < 3:
+        raise ConfigError(points_path, f"a polygon needs at least 3 points, got {len(raw)}")
+    points = []
+    for i, pair in enumerate(raw):
+        point_path = f"{points_path}[{i}]"
+        z, r = (_number(v, f"{point_path}[{j}]") for j, v in enumerate(_array(pair, point_path, 2)))
+        if side.below is not None and r < side.below[0]:
+            raise ConfigError(point_path, f"r {_show(pair[1])} is below {side.below[0]:g} ({side.below[1]})")
+        points.append((z, r))
+    zs, rs = [p[0] for p in points], [p[1] for p in points]
+    area = 0.5 * abs(sum(z0 * r1 - z1 * r0 for (z0, r0), (z1, r1) in zip(points, points[1:] + points[:1])))
+    size = max(max(zs) - min(zs), max(rs) - min(rs))
+    if not area > 1e-12 * size * size:
+        raise ConfigError(points_path, f"the polygon has zero area: {_show(raw)}")
+    shape = Polygon(tuple(_metres(p) for p in points))
+    return shape, (min(zs), max(zs), min(rs), max(rs))
+
+
+def _arc(value, path, side):
+    t = _Table(value, path, ("center_z_mm", "radii_mm", "angles_deg"))
+    cz = t.get("center_z_mm", _number)
+    rho = t.get("radii_mm", _range, words=("inner radius", "outer"), low=(0.0, "a radius"))
+    theta = t.get("angles_deg", _range, words=("first angle", "second"), low=(0.0, "the +z direction"))
+    if theta[1] > 180:
+        shown = _show(t.data["angles_deg"][1])
+        raise ConfigError(t.at("angles_deg"), f"second angle {shown} exceeds 180 (the -z direction)")
+    lo, hi = theta[0] * _DEG, theta[1] * _DEG
+    corners = [(a, b) for a in rho for b in (lo, hi)]
+    if lo < math.pi / 2 < hi:
+        corners.append((rho[1], math.pi / 2))
+    zs = [cz + a * math.cos(b) for a, b in corners]
+    rs = [a * math.sin(b) for a, b in corners]
+    shape = Arc(cz / _MM_PER_M, _metres(rho), (lo, hi))
+    return shape, (min(zs), max(zs), min(rs), max(rs))
+
+
+def _check_inside(box, path, domain, side):
+    """Refuse a shape whose bounding box (in mm) does not reach into the domain."""
+    zlo, zhi, rlo, rhi = box
+    z0, z1 = (v * _MM_PER_M for v in domain.z_m)
+    r0, r1 = (v * _MM_PER_M for v in domain.r_m)
+    if zhi <= z0 or zlo >= z1 or rhi <= r0 or rlo >= r1:
+        c = side.letter
+        raise ConfigError(
+            path,
+            f"wholly outside the domain: z {zlo:g}..{zhi:g} mm, {c} {rlo:g}..{rhi:g} mm; "
+            f"the domain spans z {z0:g}..{z1:g} mm, {c} {r0:g}..{r1:g} mm",
+        )
+
+
+def _species_of(t, default=_REQUIRED):
+    """The species of a table: `species` (a name) or `mass_u` + `charge_e`."""
+    if t.has("species"):
+        for key in ("mass_u", "charge_e"):
+            if t.has(key):
+                raise ConfigError(t.at(key), "give species or mass_u + charge_e, not both")
+        name = t.get("species", _string)
+        try:
+            return species(name)
+        except ValueError as error:
+            raise ConfigError(t.at("species"), str(error)) from None
+    if t.has("mass_u") or t.has("charge_e"):
+        mass = t.get("mass_u", _positive)
+        charge = t.get("charge_e", _number)
+        if charge == 0:
+            raise ConfigError(t.at("charge_e"), "must be non-zero, got 0 (a neutral particle is not steered)")
+        return custom_species(mass, charge)
+    if default is _REQUIRED:
+        raise ConfigError(t.at("species"), "missing (required; a name such as '40Ar+', or mass_u + charge_e)")
+    return default
+
+
+def _beam(value, path, domain, base):
+    side = _side(domain)
+    start_r = f"start_{side.letter}_mm"
+    distribution = ("energy_eV", "energy_spread_eV", "temperature_K", "count", "start_z_mm", start_r,
+                    "radius_mm", "profile", "half_angle_deg", "angles")
+    keys = ("name", "species", "mass_u", "charge_e", "seed", "current_A", "rays_csv") + distribution
+    t = _Table(value, path, keys, hints=side.hint("start_{}_mm"))
+    name = t.get("name", _name)
+    kind = _species_of(t)
+    seed = t.get("seed", _integer, default=0)
+    current = t.get("current_A", _positive, default=None)
+    if t.has("rays_csv"):
+        rays_csv = t.get("rays_csv", _file, base=base)
+        for key in distribution:
+            if t.has(key):
+                raise ConfigError(t.at(key), f"not used with rays_csv (the start rays come from {rays_csv.name!r})")
+        return Beam(name, kind, None, None, count=None, seed=seed, current_A=current, rays_csv=rays_csv)
+    angles = t.get("angles", _choice, default="uniform", choices=("uniform", "gaussian", "cosine"))
+    beam = Beam(
+        name,
+        kind,
+        energy_eV=t.get("energy_eV", _number, low=0.0),
+        start_z_m=t.get("start_z_mm", _number) / _MM_PER_M,
+        energy_spread_eV=t.get("energy_spread_eV", _number, default=0.0, low=0.0),
+        temperature_K=t.get("temperature_K", _positive, default=None),
+        count=t.get("count", _integer, default=100, low=1),
+        seed=seed,
+        start_r_m=t.get(start_r, _number, default=0.0) / _MM_PER_M,
+        radius_m=t.get("radius_mm", _number, default=0.0, low=0.0) / _MM_PER_M,
+        profile=t.get("profile", _choice, default="uniform", choices=("uniform", "gaussian")),
+        half_angle_rad=t.get("half_angle_deg", _number, default=90.0 if angles == "cosine" else 0.0,
+                             low=0.0, high=90.0) * _DEG,
+        angles=angles,
+        current_A=current,
+    )
+    _check_start(beam, t, domain, side.letter)
+    return beam
+
+
+def _check_start(beam, t, domain, c):
+    """Refuse a beam whose source centre, or uniform disc, is outside the domain (`c` is "r" or "y")."""
+    start_r = f"start_{c}_mm"
+    _within(beam.start_z_m, domain.z_m, t.at("start_z_mm"), t.data["start_z_mm"], "z")
+    _within(beam.start_r_m, domain.r_m, t.at(start_r), t.data.get(start_r, 0.0), c)
+    if beam.profile == "uniform" and beam.radius_m > 0:
+        r0, r1 = domain.r_m
+        near, far = beam.start_r_m - beam.radius_m, beam.start_r_m + beam.radius_m
+        if far > r1 or (not domain.mirror and near < r0):
+            raise ConfigError(
+                t.at("radius_mm"),
+                f"the source disc of radius {_show(t.data['radius_mm'])} mm about {c} = "
+                f"{beam.start_r_m * _MM_PER_M:g} mm reaches outside the domain's {c} range "
+                f"{r0 * _MM_PER_M:g}..{r1 * _MM_PER_M:g} mm",
+            )
+
+
+def _plane(value, path, domain):
+    t = _Table(value, path, ("name", "z_mm", "stop"))
+    name = t.get("name", _name)
+    z = t.get("z_mm", _number) / _MM_PER_M
+    _within(z, domain.z_m, t.at("z_mm"), t.data["z_mm"], "z")
+    return Plane(name, z, t.get("stop", _boolean, default=False))
+
+
+def _trace(value, path):
+    t = _Table(value, path, ("max_time_us", "max_time_ns", "rtol", "ledger_threshold", "keep_paths"))
+    if t.has("max_time_us") and t.has("max_time_ns"):
+        raise ConfigError(t.at("max_time_ns"), "give max_time_us or max_time_ns, not both")
+    defaults = TraceOptions()
+    max_time = defaults.max_time_s
+    for key, per_s in _PER_S.items():
+        if t.has(key):
+            max_time = t.get(key, _positive) / per_s
+    return TraceOptions(
+        max_time_s=max_time,
+        rtol=t.get("rtol", _fraction, default=defaults.rtol),
+        ledger_threshold=t.get("ledger_threshold", _fraction, default=defaults.ledger_threshold),
+        keep_paths=t.get("keep_paths", _integer, default=defaults.keep_paths),
+    )
+
+
+def _scan(value, path, names, base):
+    t = _Table(value, path, names + ("csv",), what="no electrode named")
+    if t.has("csv"):
+        if len(t.data) > 1:
+            other = next(k for k in t.data if k != "csv")
+            raise ConfigError(t.at(other), "give ranges or csv, not both")
+        file = t.get("csv", _file, base=base)
+        _check_scan_header(file, t.at("csv"), names)
+        return ScanSpec((), file)
+    if not t.data:
+        raise ConfigError(path, "empty: give ranges such as focus = [800.0, 1600.0, 41], or csv = 'sets.csv'")
+    return ScanSpec(tuple(_scan_range(t.data[name], t.at(name), name) for name in t.data))
+
+
+def _scan_range(value, path, name):
+    triple = _array(value, path, 3)
+    start, stop = (_number(v, f"{path}[{i}]") for i, v in enumerate(triple[:2]))
+    count = _integer(triple[2], f"{path}[2]", low=1)
+    if start > stop:
+        raise ConfigError(path, f"from {_show(triple[0])} exceeds to {_show(triple[1])}")
+    if (start == stop) != (count == 1):
+        raise ConfigError(path, f"from {_show(triple[0])}, to {_show(triple[1])} with count {count}: "
+                                "a single value needs from = to and count 1, a range from < to and count >= 2")
+    return (name, start, stop, count)
+
+
+def _check_scan_header(file, path, names):
+    """The CSV's header must name `<electrode>_V` columns."""
+    try:
+        with open(file, newline="", encoding="utf-8") as handle:
+            header = next(csv.reader(handle), [])
+    except (OSError, UnicodeDecodeError, csv.Error) as error:
+        raise ConfigError(path, f"cannot read {file.name!r}: {error}") from None
+    columns = [c.strip() for c in header]
+    if not columns:
+        raise ConfigError(path, f"{file.name!r} has no header row of <electrode>_V columns")
+    if len(set(columns)) < len(columns):
+        raise ConfigError(path, f"{file.name!r} repeats a column: {columns}")
+    for column in columns:
+        if not (column.endswith("_V") and column.removesuffix("_V") in names):
+            raise _not_found(path, column, tuple(n + "_V" for n in names), f"{file.name!r}: no electrode for column")
+
+
+_GOALS = ("smallest_spot", "most_transmitted", "landing_energy", "focus")
+_GOAL_KEYS = {"landing_energy": "landing_energy_eV", "focus": "focus_z_mm"}   # goals that take a value
+
+
+def _tune(value, path, names, planes, domain):
+    t = _Table(value, path, ("vary", "goal", "at", "seed"))
+    vary = _Table(t.get("vary", _raw), t.at("vary"), names, what="no electrode named")
+    if not vary.data:
+        raise ConfigError(vary.path, "empty: name the electrodes to vary, e.g. vary = { focus = [800.0, 1600.0] }")
+    ranges = tuple((name, *vary.get(name, _range, words=("lo", "hi"))) for name in vary.data)
+    goal, goal_value = t.get("goal", _goal, domain=domain)
+    at = t.get("at", _string, default=None)
+    if at is not None and at not in planes:
+        raise _not_found(t.at("at"), at, planes, "no plane named", none="the setup has no [[plane]]")
+    return TuneSpec(ranges, goal, goal_value, at, t.get("seed", _integer, default=0))
+
+
+def _goal(value, path, domain):
+    """(goal, value): a goal name, or a one-key table {landing_energy_eV = x} / {focus_z_mm = z}."""
+    if isinstance(value, str):
+        goal = _choice(value, path, _GOALS)
+        if goal in _GOAL_KEYS:
+            raise ConfigError(path, f"{goal!r} needs a value: goal = {{ {_GOAL_KEYS[goal]} = ... }}")
+        return goal, None
+    t = _Table(value, path, tuple(_GOAL_KEYS.values()))
+    if len(t.data) != 1:
+        raise ConfigError(path, f"expected one key of {', '.join(_GOAL_KEYS.values())}, got {len(t.data)}")
+    if t.has("landing_energy_eV"):
+        return "landing_energy", t.get("landing_energy_eV", _number, low=0.0)
+    z = t.get("focus_z_mm", _number) / _MM_PER_M
+    _within(z, domain.z_m, t.at("focus_z_mm"), t.data["focus_z_mm"], "z")
+    return "focus", z
+
+
+def _gun(value, path, names):
+    t = _Table(value, path, ("cathode", "emission", "rays", "temperature_K", "work_function_eV", "schottky",
+                             "relaxation", "max_iterations", "tolerance", "species", "mass_u", "charge_e"))
+    cathode = t.get("cathode", _string)
+    if cathode not in names:
+        raise _not_found(t.at("cathode"), cathode, names, "no electrode named")
+    emission = t.get("emission", _choice, default="space_charge", choices=("space_charge", "thermionic"))
+    thermionic = emission == "thermionic"
+    needed = _REQUIRED if thermionic else None
+    temperature = t.get("temperature_K", _positive, default=needed)
+    work_function = t.get("work_function_eV", _positive, default=needed)
+    schottky = t.get("schottky", _boolean, default=False)
+    if schottky and not thermionic:
+        raise ConfigError(t.at("schottky"), "true needs emission = 'thermionic'")
+    defaults = GunSpec(cathode)
+    return GunSpec(
+        cathode=cathode,
+        emission=emission,
+        rays=t.get("rays", _integer, default=defaults.rays, low=1),
+        temperature_K=temperature,
+        work_function_eV=work_function,
+        schottky=schottky,
+        relaxation=t.get("relaxation", _number, default=defaults.relaxation, low=0.0, high=1.0, low_open=True),
+        max_iterations=t.get("max_iterations", _integer, default=defaults.max_iterations, low=1),
+        tolerance=t.get("tolerance", _fraction, default=defaults.tolerance),
+        species=_species_of(t, default=defaults.species),
+    )
+
+
+def _optics(value, path):
+    t = _Table(value, path, ("species", "mass_u", "charge_e", "energy_eV", "object_z_mm"))
+    kind = _species_of(t)
+    energy = t.get("energy_eV", _positive)
+    z = t.get("object_z_mm", _number, default=None)
+    return OpticsSpec(kind, energy, None if z is None else z / _MM_PER_M)

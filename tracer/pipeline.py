@@ -1,0 +1,141 @@
+"""The steps from a setup to results: ``tracer.solve`` and ``tracer.run``.
+
+Each step is a function of the previous step's output (DESIGN §2); the command line and the
+Python API call the same functions.
+"""
+
+from __future__ import annotations
+
+import os
+from dataclasses import dataclass
+from pathlib import Path
+
+DEFAULT_RTOL = 1e-10
+CONFIGS = Path(__file__).resolve().parent.parent / "configs"
+DEMO_CONFIG = CONFIGS / "einzel_argon.toml"
+
+
+def default_cache_dir() -> Path:
+    """The folder of cached basis maps: ``$TRACER_CACHE``, else ``$XDG_CACHE_HOME/tracer``."""
+    if os.environ.get("TRACER_CACHE"):
+        return Path(os.environ["TRACER_CACHE"])
+    base = os.environ.get("XDG_CACHE_HOME") or Path.home() / ".cache"
+    return Path(base) / "tracer"
+
+
+def solve(setup, *, cache_dir=None, rtol: float = DEFAULT_RTOL, progress=None):
+    """Solve the basis maps of a setup: one unit map per electrode.
+
+    Parameters
+    ----------
+    setup : tracer.config.Setup
+    cache_dir : str or os.PathLike, optional
+        Folder of cached maps, keyed by a hash of the geometry and grid (not the voltages).  A
+        second solve of the same geometry loads the maps instead of solving.  None: no cache.
+    rtol : float
+        Relative residual the solver converges to.
+    progress : callable, optional
+        Called by the solver with its progress.
+
+    Returns
+    -------
+    tracer.fieldmap.BasisMaps
+    """
+    if cache_dir is None:
+        from tracer.fieldmap import solve_basis
+
+        return solve_basis(setup, rtol=rtol, progress=progress)
+    from tracer.cache import cached_solve
+
+    return cached_solve(setup, cache_dir, rtol=rtol, progress=progress)
+
+
+def write_solve_outputs(setup, maps, out) -> list[Path]:
+    """Write the basis maps (``maps.h5``) and the equipotential picture into a folder."""
+    from tracer.plot import plot_field
+    from tracer.store import write_maps
+
+    out = Path(out)
+    out.mkdir(parents=True, exist_ok=True)
+    field = maps.combine()
+    return [write_maps(out / "maps.h5", maps),
+            plot_field(field, out / "equipotentials.png", title=setup.title)]
+
+
+@dataclass(frozen=True)
+class RunResult:
+    """Everything a config asks for: the maps, the combined field and each beam's run.
+
+    Attributes
+    ----------
+    setup : tracer.config.Setup
+    maps : tracer.fieldmap.BasisMaps
+    field : tracer.fieldmap.PotentialMap
+        The potential at the setup's voltages.
+    beams : dict of str to tracer.beam.BeamRun
+        By beam name, in the order of the config.
+    """
+
+    setup: object
+    maps: object
+    field: object
+    beams: dict
+
+    def summary(self) -> dict:
+        """Each beam's :meth:`tracer.beam.BeamRun.summary`, by beam name."""
+        return {name: run.summary() for name, run in self.beams.items()}
+
+
+def trace_beam(field, beam, setup, progress=None):
+    """Trace one beam of a setup with its ``[trace]`` options and planes."""
+    from tracer.beam import trace
+
+    opts = setup.trace
+    return trace(field, beam, planes=setup.planes, rtol=opts.rtol, max_time_s=opts.max_time_s,
+                 keep_paths=opts.keep_paths, ledger_threshold=opts.ledger_threshold,
+                 progress=progress)
+
+
+def run(setup, *, maps=None, voltages=None, cache_dir=None, progress=None) -> RunResult:
+    """Solve (or reuse) the basis maps, combine them and trace every beam of the setup.
+
+    Parameters
+    ----------
+    setup : tracer.config.Setup
+    maps : tracer.fieldmap.BasisMaps, optional
+        Maps solved before; otherwise :func:`solve` is called.
+    voltages : mapping of str to float, optional
+        Voltages that replace the setup's.
+    cache_dir : str or os.PathLike, optional
+        Passed to :func:`solve`.
+    progress : callable, optional
+        ``progress(stage, done, total)``: stage is "solve" or a beam's name.
+
+    Returns
+    -------
+    RunResult
+    """
+    def stage(name):
+        return None if progress is None else (lambda done, total: progress(name, done, total))
+
+    if maps is None:
+        maps = solve(setup, cache_dir=cache_dir, progress=stage("solve"))
+    field = maps.combine(voltages)
+    beams = {b.name: trace_beam(field, b, setup, progress=stage(b.name)) for b in setup.beams}
+    return RunResult(setup, maps, field, beams)
+
+
+def write_run_outputs(result: RunResult, out) -> list[Path]:
+    """Write ``result.h5``, ``landings.csv`` and the pictures of a run into a folder."""
+    from tracer import plot
+    from tracer.store import write_landings_csv, write_result
+
+    out = Path(out)
+    out.mkdir(parents=True, exist_ok=True)
+    setup = result.setup
+    runs = list(result.beams.values())
+    files = [write_result(out / "result.h5", result.field, runs, setup=setup,
+                          summaries=result.summary()),
+             write_landings_csv(out / "landings.csv", runs)]
+    files += plot.run_figures(result.field, runs, out, title=setup.title)
+    return files

@@ -1,0 +1,102 @@
+"""Plain-text reports: the description of a setup and the summary tables of results."""
+
+from __future__ import annotations
+
+import math
+
+
+def describe(setup) -> str:
+    """A short description of a setup: domain, grid, electrodes, beams and planes.
+
+    Parameters
+    ----------
+    setup : tracer.config.Setup
+
+    Returns
+    -------
+    str
+        Several lines of text, ready to print.
+    """
+    d = setup.domain
+    cells_z = round((d.z_m[1] - d.z_m[0]) / d.cell_m)
+    cells_r = round((d.r_m[1] - d.r_m[0]) / d.cell_m)
+    side = "r" if d.symmetry == "axial" else "y"
+    lines = [
+        setup.title or "(untitled setup)",
+        f"domain: {d.symmetry}, z {d.z_m[0] * 1e3:g}..{d.z_m[1] * 1e3:g} mm, "
+        f"{side} {d.r_m[0] * 1e3:g}..{d.r_m[1] * 1e3:g} mm, cell {d.cell_m * 1e3:g} mm "
+        f"({cells_z + 1} x {cells_r + 1} = {(cells_z + 1) * (cells_r + 1):,} nodes)",
+        "edges: " + ", ".join(f"{s} {k}" for s, k in
+                              zip((f"z_min", "z_max", f"{side}_min", f"{side}_max"), d.edges)),
+        f"electrodes ({len(setup.electrodes)}):",
+    ]
+    for e in setup.electrodes:
+        kinds = ", ".join(type(s).__name__.lower() for s in e.shapes)
+        lines.append(f"  {e.name:<16s} {e.voltage_V:>10.1f} V   {kinds}")
+    for b in setup.beams:
+        lines.append(f"beam {b.name}: {b.count} x {b.species.name} at {b.energy_eV:g} eV, "
+                     f"from z = {b.start_z_m * 1e3:g} mm")
+    for p in setup.planes:
+        lines.append(f"plane {p.name}: z = {p.z_m * 1e3:g} mm" + (" (stops rays)" if p.stop else ""))
+    return "\n".join(lines)
+
+
+def format_table(header: list[str], rows: list[list], title: str | None = None) -> str:
+    """Align a table of strings and numbers in columns (numbers to 4 significant figures)."""
+    def cell(v):
+        if isinstance(v, float):
+            return "-" if not math.isfinite(v) else f"{v:.4g}"
+        return str(v)
+
+    body = [[cell(v) for v in row] for row in rows]
+    widths = [max(len(h), *(len(r[i]) for r in body)) if body else len(h)
+              for i, h in enumerate(header)]
+    out = [title] if title else []
+    out.append("  ".join(h.ljust(w) for h, w in zip(header, widths)))
+    out.append("  ".join("-" * w for w in widths))
+    out += ["  ".join(c.rjust(w) if i else c.ljust(w) for i, (c, w) in enumerate(zip(r, widths)))
+            for r in body]
+    return "\n".join(out)
+
+
+def _mm(v):
+    return v * 1e3
+
+
+def format_summary(summary: dict) -> str:
+    """The summary of one beam (``BeamRun.summary()``) as readable tables.
+
+    Returns
+    -------
+    str
+    """
+    s = summary
+    head = f"beam {s['beam']}: {s['rays']} rays of {s['species']}"
+    if math.isfinite(s.get("current_A", math.nan)):
+        head += f", {s['current_A']:.4g} A"
+    parts = [head]
+    status = ", ".join(f"{k} {v}" for k, v in s["status"].items() if v)
+    parts.append(f"rays ended: {status or 'none'}")
+    if s["landing"]:
+        rows = [[name, d["count"], d["fraction"], d["current_A"], d["energy_mean_eV"],
+                 d["energy_std_eV"], d["energy_min_eV"], d["energy_max_eV"],
+                 _mm(d["radius_min_m"]), _mm(d["radius_max_m"])] for name, d in s["landing"].items()]
+        parts.append(format_table(
+            ["electrode", "rays", "fraction", "current A", "E mean eV", "E std eV", "E min eV",
+             "E max eV", "r min mm", "r max mm"], rows, title="landed on electrodes"))
+    if s["planes"]:
+        rows = [[name, d["fraction"], _mm(d["centroid_x_m"]), _mm(d["centroid_y_m"]),
+                 _mm(d["rms_radius_m"]), d["rms_divergence_x_rad"] * 1e3,
+                 d["emittance_x_m_rad"] * 1e6, d["norm_emittance_x_m_rad"] * 1e6,
+                 d["energy_mean_eV"], d["energy_std_eV"], d["time_mean_s"] * 1e9,
+                 d["time_std_s"] * 1e9] for name, d in s["planes"].items()]
+        parts.append(format_table(
+            ["plane", "fraction", "x0 mm", "y0 mm", "rms r mm", "rms x' mrad", "emit x mm mrad",
+             "norm emit", "E mean eV", "E std eV", "tof ns", "tof std ns"], rows,
+            title="crossed planes"))
+    parts.append(f"energy ledger: worst |dKE - q dV| = {s['ledger_worst_eV']:.3g} eV "
+                 f"({s['ledger_worst_relative']:.2g} of the energy scale); "
+                 f"{s['ledger_suspects']} ray(s) above {s['ledger_threshold']:.0e}")
+    if s["warning"]:
+        parts.append(f"WARNING: {s['warning']}")
+    return "\n\n".join(parts)

@@ -1,0 +1,197 @@
+"""Shortley–Weller five-point stencils read from a Raster.
+
+The discrete operator is minus the Laplacian, written per free node as
+
+    d u_0 - sum_k c_k u_k = f,     d = sum_k c_k,
+
+with the four arms k = (+z, -z, +r, -r).  An arm that meets a conductor surface at a fraction
+theta of the spacing ends on the surface (its value moves to the right-hand side); otherwise it ends
+on the neighbouring node.  Unequal arms use the distance-weighted second difference
+
+    u_xx ~ 2 / (h_p + h_m) [ (u_p - u_0) / h_p - (u_0 - u_m) / h_m ],
+
+and in axial symmetry the term u_r / r uses the unequal-arm central first difference.  On the axis
+(r = 0) the limit u_rr + u_r / r -> 2 u_rr is taken with the mirror image u(-r) = u(r).  An "open"
+edge (zero normal field), a planar mirror plane and the axis all mirror the inward arm onto the
+missing outward one, so the outward coefficient is folded into the inward one.
+
+Nodes inside electrodes and on "ground" edges are fixed; all kernels keep them at zero in the
+homogeneous unknown, so a neighbour that is a fixed node contributes only through the right-hand side.
+"""
+
+import numpy as np
+from numba import njit, prange
+
+GROUND = 0
+OPEN = 1
+AXIS = 2
+REGULAR = 0  # node kinds: a free node away from edges and surfaces
+FIXED = 1  # inside an electrode or on a ground edge
+CUT = 2  # a free node on an edge or with an arm ending on a surface
+EDGE_CODES = {"ground": GROUND, "open": OPEN, "axis": AXIS}
+
+
+def stencil_params(grid):
+    """Pack a Grid's spacing, symmetry and edges for the kernels.
+
+    Parameters
+    ----------
+    grid : tracer.grid.Grid
+        The node grid (any level of a multigrid hierarchy).
+
+    Returns
+    -------
+    geo : float64[4]
+        (hz, hr, r0, axial) with axial 1.0 for cylindrical (z, r) and 0.0 for planar (z, y).
+    edges : int64[4]
+        Edge codes (GROUND, OPEN or AXIS) for (z_min, z_max, r_min, r_max).
+    """
+    axial = 1.0 if grid.symmetry == "axial" else 0.0
+    geo = np.array([grid.hz, grid.hr, grid.r0, axial], dtype=np.float64)
+    try:
+        edges = np.array([EDGE_CODES[e] for e in grid.edges], dtype=np.int64)
+    except KeyError as err:
+        raise ValueError(f"unknown edge kind {err.args[0]!r}") from None
+    if edges[0] == AXIS or edges[1] == AXIS or edges[3] == AXIS:
+        raise ValueError("only the r_min edge can be an axis or mirror plane")
+    if axial and edges[2] != AXIS and grid.r0 <= 0.0:
+        raise ValueError("an axial grid starting at r = 0 must have the axis as its r_min edge")
+    return geo, edges
+
+
+@njit(cache=True)
+def is_fixed(iz, ir, nz, nr, owner, edges):
+    """True for a node inside an electrode or on a ground edge."""
+    if owner[iz, ir] >= 0:
+        return True
+    if iz == 0 and edges[0] == GROUND:
+        return True
+    if iz == nz - 1 and edges[1] == GROUND:
+        return True
+    if ir == 0 and edges[2] == GROUND:
+        return True
+    if ir == nr - 1 and edges[3] == GROUND:
+        return True
+    return False
+
+
+@njit(cache=True)
+def on_surface(arm, arm_owner, iz, ir, k):
+    """True when arm k of node (iz, ir) ends on a conductor surface short of the neighbour."""
+    return arm_owner[iz, ir, k] >= 0 and arm[iz, ir, k] < 1.0
+
+
+@njit(cache=True)
+def _theta(arm, arm_owner, iz, ir, k):
+    if on_surface(arm, arm_owner, iz, ir, k):
+        return max(arm[iz, ir, k], 1e-6)
+    return 1.0
+
+
+@njit(cache=True)
+def _pair(hp, hm):
+    """Second-difference coefficients for arms of lengths hp (forward) and hm (backward)."""
+    s = hp + hm
+    return 2.0 / (hp * s), 2.0 / (hm * s)
+
+
+@njit(cache=True)
+def coefficients(iz, ir, nz, nr, tzp, tzm, trp, trm, geo, edges):
+    """Coefficients c_k of the arms (+z, -z, +r, -r) of a free node with arm fractions t.
+
+    A folded (mirrored) arm has coefficient 0 and its share is added to the inward arm.
+    """
+    hz, hr, r0, axial = geo[0], geo[1], geo[2], geo[3]
+    if iz == 0:
+        ce, cw = 2.0 / (tzp * hz) ** 2, 0.0
+    elif iz == nz - 1:
+        ce, cw = 0.0, 2.0 / (tzm * hz) ** 2
+    else:
+        ce, cw = _pair(tzp * hz, tzm * hz)
+    hp = trp * hr
+    hm = trm * hr
+    if ir == 0:
+        fold = 4.0 if (axial > 0.0 and edges[2] == AXIS) else 2.0
+        cn, cs = fold / hp**2, 0.0
+    elif ir == nr - 1:
+        cn, cs = 0.0, 2.0 / hm**2
+    else:
+        cn, cs = _pair(hp, hm)
+        if axial > 0.0:
+            s = hp + hm
+            r = r0 + ir * hr
+            cn += hm / (hp * s * r)
+            cs -= hp / (hm * s * r)
+    return ce, cw, cn, cs
+
+
+@njit(cache=True)
+def arm_coefficients(iz, ir, nz, nr, arm, arm_owner, geo, edges):
+    """``coefficients`` of node (iz, ir) with the arm fractions of the raster."""
+    return coefficients(
+        iz,
+        ir,
+        nz,
+        nr,
+        _theta(arm, arm_owner, iz, ir, 0),
+        _theta(arm, arm_owner, iz, ir, 1),
+        _theta(arm, arm_owner, iz, ir, 2),
+        _theta(arm, arm_owner, iz, ir, 3),
+        geo,
+        edges,
+    )
+
+
+@njit(cache=True)
+def neighbour(iz, ir, k):
+    """Indices of the neighbouring node along arm k."""
+    iz = np.int64(iz)
+    ir = np.int64(ir)
+    if k == 0:
+        return iz + 1, ir
+    if k == 1:
+        return iz - 1, ir
+    if k == 2:
+        return iz, ir + 1
+    return iz, ir - 1
+
+
+@njit(cache=True)
+def end_owner(iz, ir, k, owner, arm, arm_owner):
+    """Electrode at the end of arm k (the surface hit, or the neighbour node's owner); -1 if none."""
+    if on_surface(arm, arm_owner, iz, ir, k):
+        return arm_owner[iz, ir, k]
+    jz, jr = neighbour(iz, ir, k)
+    return owner[jz, jr]
+
+
+@njit(cache=True, parallel=True)
+def node_kinds(owner, arm, arm_owner, edges):
+    """REGULAR, FIXED or CUT for every node (int8[nz, nr])."""
+    nz, nr = owner.shape
+    out = np.empty((nz, nr), dtype=np.int8)
+    for iz in prange(nz):
+        for ir in range(nr):
+            if is_fixed(iz, ir, nz, nr, owner, edges):
+                out[iz, ir] = FIXED
+            elif iz == 0 or iz == nz - 1 or ir == 0 or ir == nr - 1:
+                out[iz, ir] = CUT
+            else:
+                out[iz, ir] = REGULAR
+                for k in range(4):
+                    if on_surface(arm, arm_owner, iz, ir, k):
+                        out[iz, ir] = CUT
+    return out
+
+
+@njit(cache=True)
+def regular_table(nr, geo, edges):
+    """Coefficients of REGULAR nodes by radial index: rows (c_z, c_+r, c_-r, diagonal)."""
+    tab = np.zeros((4, nr))
+    for ir in range(1, nr - 1):
+        ce, cw, cn, cs = coefficients(1, ir, 3, nr, 1.0, 1.0, 1.0, 1.0, geo, edges)
+        tab[0, ir] = ce
+        tab[1, ir] = cn
+        tab[2, ir] = cs
+        tab[3, ir] = ce + cw + cn + cs
+    return tab
