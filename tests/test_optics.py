@@ -55,7 +55,8 @@ class Step:
         """s(z, r) for r < R."""
         kz = np.multiply.outer(np.asarray(z, float), self.k)
         kr = np.multiply.outer(np.asarray(r, float), self.k)
-        ratio = special.ive(0, kr) * np.exp(kr - self.k * self.radius) / special.ive(0, self.k * self.radius)
+        ratio = (special.ive(0, kr) * np.exp(kr - self.k * self.radius)
+                 / special.ive(0, self.k * self.radius))
         return (np.sin(kz) / self.k * ratio) @ self.w
 
 
@@ -65,12 +66,13 @@ def bessel_series(z, r, radius, terms=400):
     Harting & Read (1976) tabulate the lenses built from it."""
     j = special.jn_zeros(0, terms)
     z = np.asarray(z, float)
-    t = special.j0(np.multiply.outer(r, j) / radius) * np.exp(-np.multiply.outer(np.abs(z), j) / radius)
+    t = (special.j0(np.multiply.outer(r, j) / radius)
+         * np.exp(-np.multiply.outer(np.abs(z), j) / radius))
     return np.sign(z) * (1.0 - 2.0 * (t / (j * special.j1(j))).sum(-1))
 
 
 class Tubes:
-    """Tubes of radius R in a row, zero gaps: wall potential v_first, changing by dv[k] at cuts[k]."""
+    """Tubes of radius R in a row, zero gaps: wall potential v_first, changing by dv at cuts."""
 
     def __init__(self, v_first, cuts, dv, radius=R):
         self.step = Step(radius)
@@ -85,7 +87,8 @@ class Tubes:
 
     def potential(self, z, r):
         z = np.asarray(z, float)
-        return self.v_first + sum(0.5 * d * (1.0 + self.step.value(z - c, r)) for c, d in self.jumps)
+        return self.v_first + sum(0.5 * d * (1.0 + self.step.value(z - c, r))
+                                  for c, d in self.jumps)
 
     @cached_property
     def table(self):
@@ -139,7 +142,8 @@ def accelerating(lens, sp, energy_eV, z0=-HALF):
 
 
 def direct_paraxial(phi, eps, y0, z0, z1):
-    """solve_ivp (DOP853) of the paraxial equation r'' + gamma Phi'/(2 Phi*) r' + gamma Phi''/(4 Phi*) r = 0
+    """solve_ivp (DOP853) of the paraxial equation
+    r'' + gamma Phi'/(2 Phi*) r' + gamma Phi''/(4 Phi*) r = 0
     (Hawkes & Kasper 1989) with the exact axial potential; returns (r, r') at z1."""
     def rhs(z, y):
         f, f1, f2 = (float(v) for v in phi(z))
@@ -303,20 +307,22 @@ def einzel(v_centre, length=2 * R):
     return Tubes(0.0, [-length / 2, length / 2], [v_centre, -v_centre])
 
 
-@pytest.mark.parametrize("strength", [0.02, 0.04])
-def test_weak_unipotential_lens_thin_lens_formula(strength):
+def test_weak_unipotential_lens_thin_lens_formula():
     """Weak unipotential lens, nonrelativistic: 1/f = (3/16) int (Phi'/Phi)^2 dz
-    (Hawkes & Kasper 1989).  The formula is first order in the strength, so the relative
-    difference must be small and shrink in proportion to it (here < 0.6 x strength)."""
+    (Hawkes & Kasper 1989), the weak-lens limit: the relative difference is small (< 5 % of the
+    centre voltage over the energy) and grows with the strength."""
     energy = 5000.0
-    lens = einzel(strength * energy)
-    p = paraxial(tube_map(lens), PROTON, energy)
-    phi, _ = accelerating(lens, PROTON, energy)
-    inv_f = 3 / 16 * quad(lambda z: (phi(z)[1] / phi(z)[0]) ** 2, -HALF, HALF, points=[-R, R],
-                          limit=200)[0]
-    rel = abs(p.f_image_m * inv_f - 1)
-    assert rel < 0.6 * strength, rel
-    assert p.f_object_m == pytest.approx(p.f_image_m, rel=1e-9)   # same potential both sides
+    misses = []
+    for strength in (0.1, 0.2):
+        lens = einzel(strength * energy)
+        p = paraxial(tube_map(lens), PROTON, energy)
+        phi, _ = accelerating(lens, PROTON, energy)
+        inv_f = 3 / 16 * quad(lambda z: (phi(z)[1] / phi(z)[0]) ** 2, -HALF, HALF,
+                              points=[-R, R], limit=200)[0]
+        misses.append(abs(p.f_image_m * inv_f - 1))
+        assert misses[-1] < 0.05 * strength, (strength, misses[-1])
+        assert p.f_object_m == pytest.approx(p.f_image_m, rel=1e-9)   # same potential both sides
+    assert misses[1] > misses[0]
 
 
 def test_relativistic_paraxial_matches_traced_rays():
@@ -338,7 +344,7 @@ def test_relativistic_weak_lens_formula():
     """Weak unipotential lens for 300 keV electrons against the relativistic thin-lens formula
     1/f = (1/16) int (3 + 4 eps Phi*) (Phi'/Phi*)^2 dz, the Picht-transformed form of the
     V* paraxial equation (Hawkes & Kasper 1989; reduces to 3/16 for eps -> 0)."""
-    energy, strength = 300e3, 0.02
+    energy, strength = 300e3, 0.1
     lens = einzel(-strength * energy)          # a retarding centre for electrons
     p = paraxial(tube_map(lens), ELECTRON, energy)
     phi, eps = accelerating(lens, ELECTRON, energy)
@@ -349,7 +355,7 @@ def test_relativistic_weak_lens_formula():
         return (3 + 4 * eps * ps * relativistic) * (f1 / ps) ** 2 / 16
     inv_f = quad(integrand, -HALF, HALF, args=(True,), points=[-R, R], limit=200)[0]
     inv_f_nonrel = quad(integrand, -HALF, HALF, args=(False,), points=[-R, R], limit=200)[0]
-    assert abs(p.f_image_m * inv_f - 1) < 0.6 * strength
+    assert abs(p.f_image_m * inv_f - 1) < 0.05 * strength
     assert abs(p.f_image_m * inv_f_nonrel - 1) > 0.1     # the correction matters here
 
 
@@ -399,8 +405,9 @@ def test_cs_cc_relativistic_against_traced_rays():
 
 @pytest.mark.parametrize("object_z", [None, -10 * R])
 def test_cs_equals_scherzer_integral(object_z):
-    """Nonrelativistic limit: the eikonal perturbation integral equals Scherzer's integral in
-    the form of Hawkes & Kasper 1989, on the exact potential."""
+    """Nonrelativistic limit: the eikonal perturbation integral equals Scherzer's integral
+    (Scherzer 1936) in the form of Hawkes & Kasper 1989 (from memory; the same coefficients
+    follow from integrating M4 by parts), on the exact potential."""
     p = paraxial(tube_map(ACCEL), PROTON, 1000.0, object_z_m=object_z)
     phi, _ = accelerating(ACCEL, PROTON, 1000.0)
     u0 = [1.0, 0.0] if object_z is None else [-HALF - object_z, 1.0]
@@ -474,3 +481,123 @@ def test_species_by_name_and_bad_input():
                                                                          "symmetry": "planar"}))
     with pytest.raises(OpticsError, match="axially symmetric"):
         paraxial(planar, PROTON, 1000.0)
+
+
+def test_axis_ends_at_an_electrode_and_at_z_range():
+    """The axis used stops before the first axis node inside an electrode (a target plate), and
+    ``z_range_m`` selects a stretch: the same lens as a map cut to that stretch."""
+    m = tube_map(ACCEL)
+    z = np.linspace(-HALF, HALF, 241)
+    owner = np.full((z.size, 3), -1)
+    owner[z >= 5 * R, :] = 0                                   # a plate from z = 5R on
+    plated = SimpleNamespace(potential=m.potential, grid=m.grid,
+                             raster=SimpleNamespace(owner=owner))
+    p = paraxial(plated, PROTON, 1000.0)
+    assert p.z_m[-1] < 5 * R <= p.z_m[-1] + m.grid.hz * 1.0001
+    cut = paraxial(m, PROTON, 1000.0, z_range_m=(-HALF, p.z_m[-1]))
+    assert cut.f_image_m == p.f_image_m and cut.cs_m == p.cs_m
+    short = paraxial(stand_in(m.potential, half=5 * R), PROTON, 1000.0)
+    ranged = paraxial(m, PROTON, 1000.0, z_range_m=(-5 * R, 5 * R))
+    assert ranged.z_m[0] == pytest.approx(-5 * R) and ranged.z_m[-1] == pytest.approx(5 * R)
+    for name in ("f_image_m", "focus_image_z_m", "cs_m", "cc_m"):
+        assert getattr(ranged, name) == pytest.approx(getattr(short, name), rel=1e-4), name
+    with pytest.raises(OpticsError, match="free space"):
+        paraxial(m, PROTON, 1000.0, z_range_m=(7 * R, 8 * R))
+
+
+# ------------------------------------------------------------ real solved maps and rays
+
+TUBES_TOML = """
+title = "two equal tubes, 0.5 mm gap: a lens for the optics tests (illustrative)"
+[domain]
+symmetry = "axial"
+z_mm = [0.0, 60.0]
+r_mm = 8.0
+cell_mm = 0.25
+edges = { z_min = "open", z_max = "open", r_max = "ground" }
+[[electrode]]
+name = "first"
+voltage_V = 0.0
+[[electrode.rect]]
+z_mm = [0.0, 29.75]
+r_mm = [5.0, 6.0]
+[[electrode]]
+name = "second"
+voltage_V = -9000.0
+[[electrode.rect]]
+z_mm = [30.25, 60.0]
+r_mm = [5.0, 6.0]
+"""
+TUBE_R = 5e-3
+CENTRE = 30e-3
+
+
+@pytest.fixture(scope="module")
+def solved():
+    """The two-tube lens solved on a 0.25 mm grid (R/20) and its paraxial properties."""
+    from tracer.config import loads
+    from tracer.pipeline import solve
+
+    field = solve(loads(TUBES_TOML)).combine()
+    return field, paraxial(field, PROTON, 1000.0)
+
+
+@pytest.fixture(scope="module")
+def traced(solved, tmp_path_factory):
+    """Rays traced through the solved map by tracer.beam.trace: one near-axis ray, five parallel
+    rays at 0.2..0.5 R for Cs, two at 0.05 R with the energy -+1 eV for Cc."""
+    from tracer.beam import trace
+    from tracer.config import Beam, Plane
+
+    field, p = solved
+    z_start = 0.5e-3
+    v = field.potential(np.array([0.0, z_start]), np.zeros(2))
+    e_start = 1000.0 - (v[1] - v[0])               # kinetic energy at z_start for 1 keV at z_min
+    rows = ([(1e-3 * TUBE_R, e_start)] + [(h * TUBE_R, e_start) for h in np.linspace(0.2, 0.5, 5)]
+            + [(0.05 * TUBE_R, e_start - 1.0), (0.05 * TUBE_R, e_start + 1.0)])
+    path = tmp_path_factory.mktemp("optics") / "rays.csv"
+    path.write_text("x_m,y_m,z_m,dx/dz,dy/dz,energy_eV\n"
+                    + "".join(f"{float(x)!r},0,{z_start!r},0,0,{float(e)!r}\n" for x, e in rows))
+    beam = Beam(name="protons", species=PROTON, energy_eV=None, start_z_m=None, count=None,
+                rays_csv=path)
+    exit_z = field.grid.z1 - 1e-3
+    run = trace(field, beam, planes=[Plane("focus", p.focus_image_z_m), Plane("exit", exit_z)],
+                rtol=1e-10, max_time_s=1e-5)
+    at = {name: np.sort(run.at_plane(name), order="ray") for name in ("focus", "exit")}
+    assert len(at["focus"]) == len(rows) and len(at["exit"]) == len(rows)
+    return np.array([x for x, _ in rows]), at, exit_z
+
+
+def test_real_two_tube_map_matches_bessel_series_lens(solved):
+    """The solved two-tube lens (gap R/10) against the zero-gap Bessel-series lens of the same
+    radius (separation of variables; Harting & Read 1976): f and F to 1 % of f."""
+    _, p = solved
+    exact = paraxial(tube_map(ACCEL), PROTON, 1000.0)        # R = 10 mm; lengths scale with R
+    scale = TUBE_R / R
+    assert p.f_image_m == pytest.approx(exact.f_image_m * scale, rel=0.01)
+    assert p.f_object_m == pytest.approx(exact.f_object_m * scale, rel=0.01)
+    assert abs(p.focus_image_z_m - CENTRE - exact.focus_image_z_m * scale) < 0.01 * p.f_image_m
+
+
+def test_real_rays_focus_at_the_paraxial_focus(solved, traced):
+    """A near-axis parallel ray traced through the solved map crosses the axis where the paraxial
+    focus says, to 1 % of f (the issue's check)."""
+    _, p = solved
+    heights, at, exit_z = traced
+    x, slope = at["exit"]["x_m"][0], at["exit"]["px"][0] / at["exit"]["pz"][0]
+    assert abs(exit_z - x / slope - p.focus_image_z_m) < 0.01 * p.f_image_m
+    assert -heights[0] / slope == pytest.approx(p.f_image_m, rel=0.01)
+
+
+def test_real_rays_cs_cc_match_the_integrals(solved, traced):
+    """Cs and Cc from the aberration integrals against fits to rays traced through the solved map
+    (r in the Gaussian focal plane against alpha, alpha^3, alpha^5; and against the energy), to
+    15 % (the issue's check)."""
+    _, p = solved
+    heights, at, _ = traced
+    r = at["focus"]["x_m"]
+    alpha = -heights[1:6] / p.f_image_m
+    cs = np.linalg.lstsq(np.column_stack([alpha, alpha ** 3, alpha ** 5]), r[1:6], rcond=None)[0][1]
+    cc = -(r[7] - r[6]) / 2.0 * p.exit_energy_eV / (-heights[6] / p.f_image_m)
+    assert p.cs_m == pytest.approx(cs, rel=0.15)
+    assert p.cc_m == pytest.approx(cc, rel=0.15)

@@ -18,11 +18,20 @@ _PUBLIC = {
     "species": "tracer.species",
     "BasisMaps": "tracer.fieldmap",
     "PotentialMap": "tracer.fieldmap",
-    "solve": "tracer.api",
+    "solve": "tracer.pipeline",
     "trace": "tracer.beam",
     "BeamRun": "tracer.beam",
-    "run": "tracer.api",
-    "RunResult": "tracer.api",
+    "run": "tracer.pipeline",
+    "RunResult": "tracer.pipeline",
+    "paraxial": "tracer.optics",
+    "LensProperties": "tracer.optics",
+    "OpticsError": "tracer.optics",
+    "gun": "tracer.gun",
+    "GunResult": "tracer.gun",
+    "scan": "tracer.scan",
+    "ScanResult": "tracer.scan",
+    "tune": "tracer.tune",
+    "TuneResult": "tracer.tune",
 }
 
 __all__ = sorted(_PUBLIC) + ["__version__"]

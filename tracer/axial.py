@@ -101,22 +101,48 @@ def fit_axial(z, v, knot_cells: int = 3) -> AxialPotential:
     return AxialPotential(z=z, samples=v, spline=make_lsq_spline(z, v, knots, k=DEGREE))
 
 
-def axial_potential(field, knot_cells: int = 3) -> AxialPotential:
+def axial_potential(field, knot_cells: int = 3, z_range_m=None) -> AxialPotential:
     """The axial potential of a potential map, sampled at the map's z nodes.
+
+    The nodes used are the first unbroken run of axis nodes that lie in free space
+    (not inside an electrode, when the map has a ``raster``) and within ``z_range_m``:
+    the axis ends where it enters an electrode, such as a target plate.
 
     Parameters
     ----------
     field : PotentialMap
         Any object with ``potential(z, r)`` (V at arrays of points) and a ``grid``
-        with ``z0``, ``z1`` (first and last node z, m) and ``hz`` (node spacing, m).
+        with ``z0``, ``z1`` (first and last node z, m) and ``hz`` (node spacing, m);
+        optionally a ``raster`` whose ``owner[:, 0]`` is >= 0 at axis nodes inside
+        an electrode.
     knot_cells : int
         See :func:`fit_axial`.
+    z_range_m : (float, float), optional
+        Use only the nodes with z in this closed interval.
 
     Returns
     -------
     AxialPotential
+
+    Raises
+    ------
+    ValueError
+        If too few nodes remain.
     """
     g = field.grid
     n = int(round((g.z1 - g.z0) / g.hz)) + 1
     z = np.linspace(g.z0, g.z1, n)
+    use = np.ones(n, dtype=bool)
+    raster = getattr(field, "raster", None)
+    if raster is not None:
+        use &= np.asarray(raster.owner)[:, 0] < 0
+    if z_range_m is not None:
+        lo, hi = z_range_m
+        slack = 1e-9 * g.hz
+        use &= (z >= lo - slack) & (z <= hi + slack)
+    first = int(np.argmax(use))
+    if not use[first]:
+        raise ValueError("no axis node lies in free space within the range asked for")
+    stop = first + (int(np.argmin(use[first:])) if not use[first:].all() else n - first)
+    z = z[first:stop]
     return fit_axial(z, field.potential(z, np.zeros_like(z)), knot_cells)

@@ -109,10 +109,24 @@ def _stage_progress(args):
     return update
 
 
+def _with_rays(setup, rays):
+    """The setup with every drawn beam cut to ``rays`` rays (``--rays``), for a quick look."""
+    if rays is None:
+        return setup
+    if rays < 1:
+        raise InputError(f"--rays: {rays} must be a positive number of rays")
+    import dataclasses
+
+    beams = tuple(b if b.rays_csv is not None else dataclasses.replace(b, count=min(b.count, rays))
+                  for b in setup.beams)
+    return dataclasses.replace(setup, beams=beams)
+
+
 def _run_config(setup, args, out: Path, echo) -> int:
     from tracer.pipeline import run, write_run_outputs
     from tracer.report import format_summary
 
+    setup = _with_rays(setup, args.rays)
     result = run(setup, cache_dir=_cache_dir(args), progress=_stage_progress(args))
     for summary in result.summary().values():
         echo(format_summary(summary))
@@ -143,11 +157,196 @@ def cmd_demo(args, echo) -> int:
     return code
 
 
+def cmd_gun(args, echo) -> int:
+    import numpy as np
+
+    from tracer.gun import gun
+    from tracer.plot import plot_field
+    from tracer.stats import plane_stats
+
+    setup = _load(args.config)
+    if setup.gun is None:
+        raise InputError(f"{args.config}: no [gun] section")
+    out = _out_dir(args)
+    result = gun(setup, cache_dir=_cache_dir(args),
+                 progress=_progress(args, "gun iterations", unit="iteration"))
+    per = "A/m" if setup.domain.symmetry == "planar" else "A"
+    state = "converged" if result.converged else "NOT converged"
+    echo(f"{setup.title}\n  {state} after {result.iterations} iterations "
+         f"(current {', '.join(f'{h:.4g}' for h in result.history['current_A'])} {per})")
+    echo(f"  current {result.current_A:.5g} {per}, perveance {result.perveance_A_per_V1p5:.4g} "
+         f"{per}/V^1.5 at {result.voltage_V:g} V")
+    echo("  emission across the cathode:   z (mm)    r (mm)   J (A/cm^2)  limit")
+    rows = result.emission
+    for row in rows[np.unique(np.linspace(0, len(rows) - 1, min(len(rows), 8)).astype(int))]:
+        limit = "space charge" if row["limited"] else "temperature"
+        echo(f"  {'':29s}{row['z_m'] * 1e3:8.3f}  {row['r_m'] * 1e3:8.3f}  "
+             f"{row['density_A_per_m2'] * 1e-4:11.4g}  {limit}")
+    if result.crossover_z_m is None:
+        echo("  crossover: none inside the domain")
+    else:
+        echo(f"  crossover at z = {result.crossover_z_m * 1e3:.3f} mm, "
+             f"rms radius {result.crossover_radius_m * 1e3:.4g} mm")
+    for plane in setup.planes if result.run is not None else ():
+        st = plane_stats(result.run.at_plane(plane.name), result.run.species, len(result.run.records))
+        echo(f"  plane {plane.name}: {st.fraction:.1%} of rays, rms radius {st.rms_radius_m * 1e3:.4g} mm, "
+             f"emittance x {st.emittance_x_m_rad * 1e6:.4g} mm mrad "
+             f"(normalized {st.norm_emittance_x_m_rad * 1e6:.4g}); rays unweighted")
+    if result.warning:
+        echo(f"warning: {result.warning}")
+    out.mkdir(parents=True, exist_ok=True)
+    echo(f"wrote {plot_field(result.field, out / 'gun.png', paths=result.paths_zr(), title=setup.title)}")
+    _caution(setup, echo)
+    return 0
+
+
+def cmd_show(args, echo) -> int:
+    from tracer.plot import run_figures
+    from tracer.report import format_summary
+    from tracer.store import StoreError, read_result
+
+    if not Path(args.config).is_file():
+        raise InputError(f"{args.config}: no such result file")
+    try:
+        result = read_result(args.config)
+    except StoreError as exc:
+        raise InputError(str(exc)) from exc
+    echo(result.title)
+    echo("")
+    for summary in result.summaries.values():
+        echo(format_summary(summary))
+        echo("")
+    out = Path(args.out) if args.out else Path(args.config).parent
+    out.mkdir(parents=True, exist_ok=True)
+    for f in run_figures(result.field, list(result.beams.values()), out, title=result.title):
+        echo(f"wrote {f}")
+    if max((abs(v) for v in result.field.voltages), default=0.0) > HIGH_VOLTAGE:
+        echo(CAUTION)
+    return 0
+
+
+def _caution_with(setup, volts, echo) -> None:
+    """The caution when any of these voltages (scanned or tuned), or the setup's, exceeds 1 kV."""
+    if max((abs(v) for v in volts), default=0.0) > HIGH_VOLTAGE:
+        echo(CAUTION)
+    else:
+        _caution(setup, echo)
+
+
+def _scan_executor(address):
+    """A context manager yielding a dask.distributed executor at ``address``, or None for no address."""
+    import contextlib
+
+    if not address:
+        return contextlib.nullcontext(None)
+    try:
+        from distributed import Client
+    except ImportError:
+        raise InputError("--scheduler needs dask.distributed: pip install 'tracer[cluster]'") from None
+
+    @contextlib.contextmanager
+    def connected():
+        try:
+            client = Client(address, timeout="20s")
+        except (OSError, TimeoutError, ValueError) as exc:
+            raise InputError(f"--scheduler {address}: cannot connect ({exc})") from None
+        with client:
+            yield client.get_executor()
+
+    return connected()
+
+
+def cmd_scan(args, echo) -> int:
+    import numpy as np
+
+    from tracer.pipeline import solve
+    from tracer.plot import plot_scan
+    from tracer.scan import scan
+
+    setup = _load(args.config)
+    if setup.scan is None:
+        raise InputError(f"{args.config}: no [scan] section")
+    if args.workers is not None and args.workers < 1:
+        raise InputError(f"--workers: {args.workers} must be at least 1")
+    out = _out_dir(args)
+    maps = solve(setup, cache_dir=_cache_dir(args), progress=_progress(args, "solving"))
+    try:
+        with _scan_executor(args.scheduler) as executor:
+            result = scan(setup, maps, executor, out=out, workers=args.workers,
+                          progress=_progress(args, "scanning", unit="set"))
+    except KeyboardInterrupt:
+        print(f"tracer: the finished sets are kept in {out / 'scan.csv'}; run the same command "
+              "again to continue", file=sys.stderr)
+        raise
+    table = result.table
+    echo(f"{setup.title}\n  {len(table)} voltage sets of {', '.join(result.names)} "
+         f"({result.resumed} from an earlier run) in {result.elapsed_s:.1f} s")
+    for figure in (f for f in result.figures if f.rpartition(".")[2] == "spot_rms_m"):
+        if np.isfinite(table[figure]).any():
+            k = int(np.nanargmin(table[figure]))
+            at = ", ".join(f"{n} = {table[f'{n}_V'][k]:g} V" for n in result.names)
+            echo(f"  smallest {figure}: {table[figure][k] * 1e3:.4g} mm at {at}")
+    for f in result.files + tuple(plot_scan(table, result.names, out, title=setup.title)):
+        echo(f"wrote {f}")
+    _caution_with(setup, [float(v) for n in result.names for v in table[f"{n}_V"]], echo)
+    return 0
+
+
+def cmd_tune(args, echo) -> int:
+    from tracer.pipeline import solve
+    from tracer.plot import plot_tune
+    from tracer.tune import tune
+
+    setup = _load(args.config)
+    if setup.tune is None:
+        raise InputError(f"{args.config}: no [tune] section")
+    out = _out_dir(args)
+    maps = solve(setup, cache_dir=_cache_dir(args), progress=_progress(args, "solving"))
+    result = tune(setup, maps)
+    where = f" at {setup.tune.at}" if setup.tune.at else ""
+    echo(f"{setup.title}\n  goal {result.goal}{where}: {result.figure} = {result.value:.6g} "
+         f"after {result.evaluations} voltage sets ({result.method})")
+    for name, volts in result.voltages.items():
+        echo(f"  {name:<16s} {volts:12.4f} V")
+    out.mkdir(parents=True, exist_ok=True)
+    echo(f"wrote {plot_tune(result, out / 'tune.png')}")
+    _caution_with(setup, result.voltages.values(), echo)
+    return 0
+
+
+def cmd_optics(args, echo) -> int:
+    from tracer.optics import OpticsError, paraxial
+    from tracer.pipeline import solve
+    from tracer.plot import plot_optics
+    from tracer.report import format_optics
+
+    setup = _load(args.config)
+    if setup.optics is None:
+        raise InputError(f"{args.config}: no [optics] table (species, energy_eV, object_z_mm)")
+    spec = setup.optics
+    maps = solve(setup, cache_dir=_cache_dir(args), progress=_progress(args, "solving"))
+    try:
+        props = paraxial(maps.combine(), spec.species, spec.energy_eV, object_z_m=spec.object_z_m)
+    except OpticsError as exc:
+        raise InputError(f"optics: {exc}") from exc
+    echo(format_optics(props))
+    out = _out_dir(args)
+    out.mkdir(parents=True, exist_ok=True)
+    echo(f"wrote {plot_optics(props, out / 'optics.png')}")
+    _caution(setup, echo)
+    return 0
+
+
 COMMANDS = {
     "check": (cmd_check, "validate a config and describe it"),
     "solve": (cmd_solve, "solve the basis maps and draw the equipotentials"),
     "run": (cmd_run, "solve if needed, trace every beam, write the report"),
     "demo": (cmd_demo, "run a bundled example into a fresh folder"),
+    "gun": (cmd_gun, "iterate a gun's emission with its space charge until the current settles"),
+    "optics": (cmd_optics, "paraxial lens properties and aberrations on the axis"),
+    "show": (cmd_show, "print the summary of a result file and draw its pictures again"),
+    "scan": (cmd_scan, "trace the beams at every voltage set of [scan]; resumes where it stopped"),
+    "tune": (cmd_tune, "find the voltages of [tune] that best meet its goal"),
 }
 
 
@@ -158,18 +357,29 @@ def build_parser() -> argparse.ArgumentParser:
     sub = parser.add_subparsers(dest="command", required=True, metavar="COMMAND")
     for name, (_, help_text) in COMMANDS.items():
         p = sub.add_parser(name, help=help_text, description=help_text)
-        if name != "demo":
+        if name == "show":
+            p.add_argument("config", metavar="RESULT", help="a result.h5 file written by tracer run")
+        elif name != "demo":
             p.add_argument("config", metavar="CONFIG", help="the setup, a TOML file")
         p.add_argument("--debug", action="store_true", help="show tracebacks")
         p.add_argument("--quiet", action="store_true", help="no progress output")
         if name == "demo":
             p.add_argument("--out", metavar="DIR", help="a fresh output folder (default tracer-demo/)")
+        elif name == "show":
+            p.add_argument("--out", metavar="DIR", help="folder for the pictures (default: beside RESULT)")
         elif name != "check":
             p.add_argument("--out", metavar="DIR", help="output folder (default CONFIG-stem.out/)")
-        if name != "check":
+        if name not in ("check", "show"):
             p.add_argument("--cache", metavar="DIR", default=None,
                            help="folder of cached basis maps (default $TRACER_CACHE or ~/.cache/tracer)")
             p.add_argument("--no-cache", action="store_true", help="solve again, cache nothing")
+        if name in ("run", "demo"):
+            p.add_argument("--rays", type=int, metavar="N", help="trace at most N rays per beam")
+        if name == "scan":
+            p.add_argument("--workers", type=int, metavar="N",
+                           help="local worker processes (default: the CPU count; 1: in this process)")
+            p.add_argument("--scheduler", metavar="ADDRESS",
+                           help="run the sets on a dask.distributed scheduler (pip install 'tracer[cluster]')")
     return parser
 
 

@@ -383,7 +383,7 @@ class OpticsSpec:
     species : Species
         The particles.
     energy_eV : float
-        Kinetic energy where the potential is 0 V, eV (> 0).
+        Kinetic energy at the z_min end of the map (on the axis), eV (> 0).
     object_z_m : float or None
         Object position, metres; None for an object at infinity.
     """

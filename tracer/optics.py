@@ -2,11 +2,12 @@
 
 Method
 ------
-*Accelerating potential.*  For a particle of charge q and mass m entering at the
-map's z_min end with kinetic energy T0, the accelerating potential
-Phi(z) = T(z)/|q| = T0/|q| - sign(q) (V(z) - V(z_min)) is zero where the particle
-would be at rest.  With eps = |q|/(2 m c^2) the relativistically corrected
-potential is Phi* = Phi (1 + eps Phi), and gamma = 1 + 2 eps Phi.
+*Accelerating potential.*  For a particle of charge q and mass m with kinetic
+energy T0 where the axial potential equals V(z_min), its value at the map's
+z_min end, the accelerating potential Phi(z) = T(z)/|q| =
+T0/|q| - sign(q) (V(z) - V(z_min)) is zero where the particle would be at rest.
+With eps = |q|/(2 m c^2) the relativistically corrected potential is
+Phi* = Phi (1 + eps Phi), and gamma = 1 + 2 eps Phi.
 
 *Paraxial ray equation* (Hawkes & Kasper, Principles of Electron Optics, 1989)::
 
@@ -16,8 +17,9 @@ integrated by the classical Runge-Kutta method, 16 steps a grid cell, aligned
 with the polynomial pieces of the axial potential (:mod:`tracer.axial`) so that
 every step sees one smooth polynomial.  The fundamental rays are g, parallel to
 the axis at z_min (g = 1, g' = 0), and gbar, parallel at z_max, integrated
-backwards.  The map's ends are taken as field-free: the cardinal elements are
-the asymptotic ones.
+backwards; z_min and z_max are the ends of the stretch of axis used (the map's
+unless cut, see :func:`paraxial`).  These ends are taken as field-free: the
+cardinal elements are the asymptotic ones.
 
 *Sign conventions.*  z increases along the beam.  Image side (object at
 infinity): f_image = -1/g'(z_max), F_i = z_max - g/g', P_i = F_i - f_image.
@@ -45,8 +47,9 @@ axial object point (u = g for an object at infinity) and u'_i its image slope:
   data is never needed.  The end terms of that integration (W Phi''' - W' Phi'',
   W the factor of Phi'''') vanish at field-free map ends and are left out;
   taken from the fit they would only carry its end artefacts.  In the
-  nonrelativistic limit the result equals Scherzer's integral in the form given
-  by Hawkes & Kasper 1989, Cs = 1/(16 sqrt(Phi_i) u'_i^4) integral sqrt(Phi)
+  nonrelativistic limit the result equals Scherzer's integral (Scherzer 1936) in
+  the form given by Hawkes & Kasper 1989 (recalled, and re-derived from M4 by
+  parts), Cs = 1/(16 sqrt(Phi_i) u'_i^4) integral sqrt(Phi)
   [(5/4 (Phi''/Phi)^2 + 5/24 (Phi'/Phi)^4) u^4 + 14/3 (Phi'/Phi)^3 u^3 u'
   - 3/2 (Phi'/Phi)^2 u^2 u'^2] dz (checked in the tests); written as above it
   holds for relativistic electrons too.  The integral runs from the object to
@@ -94,13 +97,15 @@ class LensProperties:
     ``image_cc_m`` (image side).  See the module docstring for the conventions.
 
     ``mirror`` is True when the particle turns back on the axis (at
-    ``turning_z_m``); the lens quantities are then NaN.
+    ``turning_z_m``); the lens quantities and rays are then NaN.  ``energy_eV`` is
+    the entrance energy asked for, ``exit_energy_eV`` the kinetic energy at the end
+    of the axis used.
 
-    For plots: ``z_m`` (the map's z nodes), ``axial`` (rows V, V', V'', V''',
-    V'''' of the fitted axial potential, in V/m^k), ``ray_g`` (the ray entering
-    parallel at unit height), ``ray_gbar`` (the ray leaving parallel at unit
-    height), ``ray_h`` (the ray from the axial object point with unit initial
-    slope; NaN before the object or when none was given).
+    For plots: ``z_m`` (the axis nodes used), ``axial`` (rows V, V', V'', V''',
+    V'''' of the fitted axial potential at ``z_m``, in V/m^k), ``ray_g`` (the ray
+    entering parallel at unit height), ``ray_gbar`` (the ray leaving parallel at
+    unit height), ``ray_h`` (the ray from the axial object point with unit initial
+    slope, in m; NaN before the object or when none was given).
     """
 
     f_image_m: float
@@ -138,8 +143,8 @@ class _Kinetics:
     """The accelerating potential seen by one species at one entrance energy."""
 
     axial: AxialPotential
-    phi0: float     # accelerating potential at z_min (V)
-    v0: float       # fitted potential at z_min (V)
+    phi0: float     # accelerating potential where the axial potential is v0 (V)
+    v0: float       # the map's potential on the axis at its z_min end (V)
     sign: float     # sign of the charge
     eps: float      # |q| / (2 m c^2) (1/V)
 
@@ -190,7 +195,13 @@ def _quartic_weight(phi, d1, d2, eps):
 
 @njit(cache=True)
 def _slope(z, y, n, z0, width, taylor, phi0, v0, sign, eps, out):
-    """d/dz of the state of n rays: heights, slopes, Cs and Cc integrands (module docstring)."""
+    """d/dz of the state of n rays: heights, slopes, Cs and Cc integrands (module docstring).
+
+    The Cs integrand is M4 = sqrt(Phi*) [-r'^4/8 - gamma Phi'' r^2 r'^2 / (16 Phi*)
+    + r^4 (gamma Phi'''' / (128 Phi*) + eps Phi''^2 / (32 Phi*) - gamma^2 Phi''^2 / (128 Phi*^2))]
+    with its Phi'''' term A r^4 Phi'''' replaced by (A r^4)'' Phi'' (two integrations by
+    parts), r'' taken from the paraxial equation.
+    """
     phi, d1, d2 = _phi_at(z, z0, width, taylor, phi0, v0, sign)
     ps = phi * (1.0 + eps * phi)
     gam = 1.0 + 2.0 * eps * phi
@@ -258,7 +269,8 @@ def _image_side(kin: _Kinetics, z1: float, end, k: int, n: int, front_m: float =
     s1 = math.sqrt(kin.star(phi1))
     with np.errstate(divide="ignore", invalid="ignore"):
         z_img = z1 - np.float64(u) / du
-        m4 = i4 - front_m * math.sqrt(kin.star(kin.phi0)) / 8.0 - (z_img - z1) * s1 * du ** 4 / 8.0
+        s0 = math.sqrt(kin.star(float(kin.phi(kin.axial.z[0]))))
+        m4 = i4 - front_m * s0 / 8.0 - (z_img - z1) * s1 * du ** 4 / 8.0
         cs = -4.0 * m4 / (s1 * np.float64(du) ** 4)
         cc = phi1 * i2 / (s1 * np.float64(du) ** 2)
     return float(z_img), float(cs), float(cc)
@@ -285,7 +297,7 @@ def _turning_point(kin: _Kinetics, z: np.ndarray):
 
 
 def paraxial(field, species, energy_eV: float, object_z_m: float | None = None, *,
-             knot_cells: int = 3) -> LensProperties:
+             z_range_m=None, knot_cells: int = 3) -> LensProperties:
     """Paraxial lens properties and aberration coefficients from a potential map.
 
     Parameters
@@ -297,11 +309,17 @@ def paraxial(field, species, energy_eV: float, object_z_m: float | None = None, 
         A species name (see :func:`tracer.species.species`) or an object with
         ``name``, ``mass_kg`` and ``charge_C``.
     energy_eV : float
-        Kinetic energy on the axis at the map's z_min end (> 0).
+        Kinetic energy (> 0) where the axial potential equals its value at the map's
+        z_min end.
     object_z_m : float, optional
-        An axial object position before the map's z_max (before z_min means in the
-        field-free space in front of the map).  Gives ``image_z_m``,
+        An axial object position before the end of the axis used (before its start
+        means in field-free space in front of it).  Gives ``image_z_m``,
         ``magnification``, ``image_cs_m`` and ``image_cc_m``.
+    z_range_m : (float, float), optional
+        Use only this stretch of the axis (one lens of a column, say).  Either way the
+        axis used ends where it enters an electrode (see
+        :func:`tracer.axial.axial_potential`); ``z_m`` of the result shows it.  Its
+        ends are taken as field-free.
     knot_cells : int
         Knot spacing of the axial-potential fit, in cells (see :mod:`tracer.axial`).
 
@@ -312,8 +330,8 @@ def paraxial(field, species, energy_eV: float, object_z_m: float | None = None, 
     Raises
     ------
     OpticsError
-        For a non-axial map, a non-positive energy, a neutral species or an object
-        beyond the map's end.
+        For a non-axial map, a non-positive energy, a neutral species, an object
+        beyond the end of the axis used, or too short a free stretch of axis.
     """
     grid = field.grid
     if grid.symmetry != "axial":
@@ -323,13 +341,18 @@ def paraxial(field, species, energy_eV: float, object_z_m: float | None = None, 
     sp = _species(species)
     if sp.charge_C == 0.0:
         raise OpticsError(f"species {sp.name!r} is neutral")
-    if object_z_m is not None and not object_z_m < grid.z1:
-        raise OpticsError(f"object_z_m = {object_z_m} must lie before the map's end z = {grid.z1}")
-    ax = axial_potential(field, knot_cells)
+    try:
+        ax = axial_potential(field, knot_cells, z_range_m)
+    except ValueError as exc:
+        raise OpticsError(str(exc)) from exc
     z = ax.z
     z0, z1 = float(z[0]), float(z[-1])
+    if object_z_m is not None and not object_z_m < z1:
+        raise OpticsError(f"object_z_m = {object_z_m} must lie before the end of the axis used, "
+                          f"z = {z1}")
+    v_ref = float(field.potential(np.array([grid.z0]), np.zeros(1))[0])
     q = abs(sp.charge_C)
-    kin = _Kinetics(axial=ax, phi0=energy_eV * constants.e / q, v0=float(ax(z0)),
+    kin = _Kinetics(axial=ax, phi0=energy_eV * constants.e / q, v0=v_ref,
                     sign=math.copysign(1.0, sp.charge_C),
                     eps=q / (2.0 * sp.mass_kg * constants.c ** 2))
     nan = math.nan

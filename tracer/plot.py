@@ -120,16 +120,16 @@ def plot_landing_energy(runs, path) -> Path | None:
     return Path(path)
 
 
-def plot_landing_positions(runs, path) -> Path | None:
+def plot_landing_positions(runs, path, symmetry="axial") -> Path | None:
     """Where rays landed: z against r (or y) of each landing, one colour per electrode."""
     rows = [(run, run.records[run.records["status"] == "landed"]) for run in runs]
     rows = [(run, r) for run, r in rows if len(r)]
     if not rows:
         return None
     fig, ax = plt.subplots(figsize=(7, 4), layout="constrained")
-    side = "y" if rows[0][0].symmetry == "planar" else "r"
+    side = "y" if symmetry == "planar" else "r"
     for run, r in rows:
-        zr = _path_zr(r, run.symmetry)
+        zr = _path_zr(r, symmetry)
         for name in np.unique(r["electrode"]):
             sel = r["electrode"] == name
             ax.scatter(zr[sel, 0] * MM, zr[sel, 1] * MM, s=4, label=f"{run.name} on {name}")
@@ -142,12 +142,15 @@ def plot_landing_positions(runs, path) -> Path | None:
     return Path(path)
 
 
-def plot_phase_space(run, plane, path) -> Path | None:
-    """Transverse phase space at a plane: (r, r') in axial symmetry, (y, y') in planar."""
-    rows = run.at_plane(plane)
+def plot_phase_space(run, plane, path, symmetry="axial") -> Path | None:
+    """Transverse phase space at a plane: (r, r') in axial symmetry, (y, y') in planar.
+
+    ``run`` is a BeamRun or a beam read back from a result file (anything with ``name`` and
+    ``crossings``)."""
+    rows = run.crossings[run.crossings["plane"] == plane]
     if not len(rows):
         return None
-    if run.symmetry == "planar":
+    if symmetry == "planar":
         u, slope, side = rows["y_m"], rows["py"] / rows["pz"], "y"
     else:
         u = np.hypot(rows["x_m"], rows["y_m"])
@@ -156,7 +159,8 @@ def plot_phase_space(run, plane, path) -> Path | None:
                              / (u * rows["pz"]), 0.0)
         side = "r"
     fig, ax = plt.subplots(figsize=(5.5, 4.2), layout="constrained")
-    ax.scatter(u * MM, slope * 1e3, s=3, c=rows["energy_eV"], cmap="viridis")
+    dots = ax.scatter(u * MM, slope * 1e3, s=3, c=rows["energy_eV"], cmap="viridis")
+    fig.colorbar(dots, ax=ax, label="kinetic energy (eV)")
     ax.set_xlabel(f"{side} (mm)")
     ax.set_ylabel(f"{side}' (mrad)")
     ax.set_title(f"beam {run.name} at plane {plane}", fontsize=10)
@@ -166,12 +170,184 @@ def plot_phase_space(run, plane, path) -> Path | None:
 
 
 def run_figures(field, runs, out, title=None) -> list[Path]:
-    """All pictures of a run: rays over the equipotentials, landings, phase space at each plane."""
+    """All pictures of a run: rays over the equipotentials, landings, phase space at each plane.
+
+    ``runs`` are BeamRuns or beams read back from a result file (``name``, ``records``,
+    ``crossings``, ``paths``, ``planes``)."""
     out = Path(out)
-    paths = [_path_zr(p, run.symmetry) for run in runs for p in run.paths]
+    sym = field.grid.symmetry
+    paths = [_path_zr(p, sym) for run in runs for p in run.paths]
     files = [plot_field(field, out / "rays.png", paths=paths, title=title),
              plot_landing_energy(runs, out / "landing_energy.png"),
-             plot_landing_positions(runs, out / "landing_positions.png")]
-    files += [plot_phase_space(run, plane, out / f"phase_{run.name}_{plane}.png")
+             plot_landing_positions(runs, out / "landing_positions.png", sym)]
+    files += [plot_phase_space(run, plane, out / f"phase_{run.name}_{plane}.png", sym)
               for run in runs for plane in run.planes]
     return [f for f in files if f is not None]
+
+
+_UNITS = (("_mrad", 1.0, "mrad"), ("_rad", 1e3, "mrad"), ("_m", MM, "mm"), ("_s", 1e6, "µs"),
+          ("_eV", 1.0, "eV"), ("_V", 1.0, "V"))
+
+
+def _scaled(name):
+    """(factor, axis label) of a table column from its unit suffix (fractions have none)."""
+    for suffix, factor, unit in _UNITS:
+        if name.endswith(suffix):
+            return factor, f"{name.removesuffix(suffix)} ({unit})"
+    return 1.0, name
+
+
+def _grid_of(x, y, v):
+    """The values as a 2-D array when the sets are the product of the unique x and y, else None."""
+    ux, uy = np.unique(x), np.unique(y)
+    if len(ux) * len(uy) != len(x):
+        return None
+    ix, iy = np.searchsorted(ux, x), np.searchsorted(uy, y)
+    if len(np.unique(ix * len(uy) + iy)) != len(x):
+        return None
+    grid = np.full((len(ux), len(uy)), np.nan)
+    grid[ix, iy] = v
+    return ux, uy, grid
+
+
+def _scan_panel(fig, ax, table, names, figure):
+    factor, label = _scaled(figure)
+    v = table[figure] * factor
+    if len(names) == 1:
+        x = table[f"{names[0]}_V"]
+        order = np.argsort(x, kind="stable")
+        ax.plot(x[order], v[order], marker=".", lw=1)
+        ax.set_xlabel(f"{names[0]} (V)")
+        ax.set_ylabel(label, fontsize=8)
+        return
+    x, y = table[f"{names[0]}_V"], table[f"{names[1]}_V"]
+    grid = _grid_of(x, y, v)
+    if grid is None:
+        art = ax.scatter(x, y, c=v, s=16, cmap="viridis")
+    else:
+        art = ax.pcolormesh(grid[0], grid[1], grid[2].T, shading="nearest", cmap="viridis")
+    fig.colorbar(art, ax=ax, label=label)
+    ax.set_xlabel(f"{names[0]} (V)")
+    ax.set_ylabel(f"{names[1]} (V)")
+
+
+def plot_scan(table, names, out, title=None) -> list[Path]:
+    """Scan pictures: each figure against the voltage (one varied electrode) or as a map (two).
+
+    One PNG per group of columns that share a prefix (``scan.png`` for the unprefixed figures,
+    ``scan_<prefix>.png`` for the others, see :mod:`tracer.scan`), one panel per figure; figures
+    that are NaN at every set are left out.
+
+    Parameters
+    ----------
+    table : numpy structured array
+        ``ScanResult.table``.
+    names : sequence of str
+        The varied electrodes (1 or 2; none are drawn for more).
+    out : str or Path
+        Folder for the PNG files.
+    title : str, optional
+
+    Returns
+    -------
+    list of Path
+    """
+    if len(names) not in (1, 2) or not len(table):
+        return []
+    groups = {}
+    for figure in table.dtype.names[len(names):]:
+        if np.isfinite(table[figure]).any():
+            groups.setdefault(figure.rpartition(".")[0], []).append(figure)
+    files = []
+    for prefix, figures in groups.items():
+        cols = min(len(figures), 3 if len(names) == 1 else 2)
+        rows = -(-len(figures) // cols)
+        fig, axes = plt.subplots(rows, cols, figsize=(4.2 * cols, 2.9 * rows), layout="constrained",
+                                 squeeze=False)
+        for ax, figure in zip(axes.ravel(), figures):
+            _scan_panel(fig, ax, table, names, figure)
+            ax.set_title(figure, fontsize=8)
+        for ax in axes.ravel()[len(figures):]:
+            ax.set_visible(False)
+        fig.suptitle(title or (f"scan: {prefix}" if prefix else "scan"), fontsize=10)
+        path = Path(out) / ("scan.png" if not prefix else f"scan_{prefix.replace('.', '_')}.png")
+        fig.savefig(path, dpi=120)
+        plt.close(fig)
+        files.append(path)
+    return files
+
+
+def plot_tune(result, path) -> Path:
+    """The trials of a tune: the figure against the voltage (one varied electrode) or against the
+    trial number (several), with the best trial marked.
+
+    Parameters
+    ----------
+    result : tracer.tune.TuneResult
+    path : str or Path
+        The PNG to write.
+    """
+    points = result.points
+    names = list(result.voltages)
+    factor, label = _scaled(result.figure)
+    best = int(np.argmin(points["objective"]))
+    fig, ax = plt.subplots(figsize=(6.5, 4), layout="constrained")
+    x = points[f"{names[0]}_V"] if len(names) == 1 else np.arange(1, len(points) + 1)
+    ax.scatter(x, points["value"] * factor, s=10, label="trials")
+    ax.scatter([x[best]], [points["value"][best] * factor], s=60, marker="*", color="crimson",
+               label="best: " + ", ".join(f"{n} = {v:.6g} V" for n, v in result.voltages.items()))
+    ax.set_xlabel(f"{names[0]} (V)" if len(names) == 1 else "trial")
+    ax.set_ylabel(label)
+    ax.set_title(f"tune: {result.goal}", fontsize=10)
+    ax.legend(fontsize=8)
+    fig.savefig(path, dpi=150)
+    plt.close(fig)
+    return Path(path)
+
+
+def plot_optics(props, path) -> Path:
+    """The axial potential and its first two derivatives, and the fundamental paraxial rays.
+
+    Parameters
+    ----------
+    props : tracer.optics.LensProperties
+    path : str or Path
+    """
+    z = props.z_m * MM
+    fig, (top, bottom) = plt.subplots(2, 1, figsize=(9, 6.5), sharex=True, layout="constrained")
+    top.plot(z, props.axial[0], color="black", label="V (V)")
+    twin = top.twinx()
+    twin.plot(z, props.axial[1], color="tab:blue", lw=0.9, label="V' (V/m)")
+    twin.plot(z, props.axial[2] * 1e-3, color="tab:orange", lw=0.9, label="V'' (kV/m²)")
+    top.set_ylabel("axial potential V (V)")
+    twin.set_ylabel("V' (V/m), V'' (kV/m²)")
+    lines = top.get_lines() + twin.get_lines()
+    top.legend(lines, [l.get_label() for l in lines], fontsize=8, loc="best")
+    if props.mirror:
+        top.axvline(props.turning_z_m * MM, color="crimson", ls="--")
+        top.set_title(f"{props.species} at {props.energy_eV:g} eV turns back at "
+                      f"z = {props.turning_z_m * MM:.4g} mm (a mirror)", fontsize=10)
+    else:
+        top.set_title(f"{props.species} at {props.energy_eV:g} eV: f = {props.f_image_m * MM:.4g} mm"
+                      f" (image side), Cs = {props.cs_m * MM:.4g} mm, Cc = {props.cc_m * MM:.4g} mm",
+                      fontsize=10)
+        bottom.plot(z, props.ray_g, label="g: enters parallel at unit height")
+        bottom.plot(z, props.ray_gbar, label="ḡ: leaves parallel at unit height")
+        if np.isfinite(props.object_z_m):
+            scale = np.nanmax(np.abs(props.ray_h)) or 1.0
+            bottom.plot(z, props.ray_h / scale, label="h: from the object (scaled)")
+        marks = [("F_o", props.focus_object_z_m), ("P_o", props.principal_object_z_m),
+                 ("P_i", props.principal_image_z_m), ("F_i", props.focus_image_z_m),
+                 ("object", props.object_z_m), ("image", props.image_z_m)]
+        for label, zm in marks:
+            if np.isfinite(zm) and z[0] <= zm * MM <= z[-1]:
+                bottom.axvline(zm * MM, color="grey", lw=0.6, ls=":")
+                bottom.annotate(label, (zm * MM, 1.02), xycoords=("data", "axes fraction"),
+                                fontsize=7, ha="center")
+        bottom.axhline(0.0, color="black", lw=0.5)
+        bottom.legend(fontsize=8)
+    bottom.set_xlabel("z (mm)")
+    bottom.set_ylabel("ray height (relative)")
+    fig.savefig(path, dpi=150)
+    plt.close(fig)
+    return Path(path)

@@ -100,3 +100,25 @@ def format_summary(summary: dict) -> str:
     if s["warning"]:
         parts.append(f"WARNING: {s['warning']}")
     return "\n\n".join(parts)
+
+
+def format_optics(props) -> str:
+    """Lens properties (``tracer.optics.LensProperties``) as a table in millimetres."""
+    head = f"{props.species} entering at {props.energy_eV:g} eV, leaving at {props.exit_energy_eV:.6g} eV"
+    if props.mirror:
+        return f"{head}\nthe particle turns back at z = {props.turning_z_m * 1e3:.6g} mm: a mirror"
+    rows = [["focal length, image side", props.f_image_m], ["focal length, object side", props.f_object_m],
+            ["image focus z", props.focus_image_z_m], ["object focus z", props.focus_object_z_m],
+            ["image principal plane z", props.principal_image_z_m],
+            ["object principal plane z", props.principal_object_z_m],
+            ["Cs (image side, object at infinity)", props.cs_m],
+            ["Cc (image side, object at infinity)", props.cc_m]]
+    rows = [[name, value * 1e3] for name, value in rows]
+    if math.isfinite(props.object_z_m):
+        rows += [["object z", props.object_z_m * 1e3], ["image z", props.image_z_m * 1e3],
+                 ["Cs (image side, this object)", props.image_cs_m * 1e3],
+                 ["Cc (image side, this object)", props.image_cc_m * 1e3]]
+    table = format_table(["quantity", "mm"], rows)
+    if math.isfinite(props.object_z_m):
+        table += f"\nmagnification {props.magnification:.6g}"
+    return f"{head}\n{table}"

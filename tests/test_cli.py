@@ -1,0 +1,79 @@
+"""The command line: exit codes, one-line errors, what each command writes."""
+
+import subprocess
+import sys
+
+import pytest
+
+from tracer.cli import main
+from tracer.pipeline import CONFIGS
+
+EINZEL = CONFIGS / "einzel_argon.toml"
+
+
+@pytest.fixture(autouse=True)
+def cache(tmp_path, monkeypatch):
+    monkeypatch.setenv("TRACER_CACHE", str(tmp_path / "cache"))
+    return tmp_path / "cache"
+
+
+def test_check_describes_the_setup(capsys):
+    assert main(["check", str(EINZEL)]) == 0
+    out = capsys.readouterr().out
+    assert "electrodes (4)" in out and "focus" in out and "nodes" in out
+
+
+def test_solve_writes_maps_and_picture_and_reuses_the_cache(tmp_path, cache, capsys):
+    out = tmp_path / "solve"
+    assert main(["solve", str(EINZEL), "--out", str(out), "--quiet"]) == 0
+    assert (out / "maps.h5").stat().st_size > 0
+    assert (out / "equipotentials.png").stat().st_size > 0
+    cached = list(cache.glob("*.h5"))
+    assert len(cached) == 1
+    stamp = cached[0].stat().st_mtime_ns
+    assert main(["solve", str(EINZEL), "--out", str(out), "--quiet"]) == 0
+    assert cached[0].stat().st_mtime_ns == stamp          # read, not solved and written again
+    assert "relative residual" in capsys.readouterr().out
+
+
+def test_optics_prints_the_cardinal_elements(tmp_path, capsys):
+    out = tmp_path / "optics"
+    assert main(["optics", str(EINZEL), "--out", str(out), "--quiet"]) == 0
+    text = capsys.readouterr().out
+    assert "focal length, image side" in text and "Cs" in text
+    assert (out / "optics.png").stat().st_size > 0
+
+
+def test_optics_without_an_optics_table_is_bad_input(tmp_path, capsys):
+    config = tmp_path / "no_optics.toml"
+    config.write_text(EINZEL.read_text().split("[optics]")[0])
+    assert main(["optics", str(config), "--out", str(tmp_path / "o"), "--quiet"]) == 2
+    assert "no [optics] table" in capsys.readouterr().err
+    assert not (tmp_path / "o").exists()
+
+
+def test_bad_input_is_one_line_exit_2_and_writes_nothing(tmp_path):
+    config = tmp_path / "bad.toml"
+    config.write_text(EINZEL.read_text().replace("cell_mm = 0.2", "cell_mm = -0.2"))
+    out = tmp_path / "out"
+    proc = subprocess.run([sys.executable, "-m", "tracer", "run", str(config), "--out", str(out)],
+                          capture_output=True, text=True)
+    assert proc.returncode == 2
+    lines = proc.stderr.strip().splitlines()
+    assert len(lines) == 1 and "domain.cell_mm" in lines[0] and "-0.2" in lines[0]
+    assert "Traceback" not in proc.stderr
+    assert not out.exists()
+
+
+def test_debug_shows_the_traceback(tmp_path):
+    config = tmp_path / "bad.toml"
+    config.write_text("[domain]\nsymmetry = 'round'\n")
+    proc = subprocess.run([sys.executable, "-m", "tracer", "check", str(config), "--debug"],
+                          capture_output=True, text=True)
+    assert proc.returncode == 2
+    assert "Traceback" in proc.stderr
+
+
+def test_missing_config_is_bad_input(tmp_path, capsys):
+    assert main(["check", str(tmp_path / "nothing.toml")]) == 2
+    assert "no such config file" in capsys.readouterr().err

@@ -1,0 +1,145 @@
+"""The main job end to end: tracer.run, the bundled configs, and the landing physics."""
+
+import dataclasses
+import math
+from pathlib import Path
+
+import numpy as np
+import pytest
+from scipy import constants
+
+import tracer
+from tracer.pipeline import CONFIGS, run
+
+ROOT = Path(__file__).resolve().parent.parent
+
+APERTURE = """
+title = "parallel beam through a hole in a grounded plate (test)"
+[domain]
+symmetry = "axial"
+z_mm = [0.0, 20.0]
+r_mm = 6.0
+cell_mm = 0.1
+edges = "ground"
+[[electrode]]
+name = "plate"
+voltage_V = 0.0
+[[electrode.rect]]
+z_mm = [8.0, 8.5]
+r_mm = [1.5, 5.5]
+[[beam]]
+name = "ions"
+species = "40Ar+"
+energy_eV = 200.0
+count = 4000
+seed = 21
+start_z_mm = 1.0
+radius_mm = 3.0
+profile = "uniform"
+[[plane]]
+name = "behind"
+z_mm = 12.0
+"""
+
+
+def test_transmission_through_a_hole_is_the_area_ratio():
+    """A uniform parallel beam of radius R through a hole of radius a in field-free space passes the
+    fraction (a/R)^2 of its rays (geometry of a uniform disc; common practice).  With 4000 rays the
+    binomial standard error is sqrt(p(1-p)/n) = 0.0068 at p = 0.25; we allow 4 of them."""
+    setup = tracer.loads(APERTURE)
+    result = run(setup)
+    s = result.beams["ions"].summary()
+    expected = (1.5 / 3.0) ** 2
+    sigma = math.sqrt(expected * (1 - expected) / 4000)
+    assert abs(s["transmission"]["behind"] - expected) < 4 * sigma
+    assert s["landing"]["plate"]["count"] + s["status"]["left"] == 4000
+    # every ray that passed went straight: no field anywhere (all electrodes and edges at 0 V)
+    rows = result.beams["ions"].at_plane("behind")
+    assert np.all(np.hypot(rows["x_m"], rows["y_m"]) <= 1.5e-3)
+
+
+@pytest.fixture(scope="module")
+def soft_landing():
+    setup = tracer.load(CONFIGS / "soft_landing.toml")
+    beam = dataclasses.replace(setup.beams[0], count=120)
+    setup = dataclasses.replace(setup, beams=(beam,))
+    return run(setup)
+
+
+def test_landing_energy_is_start_energy_plus_q_delta_v(soft_landing):
+    """Every landed ray arrives with its start kinetic energy plus q (V_start - V_electrode)
+    (conservation of energy in an electrostatic field; common practice)."""
+    result = soft_landing
+    beam_run = result.beams["c60"]
+    rec, starts = beam_run.records, beam_run.starts
+    landed = rec["status"] == "landed"
+    assert landed.sum() > 100
+    v_start = result.field.potential(starts["z_m"], np.hypot(starts["x_m"], starts["y_m"]))
+    volts = dict(zip(result.field.names, result.field.voltages))
+    v_end = np.array([volts[e] for e in rec["electrode"][landed]])
+    q = beam_run.species.charge_C / constants.e  # in elementary charges (scipy.constants)
+    expected = starts["energy_eV"][landed] + q * (v_start[landed] - v_end)
+    np.testing.assert_allclose(rec["energy_eV"][landed], expected, atol=1e-6)
+    # soft landing: about 5 eV on the sample biased 95 V above the 100 eV beam's source
+    assert abs(rec["energy_eV"][landed].mean() - 5.0) < 0.2
+
+
+def test_summary_has_the_figures_of_every_plane_and_electrode(soft_landing):
+    s = soft_landing.summary()["c60"]
+    plane = s["planes"]["before_sample"]
+    for key in ("fraction", "centroid_x_m", "rms_radius_m", "rms_divergence_x_rad",
+                "emittance_x_m_rad", "norm_emittance_x_m_rad", "energy_std_eV", "time_mean_s",
+                "time_std_s"):
+        assert math.isfinite(plane[key]), key
+    land = s["landing"]["sample"]
+    assert land["energy_min_eV"] <= land["energy_mean_eV"] <= land["energy_max_eV"]
+    assert s["ledger_suspects"] == 0 and s["warning"] == ""
+
+
+@pytest.mark.parametrize("config", sorted(p.name for p in CONFIGS.glob("*.toml")))
+def test_every_bundled_config_runs_from_the_command_line(config, tmp_path, monkeypatch, capsys):
+    """`tracer run` on each bundled config with a reduced ray count writes the report files."""
+    from tracer.cli import main
+
+    monkeypatch.setenv("TRACER_CACHE", str(tmp_path / "cache"))
+    out = tmp_path / "out"
+    code = main(["run", str(CONFIGS / config), "--out", str(out), "--rays", "20", "--quiet"])
+    assert code == 0
+    text = capsys.readouterr().out
+    setup = tracer.load(CONFIGS / config)
+    assert text.count("energy ledger") == len(setup.beams)
+    for name in ("result.h5", "landings.csv", "rays.png"):
+        assert (out / name).stat().st_size > 0, name
+    if max(abs(e.voltage_V) for e in setup.electrodes) > 1000:
+        assert "CAUTION" in text
+
+
+def test_readme_commands_are_the_ones_ci_runs():
+    """The README's two set-up commands: the demo one and the test one, which .ci/run runs."""
+    readme = (ROOT / "README.md").read_text()
+    ci = (ROOT / ".ci" / "run").read_text()
+    assert "pip install -e . && tracer demo" in readme
+    test_command = "python3 -m pytest -q"
+    assert f"pip install -e '.[test]' && {test_command}" in readme
+    assert ci.strip().splitlines()[-1] == test_command
+
+
+def test_demo_runs_into_a_fresh_folder(tmp_path, monkeypatch, capsys):
+    from tracer.cli import main
+
+    monkeypatch.setenv("TRACER_CACHE", str(tmp_path / "cache"))
+    out = tmp_path / "demo"
+    assert main(["demo", "--out", str(out), "--rays", "30", "--quiet"]) == 0
+    text = capsys.readouterr().out
+    assert str(out.resolve()) in text
+    assert (out / "result.h5").is_file()
+    # `tracer show` prints the same summary again from the result file and redraws the pictures
+    pictures = tmp_path / "pictures"
+    assert main(["show", str(out / "result.h5"), "--out", str(pictures)]) == 0
+    shown = capsys.readouterr().out
+    assert "landed on electrodes" in shown and "energy ledger" in shown
+    assert (pictures / "rays.png").stat().st_size > 0
+    # a second demo into the same (now full) folder is refused: exit 2, one line
+    assert main(["demo", "--out", str(out), "--quiet"]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and "not empty" in err[0]
