@@ -4,11 +4,11 @@ import math
 
 import numpy as np
 
-from tracer.config import Arc, Domain, Electrode, Rect
+from tracer.config import Arc, Domain, Electrode
 from tracer.geometry import Raster, rasterize, shape_table
 from tracer.grid import Grid
-from tracer.solve.multigrid import build_hierarchy, iterate
-from tracer.solve.relax import add_boundary, add_fixed
+from tracer.solver.multigrid import build_hierarchy, iterate
+from tracer.solver.relax import add_fixed, boundary_rhs
 
 
 def setup(symmetry, z_m, r_m, cell_m, edges, electrodes):
@@ -52,8 +52,7 @@ def solve(grid, table, values, *, rtol=1e-10, transform=None, source=None, max_c
     raster = edit(rasterize(table, grid))
     h = build_hierarchy(grid, raster, lambda g: edit(rasterize(table, g)))
     values = np.asarray(values, dtype=np.float64)
-    b = np.zeros(grid.shape) if source is None else np.array(source, dtype=np.float64)
-    add_boundary(b, values, *h.levels[0].op[2:])
+    b = boundary_rhs(h.levels[0].op, h.levels[0].geometry, values, source=source)
     u = np.zeros(grid.shape)
     history = iterate(h, u, b, rtol=rtol, max_cycles=max_cycles)
     add_fixed(u, values, raster.owner)

@@ -283,7 +283,7 @@ def test_planar_with_mirror_plane():
 
 
 def test_rays_csv_is_resolved_against_the_config_folder(tmp_path):
-    (tmp_path / "rays.csv").write_text("x_mm,y_mm\n")
+    (tmp_path / "rays.csv").write_text("x_mm,y_mm,z_mm,ux,uy,uz,energy_eV\n0,0,1,0,0,1,5\n")
     document = base()
     document["beam"][0] = {"name": "measured", "species": "e-", "rays_csv": "rays.csv", "current_A": 1e-6}
     path = tmp_path / "setup.toml"

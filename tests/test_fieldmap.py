@@ -495,7 +495,7 @@ def test_solved_concentric_spheres_near_the_inner_surface():
     within 5e-4 V of the analytic one, falls monotonically (no ringing), overshoots 1 V by less
     than that, and the field is within 1.2 % -- far better than the plain interpolant of the
     same node values without the ghost extension."""
-    from tracer.solve import solve_unit_maps
+    from tracer.solver import solve_unit_maps
 
     setup = loads(SPHERES)
     grid = Grid.from_domain(setup.domain)

@@ -154,16 +154,16 @@ def test_unreadable_files_raise_store_error(tmp_path):
 @pytest.fixture
 def counted_solves(monkeypatch):
     """Count calls of the unit-map solver."""
-    import tracer.solve
+    import tracer.solver
 
     calls = []
-    solve = tracer.solve.solve_unit_maps
+    solve = tracer.solver.solve_unit_maps
 
     def counting(*args, **kwargs):
         calls.append(args)
         return solve(*args, **kwargs)
 
-    monkeypatch.setattr(tracer.solve, "solve_unit_maps", counting)
+    monkeypatch.setattr(tracer.solver, "solve_unit_maps", counting)
     return calls
 
 

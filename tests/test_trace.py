@@ -14,7 +14,7 @@ from tracer.config import loads
 from tracer.fieldmap import PotentialMap, basis_maps
 from tracer.geometry import rasterize, shape_table
 from tracer.grid import Grid
-from tracer.solve import solve_unit_maps
+from tracer.solver import solve_unit_maps
 from tracer.species import species
 
 C = constants.c

@@ -15,7 +15,6 @@ _PUBLIC = {
     "load": "tracer.config",
     "loads": "tracer.config",
     "Species": "tracer.species",
-    "species": "tracer.species",
     "BasisMaps": "tracer.fieldmap",
     "PotentialMap": "tracer.fieldmap",
     "solve": "tracer.pipeline",
@@ -26,12 +25,12 @@ _PUBLIC = {
     "paraxial": "tracer.optics",
     "LensProperties": "tracer.optics",
     "OpticsError": "tracer.optics",
-    "gun": "tracer.gun",
-    "GunResult": "tracer.gun",
-    "scan": "tracer.scan",
-    "ScanResult": "tracer.scan",
-    "tune": "tracer.tune",
-    "TuneResult": "tracer.tune",
+    "gun": "tracer.guns",
+    "GunResult": "tracer.guns",
+    "scan": "tracer.scans",
+    "ScanResult": "tracer.scans",
+    "tune": "tracer.tuning",
+    "TuneResult": "tracer.tuning",
 }
 
 __all__ = sorted(_PUBLIC) + ["__version__"]

@@ -1,12 +1,13 @@
 """The command line: parsing arguments and printing, nothing else.
 
 Exit codes: 0 success, 2 bad input (one line on stderr, a traceback only with
-``--debug``), 1 an internal fault, 130 interrupted.
+``--debug``), 1 an internal fault, 130 interrupted, 141 the reader of the output went away.
 """
 
 from __future__ import annotations
 
 import argparse
+import os
 import sys
 import traceback
 from pathlib import Path
@@ -160,7 +161,7 @@ def cmd_demo(args, echo) -> int:
 def cmd_gun(args, echo) -> int:
     import numpy as np
 
-    from tracer.gun import gun
+    from tracer.guns import gun
     from tracer.plot import plot_field
     from tracer.stats import plane_stats
 
@@ -261,7 +262,7 @@ def cmd_scan(args, echo) -> int:
 
     from tracer.pipeline import solve
     from tracer.plot import plot_scan
-    from tracer.scan import scan
+    from tracer.scans import scan
 
     setup = _load(args.config)
     if setup.scan is None:
@@ -295,7 +296,7 @@ def cmd_scan(args, echo) -> int:
 def cmd_tune(args, echo) -> int:
     from tracer.pipeline import solve
     from tracer.plot import plot_tune
-    from tracer.tune import tune
+    from tracer.tuning import tune
 
     setup = _load(args.config)
     if setup.tune is None:
@@ -392,7 +393,12 @@ def main(argv: list[str] | None = None) -> int:
     func = COMMANDS[args.command][0]
     echo = print
     try:
-        return func(args, echo)
+        code = func(args, echo)
+        sys.stdout.flush()  # a closed pipe shows here, not at the interpreter's exit
+        return code
+    except BrokenPipeError:  # e.g. ``tracer run ... | head``: stop quietly, as pipes expect
+        os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
+        return 141
     except (ConfigError, InputError) as exc:
         if args.debug:
             traceback.print_exc()

@@ -727,6 +727,7 @@ def _setup(data, source):
     names = tuple(e.name for e in electrodes)
     _unique(names, "electrode", "electrode")
     _check_memory(domain, len(electrodes))
+    _check_geometry(electrodes, domain)
     beams = tuple(_beam(v, p, domain, base) for v, p in _tables(top.data.get("beam", []), "beam", "beam"))
     _unique([b.name for b in beams], "beam", "beam")
     planes = tuple(_plane(v, p, domain) for v, p in _tables(top.data.get("plane", []), "plane", "plane"))
@@ -817,6 +818,13 @@ def _edges(value, symmetry, mirror):
     if mirror:
         return (chosen["z_min"], chosen["z_max"], "axis", chosen["r_max"])
     return (chosen["z_min"], chosen["z_max"], chosen["y_min"], chosen["y_max"])
+
+
+def _check_geometry(electrodes, domain):
+    """Refuse shapes that miss the domain or overlap another electrode's at a different voltage."""
+    from .geometry import shape_table
+
+    shape_table(electrodes, domain)
 
 
 def _check_memory(domain, n_electrodes):
@@ -958,6 +966,7 @@ def _beam(value, path, domain, base):
         for key in distribution:
             if t.has(key):
                 raise ConfigError(t.at(key), f"not used with rays_csv (the start rays come from {rays_csv.name!r})")
+        _check_rays_csv(rays_csv, t.at("rays_csv"), current)
         return Beam(name, kind, None, None, count=None, seed=seed, current_A=current, rays_csv=rays_csv)
     angles = t.get("angles", _choice, default="uniform", choices=("uniform", "gaussian", "cosine"))
     beam = Beam(
@@ -979,6 +988,20 @@ def _beam(value, path, domain, base):
     )
     _check_start(beam, t, domain, side.letter)
     return beam
+
+
+def _check_rays_csv(file, path, current):
+    """Read a file of start rays now, so that a malformed one is refused before any work."""
+    from .sources import read_rays_csv
+
+    try:
+        rays = read_rays_csv(file)
+    except (OSError, ValueError) as error:   # UnicodeDecodeError is a ValueError
+        raise ConfigError(path, str(error).replace(str(file), repr(file.name))) from None
+    weights = rays["weight_A"]
+    if current is not None and not math.isnan(weights[0]) and not weights.sum() > 0:
+        raise ConfigError(path, f"{file.name!r}: the weight column sums to {weights.sum():g}, "
+                                "so current_A cannot be shared among the rays")
 
 
 def _check_start(beam, t, domain, c):

@@ -526,7 +526,7 @@ def basis_maps(setup, unit_solution) -> BasisMaps:
     Parameters
     ----------
     setup : tracer.config.Setup
-    unit_solution : tracer.solve.UnitSolution
+    unit_solution : tracer.solver.UnitSolution
         The unit maps solved on ``Grid.from_domain(setup.domain)``.
     """
     names = tuple(e.name for e in setup.electrodes)
@@ -547,7 +547,7 @@ def solve_basis(setup, *, rtol: float = 1e-10, progress=None) -> BasisMaps:
     progress : callable, optional
         Passed to the solver.
     """
-    from tracer.solve import solve_unit_maps  # the solver's kernels compile only when solving
+    from tracer.solver import solve_unit_maps  # the solver's kernels compile only when solving
 
     grid = Grid.from_domain(setup.domain)
     table = shape_table(setup.electrodes, setup.domain)

@@ -366,10 +366,16 @@ _RECORD_UNITS = {  # unitDimension, unitSI, weightingPower, macroWeighted
 }
 
 
+def _same_bits(values) -> bool:
+    """True when every entry of a non-empty 1-D array has the bits of the first (-0.0 is not 0.0)."""
+    raw = np.ascontiguousarray(values).view(np.uint8).reshape(len(values), -1)
+    return bool((raw == raw[0]).all())
+
+
 def _component(parent, name, values, n):
-    """A record component: a constant (``value``, ``shape``) when all n entries are equal."""
+    """A record component: a constant (``value``, ``shape``) when all n entries have the same bits."""
     values = np.asarray(values)
-    if values.ndim == 1 and n and not (values == values[0]).all():
+    if values.ndim == 1 and n and not _same_bits(values):
         return parent.create_dataset(name, data=values)
     if values.ndim == 1:      # all equal, or none (then the value is a zero of the type)
         values = values[0] if n else np.zeros((), values.dtype)

@@ -6,7 +6,7 @@ import numpy as np
 import scipy.sparse as sp
 from numba import njit
 
-from .stencil import FIXED, arm_coefficients, neighbour, node_kinds, on_surface, stencil_params
+from .stencil import FIXED, REGULAR, operator
 
 
 @dataclass(frozen=True)
@@ -36,31 +36,49 @@ class LinearSystem:
 
 
 @njit(cache=True)
-def _csr(index, owner, arm, arm_owner, geo, edges, n_free):
-    nz, nr = owner.shape
+def _csr(rows, index, table, cuts):
+    nz, nr = index.shape
+    n_free = rows.max() + 1
     ptr = np.zeros(n_free + 1, dtype=np.int64)
     cols = np.empty(5 * n_free, dtype=np.int64)
     vals = np.empty(5 * n_free)
+    dz = (1, -1, 0, 0)
+    dr = (0, 0, 1, -1)
     n = 0
     for iz in range(nz):
         for ir in range(nr):
-            row = index[iz, ir]
+            row = rows[iz, ir]
             if row < 0:
                 continue
-            c = arm_coefficients(iz, ir, nz, nr, arm, arm_owner, geo, edges)
+            j = index[iz, ir]
+            if j == REGULAR:
+                c = (table[0, ir], table[0, ir], table[1, ir], table[2, ir], table[3, ir])
+            else:
+                c = (cuts[j, 0], cuts[j, 1], cuts[j, 2], cuts[j, 3], cuts[j, 4])
             cols[n] = row
-            vals[n] = c[0] + c[1] + c[2] + c[3]
+            vals[n] = c[4]
             n += 1
             for k in range(4):
-                if c[k] > 0.0 and not on_surface(arm, arm_owner, iz, ir, k):
-                    jz, jr = neighbour(iz, ir, k)
-                    col = index[jz, jr]
+                if c[k] != 0.0:
+                    col = rows[iz + dz[k], ir + dr[k]]
                     if col >= 0:
                         cols[n] = col
                         vals[n] = -c[k]
                         n += 1
             ptr[row + 1] = n
     return ptr, cols[:n], vals[:n]
+
+
+def system_matrix(op):
+    """The free-node system of a kernel operator ``op = (index, table, cuts)``."""
+    free = op[0] != FIXED
+    n_free = int(free.sum())
+    rows = np.full(free.shape, -1, dtype=np.int64)
+    rows[free] = np.arange(n_free)
+    if n_free == 0:
+        return LinearSystem(matrix=sp.csr_matrix((0, 0)), free=free)
+    ptr, cols, vals = _csr(rows, *op)
+    return LinearSystem(matrix=sp.csr_matrix((vals, cols, ptr), shape=(n_free, n_free)), free=free)
 
 
 def assemble(grid, raster):
@@ -75,13 +93,6 @@ def assemble(grid, raster):
     -------
     LinearSystem
         The same operator the multigrid kernels apply; right-hand sides come from
-        ``relax.boundary_rhs`` gathered with ``LinearSystem.gather``.
+        ``relax.add_boundary`` gathered with ``LinearSystem.gather``.
     """
-    geo, edges = stencil_params(grid)
-    free = node_kinds(raster.owner, raster.arm, raster.arm_owner, edges) != FIXED
-    n_free = int(free.sum())
-    index = np.full(free.shape, -1, dtype=np.int64)
-    index[free] = np.arange(n_free)
-    ptr, cols, vals = _csr(index, raster.owner, raster.arm, raster.arm_owner, geo, edges, n_free)
-    matrix = sp.csr_matrix((vals, cols, ptr), shape=(n_free, n_free))
-    return LinearSystem(matrix=matrix, free=free)
+    return system_matrix(operator(grid, raster)[0])

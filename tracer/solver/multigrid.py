@@ -12,12 +12,13 @@ import numpy as np
 import scipy.sparse.linalg as spla
 
 from . import relax
-from .assemble import assemble
-from .stencil import FIXED, node_kinds, regular_table, stencil_params
+from .assemble import system_matrix
+from .stencil import FIXED, operator, surface_band
 from .transfer import axis_transfer, prolong_add, restrict
 
 COARSEST_NODES = 2500
 MIN_CELLS = 4
+BAND_WIDTH = 2  # nodes around conductors that get extra Gauss–Seidel passes
 
 
 class SolveError(RuntimeError):
@@ -26,23 +27,38 @@ class SolveError(RuntimeError):
 
 @dataclass(frozen=True)
 class Level:
-    """One grid level: its raster, stencil data (see ``relax``) and work arrays."""
+    """One grid level: its stencil data (see ``relax``), surface band and work arrays.
+
+    Attributes
+    ----------
+    op : tuple
+        ``(index, table, cuts)``, the operator arguments of the ``relax`` kernels.
+    geometry : tuple or None
+        ``(owner, arm, arm_owner, geo, edges)``, the Raster arrays and ``stencil_params`` (fine
+        level only, for right-hand sides).
+    """
 
     grid: object
-    raster: object
     op: tuple
+    geometry: tuple
     free: np.ndarray
+    band: np.ndarray
     res: np.ndarray
     u: np.ndarray
     b: np.ndarray
 
 
-def operator(grid, raster):
-    """The kernel argument tuple ``op`` of ``relax`` for a grid and its raster."""
-    geo, edges = stencil_params(grid)
-    kind = node_kinds(raster.owner, raster.arm, raster.arm_owner, edges)
-    table = regular_table(grid.nr, geo, edges)
-    return kind, table, raster.owner, raster.arm, raster.arm_owner, geo, edges
+def _level(grid, raster, coarse):
+    op, geometry = operator(grid, raster)
+    index = op[0]
+    shape = (grid.nz, grid.nr)
+    res = np.zeros(shape)
+    u = np.zeros(shape) if coarse else res[:0]  # the fine level works on the caller's arrays
+    b = np.zeros(shape) if coarse else res[:0]
+    band = surface_band(index, raster.owner, raster.arm, raster.arm_owner, BAND_WIDTH)
+    free = index != FIXED
+    # coarse levels need only their operator: drop their Raster arrays
+    return Level(grid=grid, op=op, geometry=None if coarse else geometry, free=free, band=band, res=res, u=u, b=b)
 
 
 @dataclass(frozen=True)
@@ -51,22 +67,15 @@ class Hierarchy:
 
     levels: tuple
     transfers: tuple  # (z Axis1D, r Axis1D) from level l + 1 to level l
+    halves: tuple  # work arrays (fine nz, coarse nr) of the restriction from level l to l + 1
     coarse_lu: object
     coarse_free: np.ndarray
     pre: int
     post: int
+    band: int
 
 
-def _level(grid, raster, work):
-    op = operator(grid, raster)
-    shape = (grid.nz, grid.nr)
-    res = np.zeros(shape)
-    u = np.zeros(shape) if work else res[:0]
-    b = np.zeros(shape) if work else res[:0]
-    return Level(grid=grid, raster=raster, op=op, free=op[0] != FIXED, res=res, u=u, b=b)
-
-
-def build_hierarchy(grid, raster, rasterize_level, *, pre=2, post=2):
+def build_hierarchy(grid, raster, rasterize_level, *, pre=2, post=2, band=1):
     """Build the multigrid levels below a fine grid.
 
     Parameters
@@ -79,17 +88,20 @@ def build_hierarchy(grid, raster, rasterize_level, *, pre=2, post=2):
         ``rasterize_level(coarse_grid) -> Raster`` for the coarser levels.
     pre, post : int
         Red–black Gauss–Seidel sweeps before and after the coarse-grid correction.
+    band : int
+        Extra symmetric Gauss–Seidel passes over the nodes near conductors, before the restriction
+        and after the correction.
     """
-    levels = [_level(grid, raster, work=False)]
+    levels = [_level(grid, raster, coarse=False)]
     transfers = []
     g = grid
     while g.nz * g.nr > COARSEST_NODES and min(g.nz, g.nr) - 1 >= 2 * MIN_CELLS:
         c = g.coarsen()
-        levels.append(_level(c, rasterize_level(c), work=True))
+        levels.append(_level(c, rasterize_level(c), coarse=True))
         transfers.append((axis_transfer(g.nz, c.nz), axis_transfer(g.nr, c.nr)))
         g = c
     last = levels[-1]
-    system = assemble(last.grid, last.raster)
+    system = system_matrix(last.op)
     try:
         lu = spla.splu(system.matrix.tocsc()) if system.matrix.shape[0] else None
     except RuntimeError as err:  # a singular coarsest system: no fixed node anchors the potential
@@ -97,10 +109,12 @@ def build_hierarchy(grid, raster, rasterize_level, *, pre=2, post=2):
     return Hierarchy(
         levels=tuple(levels),
         transfers=tuple(transfers),
+        halves=tuple(np.zeros((lv.grid.nz, co.grid.nr)) for lv, co in zip(levels, levels[1:])),
         coarse_lu=lu,
         coarse_free=system.free,
         pre=pre,
         post=post,
+        band=band,
     )
 
 
@@ -117,13 +131,15 @@ def vcycle(h, u, b, level=0):
         _coarsest(h, u, b)
         return
     relax.smooth(h.pre, u, b, *lv.op)
+    relax.band_sweeps(h.band, lv.band, u, b, *lv.op)
     relax.residual(u, b, lv.res, *lv.op)
     co = h.levels[level + 1]
     tz, tr = h.transfers[level]
-    restrict(lv.res, co.b, co.free, tz.ptr, tz.idx, tz.weight, tr.ptr, tr.idx, tr.weight)
+    restrict(lv.res, h.halves[level], co.b, co.free, tz.ptr, tz.idx, tz.weight, tr.ptr, tr.idx, tr.weight)
     co.u[...] = 0.0
     vcycle(h, co.u, co.b, level + 1)
     prolong_add(co.u, u, lv.free, tz.lo, tz.w, tr.lo, tr.w)
+    relax.band_sweeps(h.band, lv.band, u, b, *lv.op)
     relax.smooth(h.post, u, b, *lv.op)
 
 
@@ -148,7 +164,7 @@ def iterate(h, u, b, *, rtol=1e-10, max_cycles=60):
     if bnorm == 0.0:
         u[...] = 0.0
         return np.zeros(1)
-    history = [relax.residual(u, b, lv.res, *lv.op) / bnorm]
+    history = [relax.residual(u, b, lv.res, *lv.op) / bnorm if u.any() else 1.0]
     while history[-1] > rtol:
         if len(history) > max_cycles:
             raise SolveError(

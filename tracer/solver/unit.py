@@ -64,16 +64,14 @@ def solve_unit_maps(grid, table, *, rtol=1e-10, max_cycles=60, progress=None):
     """
     raster = rasterize(table, grid)
     hierarchy = build_hierarchy(grid, raster, lambda g: rasterize(table, g))
-    op = hierarchy.levels[0].op
+    fine = hierarchy.levels[0]
     n = len(table.names)
     unit = np.zeros((n, grid.nz, grid.nr))
-    b = np.empty((grid.nz, grid.nr))
     history = []
     for k, name in enumerate(table.names):
         values = np.zeros(n)
         values[k] = 1.0
-        b[...] = 0.0
-        relax.add_boundary(b, values, *op[2:])
+        b = relax.boundary_rhs(fine.op, fine.geometry, values)
         history.append(_solve(hierarchy, unit[k], b, rtol, max_cycles, f"unit map of electrode {name!r}"))
         relax.add_fixed(unit[k], values, raster.owner)
         if progress is not None:
@@ -111,9 +109,8 @@ def solve_poisson(grid, table, rho, raster=None, *, rtol=1e-10, max_cycles=60):
     if raster is None:
         raster = rasterize(table, grid)
     hierarchy = build_hierarchy(grid, raster, lambda g: rasterize(table, g))
-    op = hierarchy.levels[0].op
-    b = rho / epsilon_0
-    relax.add_boundary(b, np.zeros(len(table.names)), *op[2:])
+    fine = hierarchy.levels[0]
+    b = relax.boundary_rhs(fine.op, fine.geometry, np.zeros(len(table.names)), source=rho / epsilon_0)
     u = np.zeros((grid.nz, grid.nr))
     _solve(hierarchy, u, b, rtol, max_cycles, "space-charge potential")
     return u

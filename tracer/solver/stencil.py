@@ -17,17 +17,24 @@ missing outward one, so the outward coefficient is folded into the inward one.
 
 Nodes inside electrodes and on "ground" edges are fixed; all kernels keep them at zero in the
 homogeneous unknown, so a neighbour that is a fixed node contributes only through the right-hand side.
+
+For the solver kernels the stencil is tabulated once per grid (``operator``): free nodes away from
+edges and surfaces (REGULAR) share coefficients that depend only on the radial index, and the few
+CUT nodes (on an edge, or with an arm ending on a surface) get a row each in a compact cut table,
+so the sweeps never read the Raster's arm arrays.
 """
 
 import numpy as np
-from numba import njit, prange
+from numba import njit
+from scipy import ndimage
 
 GROUND = 0
 OPEN = 1
 AXIS = 2
-REGULAR = 0  # node kinds: a free node away from edges and surfaces
-FIXED = 1  # inside an electrode or on a ground edge
-CUT = 2  # a free node on an edge or with an arm ending on a surface
+REGULAR = -1  # node index codes: a free node away from edges and surfaces
+FIXED = -2  # inside an electrode or on a ground edge
+# a free node on an edge or with an arm ending on a surface (a CUT node) has index >= 0: its row
+# in the cut table
 EDGE_CODES = {"ground": GROUND, "open": OPEN, "axis": AXIS}
 
 
@@ -165,22 +172,44 @@ def end_owner(iz, ir, k, owner, arm, arm_owner):
     return owner[jz, jr]
 
 
-@njit(cache=True, parallel=True)
-def node_kinds(owner, arm, arm_owner, edges):
-    """REGULAR, FIXED or CUT for every node (int8[nz, nr])."""
+@njit(cache=True)
+def node_index(owner, arm, arm_owner, edges):
+    """FIXED, REGULAR, or the row of a CUT node in the cut table, for every node (int32[nz, nr])."""
     nz, nr = owner.shape
-    out = np.empty((nz, nr), dtype=np.int8)
-    for iz in prange(nz):
+    out = np.empty((nz, nr), dtype=np.int32)
+    n_cut = 0
+    for iz in range(nz):
         for ir in range(nr):
             if is_fixed(iz, ir, nz, nr, owner, edges):
                 out[iz, ir] = FIXED
-            elif iz == 0 or iz == nz - 1 or ir == 0 or ir == nr - 1:
-                out[iz, ir] = CUT
+                continue
+            cut = iz == 0 or iz == nz - 1 or ir == 0 or ir == nr - 1
+            for k in range(4):
+                cut = cut or on_surface(arm, arm_owner, iz, ir, k)
+            if cut:
+                out[iz, ir] = n_cut
+                n_cut += 1
             else:
                 out[iz, ir] = REGULAR
-                for k in range(4):
-                    if on_surface(arm, arm_owner, iz, ir, k):
-                        out[iz, ir] = CUT
+    return out
+
+
+@njit(cache=True)
+def cut_table(index, owner, arm, arm_owner, geo, edges):
+    """Rows (c_+z, c_-z, c_+r, c_-r, d) of the CUT nodes: the coefficients of the neighbour nodes
+    (0 for arms that end on a surface or are folded away) and the diagonal d = sum of all arms."""
+    nz, nr = owner.shape
+    out = np.zeros((max(index.max() + 1, 0), 5))
+    for iz in range(nz):
+        for ir in range(nr):
+            j = index[iz, ir]
+            if j < 0:
+                continue
+            c = arm_coefficients(iz, ir, nz, nr, arm, arm_owner, geo, edges)
+            for k in range(4):
+                if not on_surface(arm, arm_owner, iz, ir, k):
+                    out[j, k] = c[k]
+            out[j, 4] = c[0] + c[1] + c[2] + c[3]
     return out
 
 
@@ -195,3 +224,27 @@ def regular_table(nr, geo, edges):
         tab[2, ir] = cs
         tab[3, ir] = ce + cw + cn + cs
     return tab
+
+
+def surface_band(index, owner, arm, arm_owner, width):
+    """Free nodes within ``width`` nodes (along z and r) of a conductor, as int64[n, 2] (iz, ir)."""
+    seed = (owner >= 0) | ((arm < 1.0) & (arm_owner >= 0)).any(axis=2)
+    square = np.ones((2 * width + 1, 2 * width + 1), dtype=bool)
+    near = ndimage.binary_dilation(seed, structure=square)
+    return np.argwhere(near & (index != FIXED)).astype(np.int64)
+
+
+def operator(grid, raster):
+    """The stencil of a grid and its raster in the form the kernels take.
+
+    Returns
+    -------
+    op : tuple
+        ``(index, table, cuts)``: ``node_index``, ``regular_table`` and ``cut_table``.
+    geometry : tuple
+        ``(owner, arm, arm_owner, geo, edges)``: the Raster arrays and ``stencil_params``.
+    """
+    geo, edges = stencil_params(grid)
+    geometry = (raster.owner, raster.arm, raster.arm_owner, geo, edges)
+    index = node_index(raster.owner, raster.arm, raster.arm_owner, edges)
+    return (index, regular_table(grid.nr, geo, edges), cut_table(index, *geometry)), geometry

@@ -1,0 +1,259 @@
+"""Tests of voltage scans: rows against direct traces, executors, durable rows and resume."""
+
+import concurrent.futures
+import dataclasses
+import os
+import signal
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+from tracer.beam import trace
+from tracer.config import loads
+from tracer.pipeline import solve
+from tracer.scans import CSV_NAME, Rows, columns, config_hash, read_h5, scan, voltage_sets
+
+from test_trace import THREE_TUBE
+
+TARGET = """
+[[electrode]]
+name = "target"
+voltage_V = 0.0
+[[electrode.rect]]
+z_mm = [57.0, 58.0]
+r_mm = [0.0, 4.5]
+"""
+ROOT = Path(__file__).resolve().parents[1]
+ENV = {**os.environ, "PYTHONPATH": os.pathsep.join([str(ROOT), os.environ.get("PYTHONPATH", "")])}
+SCAN = "[scan]\nlens = [500.0, 900.0, 3]\ntarget = [0.0, 400.0, 2]\n"
+
+
+def lens_text(extra=SCAN, count=60):
+    """The tests' three-tube lens (test_trace; lens tube at 700 V) with a target plate inside the
+    exit tube, 1000 eV protons."""
+    return THREE_TUBE.format(cell=0.5, volts=700.0, count=count) + TARGET + extra
+
+
+def lens(extra=SCAN, source=None):
+    return loads(lens_text(extra), source=source)
+
+
+@pytest.fixture(scope="module")
+def setup_maps():
+    setup = lens()
+    return setup, solve(setup)
+
+
+@pytest.fixture(scope="module")
+def serial(setup_maps):
+    setup, maps = setup_maps
+    return scan(setup, maps, workers=1)
+
+
+def test_voltage_sets_are_the_product_of_the_ranges_first_slowest(setup_maps):
+    names, sets = voltage_sets(setup_maps[0])
+    assert names == ("lens", "target")
+    assert sets.tolist() == [[500.0, 0.0], [500.0, 400.0], [700.0, 0.0], [700.0, 400.0],
+                             [900.0, 0.0], [900.0, 400.0]]
+
+
+def test_a_row_equals_a_direct_trace_at_its_voltages(setup_maps, serial):
+    setup, maps = setup_maps
+    row = serial.table[3]
+    assert (row["lens_V"], row["target_V"]) == (700.0, 400.0)
+    run = trace(maps.combine({"lens": 700.0, "target": 400.0}), setup.beams[0], planes=setup.planes,
+                rtol=setup.trace.rtol, max_time_s=setup.trace.max_time_s)
+    n = len(run.records)
+    cross = run.at_plane("image")
+    first = cross[cross["crossing"] == 0]
+    assert row["transmission"] == len(first) / n
+    spot = np.sqrt(np.mean((first["x_m"] - first["x_m"].mean()) ** 2
+                           + (first["y_m"] - first["y_m"].mean()) ** 2))
+    assert row["spot_rms_m"] == pytest.approx(spot, rel=1e-12)
+    assert row["tof_mean_s"] == pytest.approx(first["time_s"].mean(), rel=1e-12)
+    on_target = run.records[(run.records["status"] == "landed") & (run.records["electrode"] == "target")]
+    assert row["target.landed"] == len(on_target) / n and len(on_target) > 0
+    assert row["target.landing_mean_eV"] == pytest.approx(on_target["energy_eV"].mean(), rel=1e-12)
+    # Energy conservation (common practice): a proton started with 1000 eV where the potential
+    # is V0 (a fraction of a volt: the lens field reaching into the entry tube) lands on the 400 V
+    # target with 1000 + V0 - 400 eV, to the tracer's ledger accuracy (1e-7 of the beam energy).
+    field = maps.combine({"lens": 700.0, "target": 400.0})
+    s = run.starts[np.isin(run.starts["ray"], on_target["ray"])]
+    v0 = field.potential(s["z_m"], np.hypot(s["x_m"], s["y_m"]))
+    assert 0.0 < v0.max() < 1.0
+    assert row["target.landing_mean_eV"] == pytest.approx(1000.0 + v0.mean() - 400.0, abs=1e-4)
+    assert np.isnan(row["entry.landing_mean_eV"]) == (row["entry.landed"] == 0)
+
+
+def test_columns_are_prefixed_by_beam_and_plane_when_there_are_several():
+    cols = columns(["a", "b"], ["p", "q"], ["e1"])
+    assert cols[:2] == ("a.p.transmission", "a.p.spot_rms_m")
+    assert "b.q.tof_mean_s" in cols and "a.e1.landing_mean_eV" in cols and "b.ledger_worst_eV" in cols
+    one = columns(["a"], ["p"], ["e1"])
+    assert one[0] == "transmission" and "e1.landed" in one and "landed" in one
+    assert len(set(cols)) == len(cols)
+
+
+def test_serial_process_pool_threads_and_dask_give_identical_tables(setup_maps, serial):
+    setup, maps = setup_maps
+    pooled = scan(setup, maps, workers=2)
+    with concurrent.futures.ThreadPoolExecutor(2) as threads:
+        threaded = scan(setup, maps, threads)
+    assert pooled.table.dtype == serial.table.dtype
+    assert pooled.table.tobytes() == serial.table.tobytes()
+    assert threaded.table.tobytes() == serial.table.tobytes()
+    distributed = pytest.importorskip("distributed")
+    with distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True,
+                                  dashboard_address=None) as cluster, distributed.Client(cluster) as client:
+        dask = scan(setup, maps, client.get_executor())
+    assert dask.table.tobytes() == serial.table.tobytes()
+
+
+def _interrupt_after(k):
+    def progress(done, total):
+        if done >= k:
+            raise KeyboardInterrupt
+    return progress
+
+
+def _csv_sets(folder):
+    lines = (Path(folder) / CSV_NAME).read_text().splitlines()
+    return sorted(int(line.split(",")[0]) for line in lines[2:])
+
+
+def test_an_interrupted_scan_resumed_yields_every_set_once(setup_maps, serial, tmp_path):
+    setup, maps = setup_maps
+    with pytest.raises(KeyboardInterrupt):
+        scan(setup, maps, workers=1, out=tmp_path, progress=_interrupt_after(2))
+    kept = _csv_sets(tmp_path)
+    assert len(kept) >= 2 and len(kept) < 6 and len(set(kept)) == len(kept)
+    table, index, _ = read_h5(tmp_path / "scan.h5")        # written on the interrupt
+    assert sorted(index.tolist()) == kept and table.tobytes() == serial.table[index].tobytes()
+    again = scan(setup, maps, workers=1, out=tmp_path)
+    assert again.resumed == len(kept)
+    assert _csv_sets(tmp_path) == list(range(6))
+    assert again.table.tobytes() == serial.table.tobytes()
+    table, index, digest = read_h5(tmp_path / "scan.h5")
+    assert index.tolist() == list(range(6)) and table.tobytes() == serial.table.tobytes()
+    assert digest == again.config_hash
+
+
+def test_a_line_cut_short_by_a_kill_is_dropped_on_resume(setup_maps, serial, tmp_path):
+    setup, maps = setup_maps
+    with pytest.raises(KeyboardInterrupt):
+        scan(setup, maps, workers=1, out=tmp_path, progress=_interrupt_after(3))
+    csv = tmp_path / CSV_NAME
+    whole = csv.read_text().splitlines()[-1]
+    with open(csv, "a") as handle:            # what a process killed mid-write could leave
+        handle.write(whole[: len(whole) - 3])
+    again = scan(setup, maps, workers=1, out=tmp_path)
+    assert again.resumed == 3 and _csv_sets(tmp_path) == list(range(6))
+    assert again.table.tobytes() == serial.table.tobytes()
+
+
+KILLER = """
+import os, signal, sys
+from tracer.config import load
+from tracer.scans import scan
+if __name__ == "__main__":
+    def progress(done, total):
+        if done >= 2:
+            os.kill(os.getpid(), signal.SIGKILL)
+    scan(load(sys.argv[1]), workers=int(sys.argv[3]), out=sys.argv[2], progress=progress,
+         cache_dir=sys.argv[4])
+"""
+
+
+def _config_file(folder):
+    path = Path(folder) / "lens.toml"
+    path.write_text(lens_text())
+    return path
+
+
+def test_a_scan_killed_by_sigkill_resumes_without_loss(serial, tmp_path):
+    config, out = _config_file(tmp_path), tmp_path / "out"
+    script = tmp_path / "killer.py"
+    script.write_text(KILLER)
+    # The run only returns once every process holding its output pipes has ended: the pool's
+    # workers must end with their killed parent.
+    proc = subprocess.run([sys.executable, str(script), str(config), str(out), "2",
+                           str(tmp_path / "cache")], capture_output=True, text=True, timeout=90, env=ENV)
+    assert proc.returncode == -signal.SIGKILL, proc.stderr
+    kept = _csv_sets(out)
+    assert 2 <= len(kept) < 6
+    setup = lens(source=config)
+    again = scan(setup, solve(setup, cache_dir=tmp_path / "cache"), workers=1, out=out)
+    assert again.resumed == len(kept) and _csv_sets(out) == list(range(6))
+    assert again.table.tobytes() == serial.table.tobytes()
+
+
+def test_ctrl_c_on_the_command_line_keeps_the_finished_sets(serial, tmp_path):
+    config, out = _config_file(tmp_path), tmp_path / "out"
+    proc = subprocess.Popen([sys.executable, "-m", "tracer", "scan", str(config), "--out", str(out),
+                             "--workers", "2", "--cache", str(tmp_path / "cache")],
+                            stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True, env=ENV,
+                            start_new_session=True)
+    deadline = time.monotonic() + 120
+    while time.monotonic() < deadline and not ((out / CSV_NAME).exists() and len(_csv_sets(out)) >= 1):
+        time.sleep(0.02)
+    os.killpg(proc.pid, signal.SIGINT)       # as Ctrl-C on a terminal: the scan and its workers
+    _, err = proc.communicate(timeout=60)
+    if proc.returncode == 0:          # it finished before the interrupt arrived: nothing to resume
+        pytest.skip("the scan finished before SIGINT arrived")
+    assert proc.returncode == 130 and "run the same command again" in err
+    kept = _csv_sets(out)
+    assert len(set(kept)) == len(kept) >= 1
+    assert read_h5(out / "scan.h5")[1].tolist() == kept
+    setup = lens(source=config)
+    again = scan(setup, solve(setup, cache_dir=tmp_path / "cache"), workers=1, out=out)
+    assert again.resumed == len(kept) and _csv_sets(out) == list(range(6))
+    assert again.table.tobytes() == serial.table.tobytes()
+
+
+def test_a_changed_config_starts_a_fresh_table(setup_maps, tmp_path):
+    setup, maps = setup_maps
+    first = scan(setup, maps, workers=1, out=tmp_path)
+    same = scan(setup, maps, workers=1, out=tmp_path)
+    assert same.resumed == 6 and same.table.tobytes() == first.table.tobytes()
+    changed = dataclasses.replace(setup, beams=(dataclasses.replace(setup.beams[0], energy_eV=1100.0),))
+    assert config_hash(changed, *voltage_sets(changed)) != first.config_hash
+    fresh = scan(changed, maps, workers=1, out=tmp_path)
+    assert fresh.resumed == 0 and _csv_sets(tmp_path) == list(range(6))
+    assert (tmp_path / f"scan.{first.config_hash[:12]}.csv").exists()   # the old rows, set aside
+    assert read_h5(tmp_path / "scan.h5")[2] == fresh.config_hash
+    # 100 eV more at the start, 100 eV more on landing (energy conservation: common practice), up
+    # to the spread of the start potentials (< 0.03 V) over the rays that reach the target
+    assert fresh.table["target.landing_mean_eV"] == pytest.approx(first.table["target.landing_mean_eV"] + 100.0,
+                                                                  abs=0.01)
+
+
+def test_rows_of_other_sets_are_refused_on_resume(setup_maps, tmp_path):
+    setup, maps = setup_maps
+    names, sets = voltage_sets(setup)
+    header = ("lens_V", "target_V", "x")
+    rows = Rows(tmp_path, "d" * 64, header, sets)
+    rows.add(0, np.array([500.0, 0.0, 1.5]))
+    rows.close()
+    with open(tmp_path / CSV_NAME, "a") as handle:
+        handle.write("1,123.0,0.0,2.5\n")           # voltages that are not set 1's
+        handle.write("0,500.0,0.0,9.0\n")           # set 0 a second time
+    back = Rows(tmp_path, "d" * 64, header, sets)
+    back.close()
+    assert list(back.done) == [0] and back.done[0].tolist() == [500.0, 0.0, 1.5]
+    assert _csv_sets(tmp_path) == [0]
+
+
+def test_voltage_sets_from_a_csv_file(setup_maps, tmp_path):
+    (tmp_path / "sets.csv").write_text("target_V,lens_V\n0,650.5\n250.0,800\n")
+    setup = lens(extra='[scan]\ncsv = "sets.csv"\n', source=tmp_path / "lens.toml")
+    names, sets = voltage_sets(setup)
+    assert names == ("target", "lens") and sets.tolist() == [[0.0, 650.5], [250.0, 800.0]]
+    result = scan(setup, setup_maps[1], workers=1)
+    assert result.table.dtype.names[:2] == ("target_V", "lens_V")
+    assert result.table["target.landing_mean_eV"][1] == pytest.approx(750.0, abs=0.5)  # 1000 eV - 250 V
+    (tmp_path / "sets.csv").write_text("target_V,lens_V\n0,650.5\n250.0,801\n")   # a changed set
+    assert config_hash(setup, *voltage_sets(setup)) != result.config_hash

@@ -1,0 +1,543 @@
+"""Electron (and ion) guns: emission from a cathode, iterated with the beam's own space charge.
+
+The emitting area
+    The cathode is the electrode named by ``[gun] cathode``.  Its outline in the (z, r) half-plane
+    is walked in pieces of a tenth of a cell; a piece emits when its outward normal points
+    downstream (n_z > 0: the face towards the anode, not the back or a side wall), the space just
+    in front of it is free (not inside another shape, e.g. a focusing electrode at cathode
+    potential that covers the rim) and inside the domain, and the vacuum field accelerates the
+    emitted particles there.  To leave a part of a cathode out, cover it with an electrode at the
+    cathode's voltage.
+
+Emission sites
+    ``rays`` sites divide the emitting area into equal parts (area 2 pi r ds in axial symmetry,
+    ds per unit length in planar), each site at its part's centre of area.  The ray of a site
+    starts at the distance d = ``EMIT_CELLS`` cells in front of the surface, along the normal,
+    with the kinetic energy it gained from the cathode, and carries J A / rays, J from
+    :func:`tracer.emission.emission_density` with the potential at d.  In axial symmetry the rays
+    are turned to golden-angle azimuths (the fields are axisymmetric, so this changes nothing but
+    lets the x-x' statistics at the planes see a round beam).
+
+Self-consistency (DESIGN §2)
+    Each iteration evaluates the emission in the present field, traces the rays, deposits their
+    charge (:mod:`tracer.deposit`, with the layer between the surface and d filled as the
+    emission law's potential profile prescribes), solves Poisson's equation with every electrode
+    at 0 V (:func:`tracer.solver.solve_poisson`) and under-relaxes the space-charge potential,
+    phi <- (1 - w) phi + w phi_new.  The field is the electrode maps plus the space-charge map.
+    The iteration has converged when the total current changes by less than ``tolerance``
+    (relative) from one iteration to the next; the rays of the last iteration are the run.
+
+Units: currents in A (planar symmetry: A per metre of length in x, both halves of a mirrored
+domain counted); the perveance in A/V^1.5 (planar: A m^-1 V^-1.5).
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import math
+import tempfile
+import warnings
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+
+from tracer import emission
+from tracer.deposit import charge_density
+from tracer.fieldmap import edge_reflection, hermite_data
+from tracer.geometry import electrode_at
+
+EMIT_CELLS = 2.0
+"""Distance d of the ray starts from the cathode surface, in cells."""
+
+OUTLINE_CELLS = 0.1
+"""Length of the pieces the cathode outline is walked in, in cells."""
+
+LAYER_POINTS = 9
+"""Path points of the charge layer between the surface and each ray's start."""
+
+POISSON_RTOL = 1e-8
+"""Relative residual of each space-charge solve."""
+
+GOLDEN_ANGLE = math.pi * (3.0 - math.sqrt(5.0))
+
+EMISSION_DTYPE = np.dtype([
+    ("z_m", np.float64), ("r_m", np.float64),            # the site on the cathode surface
+    ("normal_z", np.float64), ("normal_r", np.float64),  # outward unit normal there
+    ("area_m2", np.float64),                             # emitting area the site stands for (m per m in planar)
+    ("voltage_V", np.float64),                           # accelerating potential at the ray start
+    ("density_A_per_m2", np.float64),
+    ("current_A", np.float64),
+    ("limited", np.bool_),                               # space-charge-limited (else temperature-limited)
+    ("ray", np.int64),                                   # index of the site's ray in the run, -1 if not emitting
+])
+
+HISTORY_DTYPE = np.dtype([("current_A", np.float64), ("change", np.float64)])
+
+
+@dataclass(frozen=True, eq=False)
+class GunResult:
+    """A converged (or not) self-consistent gun run.
+
+    Attributes
+    ----------
+    current_A : float
+        Total emitted current, A (planar: A/m).
+    perveance_A_per_V1p5 : float
+        current / V^1.5 with V the largest accelerating voltage between the cathode and any other
+        electrode (or a ground edge).
+    voltage_V : float
+        That voltage.
+    iterations : int
+        Emission evaluations made (the last one is the run).
+    converged : bool
+        Whether the current changed by less than the tolerance.
+    history : numpy.ndarray
+        Per iteration, ``current_A`` and its relative ``change`` from the previous one (NaN first).
+    field : tracer.fieldmap.PotentialMap
+        The self-consistent field: electrode maps plus the space-charge map.
+    space_charge_V : float64[nz, nr]
+        The space-charge potential at the nodes (electrodes at 0 V).
+    run : tracer.beam.BeamRun
+        The emitted rays traced through ``field``.
+    emission : numpy.ndarray
+        One row per emission site (``EMISSION_DTYPE``): position, normal, area, potential at the
+        start, current density, current, whether space-charge-limited, its ray.
+    crossover_z_m, crossover_radius_m : float or None
+        Where the current-weighted rms radius of the rays that leave the gun is smallest, and that
+        radius; None when the smallest is at either end of the range (no waist in the domain).
+    warning : str
+        Why the run is doubtful ("" when it is not).
+    """
+
+    current_A: float
+    perveance_A_per_V1p5: float
+    voltage_V: float
+    iterations: int
+    converged: bool
+    history: np.ndarray
+    field: object
+    space_charge_V: np.ndarray
+    run: object
+    emission: np.ndarray
+    crossover_z_m: float | None
+    crossover_radius_m: float | None
+    warning: str = ""
+
+    def paths_zr(self) -> list[np.ndarray]:
+        """The rays' paths as (n, 2) arrays of (z, r) in metres (r is y in planar symmetry)."""
+        if self.run is None:
+            return []
+        return [_path_zrt(p, self.field.grid.symmetry)[:, :2] for p in self.run.paths]
+
+
+# ---------------------------------------------------------------------------------------------
+# The cathode surface
+
+
+def _polygon_pieces(points, step):
+    """Outline pieces of a polygon: midpoints, outward normals and lengths."""
+    closed = np.vstack([points, points[:1]])
+    a, b = closed[:-1], closed[1:]
+    orientation = np.sign(np.sum(a[:, 0] * b[:, 1] - b[:, 0] * a[:, 1])) or 1.0
+    mids, normals, lengths = [], [], []
+    for p, q in zip(a, b):
+        edge = q - p
+        length = float(np.hypot(*edge))
+        if length == 0.0:
+            continue
+        n = max(1, math.ceil(length / step))
+        f = (np.arange(n) + 0.5) / n
+        mids.append(p + f[:, None] * edge)
+        normal = orientation * np.array([edge[1], -edge[0]]) / length
+        normals.append(np.tile(normal, (n, 1)))
+        lengths.append(np.full(n, length / n))
+    return mids, normals, lengths
+
+
+def _sector_pieces(row, step):
+    """Outline pieces of a spherical sector (cz, rho_in, rho_out, theta_lo, theta_hi)."""
+    cz, rho_in, rho_out, lo, hi = row
+    mids, normals, lengths = [], [], []
+    for rho, sign in ((rho_out, 1.0), (rho_in, -1.0)):
+        if rho <= 0.0:
+            continue
+        n = max(1, math.ceil(rho * (hi - lo) / step))
+        theta = lo + (np.arange(n) + 0.5) * (hi - lo) / n
+        radial = np.column_stack([np.cos(theta), np.sin(theta)])
+        mids.append(np.column_stack([cz + rho * radial[:, 0], rho * radial[:, 1]]))
+        normals.append(sign * radial)
+        lengths.append(np.full(n, rho * (hi - lo) / n))
+    n = max(1, math.ceil((rho_out - rho_in) / step))
+    rho = rho_in + (np.arange(n) + 0.5) * (rho_out - rho_in) / n
+    for theta, sign in ((lo, -1.0), (hi, 1.0)):
+        radial = np.array([math.cos(theta), math.sin(theta)])
+        mids.append(np.column_stack([cz + rho * radial[0], rho * radial[1]]))
+        normals.append(np.tile(sign * np.array([-radial[1], radial[0]]), (n, 1)))
+        lengths.append(np.full(n, (rho_out - rho_in) / n))
+    return mids, normals, lengths
+
+
+def cathode_outline(table, index, step):
+    """Pieces of the outline of electrode ``index``: midpoints (z, r), outward normals, lengths.
+
+    Parameters
+    ----------
+    table : tracer.geometry.ShapeTable
+    index : int
+        The electrode.
+    step : float
+        Longest piece, metres.
+
+    Returns
+    -------
+    points, normals : float64[n, 2]
+    lengths : float64[n]
+    """
+    mids, normals, lengths = [], [], []
+    for j in np.flatnonzero(table.owner == index):
+        if table.kind[j] == 0:
+            s, c = table.start[j], table.count[j]
+            parts = _polygon_pieces(table.points[s:s + c], step)
+        else:
+            parts = _sector_pieces(table.sector[j], step)
+        for whole, part in zip((mids, normals, lengths), parts):
+            whole.extend(part)
+    if not lengths:
+        return np.zeros((0, 2)), np.zeros((0, 2)), np.zeros(0)
+    return np.vstack(mids), np.vstack(normals), np.concatenate(lengths)
+
+
+def _free(table, grid, z, r):
+    """True for points inside the domain and outside every electrode."""
+    arrays = table.arrays()
+    inside = (z >= grid.z0) & (z <= grid.z1) & (r >= grid.r0) & (r <= grid.r1)
+    return inside & np.array([electrode_at(zk, rk, *arrays) < 0 for zk, rk in zip(z, r)], dtype=bool)
+
+
+def _accelerating_voltage(field, cathode_V, charge_C, z, r):
+    """Potential difference (V) that accelerates the species from the cathode to (z, r)."""
+    return math.copysign(1.0, charge_C) * (cathode_V - field.potential(z, r))
+
+
+def emission_sites(field, cathode, rays, distance, charge_C):
+    """Sites dividing the cathode's emitting area (module notes) into ``rays`` equal parts.
+
+    Parameters
+    ----------
+    field : tracer.fieldmap.PotentialMap
+        The vacuum field (it decides which faces the field extracts from).
+    cathode : int
+        Index of the cathode electrode.
+    rays : int
+        Number of sites.
+    distance : float
+        Distance of the ray starts from the surface, metres.
+    charge_C : float
+        Charge of the emitted particle.
+
+    Returns
+    -------
+    numpy.ndarray
+        ``EMISSION_DTYPE`` rows with position, normal and area filled in.
+
+    Raises
+    ------
+    ValueError
+        When no part of the cathode can emit.
+    """
+    grid, table = field.grid, field.table
+    cell = min(grid.hz, grid.hr)
+    points, normals, lengths = cathode_outline(table, cathode, OUTLINE_CELLS * cell)
+    probe = points + 0.05 * cell * normals
+    start = points + distance * normals
+    ok = (normals[:, 0] > 0.0) & _free(table, grid, *probe.T) & _free(table, grid, *start.T)
+    ok[ok] = _accelerating_voltage(field, field.voltages[cathode], charge_C, *start[ok].T) > 0.0
+    if not ok.any():
+        raise ValueError(f"electrode {table.names[cathode]!r} has no face towards free space "
+                         "where the field pulls the emitted particles off")
+    points, normals, lengths = points[ok], normals[ok], lengths[ok]
+    area = 2.0 * math.pi * points[:, 1] * lengths if grid.symmetry == "axial" else lengths
+    # the pieces follow the outline, so each equal-area part is a contiguous stretch of it
+    cumulative = np.cumsum(area)
+    total = cumulative[-1]
+    target = (np.arange(rays) + 0.5) * total / rays
+    k = np.minimum(np.searchsorted(cumulative, target), len(area) - 1)
+    out = np.zeros(rays, dtype=EMISSION_DTYPE)
+    out["z_m"], out["r_m"] = points[k].T
+    out["normal_z"], out["normal_r"] = normals[k].T
+    out["area_m2"] = total / rays
+    out["ray"] = -1
+    return out
+
+
+# ---------------------------------------------------------------------------------------------
+# One iteration's pieces
+
+
+def _evaluate_emission(sites, field, spec, cathode_V, distance):
+    """Fill in each site's potential, current density and current in the present field."""
+    sp = spec.species
+    zs = sites["z_m"] + distance * sites["normal_z"]
+    rs = sites["r_m"] + distance * sites["normal_r"]
+    volts = _accelerating_voltage(field, cathode_V, sp.charge_C, zs, rs)
+    surface_field = None
+    if spec.schottky:
+        ez, er = field.field(zs, rs)
+        surface_field = math.copysign(1.0, sp.charge_C) * (ez * sites["normal_z"] + er * sites["normal_r"])
+    density, limited = emission.emission_density(
+        volts, distance, sp.mass_kg, sp.charge_C, temperature_K=spec.temperature_K,
+        work_function_eV=spec.work_function_eV, surface_field_V_per_m=surface_field)
+    out = sites.copy()
+    out["voltage_V"] = volts
+    out["density_A_per_m2"] = density
+    out["current_A"] = density * sites["area_m2"]
+    out["limited"] = limited
+    out["ray"] = -1
+    emitting = np.flatnonzero(out["current_A"] > 0.0)
+    out["ray"][emitting] = np.arange(emitting.size)
+    return out
+
+
+def _start_rays(sites, distance, symmetry, folder):
+    """Write the emitting sites' rays as a rays file; returns its path."""
+    rows = sites[sites["ray"] >= 0]
+    rs = rows["r_m"] + distance * rows["normal_r"]
+    zs = rows["z_m"] + distance * rows["normal_z"]
+    if symmetry == "axial":
+        phi = GOLDEN_ANGLE * np.arange(len(rows))
+        c, s = np.cos(phi), np.sin(phi)
+        columns = (rs * c, rs * s, zs, rows["normal_r"] * c, rows["normal_r"] * s, rows["normal_z"])
+    else:
+        columns = (np.zeros(len(rows)), rs, zs, np.zeros(len(rows)), rows["normal_r"], rows["normal_z"])
+    path = Path(folder) / "gun_rays.csv"
+    np.savetxt(path, np.column_stack(columns + (rows["voltage_V"],)), fmt="%.17g", delimiter=",",
+               header="x_m,y_m,z_m,ux,uy,uz,energy_eV", comments="")
+    return path
+
+
+def _trace(field, setup, sites, distance, folder):
+    from tracer.beam import trace
+    from tracer.config import Beam
+
+    sp = setup.gun.species
+    beam = Beam(name="gun", species=sp, energy_eV=None, start_z_m=None, count=None,
+                rays_csv=_start_rays(sites, distance, field.grid.symmetry, folder))
+    grid = field.grid
+    opts = setup.trace
+    rays = int(np.count_nonzero(sites["ray"] >= 0))
+    return trace(field, beam, planes=setup.planes, rtol=opts.rtol, max_time_s=opts.max_time_s,
+                 keep_paths=rays, max_path_points=max(4096, 4 * (grid.nz + grid.nr)),
+                 ledger_threshold=opts.ledger_threshold)
+
+
+def _path_zrt(path, symmetry):
+    """(z, r, t) columns of a ray path (r = hypot(x, y) in axial, y in planar)."""
+    r = path["y_m"] if symmetry != "axial" else np.hypot(path["x_m"], path["y_m"])
+    return np.column_stack([path["z_m"], r, path["time_s"]])
+
+
+def _layer_paths(sites, distance, mass_kg, charge_C):
+    """Paths across the layer between the surface and each ray's start (``emission.layer_transit``)."""
+    rows = sites[sites["ray"] >= 0]
+    limit = emission.child_langmuir(rows["voltage_V"], distance, mass_kg, charge_C)
+    alpha = emission.layer_exponent(rows["density_A_per_m2"], limit)
+    speed = np.sqrt(2.0 * abs(charge_C) * rows["voltage_V"] / mass_kg)
+    paths = []
+    for row, a, v in zip(rows, alpha, speed):
+        x, t = emission.layer_transit(distance, v, a, LAYER_POINTS)
+        paths.append(np.column_stack([row["z_m"] + x * row["normal_z"], row["r_m"] + x * row["normal_r"], t]))
+    return paths
+
+
+def space_charge_density(grid, run, sites, distance, species):
+    """Charge density (C/m^3) of the emitted rays: their paths plus the layers below the starts.
+
+    Parameters
+    ----------
+    grid : tracer.grid.Grid
+    run : tracer.beam.BeamRun
+        The traced rays of the emitting sites (ray k of ``sites["ray"] == k``), all paths kept.
+    sites : numpy.ndarray
+        The evaluated emission sites.
+    distance : float
+        Distance of the ray starts from the surface, metres.
+    species : tracer.species.Species
+
+    Returns
+    -------
+    float64[nz, nr]
+    """
+    current = math.copysign(1.0, species.charge_C) * sites["current_A"][sites["ray"] >= 0]
+    paths = [_path_zrt(p, grid.symmetry) for p in run.paths]
+    paths += _layer_paths(sites, distance, species.mass_kg, species.charge_C)
+    return charge_density(grid, paths, np.concatenate([current, current]))
+
+
+def _space_charge_map(field, phi):
+    """Hermite data of a space-charge potential (every electrode at 0 V)."""
+    g, raster = field.grid, field.raster
+    return hermite_data(phi, raster.owner, raster.arm, raster.arm_owner, np.zeros(len(field.names)),
+                        g.hz, g.hr, edge_reflection(g.edges))
+
+
+# ---------------------------------------------------------------------------------------------
+# Figures of merit
+
+
+def gun_voltage(field, cathode, charge_C):
+    """The largest voltage accelerating the species from the cathode to another electrode or a
+    ground edge (0 V)."""
+    others = [v for k, v in enumerate(field.voltages) if k != cathode]
+    if "ground" in field.grid.edges:
+        others.append(0.0)
+    sign = math.copysign(1.0, charge_C)
+    return max([sign * (field.voltages[cathode] - v) for v in others], default=0.0)
+
+
+def crossover(run, current, symmetry, samples=400):
+    """Waist of the rays that leave the gun: where their current-weighted rms radius is smallest.
+
+    Parameters
+    ----------
+    run : tracer.beam.BeamRun
+        All paths kept (ray k's path is ``run.paths[k]``).
+    current : float64[n_rays]
+        Current of each ray.
+    symmetry : str
+    samples : int
+        Stations in z between the latest start and the earliest end of those rays.
+
+    Returns
+    -------
+    (z, radius) : tuple of float, or (None, None)
+        None when there are no such rays or the smallest radius is at either end of the range.
+    """
+    keep = [k for k in range(len(run.paths))
+            if run.records["status"][k] not in ("landed", "inside") and current[k] > 0.0]
+    if not keep:
+        return None, None
+    zr = []
+    for k in keep:
+        p = _path_zrt(run.paths[k], symmetry)
+        forward = np.concatenate(([True], np.diff(p[:, 0]) > 0.0))
+        stop = int(np.argmin(forward)) if not forward.all() else len(p)
+        zr.append(p[:stop, :2])
+    lo = max(p[0, 0] for p in zr)
+    hi = min(p[-1, 0] for p in zr)
+    if not hi > lo:
+        return None, None
+    z = np.linspace(lo, hi, samples)
+    w = current[keep]
+    r2 = np.array([np.interp(z, p[:, 0], p[:, 1]) ** 2 for p in zr])
+    rms = np.sqrt(w @ r2 / w.sum())
+    k = int(np.argmin(rms))
+    if k in (0, samples - 1):
+        return None, None
+    return float(z[k]), float(rms[k])
+
+
+# ---------------------------------------------------------------------------------------------
+# The iteration
+
+
+def gun(setup, *, maps=None, cache_dir=None, progress=None) -> GunResult:
+    """Run a gun self-consistently: emission, tracing, space charge, until the current settles.
+
+    Parameters
+    ----------
+    setup : tracer.config.Setup
+        With a ``[gun]`` section; its ``[trace]`` options and planes are used for the rays.
+    maps : tracer.fieldmap.BasisMaps, optional
+        The electrodes' basis maps if solved before; else they are solved (and cached in
+        ``cache_dir`` when given).
+    cache_dir : str or os.PathLike, optional
+        Folder of cached basis maps.
+    progress : callable, optional
+        Called as ``progress(iteration, max_iterations)`` after each iteration, and with
+        ``(max_iterations, max_iterations)`` when the iteration stops.
+
+    Returns
+    -------
+    GunResult
+
+    Raises
+    ------
+    tracer.config.ConfigError
+        When the setup has no ``[gun]`` section.
+    ValueError
+        When the cathode has no face the field can draw particles from.
+
+    Warns
+    -----
+    RuntimeWarning
+        When the current has not converged within ``max_iterations``.
+    """
+    from tracer.config import ConfigError
+    from tracer.pipeline import solve
+    from tracer.solver import solve_poisson
+
+    spec = setup.gun
+    if spec is None:
+        raise ConfigError("gun", "the setup has no [gun] section")
+    if maps is None:
+        maps = solve(setup, cache_dir=cache_dir)
+    vacuum = maps.combine()
+    grid = vacuum.grid
+    cathode = vacuum.names.index(spec.cathode)
+    cathode_V = vacuum.voltages[cathode]
+    sp = spec.species
+    distance = EMIT_CELLS * min(grid.hz, grid.hr)
+    blank = emission_sites(vacuum, cathode, spec.rays, distance, sp.charge_C)
+    halves = 2.0 if grid.symmetry == "planar" and grid.mirror else 1.0
+
+    phi = np.zeros(grid.shape)
+    field = vacuum
+    history = []
+    converged = False
+    with tempfile.TemporaryDirectory(prefix="tracer-gun-") as folder:
+        for iteration in range(1, spec.max_iterations + 1):
+            sites = _evaluate_emission(blank, field, spec, cathode_V, distance)
+            total = float(sites["current_A"].sum())
+            change = abs(total - history[-1][0]) / total if history and total > 0.0 else math.nan
+            history.append((total, change))
+            converged = total == 0.0 or change < spec.tolerance
+            if total > 0.0:
+                run = _trace(field, setup, sites, distance, folder)
+            if progress is not None and iteration < spec.max_iterations:
+                progress(iteration, spec.max_iterations)
+            if converged or total == 0.0 or iteration == spec.max_iterations:
+                break
+            rho = space_charge_density(grid, run, sites, distance, sp)
+            fresh = solve_poisson(grid, vacuum.table, rho, vacuum.raster, rtol=POISSON_RTOL)
+            phi = (1.0 - spec.relaxation) * phi + spec.relaxation * fresh
+            field = dataclasses.replace(vacuum, hermite=vacuum.hermite + _space_charge_map(vacuum, phi))
+    if progress is not None:
+        progress(spec.max_iterations, spec.max_iterations)
+    warning = ""
+    if total == 0.0:
+        warning = "the cathode emits nothing: no accelerating field in front of it"
+        run = None
+    elif not converged:
+        warning = (f"gun did not converge: the current changed by {change:.2e} (relative) in the "
+                   f"last of {iteration} iterations, tolerance {spec.tolerance:g}")
+    if warning:
+        warnings.warn(warning, RuntimeWarning, stacklevel=2)
+    current = sites["current_A"][sites["ray"] >= 0]
+    z_x, r_x = crossover(run, current, grid.symmetry) if run is not None else (None, None)
+    volts = gun_voltage(vacuum, cathode, sp.charge_C)
+    return GunResult(
+        current_A=halves * total,
+        perveance_A_per_V1p5=halves * total / volts**1.5 if volts > 0.0 else math.nan,
+        voltage_V=volts,
+        iterations=iteration,
+        converged=converged and total > 0.0,
+        history=np.array(history, dtype=HISTORY_DTYPE),
+        field=field,
+        space_charge_V=phi,
+        run=run,
+        emission=sites,
+        crossover_z_m=z_x,
+        crossover_radius_m=r_x,
+        warning=warning,
+    )
