@@ -342,12 +342,12 @@ COMMANDS = {
     "check": (cmd_check, "validate a config and describe it"),
     "solve": (cmd_solve, "solve the basis maps and draw the equipotentials"),
     "run": (cmd_run, "solve if needed, trace every beam, write the report"),
-    "demo": (cmd_demo, "run a bundled example into a fresh folder"),
-    "gun": (cmd_gun, "iterate a gun's emission with its space charge until the current settles"),
-    "optics": (cmd_optics, "paraxial lens properties and aberrations on the axis"),
     "show": (cmd_show, "print the summary of a result file and draw its pictures again"),
+    "demo": (cmd_demo, "run a bundled example into a fresh folder"),
     "scan": (cmd_scan, "trace the beams at every voltage set of [scan]; resumes where it stopped"),
     "tune": (cmd_tune, "find the voltages of [tune] that best meet its goal"),
+    "optics": (cmd_optics, "paraxial lens properties and aberrations on the axis"),
+    "gun": (cmd_gun, "iterate a gun's emission with its space charge until the current settles"),
 }
 
 
@@ -384,6 +384,15 @@ def build_parser() -> argparse.ArgumentParser:
     return parser
 
 
+def _by_interrupt(exc) -> bool:
+    """True when a KeyboardInterrupt is the cause (or context) of an exception."""
+    while exc is not None:
+        if isinstance(exc, KeyboardInterrupt):
+            return True
+        exc = exc.__cause__ or exc.__context__
+    return False
+
+
 def main(argv: list[str] | None = None) -> int:
     """Run the command line; return the exit code."""
     from tracer.config import ConfigError
@@ -408,6 +417,9 @@ def main(argv: list[str] | None = None) -> int:
         print("tracer: interrupted", file=sys.stderr)
         return 130
     except Exception as exc:  # an internal fault: say so plainly, keep the details for --debug
+        if _by_interrupt(exc):  # numba's parallel kernels hand a Ctrl-C back inside a SystemError
+            print("tracer: interrupted", file=sys.stderr)
+            return 130
         if args.debug:
             traceback.print_exc()
         print(f"tracer: internal fault: {type(exc).__name__}: {exc} (run with --debug for details)",

@@ -51,7 +51,7 @@ _STEP_R = (0, 0, 1, -1)
 # Evaluation of the bicubic Hermite patch
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def cell_index(x, x0, h, n):
     """Index of the cell holding coordinate x on a line of n nodes, clamped to [0, n - 2].
 
@@ -65,7 +65,7 @@ def cell_index(x, x0, h, n):
     return 0
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _cubic_hermite(u, h):
     """Cubic Hermite weights at fraction u of a cell of length h, and their derivatives.
 
@@ -78,7 +78,7 @@ def _cubic_hermite(u, h):
             -da1, da1, (3.0 * u - 1.0) * (u - 1.0), u * (3.0 * u - 2.0))
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def hermite_eval(h, z0, r0, hz, hr, nz, nr, mirror, z, r):
     """Bicubic Hermite interpolant and its gradient at one point.
 
@@ -127,7 +127,7 @@ def hermite_eval(h, z0, r0, hz, hr, nz, nr, mirror, z, r):
     return v, vz, sign * vr
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def hermite_eval_many(h, z0, r0, hz, hr, nz, nr, mirror, z, r):
     """``hermite_eval`` over 1-D arrays of points; returns (V, dV/dz, dV/dr) arrays."""
     n = z.size
@@ -143,7 +143,7 @@ def hermite_eval_many(h, z0, r0, hz, hr, nz, nr, mirror, z, r):
 # Node data: ghost extension and finite differences
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _lagrange_at_one(x, y, n):
     """Value at x = 1 of the polynomial through the first n points (x[k], y[k])."""
     s = 0.0
@@ -156,7 +156,7 @@ def _lagrange_at_one(x, y, n):
     return s
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _free_behind(owner, arm, iz, ir, k, m):
     """True when the node m steps behind (iz, ir) against arm k is free with an unbroken arm k."""
     nz, nr = owner.shape
@@ -167,7 +167,7 @@ def _free_behind(owner, arm, iz, ir, k, m):
     return owner[jz, jr] < 0 and arm[jz, jr, k] >= 1.0
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _extrapolate(v, owner, arm, arm_owner, surface, iz, ir, k):
     """Continue the free-space solution from free node (iz, ir) along arm k to the conductor node.
 
@@ -193,7 +193,7 @@ def _extrapolate(v, owner, arm, arm_owner, surface, iz, ir, k):
     return _lagrange_at_one(x, y, n)
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _twist(g, usable, iz, ir, sz, sr):
     """Mixed difference of the cell beyond free node (iz, ir) in direction (sz, sr); 0 if unusable."""
     nz, nr = g.shape
@@ -206,7 +206,7 @@ def _twist(g, usable, iz, ir, sz, sr):
     return g[jz, jr] - g[jz, ir] - g[iz, jr] + g[iz, ir]
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def ghost_extend(v, owner, arm, arm_owner, surface):
     """Node values with conductor nodes next to free space replaced by the continued solution.
 
@@ -277,7 +277,7 @@ def ghost_extend(v, owner, arm, arm_owner, surface):
     return g, extended
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _partner(i, n, reflect_lo, reflect_hi):
     """Index holding the value at node i (reflected at mirroring edges); -1 if there is none."""
     if i < 0:
@@ -289,7 +289,7 @@ def _partner(i, n, reflect_lo, reflect_hi):
     return i
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def diff_z(g, extended, h, reflect_lo, reflect_hi):
     """d/dz (first array axis) over extended nodes; zero elsewhere.
 
@@ -322,7 +322,7 @@ def diff_z(g, extended, h, reflect_lo, reflect_hi):
     return out
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def hermite_data(v, owner, arm, arm_owner, surface, hz, hr, reflect):
     """Hermite node data (V, dV/dz, dV/dr, d2V/dzdr) of one map.
 
@@ -381,7 +381,7 @@ def basis_hermite(grid, raster, unit) -> np.ndarray:
 # Potential maps
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _evaluate(h, z0, r0, hz, hr, nz, nr, mirror, cell, kind, owner, start, count, points, sector,
               bbox, volts, z, r, v, ez, er):
     """Potential and field at points; electrode voltage and zero field inside conductors."""

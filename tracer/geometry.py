@@ -115,7 +115,7 @@ class Raster:
 # point tests
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _in_angle(theta, lo, hi):
     """True when ``theta`` lies in [lo, hi] modulo 2 pi."""
     span = hi - lo
@@ -128,7 +128,7 @@ def _in_angle(theta, lo, hi):
     return d <= span + _ANGLE_TOL
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _inside_polygon(z, r, points, s, n):
     inside = False
     az = points[s + n - 1, 0]
@@ -144,7 +144,7 @@ def _inside_polygon(z, r, points, s, n):
     return inside
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _inside_sector(z, r, row):
     dz = z - row[0]
     rho2 = dz * dz + r * r
@@ -153,7 +153,7 @@ def _inside_sector(z, r, row):
     return _in_angle(math.atan2(r, dz), row[3], row[4])
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _contains(j, z, r, kind, start, count, points, sector):
     """Shape j (unclipped) contains the point."""
     if kind[j] == POLYGON:
@@ -161,14 +161,14 @@ def _contains(j, z, r, kind, start, count, points, sector):
     return _inside_sector(z, r, sector[j])
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _inside_shape(j, z, r, kind, start, count, points, sector, bbox):
     if z < bbox[j, 0] or z > bbox[j, 1] or r < bbox[j, 2] or r > bbox[j, 3]:
         return False
     return _contains(j, z, r, kind, start, count, points, sector)
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def electrode_at(z, r, kind, owner, start, count, points, sector, bbox):
     """The electrode containing a point.
 
@@ -197,7 +197,7 @@ def electrode_at(z, r, kind, owner, start, count, points, sector, bbox):
 # surface crossings
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _hit_edge(z, r, dz, dr, az, ar, bz, br):
     """Parameter t in [0, 1] where the segment meets edge a-b, or 2.0 (parallel or missed)."""
     ez = bz - az
@@ -214,7 +214,7 @@ def _hit_edge(z, r, dz, dr, az, ar, bz, br):
     return 2.0
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _hit_circle(z, r, dz, dr, row, rho):
     """Smallest t in [0, 1] where the segment meets the sector's arc of radius rho, or 2.0."""
     fz = z - row[0]
@@ -235,7 +235,7 @@ def _hit_circle(z, r, dz, dr, row, rho):
     return best
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _hit_sector(z, r, dz, dr, row):
     t = _hit_circle(z, r, dz, dr, row, row[2])
     if row[1] > 0.0:
@@ -248,7 +248,7 @@ def _hit_sector(z, r, dz, dr, row):
     return t
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _hit_shape(j, z, r, dz, dr, kind, start, count, points, sector):
     """Smallest t in [0, 1] where the segment meets shape j's boundary (unclipped), or 2.0."""
     if kind[j] == SECTOR:
@@ -267,7 +267,7 @@ def _hit_shape(j, z, r, dz, dr, kind, start, count, points, sector):
     return t
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def first_hit(z, r, dz, dr, kind, owner, start, count, points, sector, bbox):
     """The first conductor surface on a straight segment.
 
@@ -343,7 +343,7 @@ def _rows(electrodes):
     return rows
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _meets_rect(j, zlo, zhi, rlo, rhi, kind, start, count, points, sector, bbox):
     """True when shape j and the closed rectangle have a point in common."""
     cz = (zlo, zhi, zhi, zlo)
@@ -364,7 +364,7 @@ def _meets_rect(j, zlo, zhi, rlo, rhi, kind, start, count, points, sector, bbox)
     return zlo <= pz <= zhi and rlo <= pr <= rhi
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _overlap(ja, jb, zlo, zhi, rlo, rhi, nz, nr, kind, start, count, points, sector, bbox):
     """True when a sample of an nz x nr lattice over the box, with a small plus-shaped
     neighbourhood, lies inside both shapes."""
@@ -481,7 +481,7 @@ def shape_table(electrodes, domain):
 # rasterizing
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _cell_range(lo, hi, x0, h, ncell):
     """Cells [i0, i1] whose closed span [x0 + i h, x0 + (i + 1) h] meets [lo, hi], clamped."""
     i0 = max(int(math.ceil((lo - x0) / h)) - 1, 0)
@@ -489,7 +489,7 @@ def _cell_range(lo, hi, x0, h, ncell):
     return i0, i1
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _mark(pz, pr, j, geo, stamp, touched):
     """Mark every cell within reach of the boundary sample (pz, pr) as touched by shape j."""
     z0, r0, hz, hr, reach_z, reach_r = geo[0], geo[1], geo[2], geo[3], geo[4], geo[5]
@@ -502,7 +502,7 @@ def _mark(pz, pr, j, geo, stamp, touched):
             touched[iz, ir] = True
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _mark_segment(az, ar, bz, br, j, step, geo, stamp, touched):
     if geo[6] > 0.0 and max(ar, br) <= geo[1] + 1e-9 * geo[3]:
         return  # lies on the axis or mirror plane: not a surface
@@ -512,7 +512,7 @@ def _mark_segment(az, ar, bz, br, j, step, geo, stamp, touched):
         _mark(az + f * (bz - az), ar + f * (br - ar), j, geo, stamp, touched)
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _mark_arc(cz, rho, lo, span, j, step, geo, stamp, touched):
     n = max(8, int(math.ceil(rho * span / step)))
     for i in range(n + 1):
@@ -520,7 +520,7 @@ def _mark_arc(cz, rho, lo, span, j, step, geo, stamp, touched):
         _mark(cz + rho * math.cos(a), rho * math.sin(a), j, geo, stamp, touched)
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _mark_boundary(j, kind, start, count, points, sector, step, geo, stamp, touched):
     """Sample shape j's boundary at spacing <= step and mark the cells it may touch."""
     if kind[j] == POLYGON:
@@ -542,7 +542,7 @@ def _mark_boundary(j, kind, start, count, points, sector, step, geo, stamp, touc
             _mark_segment(cz + rho_in * c, rho_in * s, cz + rho_out * c, rho_out * s, j, step, geo, stamp, touched)
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _snapped_inside(j, z, r, dz, dr, kind, start, count, points, sector, bbox):
     """Shape j contains the point or one of its eight neighbours at offsets (dz, dr)."""
     for oz in (0.0, -dz, dz):
@@ -552,7 +552,7 @@ def _snapped_inside(j, z, r, dz, dr, kind, start, count, points, sector, bbox):
     return False
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _fill_shape(j, kind, owner, start, count, points, sector, bbox, geo, stamp, inside, node):
     """Decide cells and nodes in shape j's box: cells untouched by its boundary by one point test
     per run along r, nodes next to its boundary by an exact (snapped) test."""
@@ -605,7 +605,7 @@ _DZ = (1, -1, 0, 0)
 _DR = (0, 0, 1, -1)
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _arms(node, touched, kind, owner, start, count, points, sector, bbox, geo, mirror, arm, arm_owner):
     """Arms of the free nodes at corners of touched cells; snap nodes with arms shorter than SNAP."""
     z0, r0, hz, hr = geo[0], geo[1], geo[2], geo[3]
@@ -654,7 +654,7 @@ def _arms(node, touched, kind, owner, start, count, points, sector, bbox, geo, m
             arm_owner[iz, 0, 3] = arm_owner[iz, 0, 2]
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _rasterize(kind, owner, start, count, points, sector, bbox, z0, r0, hz, hr, nz, nr, mirror):
     step = 0.25 * min(hz, hr)
     geo = np.array([z0, r0, hz, hr, 0.5 * step + 1e-3 * hz, 0.5 * step + 1e-3 * hr, 1.0 if mirror else 0.0])

@@ -19,22 +19,34 @@ Equations I, 2nd ed., 1993, sec. II.6). The error of each step is the RMS over t
 components of the embedded estimate, each scaled by ``atol + rtol * max(|y_old|, |y_new|)``,
 with ``atol`` = rtol x cell for positions and rtol x the ray's momentum scale for momenta.
 
-Cell boundaries. The interpolant is a bicubic patch per cell: the field is continuous across cell
-boundaries but its derivatives jump, and an embedded error estimate does not see a step that
-straddles such a kink. A trial step that crosses a cell boundary in its interior is therefore cut
-back (on its own dense output) to end just past the boundary, within ``KINK_TOL`` cells, and the
-step size before the cut is resumed afterwards; every accepted step then integrates a smooth field.
+Cell walls. The interpolant is a bicubic patch per cell: the field is continuous across cell walls
+but its derivatives jump, and a Runge–Kutta step that straddles such a kink is neither accurate nor
+honestly estimated. Every step therefore integrates one cell's polynomial, continued past the
+cell's walls, and ends at the wall where the ray leaves the cell:
 
-Step length and electrodes. A step is never longer than ``max_step`` metres of path (one cell by
-default), so the Runge–Kutta stages cannot jump over a region where the field changes. Electrodes
-are found on the dense output, not at step ends: each accepted step is cut into pieces of at most
-``sample`` metres (half a cell by default); a piece whose (z, r) box touches a grid cell that is
-cut by a surface or lies inside an electrode (``Raster.cell`` != -1) is cut again into pieces of at
-most ``fine`` metres (1/32 of a cell), and for each such piece the exact shapes are asked: is its end
-inside an electrode (``geometry.electrode_at``), or does its chord cross a surface
-(``geometry.first_hit``, which catches foils thinner than the piece). A landing is then bisected
-on the dense output with ``electrode_at`` to 2^-48 of the piece, far below 1e-3 of a cell. Plane
-crossings (z = const) and leaving the domain are bisected on the dense output the same way.
+* before the step, the time to that wall is predicted by continuing the last accepted step's dense
+  output (a straight line with constant acceleration for the first step), and the step is chosen to
+  end there (growing by up to ``STRETCH`` rather than stopping just short of it), so it rarely
+  has to be cut back;
+* a step that ends within ``SNAP`` cells (of path) of a wall, on either side, moves the ray into the
+  next cell, whose polynomial then gives the next step's first stage. The error of the short stretch
+  integrated with the continued polynomial is estimated from the two fields at the step's end,
+  ``|dt| |F_next - F_this| / 2`` (the field difference grows linearly from the wall over the time
+  ``dt`` between the step's end and the wall), and must stay below ``KINK_FRACTION`` of the
+  tolerance; a step that overshoots further, or whose path leaves the cell between its ends (a ray
+  passing the axis, or turning), is cut back to the wall on its own dense output and redone.
+
+Step length and electrodes. A step is never longer than ``max_step`` metres of path, and never
+leaves its cell, so the Runge–Kutta stages cannot jump over a region where the field changes.
+Electrodes are found on the dense output, not at step ends: each accepted step is cut into pieces
+of at most ``sample`` metres (half a cell by default); a piece whose (z, r) box touches a grid cell
+that is cut by a surface or lies inside an electrode (``Raster.cell`` != -1) is cut again into
+pieces of at most ``fine`` metres (1/32 of a cell), and for each such piece the exact shapes are
+asked: is its end inside an electrode (``geometry.electrode_at``), or does its chord cross a surface
+(``geometry.first_hit``, which catches foils thinner than the piece). Pieces in free cells ask
+nothing. A landing is then bisected on the dense output with ``electrode_at`` to 2^-48 of the
+piece, far below 1e-3 of a cell. Plane crossings (z = const) and leaving the domain are bisected on
+the dense output the same way.
 """
 
 import math
@@ -43,7 +55,7 @@ import numpy as np
 from numba import njit, prange
 from scipy import constants
 
-from tracer.fieldmap import hermite_eval
+from tracer.fieldmap import cell_index, hermite_eval
 from tracer.geometry import electrode_at, first_hit
 from tracer.ledger import kinetic_energy_J
 
@@ -78,18 +90,50 @@ RUNNING, LANDED, PLANE, LEFT, TIME, INSIDE, STALLED = -1, 0, 1, 2, 3, 4, 5
 EV_Z, EV_R, EV_ELECTRODE = 0, 1, 2
 
 BISECTIONS = 48
-KINK_TOL = 1e-7   # cell-boundary crossings are put within this many cells of a step's end
+SNAP = 1e-3           # a step ending this many cells of path from a cell wall ends on the wall
+KINK_FRACTION = 0.05  # largest error of the stretch past a wall, as a fraction of the tolerance
+PREDICT_SPAN = 3.0    # the last step's dense output predicts at most this many of its lengths ahead
+STRETCH = 1.1         # a step may grow by this factor to reach the wall instead of stopping short
 SAFETY, FAC_MIN, FAC_MAX = 0.9, 0.2, 5.0
 
 
-@njit(cache=True)
-def field_at(herm, grid, sym, x, y, z):
-    """Potential and field at a 3-D point.
+@njit(cache=True, error_model="numpy")
+def map_r(sym, x, y):
+    """The map coordinate r of a 3-D point (hypot(x, y), |y| or y)."""
+    if sym == 0:
+        return math.sqrt(x * x + y * y)
+    if sym == 2:
+        return abs(y)
+    return y
+
+
+@njit(cache=True, error_model="numpy")
+def cell_of(grid, sym, x, y, z):
+    """Indices (i, j) of the interpolation cell holding a 3-D point (clamped onto the grid)."""
+    i = cell_index(z, grid[0], grid[2], int(grid[4]))
+    j = cell_index(map_r(sym, x, y), grid[1], grid[3], int(grid[5]))
+    return i, j
+
+
+@njit(cache=True, error_model="numpy")
+def cell_ahead(grid, sym, s, length):
+    """Indices of the cell holding the point ``length`` metres ahead of state s along its motion."""
+    p = math.sqrt(s[3] * s[3] + s[4] * s[4] + s[5] * s[5])
+    f = length / p if p > 0.0 else 0.0
+    return cell_of(grid, sym, s[0] + f * s[3], s[1] + f * s[4], s[2] + f * s[5])
+
+
+@njit(cache=True, error_model="numpy")
+def patch_field(patch, pz, pr, grid, sym, x, y, z):
+    """Potential and field at a 3-D point from the bicubic polynomial of one interpolation cell.
 
     Parameters
     ----------
-    herm : float64[4, nz, nr]
-        Hermite data of the potential map.
+    patch : float64[4, 2, 2]
+        The Hermite data of the cell's corner nodes (a view ``herm[:, i:i + 2, j:j + 2]`` of the
+        map's data); its polynomial is continued beyond the cell's walls.
+    pz, pr : float
+        The cell's first corner (z, r).
     grid : float64[8]
         (z0, r0, hz, hr, nz, nr, z1, r1) of the map's node grid.
     sym : int
@@ -103,16 +147,12 @@ def field_at(herm, grid, sym, x, y, z):
         Volts and V/m. Points outside the grid are clamped onto it.
     """
     z0, r0, hz, hr, z1, r1 = grid[0], grid[1], grid[2], grid[3], grid[6], grid[7]
-    nz, nr = int(grid[4]), int(grid[5])
-    if sym == 0:
-        r = math.sqrt(x * x + y * y)
-    elif sym == 2:
-        r = abs(y)
-    else:
-        r = y
+    r = map_r(sym, x, y)
     zc = min(max(z, z0), z1)
     rc = min(max(r, r0), r1)
-    v, dvdz, dvdr = hermite_eval(herm, z0, r0, hz, hr, nz, nr, sym != 1, zc, rc)
+    # hermite_eval continues the polynomial of a one-cell grid beyond it (rc >= r0, so the
+    # mirror reflection of a mirrored map never applies)
+    v, dvdz, dvdr = hermite_eval(patch, pz, pr, hz, hr, 2, 2, False, zc, rc)
     ez = -dvdz
     if sym == 0:
         if r > 0.0:
@@ -126,33 +166,32 @@ def field_at(herm, grid, sym, x, y, z):
     return v, 0.0, -dvdr, ez
 
 
-@njit(cache=True)
-def map_r(sym, x, y):
-    """The map coordinate r of a 3-D point (hypot(x, y), |y| or y)."""
-    if sym == 0:
-        return math.sqrt(x * x + y * y)
-    if sym == 2:
-        return abs(y)
-    return y
+@njit(cache=True, error_model="numpy")
+def field_at(herm, grid, sym, x, y, z):
+    """Potential and field of the interpolant at a 3-D point (see :func:`patch_field`)."""
+    i, j = cell_of(grid, sym, x, y, z)
+    return patch_field(herm[:, i:i + 2, j:j + 2], grid[0] + i * grid[2], grid[1] + j * grid[3],
+                       grid, sym, x, y, z)
 
 
-@njit(cache=True)
-def derivative(herm, grid, sym, mass, charge, s, k):
-    """Right-hand side of the equations of motion; writes k, returns the potential at s."""
+@njit(cache=True, error_model="numpy")
+def derivative(patch, pz, pr, grid, sym, mass, charge, s, ks, row):
+    """Right-hand side of the equations of motion in the field of one cell (see
+    :func:`patch_field`); writes ks[row], returns the potential at s."""
     mc = mass * C_LIGHT
-    px, py, pz = s[3], s[4], s[5]
-    gm = mass * math.sqrt(1.0 + (px * px + py * py + pz * pz) / (mc * mc))
-    k[0] = px / gm
-    k[1] = py / gm
-    k[2] = pz / gm
-    v, ex, ey, ez = field_at(herm, grid, sym, s[0], s[1], s[2])
-    k[3] = charge * ex
-    k[4] = charge * ey
-    k[5] = charge * ez
+    px, py, pz_ = s[3], s[4], s[5]
+    gm = mass * math.sqrt(1.0 + (px * px + py * py + pz_ * pz_) / (mc * mc))
+    ks[row, 0] = px / gm
+    ks[row, 1] = py / gm
+    ks[row, 2] = pz_ / gm
+    v, ex, ey, ez = patch_field(patch, pz, pr, grid, sym, s[0], s[1], s[2])
+    ks[row, 3] = charge * ex
+    ks[row, 4] = charge * ey
+    ks[row, 5] = charge * ez
     return v
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def dense(rc, theta, out):
     """Evaluate the continuous extension of the last step at theta in [0, 1] into out."""
     u = 1.0 - theta
@@ -160,7 +199,7 @@ def dense(rc, theta, out):
         out[i] = rc[0, i] + theta * (rc[1, i] + u * (rc[2, i] + theta * (rc[3, i] + u * rc[4, i])))
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def dense_coefficients(y0, y1, ks, h, rc):
     """Coefficients of the continuous extension of an accepted step (Hairer et al. 1993)."""
     for i in range(6):
@@ -175,7 +214,7 @@ def dense_coefficients(y0, y1, ks, h, rc):
         rc[4, i] = h * acc
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def step_cap(s, k, mass, length):
     """Longest time step that moves a ray at most ``length`` metres (constant-acceleration estimate)."""
     v = math.sqrt(k[0] * k[0] + k[1] * k[1] + k[2] * k[2])
@@ -189,7 +228,7 @@ def step_cap(s, k, mass, length):
     return 2.0 * length / den
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def outside(bounds, sym, z, r):
     """True when (z, r) is outside the domain; leaving through the axis or mirror plane is not leaving."""
     if z < bounds[0] or z > bounds[1] or r > bounds[3]:
@@ -197,7 +236,7 @@ def outside(bounds, sym, z, r):
     return sym == 1 and r < bounds[2]
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def is_event(kind, value, rising, z, r, geo):
     """Whether the event has happened at (z, r): a coordinate past ``value``, or inside an electrode."""
     if kind == EV_ELECTRODE:
@@ -206,7 +245,7 @@ def is_event(kind, value, rising, z, r, geo):
     return (c >= value) == rising
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def locate(rc, sym, lo, hi, kind, value, rising, geo, buf):
     """Bisect on the dense output for the first theta in (lo, hi] where the event holds at hi."""
     for _ in range(BISECTIONS):
@@ -219,7 +258,7 @@ def locate(rc, sym, lo, hi, kind, value, rising, geo, buf):
     return hi
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def touches_surface(cell, grid, za, ra, zb, rb, pad):
     """True when the (z, r) box of a piece, widened by ``pad`` in r, meets a cut or inner cell."""
     z0, r0, hz, hr = grid[0], grid[1], grid[2], grid[3]
@@ -235,7 +274,7 @@ def touches_surface(cell, grid, za, ra, zb, rb, pad):
     return False
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def find_landing(rc, sym, ta, tb, pa, length, fine, geo, buf):
     """First landing on the dense output between ta and tb; returns (theta, electrode) or (2.0, -1).
 
@@ -262,61 +301,216 @@ def find_landing(rc, sym, ta, tb, pa, length, fine, geo, buf):
     return 2.0, -1
 
 
-@njit(cache=True)
-def cell_index(x, x0, h, n):
-    """Index of the interpolation cell holding coordinate x, clamped to [0, n - 2]."""
-    u = (x - x0) / h
-    if u >= n - 2:
-        return n - 2
-    if u > 0.0:
-        return int(u)
-    return 0
+@njit(cache=True, error_model="numpy")
+def cell_box(grid, i, j, box):
+    """Walls (z_lo, z_hi, r_lo, r_hi) of interpolation cell (i, j); walls on the grid's edge are
+    at infinity (a ray leaves the domain there, it meets no other cell)."""
+    box[0] = grid[0] + i * grid[2] if i > 0 else -np.inf
+    box[1] = grid[0] + (i + 1) * grid[2] if i < int(grid[4]) - 2 else np.inf
+    box[2] = grid[1] + j * grid[3] if j > 0 else -np.inf
+    box[3] = grid[1] + (j + 1) * grid[3] if j < int(grid[5]) - 2 else np.inf
 
 
-@njit(cache=True)
-def interior(th, length, tol):
-    """theta if a crossing at theta lies more than ``tol`` metres from both ends of a step, else 2.0."""
-    if th * length > tol and (1.0 - th) * length > tol:
-        return th
-    return 2.0
+@njit(cache=True, error_model="numpy")
+def hold(box, sym, s):
+    """Widen a box of walls (z_lo, z_hi, r_lo, r_hi) to hold the point of state s."""
+    r = map_r(sym, s[0], s[1])
+    box[0] = min(box[0], s[2])
+    box[1] = max(box[1], s[2])
+    box[2] = min(box[2], r)
+    box[3] = max(box[3], r)
 
 
-@njit(cache=True)
-def kink(rc, sym, grid, y0, y1, ks, h, length, tol, geo, buf):
-    """The first cell boundary of the interpolant that a trial step crosses in its interior.
+@njit(cache=True, error_model="numpy")
+def past_wall(box, sym, s, w):
+    """How far the point of state s lies beyond wall w (0 z_lo, 1 z_hi, 2 r_lo, 3 r_hi) of a box."""
+    if w < 2:
+        return box[0] - s[2] if w == 0 else s[2] - box[1]
+    r = map_r(sym, s[0], s[1])
+    return box[2] - r if w == 2 else r - box[3]
 
-    The field is smooth inside a cell but only continuous across its boundaries, where the
-    embedded error estimate is unreliable; the step loop therefore shortens steps so that every
-    boundary lies within ``tol`` metres of a step's end. Returns theta of the first crossing more
-    than ``tol`` from both ends (2.0 if none); fills rc with the trial step's dense output when the
-    step changes cell.
+
+@njit(cache=True, error_model="numpy")
+def beyond(box, sym, s):
+    """The wall of a box of walls (z_lo, z_hi, r_lo, r_hi) that the point of state s lies
+    farthest beyond, and how far (<= 0 inside)."""
+    w = 0
+    g = past_wall(box, sym, s, 0)
+    for q in range(1, 4):
+        d = past_wall(box, sym, s, q)
+        if d > g:
+            w, g = q, d
+    return w, g
+
+
+@njit(cache=True, error_model="numpy")
+def r_rate(sym, s, k):
+    """dr/dt of the map coordinate r for state s with derivative k."""
+    if sym == 0:
+        r = math.sqrt(s[0] * s[0] + s[1] * s[1])
+        return (s[0] * k[0] + s[1] * k[1]) / r if r > 0.0 else math.sqrt(k[0] * k[0] + k[1] * k[1])
+    if sym == 2 and s[1] < 0.0:
+        return -k[1]
+    return k[1]
+
+
+@njit(cache=True, error_model="numpy")
+def closest_to_axis(s, k):
+    """Time at which the straight line from state s (velocity k[:3]) passes closest to the z axis."""
+    v2 = k[0] * k[0] + k[1] * k[1]
+    if v2 == 0.0:
+        return -1.0
+    return -(s[0] * k[0] + s[1] * k[1]) / v2
+
+
+@njit(cache=True, error_model="numpy")
+def predict(rc, hp, y0, k0, mass, tau, out):
+    """Predicted position ``tau`` after state y0 (into out[:3]): the last accepted step's dense
+    output (of length ``hp``) continued, or constant acceleration when there is none."""
+    if hp > 0.0 and tau <= PREDICT_SPAN * hp:
+        dense(rc, 1.0 + tau / hp, out)
+        return
+    mc = mass * C_LIGHT
+    gm = mass * math.sqrt(1.0 + (y0[3] * y0[3] + y0[4] * y0[4] + y0[5] * y0[5]) / (mc * mc))
+    for i in range(3):
+        out[i] = y0[i] + tau * (k0[i] + 0.5 * tau * k0[3 + i] / gm)
+
+
+@njit(cache=True, error_model="numpy")
+def exit_time(rc, hp, y0, k0, mass, sym, box, h, tol, buf):
+    """Predicted time within ``h`` at which a ray leaves its cell (``box``); h if it stays.
+
+    The crossing is found to ``tol`` metres.
+
+    The walls the ray moves away from are first pushed back by a cell (the start may lie on, or
+    just before, the wall it has entered through); the crossing of the wall the predicted end lies
+    farthest beyond is then found by regula falsi (Illinois).
     """
-    z0, r0, hz, hr, nz, nr = grid[0], grid[1], grid[2], grid[3], int(grid[4]), int(grid[5])
-    ia = cell_index(y0[2], z0, hz, nz)
-    ib = cell_index(y1[2], z0, hz, nz)
-    ja = cell_index(map_r(sym, y0[0], y0[1]), r0, hr, nr)
-    jb = cell_index(map_r(sym, y1[0], y1[1]), r0, hr, nr)
-    if ia == ib and ja == jb:
-        return 2.0
-    dense_coefficients(y0, y1, ks, h, rc)
-    th = 2.0
-    if ib != ia:
-        zb = z0 + hz * (ia + 1 if ib > ia else ia)
-        th = interior(locate(rc, sym, 0.0, 1.0, EV_Z, zb, ib > ia, geo, buf), length, tol)
-    if jb != ja:
-        rb = r0 + hr * (ja + 1 if jb > ja else ja)
-        th = min(th, interior(locate(rc, sym, 0.0, 1.0, EV_R, rb, jb > ja, geo, buf), length, tol))
+    if k0[2] >= 0.0:
+        box[0] = min(box[0], y0[2]) - (box[1] - box[0])
+    else:
+        box[1] = max(box[1], y0[2]) + (box[1] - box[0])
+    r0_ = map_r(sym, y0[0], y0[1])
+    if r_rate(sym, y0, k0) >= 0.0:
+        box[2] = min(box[2], r0_) - (box[3] - box[2])
+    else:
+        box[3] = max(box[3], r0_) + (box[3] - box[2])
+    hi = h
+    predict(rc, hp, y0, k0, mass, hi, buf)
+    w, g_hi = beyond(box, sym, buf)
+    if g_hi <= 0.0 and sym == 0:
+        tau = closest_to_axis(y0, k0)
+        if 0.0 < tau < h:
+            predict(rc, hp, y0, k0, mass, tau, buf)
+            w, g = beyond(box, sym, buf)
+            if g > 0.0:
+                hi, g_hi = tau, g
+    if g_hi <= 0.0:
+        return h
+    tau = hi
+    for _ in range(3):          # a wall crossed earlier than wall w takes its place
+        lo = 0.0
+        g_lo = past_wall(box, sym, y0, w)
+        side = 0
+        for _ in range(8):
+            tau = lo - g_lo * (hi - lo) / (g_hi - g_lo)
+            predict(rc, hp, y0, k0, mass, tau, buf)
+            g = past_wall(box, sym, buf, w)
+            if abs(g) < tol:
+                break
+            if g > 0.0:
+                hi, g_hi = tau, g
+                if side == 1:
+                    g_lo *= 0.5
+                side = 1
+            else:
+                lo, g_lo = tau, g
+                if side == -1:
+                    g_hi *= 0.5
+                side = -1
+        q, g = beyond(box, sym, buf)
+        if q == w or g <= tol:
+            break
+        w, hi, g_hi = q, tau, g
+    return tau
+
+
+@njit(cache=True, error_model="numpy")
+def wall_time(grid, sym, s, k, ci, cj, ni, nj):
+    """Time between state s and the walls shared by cells (ci, cj) and (ni, nj), either way."""
+    dt = 0.0
+    if ni != ci:
+        zb = grid[0] + max(ci, ni) * grid[2]
+        dt = abs(s[2] - zb) / max(abs(k[2]), 1e-300)
+    if nj != cj:
+        rb = grid[1] + max(cj, nj) * grid[3]
+        dt = max(dt, abs(map_r(sym, s[0], s[1]) - rb) / max(abs(r_rate(sym, s, k)), 1e-300))
+    return dt
+
+
+@njit(cache=True, error_model="numpy")
+def kink_error(k_next, k_this, dt, y0, y1, rtol, atol_p):
+    """Scaled error of integrating ``dt`` past a wall with the field of the cell behind it.
+
+    The two fields agree on the wall and part linearly, so the momentum error is about
+    ``dt |F_next - F_this| / 2``; scaled like the step error (RMS over the six components).
+    """
+    acc = 0.0
+    for i in range(3, 6):
+        e = 0.5 * dt * (k_next[i] - k_this[i]) / (atol_p + rtol * max(abs(y0[i]), abs(y1[i])))
+        acc += e * e
+    return math.sqrt(acc / 6.0)
+
+
+@njit(cache=True, error_model="numpy")
+def excursion(rc, sym, y0, k0, y1, k1, h, box, buf):
+    """theta where the path of a step whose ends lie in the box leaves it between them, else 2.0.
+
+    Looks at the turning point of z and of r (the straight line's closest approach to the axis in
+    axial symmetry, else where the linearly interpolated rate vanishes).
+    """
+    best = 2.0
+    if k0[2] * k1[2] < 0.0:
+        th = k0[2] / (k0[2] - k1[2])
+        dense(rc, th, buf)
+        if beyond(box, sym, buf)[1] > 0.0:
+            best = th
+    a = r_rate(sym, y0, k0)
+    b = r_rate(sym, y1, k1)
+    if a * b < 0.0:
+        th = closest_to_axis(y0, k0) / h if sym == 0 and a < 0.0 else a / (a - b)
+        if 0.0 < th < best:
+            dense(rc, th, buf)
+            if beyond(box, sym, buf)[1] > 0.0:
+                best = th
+    return best
+
+
+@njit(cache=True, error_model="numpy")
+def wall_theta(rc, sym, box, hi, geo, buf):
+    """theta of the first wall crossing on the dense output before ``hi``, where it is outside the box."""
+    dense(rc, hi, buf)
+    z, r = buf[2], map_r(sym, buf[0], buf[1])
+    th = hi
+    if z > box[1]:
+        th = min(th, locate(rc, sym, 0.0, hi, EV_Z, box[1], True, geo, buf))
+    elif z < box[0]:
+        th = min(th, locate(rc, sym, 0.0, hi, EV_Z, box[0], False, geo, buf))
+    if r > box[3]:
+        th = min(th, locate(rc, sym, 0.0, hi, EV_R, box[3], True, geo, buf))
+    elif r < box[2]:
+        th = min(th, locate(rc, sym, 0.0, hi, EV_R, box[2], False, geo, buf))
     return th
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def speed(s, mass):
     """Speed of a state (x, y, z, px, py, pz), m/s."""
     p = math.sqrt(s[3] * s[3] + s[4] * s[4] + s[5] * s[5])
     return p / (mass * math.sqrt(1.0 + (p / (mass * C_LIGHT)) ** 2))
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def put_path(path, n, t, s, ke, res):
     """Write path row n: (t, x, y, z, px, py, pz, ke_J, signed ledger J)."""
     path[n, 0] = t
@@ -326,7 +520,7 @@ def put_path(path, n, t, s, ke, res):
     path[n, 8] = res
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def thin_path(path, n):
     """Keep every other row of the first n path rows (the first always); returns the new count."""
     m = (n + 1) // 2
@@ -335,7 +529,7 @@ def thin_path(path, n):
     return m
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def trace_one(s0, herm, grid, sym, bounds, cell, geo, mass, charge, t_max, rtol, atol_p,
               max_step, sample, fine, planes, stops, max_steps,
               final, cross_plane, cross_state, path):
@@ -352,14 +546,19 @@ def trace_one(s0, herm, grid, sym, bounds, cell, geo, mass, charge, t_max, rtol,
     (code, electrode, n_cross, n_path, steps, rejected, evaluations)
     """
     ks = np.empty((7, 6))
+    k0 = np.empty(6)           # ks[0] and ks[6] as vectors, for the helpers
+    k1 = np.empty(6)
+    k_next = np.empty((1, 6))  # the first stage of the next step when it enters a new cell
     y0 = s0.copy()
     y1 = np.empty(6)
     tmp = np.empty(6)
-    err = np.empty(6)
-    rc = np.zeros((5, 6))
+    rc = np.zeros((5, 6))      # dense output of the last accepted step
+    rt = np.zeros((5, 6))      # dense output of the trial step
     buf = np.empty(6)
     pa = np.empty(2)
+    box = np.empty(4)
     atol_x = rtol * min(grid[2], grid[3])
+    snap = SNAP * min(grid[2], grid[3])
     max_cross = cross_plane.shape[0]
     n_path_cap = path.shape[0]
     n_cross = 0
@@ -370,8 +569,12 @@ def trace_one(s0, herm, grid, sym, bounds, cell, geo, mass, charge, t_max, rtol,
     evals = 0
 
     r_start = map_r(sym, y0[0], y0[1])
-    v_start = derivative(herm, grid, sym, mass, charge, y0, ks[0])
+    z0, r0, hz, hr = grid[0], grid[1], grid[2], grid[3]
+    ci, cj = cell_ahead(grid, sym, y0, snap)
+    patch = herm[:, ci:ci + 2, cj:cj + 2]
+    v_start = derivative(patch, z0 + ci * hz, r0 + cj * hr, grid, sym, mass, charge, y0, ks, 0)
     evals += 1
+    k0[:] = ks[0]
     ke_start = kinetic_energy_J(y0[3], y0[4], y0[5], mass)
     worst = 0.0
     for i in range(6):
@@ -390,16 +593,26 @@ def trace_one(s0, herm, grid, sym, bounds, cell, geo, mass, charge, t_max, rtol,
 
     t = 0.0
     v1 = v_start
-    h_resume = 0.0
-    kink_tol = KINK_TOL * min(grid[2], grid[3])
-    h = min(step_cap(y0, ks[0], mass, max_step), t_max)
+    v_next = v_start
+    hp = 0.0          # length of the last accepted step (0: none, no prediction from it)
+    h_cut = 0.0       # length of a step cut back to a wall, to be redone
+    h_err = min(step_cap(y0, k0, mass, max_step), t_max)
     code = RUNNING
     electrode = -1
     while code == RUNNING:
         if steps + rejected >= max_steps:
             code = STALLED
             break
-        h = min(h, step_cap(y0, ks[0], mass, max_step), t_max - t)
+        cut = h_cut > 0.0
+        if cut:
+            h = min(h_cut, t_max - t)
+            h_cut = 0.0
+        else:
+            h = min(h_err, step_cap(y0, k0, mass, max_step), t_max - t)
+            cell_box(grid, ci, cj, box)
+            h_wall = exit_time(rc, hp, y0, k0, mass, sym, box, STRETCH * h, 1e-6 * snap / SNAP, buf)
+            if h_wall < STRETCH * h:
+                h = h_wall
         if t + h == t:
             code = STALLED
             break
@@ -412,35 +625,64 @@ def trace_one(s0, herm, grid, sym, bounds, cell, geo, mass, charge, t_max, rtol,
             if st == 6:
                 for i in range(6):
                     y1[i] = tmp[i]
-            v1 = derivative(herm, grid, sym, mass, charge, tmp, ks[st])
+            v1 = derivative(patch, z0 + ci * hz, r0 + cj * hr, grid, sym, mass, charge, tmp, ks, st)
         evals += 6
-        length = max(speed(y0, mass), speed(y1, mass)) * h
-        th = kink(rc, sym, grid, y0, y1, ks, h, length, kink_tol, geo, buf)
-        if th < 1.0:
-            if h_resume == 0.0:
-                h_resume = h
-            h *= th + 0.5 * kink_tol / length
-            rejected += 1
-            continue
+        k1[:] = ks[6]
         acc2 = 0.0
         for i in range(6):
             e = 0.0
             for j in range(7):
                 e += DP_E[j] * ks[j, i]
             a = atol_x if i < 3 else atol_p
-            sc = a + rtol * max(abs(y0[i]), abs(y1[i]))
-            err[i] = h * e / sc
-            acc2 += err[i] * err[i]
+            e *= h / (a + rtol * max(abs(y0[i]), abs(y1[i])))
+            acc2 += e * e
         enorm = math.sqrt(acc2 / 6.0)
         if not enorm <= 1.0:
             rejected += 1
             fac = FAC_MIN if not enorm < 1e300 else max(FAC_MIN, SAFETY * enorm ** -0.2)
-            h *= min(1.0, fac)
+            h_err = h * min(1.0, fac)
+            continue
+
+        # the cell the step ends in, and the one it is about to enter
+        dense_coefficients(y0, y1, ks, h, rt)
+        cell_box(grid, ci, cj, box)
+        hold(box, sym, y0)       # a step may start just before the wall it has entered through
+        i1, j1 = cell_of(grid, sym, y1[0], y1[1], y1[2])
+        ni, nj = cell_ahead(grid, sym, y1, snap)
+        past = i1 != ci or j1 != cj
+        if past and ni == ci and nj == cj:
+            ni, nj = i1, j1
+        th = 2.0
+        if abs(ni - ci) > 1 or abs(nj - cj) > 1:
+            th = wall_theta(rt, sym, box, 1.0, geo, buf)
+        elif not past:
+            th = excursion(rt, sym, y0, k0, y1, k1, h, box, buf)
+            if th <= 1.0:
+                th = wall_theta(rt, sym, box, th, geo, buf)
+        enter = False
+        if th > 1.0 and (ni != ci or nj != cj):
+            dt = wall_time(grid, sym, y1, k1, ci, cj, ni, nj)
+            if past and dt * speed(y1, mass) > snap:
+                th = wall_theta(rt, sym, box, 1.0, geo, buf)
+            else:
+                v_next = derivative(herm[:, ni:ni + 2, nj:nj + 2], z0 + ni * hz, r0 + nj * hr, grid,
+                                    sym, mass, charge, y1, k_next, 0)
+                evals += 1
+                if cut or kink_error(k_next[0], k1, dt, y0, y1, rtol, atol_p) <= KINK_FRACTION:
+                    enter = True
+                elif past:
+                    th = wall_theta(rt, sym, box, 1.0, geo, buf)
+        if th <= 1.0:
+            rejected += 1
+            h_cut = th * h
             continue
 
         # accepted step: look for events on the dense output, piece by piece
         steps += 1
-        dense_coefficients(y0, y1, ks, h, rc)
+        for m in range(5):
+            for i in range(6):
+                rc[m, i] = rt[m, i]
+        hp = h
         vmax = max(speed(y0, mass), speed(y1, mass))
         n_sub = max(1, int(math.ceil(vmax * h / sample)))
         ta = 0.0
@@ -501,6 +743,13 @@ def trace_one(s0, herm, grid, sym, bounds, cell, geo, mass, charge, t_max, rtol,
 
         if code == RUNNING:
             t_new = t + h
+            # the ledger takes the potential of the cell the step ends in
+            if past:
+                if enter and i1 == ni and j1 == nj:
+                    v1 = v_next
+                else:
+                    v1 = field_at(herm, grid, sym, y1[0], y1[1], y1[2])[0]
+                    evals += 1
             ke1 = kinetic_energy_J(y1[3], y1[4], y1[5], mass)
             res = ke1 - ke_start + charge * (v1 - v_start)
             worst = max(worst, abs(res))
@@ -510,7 +759,11 @@ def trace_one(s0, herm, grid, sym, bounds, cell, geo, mass, charge, t_max, rtol,
             t = t_new
             for i in range(6):
                 y0[i] = y1[i]
-                ks[0, i] = ks[6, i]
+                ks[0, i] = k_next[0, i] if enter else k1[i]
+                k0[i] = ks[0, i]
+            if enter:
+                ci, cj = ni, nj
+                patch = herm[:, ci:ci + 2, cj:cj + 2]
             if n_path_cap > 0 and steps % stride == 0:
                 if n_path == n_path_cap - 1:
                     n_path = thin_path(path, n_path)
@@ -518,12 +771,9 @@ def trace_one(s0, herm, grid, sym, bounds, cell, geo, mass, charge, t_max, rtol,
                 if steps % stride == 0:
                     put_path(path, n_path, t, y0, ke1, res)
                     n_path += 1
-            if h_resume > 0.0:
-                h = h_resume
-                h_resume = 0.0
-            else:
-                enorm = max(enorm, 1e-10)
-                h *= min(FAC_MAX, max(FAC_MIN, SAFETY * enorm ** -0.2))
+            # the step-size proposal; a step shortened to a wall does not shrink the next one
+            base = max(h, h_err) if h < h_err else h
+            h_err = min(h * max(FAC_MIN, SAFETY * max(enorm, 1e-10) ** -0.2), FAC_MAX * base)
         else:
             dense(rc, t_end, buf)
             for i in range(6):
@@ -545,7 +795,7 @@ def trace_one(s0, herm, grid, sym, bounds, cell, geo, mass, charge, t_max, rtol,
     return code, electrode, n_cross, n_path, steps, rejected, evals
 
 
-@njit(cache=True, parallel=True)
+@njit(cache=True, parallel=True, error_model="numpy")
 def trace_rays(starts, herm, grid, sym, bounds, cell, geo, mass, charge, t_max, rtol, atol_p,
                max_step, sample, fine, planes, stops, max_steps, max_cross, paths):
     """Trace many rays in parallel (numba prange); see :func:`trace_one` for the layouts.

@@ -17,6 +17,16 @@ import numpy as np  # noqa: E402
 MM = 1e3
 
 
+def save(fig, path, dpi=150) -> Path:
+    """Write a figure to a PNG atomically (a temporary file renamed into place) and close it."""
+    from tracer.store import atomic_path
+
+    with atomic_path(path) as tmp:
+        fig.savefig(tmp, dpi=dpi, format="png")
+    plt.close(fig)
+    return Path(path)
+
+
 def _shape_outlines(table):
     """Yield (electrode index, (k, 2) array of outline points in metres) for every shape."""
     for i, kind in enumerate(table.kind):
@@ -87,9 +97,7 @@ def plot_field(field, path, paths=(), title: str | None = None, levels: int = 24
     ax.set_ylim(g.r0 * MM, g.r1 * MM)
     ax.set_aspect("equal")
     ax.set_title(title or "electrodes and equipotentials", fontsize=10)
-    fig.savefig(path, dpi=150)
-    plt.close(fig)
-    return Path(path)
+    return save(fig, path)
 
 
 def _path_zr(path, symmetry):
@@ -115,9 +123,7 @@ def plot_landing_energy(runs, path) -> Path | None:
         ax.set_ylabel("rays")
         ax.set_title(f"beam {run.name}: landing energies", fontsize=10)
         ax.legend(fontsize=8)
-    fig.savefig(path, dpi=150)
-    plt.close(fig)
-    return Path(path)
+    return save(fig, path)
 
 
 def plot_landing_positions(runs, path, symmetry="axial") -> Path | None:
@@ -137,9 +143,7 @@ def plot_landing_positions(runs, path, symmetry="axial") -> Path | None:
     ax.set_ylabel(f"{side} (mm)")
     ax.set_title("landing positions", fontsize=10)
     ax.legend(fontsize=8, markerscale=3)
-    fig.savefig(path, dpi=150)
-    plt.close(fig)
-    return Path(path)
+    return save(fig, path)
 
 
 def plot_phase_space(run, plane, path, symmetry="axial") -> Path | None:
@@ -164,9 +168,7 @@ def plot_phase_space(run, plane, path, symmetry="axial") -> Path | None:
     ax.set_xlabel(f"{side} (mm)")
     ax.set_ylabel(f"{side}' (mrad)")
     ax.set_title(f"beam {run.name} at plane {plane}", fontsize=10)
-    fig.savefig(path, dpi=150)
-    plt.close(fig)
-    return Path(path)
+    return save(fig, path)
 
 
 def run_figures(field, runs, out, title=None) -> list[Path]:
@@ -271,9 +273,7 @@ def plot_scan(table, names, out, title=None) -> list[Path]:
             ax.set_visible(False)
         fig.suptitle(title or (f"scan: {prefix}" if prefix else "scan"), fontsize=10)
         path = Path(out) / ("scan.png" if not prefix else f"scan_{prefix.replace('.', '_')}.png")
-        fig.savefig(path, dpi=120)
-        plt.close(fig)
-        files.append(path)
+        files.append(save(fig, path, dpi=120))
     return files
 
 
@@ -300,9 +300,7 @@ def plot_tune(result, path) -> Path:
     ax.set_ylabel(label)
     ax.set_title(f"tune: {result.goal}", fontsize=10)
     ax.legend(fontsize=8)
-    fig.savefig(path, dpi=150)
-    plt.close(fig)
-    return Path(path)
+    return save(fig, path)
 
 
 def plot_optics(props, path) -> Path:
@@ -348,6 +346,4 @@ def plot_optics(props, path) -> Path:
         bottom.legend(fontsize=8)
     bottom.set_xlabel("z (mm)")
     bottom.set_ylabel("ray height (relative)")
-    fig.savefig(path, dpi=150)
-    plt.close(fig)
-    return Path(path)
+    return save(fig, path)

@@ -7,6 +7,7 @@ field evaluations per second per core, the 1 -> 2 thread speed-up, and the end-t
 second process running a small trace from numba's cache.
 """
 
+import os
 import subprocess
 import sys
 import time
@@ -76,7 +77,8 @@ def main():
     beam = setup.beams[0]
     g = field.grid
     print(f"three-tube lens: grid {g.nz} x {g.nr}, {n_rays} protons at 1 keV, rtol {rtol:g}; "
-          f"{numba.config.NUMBA_NUM_THREADS} numba threads available")
+          f"{numba.config.NUMBA_NUM_THREADS} numba threads available; load average "
+          + " ".join(f"{x:.2f}" for x in os.getloadavg()))
     trace(field, beam.__class__(**{**beam.__dict__, "count": 2}))  # load or compile the kernels
 
     timings = {}
@@ -115,7 +117,7 @@ def main():
         print(f"exit-point difference tracer vs scipy (different interpolants of the same map): "
               f"max {max(dev):.2e} m over {len(dev)} rays leaving through z_max")
     print(f"per-ray speed-up tracer (1 thread) vs scipy: {per_ray_scipy / per_ray_tracer:.0f}x "
-          f"(target >= 300x)")
+          f"(target >= 300x); {rec['steps'].mean():.0f} accepted steps/ray")
 
     small = THREE_TUBE.format(volts=800.0, count=1, cell=0.5)
     t0 = time.perf_counter()

@@ -1,0 +1,315 @@
+"""Malformed configs through the command line: exit code 2, one line on stderr naming the key path
+and the bad value, no traceback, and nothing written (no output folder, no cache file).
+
+The corpus mutates one small valid setup (``TRAP``, also used by ``test_faults.py``); most cases run
+in-process through ``tracer.cli.main``, a handful through ``python -m tracer`` in a subprocess.
+"""
+
+import os
+import subprocess
+import sys
+
+import pytest
+
+from tracer.cli import main
+
+TRAP = """\
+title = "ion trap between two repelling end caps (illustrative)"
+
+[domain]
+symmetry = "axial"
+z_mm = [0.0, 22.0]
+r_mm = 6.0
+cell_mm = 0.25
+edges = "ground"
+
+[[electrode]]
+name = "cap_in"
+voltage_V = 100.0
+[[electrode.rect]]
+z_mm = [1.0, 2.0]
+r_mm = [0.0, 5.0]
+
+[[electrode]]
+name = "ring"
+voltage_V = 0.0
+[[electrode.rect]]
+z_mm = [5.0, 17.0]
+r_mm = [5.0, 5.5]
+
+[[electrode]]
+name = "cap_out"
+voltage_V = 100.0
+[[electrode.rect]]
+z_mm = [20.0, 21.0]
+r_mm = [0.0, 5.0]
+
+[[beam]]
+name = "trapped"
+species = "40Ar+"
+energy_eV = 10.0
+count = 1
+start_z_mm = 11.0
+
+[[beam]]
+name = "buried"
+species = "p+"
+energy_eV = 10.0
+count = 3
+start_z_mm = 1.5
+start_r_mm = 1.0
+
+[[beam]]
+name = "spray"
+species = "p+"
+energy_eV = 30.0
+energy_spread_eV = 2.0
+count = 200
+seed = 11
+start_z_mm = 11.0
+radius_mm = 1.0
+half_angle_deg = 40.0
+
+[[plane]]
+name = "mid"
+z_mm = 14.0
+
+[trace]
+max_time_us = 20.0
+"""
+
+
+def sub(old, new):
+    """An edit of the text: replace the one occurrence of ``old``."""
+
+    def edit(text):
+        assert text.count(old) == 1, old
+        return text.replace(old, new)
+
+    return edit
+
+
+def add(tail):
+    """An edit of the text: append lines (keys land in the last table, [trace], unless a header leads)."""
+    return lambda text: text + "\n" + tail + "\n"
+
+
+def line_of(start):
+    """1-based line number of the line of TRAP that starts with ``start``."""
+    return next(i for i, line in enumerate(TRAP.splitlines(), 1) if line.startswith(start))
+
+
+def electrode(shape):
+    """A fourth electrode, 'extra' at 50 V, made of the given shape table."""
+    return add(f'[[electrode]]\nname = "extra"\nvoltage_V = 50.0\n{shape}')
+
+
+def arc(center, radii, angles):
+    return electrode(f"[[electrode.arc]]\ncenter_z_mm = {center}\nradii_mm = {radii}\nangles_deg = {angles}")
+
+
+PLANE_NAME_LINE = line_of('name = "mid"')
+RAYS_HEAD = "x_mm,y_mm,z_mm,ux,uy,uz,energy_eV\n"
+RAYS_BEAM = add('[[beam]]\nname = "measured"\nspecies = "p+"\nrays_csv = "rays.csv"')
+
+# (id, edit of TRAP, extra files beside the config, key path, a fragment of the message with the bad value)
+CASES = [
+    # zero, negative, NaN and infinite numbers
+    ("cell-zero", sub("cell_mm = 0.25", "cell_mm = 0.0"), {}, "domain.cell_mm", "must be > 0, got 0.0"),
+    ("radius-negative", sub("r_mm = 6.0", "r_mm = -6.0"), {}, "domain.r_mm", "must be > 0, got -6.0"),
+    ("voltage-nan", sub("voltage_V = 0.0", "voltage_V = nan"), {}, "electrode[1].voltage_V", "must be finite, got nan"),
+    ("energy-negative", sub("energy_eV = 30.0", "energy_eV = -30.0"), {}, "beam[2].energy_eV", "got -30.0"),
+    ("time-inf", sub("max_time_us = 20.0", "max_time_us = inf"), {}, "trace.max_time_us", "must be finite, got inf"),
+    ("count-zero", sub("count = 200", "count = 0"), {}, "beam[2].count", "must be >= 1, got 0"),
+    ("spread-nan", sub("energy_spread_eV = 2.0", "energy_spread_eV = -nan"), {}, "beam[2].energy_spread_eV",
+     "must be finite, got nan"),
+    ("rtol-zero", add("rtol = 0.0"), {}, "trace.rtol", "must be > 0, got 0.0"),
+    # reversed ranges
+    ("domain-reversed", sub("z_mm = [0.0, 22.0]", "z_mm = [22.0, 0.0]"), {}, "domain.z_mm", "start 22.0 exceeds end 0.0"),
+    ("rect-reversed", sub("z_mm = [5.0, 17.0]", "z_mm = [17.0, 5.0]"), {}, "electrode[1].rect[0].z_mm",
+     "start 17.0 exceeds end 5.0"),
+    ("tube-reversed", sub("r_mm = [5.0, 5.5]", "r_mm = [5.5, 5.0]"), {}, "electrode[1].rect[0].r_mm",
+     "inner radius 5.5 exceeds outer 5.0"),
+    ("scan-reversed", add("[scan]\nring = [50.0, -50.0, 5]"), {}, "scan.ring", "from 50.0 exceeds to -50.0"),
+    ("tune-reversed", add("[tune]\nvary = { ring = [50.0, -50.0] }\ngoal = 'most_transmitted'"), {}, "tune.vary.ring",
+     "lo 50.0 exceeds hi -50.0"),
+    # angles out of range
+    ("half-angle", sub("half_angle_deg = 40.0", "half_angle_deg = 120.0"), {}, "beam[2].half_angle_deg",
+     "must be <= 90, got 120.0"),
+    ("arc-angle-high", arc(11.0, "[3.0, 3.5]", "[0.0, 200.0]"), {}, "electrode[3].arc[0].angles_deg",
+     "second angle 200.0 exceeds 180"),
+    ("arc-angle-low", arc(11.0, "[3.0, 3.5]", "[-5.0, 90.0]"), {}, "electrode[3].arc[0].angles_deg",
+     "first angle -5.0 is below 0"),
+    # species
+    ("species-unknown", sub('species = "40Ar+"', 'species = "Zz+"'), {}, "beam[0].species", "unknown species 'Zz+'"),
+    ("species-no-charge", sub('species = "40Ar+"', 'species = "40Ar"'), {}, "beam[0].species",
+     "'40Ar' has no charge sign"),
+    ("species-neutral", sub('species = "p+"\nenergy_eV = 30.0', 'mass_u = 1.0\ncharge_e = 0\nenergy_eV = 30.0'), {},
+     "beam[2].charge_e", "must be non-zero, got 0"),
+    # duplicate names
+    ("electrode-twice", sub('name = "cap_out"', 'name = "cap_in"'), {}, "electrode[2].name",
+     "duplicate electrode name 'cap_in' (also electrode[0])"),
+    ("beam-twice", sub('name = "spray"', 'name = "trapped"'), {}, "beam[2].name", "duplicate beam name 'trapped'"),
+    ("plane-twice", add('[[plane]]\nname = "mid"\nz_mm = 8.0'), {}, "plane[1].name", "duplicate plane name 'mid'"),
+    # electrodes outside the domain
+    ("rect-beyond-z", sub("z_mm = [20.0, 21.0]", "z_mm = [30.0, 31.0]"), {}, "electrode[2].rect[0]",
+     "wholly outside the domain: z 30..31 mm"),
+    ("rect-beyond-r", sub("r_mm = [5.0, 5.5]", "r_mm = [7.0, 8.0]"), {}, "electrode[1].rect[0]",
+     "wholly outside the domain: z 5..17 mm, r 7..8 mm"),
+    ("polygon-beyond", electrode("[[electrode.polygon]]\npoints_mm = [[30.0, 1.0], [32.0, 1.0], [31.0, 3.0]]"), {},
+     "electrode[3].polygon[0]", "wholly outside the domain: z 30..32 mm"),
+    # its box reaches into the domain, the shell itself (radius 40 mm about z = -5 mm) does not
+    ("arc-shell-beyond", arc(-5.0, "[40.0, 41.0]", "[0.0, 90.0]"), {}, "electrode[3].arc[0]", "wholly outside the domain"),
+    # electrodes overlapping at different voltages
+    ("overlap-rect", electrode("[[electrode.rect]]\nz_mm = [10.0, 12.0]\nr_mm = [4.0, 5.2]"), {}, "electrode[3].rect[0]",
+     "overlaps electrode[1].rect[0] of electrode 'ring' (0 V) while electrode 'extra' is at 50 V"),
+    ("overlap-arc", arc(11.0, "[4.8, 5.2]", "[60.0, 120.0]"), {}, "electrode[3].arc[0]",
+     "overlaps electrode[1].rect[0] of electrode 'ring' (0 V)"),
+    # planes outside the domain
+    ("plane-beyond", sub("z_mm = 14.0", "z_mm = 25.0"), {}, "plane[0].z_mm", "25.0 is outside the domain's z range 0..22 mm"),
+    ("plane-before", sub("z_mm = 14.0", "z_mm = -1.0"), {}, "plane[0].z_mm", "-1.0 is outside the domain's z range"),
+    # names that must be electrodes (or planes)
+    ("scan-name", add("[scan]\nrign = [-50.0, 50.0, 5]"), {}, "scan.rign", "no electrode named 'rign'; did you mean 'ring'?"),
+    ("tune-name", add("[tune]\nvary = { lens = [0.0, 50.0] }\ngoal = 'smallest_spot'"), {}, "tune.vary.lens",
+     "no electrode named 'lens'"),
+    ("tune-plane", add("[tune]\nvary = { ring = [0.0, 50.0] }\ngoal = 'smallest_spot'\nat = 'middle'"), {}, "tune.at",
+     "no plane named 'middle'; did you mean 'mid'?"),
+    ("gun-cathode", add("[gun]\ncathode = 'filament'"), {}, "gun.cathode", "no electrode named 'filament'"),
+    ("scan-csv-column", add("[scan]\ncsv = 'sets.csv'"), {"sets.csv": "ring_V,lens_V\n0,0\n"}, "scan.csv",
+     "no electrode for column 'lens_V'"),
+    # a grid too large for memory, refused with advice
+    ("grid-too-large", sub("cell_mm = 0.25", "cell_mm = 0.00002"), {}, "domain.cell_mm",
+     "2e-05 mm gives a grid of 3.3e+11 nodes"),
+    # misspelt keys and values: did you mean
+    ("misspelt-symmetry", sub('symmetry = "axial"', 'symetry = "axial"'), {}, "domain.symetry",
+     "unknown key 'symetry'; did you mean 'symmetry'?"),
+    ("misspelt-energy", sub("energy_eV = 10.0\ncount = 1\n", "energy_ev = 10.0\ncount = 1\n"), {}, "beam[0].energy_ev",
+     "did you mean 'energy_eV'?"),
+    ("misspelt-time", add("max_time = 5.0"), {}, "trace.max_time", "did you mean 'max_time_us'?"),
+    ("misspelt-section", sub("[[plane]]", "[[planes]]"), {}, "planes", "unknown top-level key 'planes'; did you mean 'plane'?"),
+    ("misspelt-shape", sub("[[electrode.rect]]\nz_mm = [5.0", "[[electrode.rectangle]]\nz_mm = [5.0"), {},
+     "electrode[1].rectangle", "did you mean 'rect'?"),
+    ("misspelt-edges", sub('edges = "ground"', 'edges = "grnd"'), {}, "domain.edges",
+     "unknown value 'grnd'; did you mean 'ground'?"),
+    # TOML syntax errors: line and column
+    ("toml-no-value", sub("count = 1\n", "count = \n"), {}, f"line {line_of('count = 1')}, column 9", "Invalid value"),
+    ("toml-twice", sub("seed = 11", "seed = 11\nseed = 12"), {}, f"line {line_of('seed = 11') + 1}, column 10",
+     "Cannot overwrite a value"),
+    ("toml-open-string", sub('name = "mid"', 'name = "mid'), {}, f"line {PLANE_NAME_LINE}, column 12",
+     "Illegal character"),
+    ("toml-open-header", sub("[trace]", "[trace"), {}, f"line {line_of('[trace]')}, column 7", "Expected ']'"),
+    # wrong types
+    ("type-voltage", sub("voltage_V = 0.0", 'voltage_V = "0 V"'), {}, "electrode[1].voltage_V",
+     "expected a number, got '0 V'"),
+    ("type-count", sub("count = 200", "count = 2.5e2"), {}, "beam[2].count", "expected an integer, got 250.0"),
+    ("type-edges", sub('edges = "ground"', "edges = 3"), {}, "domain.edges", "expected a table, got 3"),
+    ("type-stop", sub("z_mm = 14.0", 'z_mm = 14.0\nstop = "yes"'), {}, "plane[0].stop", "expected true or false, got 'yes'"),
+    ("type-radius", sub("r_mm = 6.0", "r_mm = [0.0, 6.0]"), {}, "domain.r_mm", "expected a number, got [0.0, 6.0]"),
+    ("type-title", sub('title = "ion trap between two repelling end caps (illustrative)"', "title = 1979-05-27"), {},
+     "title", "expected a string, got the date/time 1979-05-27"),
+    # files of start rays: read at load time, the error names the line
+    ("rays-word", RAYS_BEAM, {"rays.csv": RAYS_HEAD + "0,0,11,0,0,1,10\n0,0,11,0,0,1,ten\n"}, "beam[3].rays_csv",
+     "'rays.csv': line 3, column 'energy_eV': 'ten' is not a finite number"),
+    ("rays-short-row", RAYS_BEAM, {"rays.csv": "# measured at the source\n" + RAYS_HEAD + "0,0,11,0,0,1\n"},
+     "beam[3].rays_csv", "'rays.csv': line 3: 6 fields, the header has 7"),
+    ("rays-no-energy", RAYS_BEAM, {"rays.csv": "x_mm,y_mm,z_mm,ux,uy,uz\n0,0,11,0,0,1\n"}, "beam[3].rays_csv",
+     "line 1: missing column(s) energy_<unit>"),
+    ("rays-negative", RAYS_BEAM, {"rays.csv": RAYS_HEAD + "0,0,11,0,0,1,-3\n"}, "beam[3].rays_csv",
+     "line 2, column 'energy_eV': negative"),
+    ("rays-no-rows", RAYS_BEAM, {"rays.csv": RAYS_HEAD}, "beam[3].rays_csv", "'rays.csv': no rays below the header"),
+    ("rays-not-utf8", RAYS_BEAM, {"rays.csv": RAYS_HEAD.encode() + b"0,0,11,0,0,1,\xff\n"}, "beam[3].rays_csv",
+     "can't decode byte 0xff"),
+    ("rays-zero-weights", add('[[beam]]\nname = "measured"\nspecies = "p+"\nrays_csv = "rays.csv"\ncurrent_A = 1e-6'),
+     {"rays.csv": "x_mm,y_mm,z_mm,ux,uy,uz,energy_eV,weight_A\n0,0,11,0,0,1,10,0\n"}, "beam[3].rays_csv",
+     "the weight column sums to 0"),
+    ("rays-missing", RAYS_BEAM, {}, "beam[3].rays_csv", "no such file 'rays.csv'"),
+    # a config that is not text
+    ("config-not-utf8", lambda text: text.replace("cap_in", "cap_\xe9").encode("latin-1"), {}, "bad.toml",
+     "not UTF-8 text (byte"),
+]
+
+
+@pytest.fixture
+def cache(tmp_path, monkeypatch):
+    path = tmp_path / "cache"
+    monkeypatch.setenv("TRACER_CACHE", str(path))
+    return path
+
+
+def write_case(folder, edit, files):
+    """Write the edited config and its files into ``folder``; return the config path."""
+    for name, content in files.items():
+        (folder / name).write_bytes(content if isinstance(content, bytes) else content.encode())
+    text = edit(TRAP)
+    config = folder / "bad.toml"
+    config.write_bytes(text if isinstance(text, bytes) else text.encode())
+    return config
+
+
+def assert_refused(code, out_text, err_text, key, fragment):
+    assert code == 2
+    lines = err_text.splitlines()
+    assert len(lines) == 1, err_text
+    assert "Traceback" not in err_text
+    assert lines[0].startswith("tracer: error: ")
+    culprit = lines[0].removeprefix("tracer: error: ")
+    if key.endswith(".toml"):        # errors of the file itself are keyed by its path
+        assert culprit.split(": ")[0].endswith(key), culprit
+    else:
+        assert culprit.startswith(f"{key}: "), culprit
+    assert fragment in culprit, culprit
+    assert out_text == ""
+
+
+def test_the_corpus_is_large_and_its_cases_distinct():
+    assert len(CASES) >= 40
+    assert len({c[0] for c in CASES}) == len(CASES)
+    texts = [c[1](TRAP) for c in CASES]
+    assert TRAP not in texts
+
+
+@pytest.mark.parametrize("edit, files, key, fragment", [c[1:] for c in CASES], ids=[c[0] for c in CASES])
+def test_a_bad_config_is_one_line_exit_2_and_writes_nothing(tmp_path, cache, capsys, edit, files, key, fragment):
+    config = write_case(tmp_path, edit, files)
+    out = tmp_path / "out"
+    code = main(["run", str(config), "--out", str(out), "--quiet"])
+    captured = capsys.readouterr()
+    assert_refused(code, captured.out, captured.err, key, fragment)
+    assert not out.exists()
+    assert not cache.exists()
+
+
+def test_the_unchanged_base_is_accepted(tmp_path, cache, capsys):
+    """The corpus's refusals come from its edits: the base itself passes the check."""
+    config = write_case(tmp_path, lambda text: text, {})
+    assert main(["check", str(config)]) == 0
+    assert "electrodes (3)" in capsys.readouterr().out
+    assert not cache.exists()
+
+
+OVERLAP = next(c for c in CASES if c[0] == "overlap-rect")
+
+
+@pytest.mark.parametrize("command", ["check", "solve", "run", "scan", "tune", "gun", "optics"])
+def test_every_command_refuses_an_overlap_before_any_work(tmp_path, cache, capsys, command):
+    """The overlap is found while loading, so no command solves, caches or writes anything."""
+    _, edit, files, key, fragment = OVERLAP
+    config = write_case(tmp_path, edit, files)
+    out = tmp_path / "out"
+    argv = [command, str(config)] + ([] if command == "check" else ["--out", str(out)])
+    code = main(argv)
+    captured = capsys.readouterr()
+    assert_refused(code, captured.out, captured.err, key, fragment)
+    assert not out.exists() and not cache.exists()
+
+
+@pytest.mark.parametrize("case", ["toml-open-string", "overlap-arc", "rays-word", "grid-too-large"])
+def test_python_m_tracer_run_refuses_bad_configs(tmp_path, case):
+    _, edit, files, key, fragment = next(c for c in CASES if c[0] == case)
+    config = write_case(tmp_path, edit, files)
+    out, cache = tmp_path / "out", tmp_path / "cache"
+    proc = subprocess.run([sys.executable, "-m", "tracer", "run", str(config), "--out", str(out)],
+                          capture_output=True, text=True, env={**os.environ, "TRACER_CACHE": str(cache)},
+                          timeout=120)
+    assert_refused(proc.returncode, proc.stdout, proc.stderr, key, fragment)
+    assert not out.exists() and not cache.exists()

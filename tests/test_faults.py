@@ -1,0 +1,262 @@
+"""Faults around a run: rays that start inside electrodes, a trapped ray, interrupts, determinism,
+stale cache files, and no unpickling or evaluation of input.
+
+One small solved setup (the ion trap ``TRAP`` of ``test_bad_input.py``) is run once through
+``tracer run`` and reused; subprocesses only where a fresh interpreter is the point.
+"""
+
+import ast
+import contextlib
+import fcntl
+import io
+import os
+import pty
+import select
+import signal
+import struct
+import subprocess
+import sys
+import termios
+import time
+from pathlib import Path
+from types import SimpleNamespace
+
+import h5py
+import numpy as np
+import pytest
+from scipy import constants
+
+import tracer
+from test_bad_input import TRAP
+from tracer import cache, store
+from tracer.cli import main
+from tracer.pipeline import DEFAULT_RTOL
+
+PACKAGE = Path(tracer.__file__).resolve().parent
+MAX_TIME_S = 20e-6  # [trace] max_time_us of TRAP
+
+
+@pytest.fixture(scope="module")
+def trap(tmp_path_factory):
+    """TRAP run once through ``tracer run`` (in-process), with its own cache folder."""
+    folder = tmp_path_factory.mktemp("trap")
+    config = folder / "trap.toml"
+    config.write_text(TRAP)
+    out, cache_dir = folder / "out", folder / "cache"
+    stdout = io.StringIO()
+    with pytest.MonkeyPatch.context() as mp, contextlib.redirect_stdout(stdout):
+        mp.setenv("TRACER_CACHE", str(cache_dir))
+        code = main(["run", str(config), "--out", str(out), "--quiet"])
+    return SimpleNamespace(code=code, config=config, out=out, cache=cache_dir, stdout=stdout.getvalue(),
+                           setup=tracer.load(config), result=store.read_result(out / "result.h5"))
+
+
+def test_rays_starting_inside_an_electrode_are_counted_not_fatal(trap):
+    assert trap.code == 0
+    assert "beam buried: 3 rays of p+\n\nrays ended: inside 3\n" in trap.stdout
+    assert trap.result.summaries["buried"]["status"]["inside"] == 3
+    rec = trap.result.beams["buried"].records
+    assert (rec["status"] == "inside").all() and (rec["electrode"] == "cap_in").all()
+    assert (rec["steps"] == 0).all()
+    # the other beams were traced all the same
+    assert (trap.result.beams["spray"].records["status"] != "inside").all()
+
+
+def test_a_trapped_ray_stops_at_max_time(trap):
+    """An ion whose total energy lies below the potential of both end caps cannot reach either and
+    bounces between them (conservation of energy; common practice).  It must end at max_time with
+    status "time", having crossed the middle plane back and forth, with its energy conserved."""
+    beam = trap.result.beams["trapped"]
+    (rec,) = beam.records
+    assert rec["status"] == "time" and rec["electrode"] == ""
+    assert rec["time_s"] == pytest.approx(MAX_TIME_S, rel=1e-12)
+    crossings = beam.crossings
+    assert len(crossings) >= 4                                  # at least two round trips
+    assert (np.diff(np.sign(crossings["pz"])) != 0).all()       # each crossing reverses the last
+    assert 2e-3 < rec["z_m"] < 20e-3                            # between the caps' inner faces
+    # kinetic + potential energy is what it started with: 10 eV at z = 11 mm on the axis
+    field = trap.result.field
+    q = beam.species.charge_C / constants.e                     # elementary charges (scipy.constants)
+    start_total = 10.0 + q * field.potential(np.array([11e-3]), np.array([0.0]))[0]
+    end_total = rec["energy_eV"] + q * field.potential(np.array([rec["z_m"]]), np.array([0.0]))[0]
+    assert end_total == pytest.approx(start_total, abs=1e-5)
+
+
+def particle_data(path):
+    """Every particle dataset of a result file (the openPMD particles and the ray records), as bytes."""
+    data = {}
+    with h5py.File(path, "r") as f:
+        def collect(name, node):
+            if isinstance(node, h5py.Dataset):
+                data[name] = (node.dtype.str, node.shape, node[()].tobytes())
+        f["/data/0/particles"].visititems(collect)
+        f["/data/0/meshes"].visititems(collect)
+    assert data
+    return data
+
+
+def test_runs_are_bit_identical_on_repeat_and_with_one_or_two_threads(trap, tmp_path):
+    """The same config and seed give the same bits: again in fresh processes, solving afresh (no
+    cache) with one and with two numba threads."""
+    procs = {}
+    for threads in (1, 2):
+        env = {**os.environ, "NUMBA_NUM_THREADS": str(threads)}
+        procs[threads] = subprocess.Popen(
+            [sys.executable, "-m", "tracer", "run", str(trap.config), "--out", str(tmp_path / f"t{threads}"),
+             "--quiet", "--no-cache"], env=env, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, text=True)
+    for proc in procs.values():
+        assert proc.wait(timeout=180) == 0, proc.stderr.read()
+    reference = particle_data(trap.out / "result.h5")
+    landings = (trap.out / "landings.csv").read_bytes()
+    for threads in procs:
+        out = tmp_path / f"t{threads}"
+        assert particle_data(out / "result.h5") == reference, threads
+        assert (out / "landings.csv").read_bytes() == landings
+    # and a second run in this process, from the cache
+    again = tracer.run(trap.setup, cache_dir=trap.cache)
+    for name, run in again.beams.items():
+        assert run.records.tobytes() == trap.result.beams[name].records.tobytes(), name
+
+
+def test_a_stale_cache_file_is_recomputed(trap, monkeypatch):
+    """A cache file whose stored geometry hash no longer matches is not used but solved again."""
+    import tracer.solver
+
+    path = cache.cache_file(trap.cache, trap.setup, rtol=DEFAULT_RTOL)
+    good = store.read_maps(path)
+    assert cache.load_cached(trap.setup, trap.cache, rtol=DEFAULT_RTOL) is not None
+    with h5py.File(path, "r+") as f:
+        f["/tracer/maps"].attrs["geometry_hash"] = "0" * 64
+    assert cache.load_cached(trap.setup, trap.cache, rtol=DEFAULT_RTOL) is None
+    solves = []
+    solve = tracer.solver.solve_unit_maps
+    monkeypatch.setattr(tracer.solver, "solve_unit_maps", lambda *a, **k: solves.append(a) or solve(*a, **k))
+    maps = cache.cached_solve(trap.setup, trap.cache, rtol=DEFAULT_RTOL)
+    assert len(solves) == 1
+    assert maps.geometry_hash == trap.setup.geometry_hash()
+    assert maps.unit.tobytes() == good.unit.tobytes()
+    assert store.read_maps(path).geometry_hash == trap.setup.geometry_hash()
+    assert not [p for p in trap.cache.iterdir() if p.suffix == ".tmp"]
+
+
+def leftovers(folder):
+    """Temporary files of atomic writes left in a folder."""
+    return [p.name for p in folder.iterdir() if p.name.endswith(".tmp")] if folder.exists() else []
+
+
+def test_atomic_path_removes_its_temporary_on_an_interrupt(tmp_path):
+    target = tmp_path / "result.h5"
+    target.write_bytes(b"the complete old file")
+    for fault in (KeyboardInterrupt, OSError):
+        with pytest.raises(fault):
+            with store.atomic_path(target) as tmp:
+                tmp.write_bytes(b"half a new fi")
+                raise fault()
+        assert target.read_bytes() == b"the complete old file"
+        assert [p.name for p in tmp_path.iterdir()] == ["result.h5"]
+    with store.atomic_path(target) as tmp:
+        tmp.write_bytes(b"new")
+    assert target.read_bytes() == b"new" and [p.name for p in tmp_path.iterdir()] == ["result.h5"]
+
+
+def test_ctrl_c_while_writing_the_result_keeps_the_old_file(trap, tmp_path, monkeypatch, capsys):
+    """An interrupt in the middle of writing result.h5 exits 130 and leaves the earlier result."""
+    out = tmp_path / "out"
+    out.mkdir()
+    (out / "result.h5").write_bytes((trap.out / "result.h5").read_bytes())
+    before = (out / "result.h5").read_bytes()
+    writes = []
+    write_mesh = store.write_mesh
+
+    def interrupted(*args, **kwargs):
+        writes.append(args)
+        if len(writes) == 2:          # the field mesh: the potential is already in the file
+            raise KeyboardInterrupt
+        return write_mesh(*args, **kwargs)
+
+    monkeypatch.setattr(store, "write_mesh", interrupted)
+    monkeypatch.setenv("TRACER_CACHE", str(trap.cache))
+    assert main(["run", str(trap.config), "--out", str(out), "--quiet"]) == 130
+    assert capsys.readouterr().err == "tracer: interrupted\n"
+    assert len(writes) == 2
+    assert (out / "result.h5").read_bytes() == before
+    assert sorted(p.name for p in out.iterdir()) == ["result.h5"]
+
+
+LONG = TRAP.replace("count = 1\n", "count = 20000\nenergy_spread_eV = 1.0\n").replace(
+    "max_time_us = 20.0", "max_time_us = 200.0")
+
+
+def test_sigint_during_tracing_exits_130_and_leaves_no_half_file(trap, tmp_path):
+    """Ctrl-C at a terminal while the rays are traced (20000 trapped rays: minutes of work)."""
+    config = tmp_path / "long.toml"
+    config.write_text(LONG)
+    out = tmp_path / "out"
+    master, slave = pty.openpty()     # a terminal for stderr, so the progress bar shows the stage
+    fcntl.ioctl(slave, termios.TIOCSWINSZ, struct.pack("HHHH", 24, 100, 0, 0))  # a bar needs columns
+    proc = subprocess.Popen([sys.executable, "-m", "tracer", "run", str(config), "--out", str(out)],
+                            env={**os.environ, "TRACER_CACHE": str(trap.cache)},
+                            stdout=subprocess.PIPE, stderr=slave, stdin=subprocess.DEVNULL)
+    os.close(slave)
+    seen = b""
+    try:
+        deadline = time.monotonic() + 300   # a stale numba cache recompiles first
+        while b"tracing trapped" not in seen and time.monotonic() < deadline:
+            if select.select([master], [], [], 1.0)[0]:
+                seen += os.read(master, 4096)
+        assert b"tracing trapped" in seen, seen
+        sent = time.monotonic()
+        proc.send_signal(signal.SIGINT)
+        code = proc.wait(timeout=60)
+        waited = time.monotonic() - sent
+        with contextlib.suppress(OSError):
+            while select.select([master], [], [], 0.2)[0]:
+                seen += os.read(master, 4096)
+    finally:
+        if proc.poll() is None:
+            proc.kill()
+            proc.wait()
+        os.close(master)
+    assert code == 130, seen
+    assert b"tracer: interrupted" in seen and b"Traceback" not in seen
+    assert waited < 30               # the tracer stops within a chunk of rays, not at the end
+    # killed while tracing: nothing was written, no half file, no temporary left behind
+    assert not (out / "result.h5").exists() or store.read_result(out / "result.h5")
+    assert leftovers(out) == [] and leftovers(trap.cache) == []
+
+
+def test_a_closed_output_pipe_ends_quietly(trap):
+    """``tracer check ... | head -0``: the reader went away; no traceback, no 'internal fault'."""
+    proc = subprocess.Popen([sys.executable, "-m", "tracer", "check", str(trap.config)],
+                            stdout=subprocess.PIPE, stderr=subprocess.PIPE)
+    proc.stdout.close()
+    err = proc.stderr.read().decode()
+    assert proc.wait(timeout=60) == 141
+    assert err == ""
+
+
+UNSAFE_MODULES = {"pickle", "cPickle", "dill", "cloudpickle", "marshal", "shelve", "yaml", "jsonpickle"}
+UNSAFE_CALLS = {"eval", "exec", "compile", "__import__"}
+
+
+def test_nothing_is_unpickled_or_evaluated_from_input():
+    """No module of the package imports a deserializer that runs code, calls eval/exec/compile,
+    or lets numpy unpickle (allow_pickle=True); input is read as TOML, CSV and HDF5 data only."""
+    found = []
+    sources = sorted(PACKAGE.rglob("*.py"))
+    assert len(sources) > 10
+    for path in sources:
+        tree = ast.parse(path.read_text(encoding="utf-8"), filename=str(path))
+        for node in ast.walk(tree):
+            names = []
+            if isinstance(node, ast.Import):
+                names = [a.name.split(".")[0] for a in node.names]
+            elif isinstance(node, ast.ImportFrom) and node.module:
+                names = [node.module.split(".")[0]]
+            found += [f"{path.name}:{node.lineno} imports {n}" for n in names if n in UNSAFE_MODULES]
+            if isinstance(node, ast.Call):
+                if isinstance(node.func, ast.Name) and node.func.id in UNSAFE_CALLS:
+                    found.append(f"{path.name}:{node.lineno} calls {node.func.id}")
+                found += [f"{path.name}:{node.lineno} allow_pickle" for k in node.keywords
+                          if k.arg == "allow_pickle" and not (isinstance(k.value, ast.Constant) and not k.value.value)]
+    assert found == []
