@@ -36,6 +36,7 @@ seed = 21
 start_z_mm = 1.0
 radius_mm = 3.0
 profile = "uniform"
+current_A = 2e-9
 [[plane]]
 name = "behind"
 z_mm = 12.0
@@ -53,6 +54,9 @@ def test_transmission_through_a_hole_is_the_area_ratio():
     sigma = math.sqrt(expected * (1 - expected) / 4000)
     assert abs(s["transmission"]["behind"] - expected) < 4 * sigma
     assert s["landing"]["plate"]["count"] + s["status"]["left"] == 4000
+    # the figures as currents: each ray carries current_A / count
+    assert s["planes"]["behind"]["current_A"] == pytest.approx(2e-9 * s["transmission"]["behind"])
+    assert s["landing"]["plate"]["current_A"] == pytest.approx(2e-9 * s["landing"]["plate"]["fraction"])
     # every ray that passed went straight: no field anywhere (all electrodes and edges at 0 V)
     rows = result.beams["ions"].at_plane("behind")
     assert np.all(np.hypot(rows["x_m"], rows["y_m"]) <= 1.5e-3)

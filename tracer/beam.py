@@ -47,17 +47,19 @@ def symmetry_code(grid):
     return motion.SYMMETRY_CODE["mirror" if grid.mirror else "planar"]
 
 
-def start_states(beam, field):
+def start_states(beam, field, drawn=None):
     """Start state of every ray of a beam, as records.
 
     The rays are drawn by :func:`tracer.sources.start_states` (disc or CSV rays, cone of directions,
-    energy spread; seeded). Rays that start inside an electrode are marked ``"inside"`` with the
-    electrode's name; all other rows have status "" and electrode "".
+    energy spread; seeded), unless ``drawn`` gives them. Rays that start inside an electrode are
+    marked ``"inside"`` with the electrode's name; all other rows have status "" and electrode "".
 
     Parameters
     ----------
     beam : tracer.config.Beam
     field : tracer.fieldmap.PotentialMap
+    drawn : numpy.ndarray, optional
+        Start states of :data:`tracer.sources.START_DTYPE` to use instead of drawing them.
 
     Returns
     -------
@@ -65,7 +67,8 @@ def start_states(beam, field):
         Structured array of :func:`state_dtype` with ``time_s`` = 0, ``ledger_eV`` = 0 and the
         current each ray carries, ``weight_A`` (0 when the beam gives no current).
     """
-    drawn = sources.start_states(beam, symmetry=field.grid.symmetry)
+    if drawn is None:
+        drawn = sources.start_states(beam, symmetry=field.grid.symmetry)
     out = np.zeros(len(drawn), dtype=state_dtype(field.names, [("weight_A", np.float64)]))
     for name in ("ray", "x_m", "y_m", "z_m", "px", "py", "pz", "energy_eV", "weight_A"):
         out[name] = drawn[name]
@@ -141,15 +144,19 @@ class BeamRun:
             ``beam``, ``species``, ``rays``, ``current_A`` (the beam's current, or NaN);
             ``status`` {status: count} for every status; ``transmission`` {plane: fraction of the
             rays that crossed it at least once}; ``planes`` {plane: :class:`tracer.stats.PlaneStats`
-            fields as a dict}; ``landing`` {electrode: :class:`tracer.stats.LandingStats` fields as
-            a dict}; ``ledger_worst_eV``, ``ledger_worst_relative``, ``ledger_threshold``,
+            fields as a dict, plus ``current_A`` through the plane}; ``landing`` {electrode:
+            :class:`tracer.stats.LandingStats` fields as a dict}; ``ledger_worst_eV``, ``ledger_worst_relative``, ``ledger_threshold``,
             ``ledger_suspects``; ``warning`` (a one-line warning, or "").
         """
         rec = self.records
         n = len(rec)
         status = {s: int(np.count_nonzero(rec["status"] == s)) for s in STATUS.values()}
-        planes = {p: asdict(stats.plane_stats(self.at_plane(p), self.species, n)) for p in self.planes}
         current = float(self.starts["weight_A"].sum())
+        planes = {p: asdict(stats.plane_stats(self.at_plane(p), self.species, n)) for p in self.planes}
+        for p in self.planes:      # the current through each plane (each ray counted once)
+            crossed = np.unique(self.at_plane(p)["ray"])
+            planes[p]["current_A"] = (float(rec["weight_A"][np.isin(rec["ray"], crossed)].sum())
+                                      if current > 0 else math.nan)
         weights = rec["weight_A"] if current > 0 else np.full(n, math.nan)
         landing = {name: asdict(ls) for name, ls in
                    stats.landings(rec, weight_A=weights, symmetry=self.symmetry).items()}
@@ -178,7 +185,7 @@ class BeamRun:
 def trace(field, beam, planes=(), rtol=1e-9, max_time_s=1e-4, *, keep_paths=0,
           max_path_points=4096, ledger_threshold=ledger.DEFAULT_THRESHOLD, max_step_cells=1.0,
           sample_cells=0.5, fine_cells=1 / 32, max_steps=10_000_000, max_crossings=16,
-          progress=None):
+          progress=None, starts=None):
     """Trace a beam through a potential map.
 
     Parameters
@@ -209,7 +216,10 @@ def trace(field, beam, planes=(), rtol=1e-9, max_time_s=1e-4, *, keep_paths=0,
     max_crossings : int
         Plane crossings recorded per ray.
     progress : callable, optional
-        Called as ``progress(done, total)`` as the rays are traced (in chunks of about 1 %).
+        Called as ``progress(done, total)`` as the rays are traced (in chunks of about 5 %).
+    starts : numpy.ndarray, optional
+        Start states (:data:`tracer.sources.START_DTYPE`) to trace instead of drawing the beam's;
+        the beam then gives only its name and species.
 
     Returns
     -------
@@ -220,7 +230,7 @@ def trace(field, beam, planes=(), rtol=1e-9, max_time_s=1e-4, *, keep_paths=0,
     grid = field.grid
     sym = symmetry_code(grid)
     sp = beam.species
-    starts = start_states(beam, field)
+    starts = start_states(beam, field, starts)
     n = len(starts)
     scale = ledger.energy_scale_eV(starts["energy_eV"], sp.charge_C, field.voltages)
     atol_p = rtol * sources.momentum(scale, sp.mass_kg)
@@ -237,7 +247,7 @@ def trace(field, beam, planes=(), rtol=1e-9, max_time_s=1e-4, *, keep_paths=0,
     herm = np.ascontiguousarray(field.hermite, dtype=np.float64)
     geo = tuple(field.table.arrays())
     cell_map = np.ascontiguousarray(field.raster.cell)
-    chunk = max(1, n if progress is None else max(64, -(-n // 100)))
+    chunk = max(256, -(-n // 20))   # between chunks, progress is shown and Ctrl-C is seen
     parts = []
     for lo in range(0, max(n, 1), chunk):
         hi = min(n, lo + chunk)

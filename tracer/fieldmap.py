@@ -51,7 +51,7 @@ _STEP_R = (0, 0, 1, -1)
 # Evaluation of the bicubic Hermite patch
 
 
-@njit(cache=True, error_model="numpy")
+@njit(cache=True, error_model="numpy", inline="always")
 def cell_index(x, x0, h, n):
     """Index of the cell holding coordinate x on a line of n nodes, clamped to [0, n - 2].
 
@@ -65,7 +65,7 @@ def cell_index(x, x0, h, n):
     return 0
 
 
-@njit(cache=True, error_model="numpy")
+@njit(cache=True, error_model="numpy", inline="always")
 def _cubic_hermite(u, h):
     """Cubic Hermite weights at fraction u of a cell of length h, and their derivatives.
 
@@ -78,7 +78,7 @@ def _cubic_hermite(u, h):
             -da1, da1, (3.0 * u - 1.0) * (u - 1.0), u * (3.0 * u - 2.0))
 
 
-@njit(cache=True, error_model="numpy")
+@njit(cache=True, error_model="numpy", inline="always")
 def hermite_eval(h, z0, r0, hz, hr, nz, nr, mirror, z, r):
     """Bicubic Hermite interpolant and its gradient at one point.
 

@@ -35,7 +35,6 @@ from __future__ import annotations
 
 import dataclasses
 import math
-import tempfile
 import warnings
 from dataclasses import dataclass
 from pathlib import Path
@@ -299,36 +298,38 @@ def _evaluate_emission(sites, field, spec, cathode_V, distance):
     return out
 
 
-def _start_rays(sites, distance, symmetry, folder):
-    """Write the emitting sites' rays as a rays file; returns its path."""
+def _start_rays(sites, distance, symmetry, mass_kg):
+    """The emitting sites' rays: a distance in front of each site along its normal, with the
+    kinetic energy gained across the layer and the site's current."""
+    from tracer.sources import rays_from
+
     rows = sites[sites["ray"] >= 0]
     rs = rows["r_m"] + distance * rows["normal_r"]
     zs = rows["z_m"] + distance * rows["normal_z"]
+    zero = np.zeros(len(rows))
     if symmetry == "axial":
         phi = GOLDEN_ANGLE * np.arange(len(rows))
         c, s = np.cos(phi), np.sin(phi)
-        columns = (rs * c, rs * s, zs, rows["normal_r"] * c, rows["normal_r"] * s, rows["normal_z"])
+        position = (rs * c, rs * s, zs)
+        direction = (rows["normal_r"] * c, rows["normal_r"] * s, rows["normal_z"])
     else:
-        columns = (np.zeros(len(rows)), rs, zs, np.zeros(len(rows)), rows["normal_r"], rows["normal_z"])
-    path = Path(folder) / "gun_rays.csv"
-    np.savetxt(path, np.column_stack(columns + (rows["voltage_V"],)), fmt="%.17g", delimiter=",",
-               header="x_m,y_m,z_m,ux,uy,uz,energy_eV", comments="")
-    return path
+        position = (zero, rs, zs)
+        direction = (zero, rows["normal_r"], rows["normal_z"])
+    return rays_from(position, direction, rows["voltage_V"], rows["current_A"], mass_kg)
 
 
-def _trace(field, setup, sites, distance, folder):
+def _trace(field, setup, sites, distance):
     from tracer.beam import trace
     from tracer.config import Beam
 
     sp = setup.gun.species
-    beam = Beam(name="gun", species=sp, energy_eV=None, start_z_m=None, count=None,
-                rays_csv=_start_rays(sites, distance, field.grid.symmetry, folder))
+    beam = Beam(name="gun", species=sp, energy_eV=None, start_z_m=None, count=None)
+    starts = _start_rays(sites, distance, field.grid.symmetry, sp.mass_kg)
     grid = field.grid
     opts = setup.trace
-    rays = int(np.count_nonzero(sites["ray"] >= 0))
     return trace(field, beam, planes=setup.planes, rtol=opts.rtol, max_time_s=opts.max_time_s,
-                 keep_paths=rays, max_path_points=max(4096, 4 * (grid.nz + grid.nr)),
-                 ledger_threshold=opts.ledger_threshold)
+                 keep_paths=len(starts), max_path_points=max(4096, 4 * (grid.nz + grid.nr)),
+                 ledger_threshold=opts.ledger_threshold, starts=starts)
 
 
 def _path_zrt(path, symmetry):
@@ -495,23 +496,22 @@ def gun(setup, *, maps=None, cache_dir=None, progress=None) -> GunResult:
     field = vacuum
     history = []
     converged = False
-    with tempfile.TemporaryDirectory(prefix="tracer-gun-") as folder:
-        for iteration in range(1, spec.max_iterations + 1):
-            sites = _evaluate_emission(blank, field, spec, cathode_V, distance)
-            total = float(sites["current_A"].sum())
-            change = abs(total - history[-1][0]) / total if history and total > 0.0 else math.nan
-            history.append((total, change))
-            converged = total == 0.0 or change < spec.tolerance
-            if total > 0.0:
-                run = _trace(field, setup, sites, distance, folder)
-            if progress is not None and iteration < spec.max_iterations:
-                progress(iteration, spec.max_iterations)
-            if converged or total == 0.0 or iteration == spec.max_iterations:
-                break
-            rho = space_charge_density(grid, run, sites, distance, sp)
-            fresh = solve_poisson(grid, vacuum.table, rho, vacuum.raster, rtol=POISSON_RTOL)
-            phi = (1.0 - spec.relaxation) * phi + spec.relaxation * fresh
-            field = dataclasses.replace(vacuum, hermite=vacuum.hermite + _space_charge_map(vacuum, phi))
+    for iteration in range(1, spec.max_iterations + 1):
+        sites = _evaluate_emission(blank, field, spec, cathode_V, distance)
+        total = float(sites["current_A"].sum())
+        change = abs(total - history[-1][0]) / total if history and total > 0.0 else math.nan
+        history.append((total, change))
+        converged = total == 0.0 or change < spec.tolerance
+        if total > 0.0:
+            run = _trace(field, setup, sites, distance)
+        if progress is not None and iteration < spec.max_iterations:
+            progress(iteration, spec.max_iterations)
+        if converged or total == 0.0 or iteration == spec.max_iterations:
+            break
+        rho = space_charge_density(grid, run, sites, distance, sp)
+        fresh = solve_poisson(grid, vacuum.table, rho, vacuum.raster, rtol=POISSON_RTOL)
+        phi = (1.0 - spec.relaxation) * phi + spec.relaxation * fresh
+        field = dataclasses.replace(vacuum, hermite=vacuum.hermite + _space_charge_map(vacuum, phi))
     if progress is not None:
         progress(spec.max_iterations, spec.max_iterations)
     warning = ""

@@ -97,7 +97,7 @@ STRETCH = 1.1         # a step may grow by this factor to reach the wall instead
 SAFETY, FAC_MIN, FAC_MAX = 0.9, 0.2, 5.0
 
 
-@njit(cache=True, error_model="numpy")
+@njit(cache=True, error_model="numpy", inline="always")
 def map_r(sym, x, y):
     """The map coordinate r of a 3-D point (hypot(x, y), |y| or y)."""
     if sym == 0:
@@ -107,7 +107,7 @@ def map_r(sym, x, y):
     return y
 
 
-@njit(cache=True, error_model="numpy")
+@njit(cache=True, error_model="numpy", inline="always")
 def cell_of(grid, sym, x, y, z):
     """Indices (i, j) of the interpolation cell holding a 3-D point (clamped onto the grid)."""
     i = cell_index(z, grid[0], grid[2], int(grid[4]))
@@ -115,7 +115,7 @@ def cell_of(grid, sym, x, y, z):
     return i, j
 
 
-@njit(cache=True, error_model="numpy")
+@njit(cache=True, error_model="numpy", inline="always")
 def cell_ahead(grid, sym, s, length):
     """Indices of the cell holding the point ``length`` metres ahead of state s along its motion."""
     p = math.sqrt(s[3] * s[3] + s[4] * s[4] + s[5] * s[5])
@@ -123,7 +123,7 @@ def cell_ahead(grid, sym, s, length):
     return cell_of(grid, sym, s[0] + f * s[3], s[1] + f * s[4], s[2] + f * s[5])
 
 
-@njit(cache=True, error_model="numpy")
+@njit(cache=True, error_model="numpy", inline="always")
 def patch_field(patch, pz, pr, grid, sym, x, y, z):
     """Potential and field at a 3-D point from the bicubic polynomial of one interpolation cell.
 
@@ -166,7 +166,7 @@ def patch_field(patch, pz, pr, grid, sym, x, y, z):
     return v, 0.0, -dvdr, ez
 
 
-@njit(cache=True, error_model="numpy")
+@njit(cache=True, error_model="numpy", inline="always")
 def field_at(herm, grid, sym, x, y, z):
     """Potential and field of the interpolant at a 3-D point (see :func:`patch_field`)."""
     i, j = cell_of(grid, sym, x, y, z)
@@ -174,7 +174,7 @@ def field_at(herm, grid, sym, x, y, z):
                        grid, sym, x, y, z)
 
 
-@njit(cache=True, error_model="numpy")
+@njit(cache=True, error_model="numpy", inline="always")
 def derivative(patch, pz, pr, grid, sym, mass, charge, s, ks, row):
     """Right-hand side of the equations of motion in the field of one cell (see
     :func:`patch_field`); writes ks[row], returns the potential at s."""
@@ -191,7 +191,7 @@ def derivative(patch, pz, pr, grid, sym, mass, charge, s, ks, row):
     return v
 
 
-@njit(cache=True, error_model="numpy")
+@njit(cache=True, error_model="numpy", inline="always")
 def dense(rc, theta, out):
     """Evaluate the continuous extension of the last step at theta in [0, 1] into out."""
     u = 1.0 - theta
@@ -199,7 +199,7 @@ def dense(rc, theta, out):
         out[i] = rc[0, i] + theta * (rc[1, i] + u * (rc[2, i] + theta * (rc[3, i] + u * rc[4, i])))
 
 
-@njit(cache=True, error_model="numpy")
+@njit(cache=True, error_model="numpy", inline="always")
 def dense_coefficients(y0, y1, ks, h, rc):
     """Coefficients of the continuous extension of an accepted step (Hairer et al. 1993)."""
     for i in range(6):
@@ -214,7 +214,7 @@ def dense_coefficients(y0, y1, ks, h, rc):
         rc[4, i] = h * acc
 
 
-@njit(cache=True, error_model="numpy")
+@njit(cache=True, error_model="numpy", inline="always")
 def step_cap(s, k, mass, length):
     """Longest time step that moves a ray at most ``length`` metres (constant-acceleration estimate)."""
     v = math.sqrt(k[0] * k[0] + k[1] * k[1] + k[2] * k[2])
@@ -228,7 +228,7 @@ def step_cap(s, k, mass, length):
     return 2.0 * length / den
 
 
-@njit(cache=True, error_model="numpy")
+@njit(cache=True, error_model="numpy", inline="always")
 def outside(bounds, sym, z, r):
     """True when (z, r) is outside the domain; leaving through the axis or mirror plane is not leaving."""
     if z < bounds[0] or z > bounds[1] or r > bounds[3]:
@@ -301,7 +301,7 @@ def find_landing(rc, sym, ta, tb, pa, length, fine, geo, buf):
     return 2.0, -1
 
 
-@njit(cache=True, error_model="numpy")
+@njit(cache=True, error_model="numpy", inline="always")
 def cell_box(grid, i, j, box):
     """Walls (z_lo, z_hi, r_lo, r_hi) of interpolation cell (i, j); walls on the grid's edge are
     at infinity (a ray leaves the domain there, it meets no other cell)."""
@@ -311,7 +311,7 @@ def cell_box(grid, i, j, box):
     box[3] = grid[1] + (j + 1) * grid[3] if j < int(grid[5]) - 2 else np.inf
 
 
-@njit(cache=True, error_model="numpy")
+@njit(cache=True, error_model="numpy", inline="always")
 def hold(box, sym, s):
     """Widen a box of walls (z_lo, z_hi, r_lo, r_hi) to hold the point of state s."""
     r = map_r(sym, s[0], s[1])
@@ -321,7 +321,7 @@ def hold(box, sym, s):
     box[3] = max(box[3], r)
 
 
-@njit(cache=True, error_model="numpy")
+@njit(cache=True, error_model="numpy", inline="always")
 def past_wall(box, sym, s, w):
     """How far the point of state s lies beyond wall w (0 z_lo, 1 z_hi, 2 r_lo, 3 r_hi) of a box."""
     if w < 2:
@@ -330,7 +330,7 @@ def past_wall(box, sym, s, w):
     return box[2] - r if w == 2 else r - box[3]
 
 
-@njit(cache=True, error_model="numpy")
+@njit(cache=True, error_model="numpy", inline="always")
 def beyond(box, sym, s):
     """The wall of a box of walls (z_lo, z_hi, r_lo, r_hi) that the point of state s lies
     farthest beyond, and how far (<= 0 inside)."""
@@ -343,7 +343,7 @@ def beyond(box, sym, s):
     return w, g
 
 
-@njit(cache=True, error_model="numpy")
+@njit(cache=True, error_model="numpy", inline="always")
 def r_rate(sym, s, k):
     """dr/dt of the map coordinate r for state s with derivative k."""
     if sym == 0:
@@ -354,7 +354,7 @@ def r_rate(sym, s, k):
     return k[1]
 
 
-@njit(cache=True, error_model="numpy")
+@njit(cache=True, error_model="numpy", inline="always")
 def closest_to_axis(s, k):
     """Time at which the straight line from state s (velocity k[:3]) passes closest to the z axis."""
     v2 = k[0] * k[0] + k[1] * k[1]
@@ -363,7 +363,7 @@ def closest_to_axis(s, k):
     return -(s[0] * k[0] + s[1] * k[1]) / v2
 
 
-@njit(cache=True, error_model="numpy")
+@njit(cache=True, error_model="numpy", inline="always")
 def predict(rc, hp, y0, k0, mass, tau, out):
     """Predicted position ``tau`` after state y0 (into out[:3]): the last accepted step's dense
     output (of length ``hp``) continued, or constant acceleration when there is none."""
@@ -435,7 +435,7 @@ def exit_time(rc, hp, y0, k0, mass, sym, box, h, tol, buf):
     return tau
 
 
-@njit(cache=True, error_model="numpy")
+@njit(cache=True, error_model="numpy", inline="always")
 def wall_time(grid, sym, s, k, ci, cj, ni, nj):
     """Time between state s and the walls shared by cells (ci, cj) and (ni, nj), either way."""
     dt = 0.0
@@ -448,7 +448,7 @@ def wall_time(grid, sym, s, k, ci, cj, ni, nj):
     return dt
 
 
-@njit(cache=True, error_model="numpy")
+@njit(cache=True, error_model="numpy", inline="always")
 def kink_error(k_next, k_this, dt, y0, y1, rtol, atol_p):
     """Scaled error of integrating ``dt`` past a wall with the field of the cell behind it.
 
@@ -503,14 +503,14 @@ def wall_theta(rc, sym, box, hi, geo, buf):
     return th
 
 
-@njit(cache=True, error_model="numpy")
+@njit(cache=True, error_model="numpy", inline="always")
 def speed(s, mass):
     """Speed of a state (x, y, z, px, py, pz), m/s."""
     p = math.sqrt(s[3] * s[3] + s[4] * s[4] + s[5] * s[5])
     return p / (mass * math.sqrt(1.0 + (p / (mass * C_LIGHT)) ** 2))
 
 
-@njit(cache=True, error_model="numpy")
+@njit(cache=True, error_model="numpy", inline="always")
 def put_path(path, n, t, s, ke, res):
     """Write path row n: (t, x, y, z, px, py, pz, ke_J, signed ledger J)."""
     path[n, 0] = t

@@ -85,13 +85,13 @@ def format_summary(summary: dict) -> str:
             ["electrode", "rays", "fraction", "current A", "E mean eV", "E std eV", "E min eV",
              "E max eV", "r min mm", "r max mm"], rows, title="landed on electrodes"))
     if s["planes"]:
-        rows = [[name, d["fraction"], _mm(d["centroid_x_m"]), _mm(d["centroid_y_m"]),
+        rows = [[name, d["fraction"], d["current_A"], _mm(d["centroid_x_m"]), _mm(d["centroid_y_m"]),
                  _mm(d["rms_radius_m"]), d["rms_divergence_x_rad"] * 1e3,
                  d["emittance_x_m_rad"] * 1e6, d["norm_emittance_x_m_rad"] * 1e6,
                  d["energy_mean_eV"], d["energy_std_eV"], d["time_mean_s"] * 1e9,
                  d["time_std_s"] * 1e9] for name, d in s["planes"].items()]
         parts.append(format_table(
-            ["plane", "fraction", "x0 mm", "y0 mm", "rms r mm", "rms x' mrad", "emit x mm mrad",
+            ["plane", "fraction", "current A", "x0 mm", "y0 mm", "rms r mm", "rms x' mrad", "emit x mm mrad",
              "norm emit", "E mean eV", "E std eV", "tof ns", "tof std ns"], rows,
             title="crossed planes"))
     parts.append(f"energy ledger: worst |dKE - q dV| = {s['ledger_worst_eV']:.3g} eV "

@@ -164,13 +164,33 @@ def start_states(beam, *, symmetry="axial"):
         direction = _directions(rng, n, beam.angles, beam.half_angle_rad, symmetry)
         energy = _energies(rng, n, beam.energy_eV, beam.energy_spread_eV, beam.temperature_K)
         weight = np.full(n, 0.0 if beam.current_A is None else beam.current_A / max(n, 1))
+    return rays_from(position, direction, energy, weight, beam.species.mass_kg)
+
+
+def rays_from(position, direction, energy_eV, weight_A, mass_kg):
+    """Start states from positions, unit directions, kinetic energies and currents.
+
+    Parameters
+    ----------
+    position, direction : tuple of three arrays
+        (x, y, z) in metres, and the unit direction (ux, uy, uz) of each ray.
+    energy_eV, weight_A : ndarray
+        Kinetic energy (eV) and current (A) of each ray.
+    mass_kg : float
+
+    Returns
+    -------
+    numpy.ndarray
+        Structured array of dtype :data:`START_DTYPE`, rays numbered 0, 1, ...
+    """
+    energy = np.asarray(energy_eV, dtype=np.float64)
     out = np.zeros(len(energy), dtype=START_DTYPE)
     out["ray"] = np.arange(len(energy))
     out["x_m"], out["y_m"], out["z_m"] = position
-    p = momentum(energy, beam.species.mass_kg)
+    p = momentum(energy, mass_kg)
     out["px"], out["py"], out["pz"] = (p * u for u in direction)
     out["energy_eV"] = energy
-    out["weight_A"] = weight
+    out["weight_A"] = weight_A
     return out
 
 
