@@ -147,3 +147,14 @@ def test_demo_runs_into_a_fresh_folder(tmp_path, monkeypatch, capsys):
     assert main(["demo", "--out", str(out), "--quiet"]) == 2
     err = capsys.readouterr().err.strip().splitlines()
     assert len(err) == 1 and "not empty" in err[0]
+
+
+def test_demo_without_out_picks_the_next_fresh_folder(tmp_path, monkeypatch, capsys):
+    from tracer.cli import main
+
+    monkeypatch.setenv("TRACER_CACHE", str(tmp_path / "cache"))
+    monkeypatch.chdir(tmp_path)
+    (tmp_path / "tracer-demo").mkdir()
+    assert main(["demo", "--rays", "10", "--quiet"]) == 0
+    assert (tmp_path / "tracer-demo-2" / "result.h5").is_file()
+    assert not any((tmp_path / "tracer-demo").iterdir())

@@ -147,9 +147,15 @@ def cmd_demo(args, echo) -> int:
     from tracer.config import load
     from tracer.pipeline import DEMO_CONFIG
 
-    out = Path(args.out or "tracer-demo")
-    if out.exists() and any(out.iterdir()):
-        raise InputError(f"--out {out}: folder exists and is not empty; name a fresh folder")
+    if args.out:
+        out = Path(args.out)
+        if out.exists() and any(out.iterdir()):
+            raise InputError(f"--out {out}: folder exists and is not empty; name a fresh folder")
+    else:   # a fresh folder every time: tracer-demo, tracer-demo-2, ...
+        out, k = Path("tracer-demo"), 1
+        while out.exists():
+            k += 1
+            out = Path(f"tracer-demo-{k}")
     setup = load(DEMO_CONFIG)
     echo(f"demo: {setup.title}")
     echo(f"config: {DEMO_CONFIG}")
@@ -365,7 +371,7 @@ def build_parser() -> argparse.ArgumentParser:
         p.add_argument("--debug", action="store_true", help="show tracebacks")
         p.add_argument("--quiet", action="store_true", help="no progress output")
         if name == "demo":
-            p.add_argument("--out", metavar="DIR", help="a fresh output folder (default tracer-demo/)")
+            p.add_argument("--out", metavar="DIR", help="a fresh output folder (default: tracer-demo/, or the next free tracer-demo-N/)")
         elif name == "show":
             p.add_argument("--out", metavar="DIR", help="folder for the pictures (default: beside RESULT)")
         elif name != "check":
