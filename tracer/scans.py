@@ -325,12 +325,19 @@ def process_pool(context, workers=None):
     Returns
     -------
     concurrent.futures.ProcessPoolExecutor
-        Workers are started with the "spawn" method (a clean interpreter, safe with numba's
-        threads) and ignore SIGINT, so that Ctrl-C reaches only the scanning process.
+        Workers are forked from a fresh single-threaded server that has already imported the
+        tracer (the "forkserver" method: safe with numba's threads, and the imports are paid
+        once, not per worker), or spawned where that method does not exist; they ignore SIGINT,
+        so that Ctrl-C reaches only the scanning process.
     """
     workers = workers or os.cpu_count() or 1
     threads = max(1, (os.cpu_count() or 1) // workers)
-    return ProcessPoolExecutor(workers, mp_context=multiprocessing.get_context("spawn"),
+    if "forkserver" in multiprocessing.get_all_start_methods():
+        ctx = multiprocessing.get_context("forkserver")
+        ctx.set_forkserver_preload(["tracer.beam", "tracer.scans"])
+    else:
+        ctx = multiprocessing.get_context("spawn")
+    return ProcessPoolExecutor(workers, mp_context=ctx,
                                initializer=_init_worker, initargs=(context, threads))
 
 
