@@ -178,3 +178,19 @@ def test_mirrored_planar_rays_are_mirror_images():
     assert a["py"] == pytest.approx(-b["py"], rel=1e-12)
     assert a["z_m"] == pytest.approx(b["z_m"], rel=1e-12)
     assert abs(a["py"]) > 1e-3 * abs(a["pz"])  # the bump did deflect the ray
+
+
+def test_quiet_cells_keep_the_event_search_near_surfaces_planes_and_edges():
+    """Accepted steps skip the event search only in cells at least one cell away from any surface,
+    plane and domain edge (steps end on cell walls, so they stay in their cell)."""
+    from tracer.motion import quiet_cells
+
+    cell = np.full((12, 10), -1, dtype=np.int64)
+    cell[5, 6] = -2                      # a surface passes through this cell
+    grid = np.array([0.0, 0.0, 1e-3, 1e-3, 13, 11, 12e-3, 10e-3])
+    quiet = quiet_cells(cell, grid, np.array([9.5e-3]))     # a plane inside cell 9
+    assert not quiet[0].any() and not quiet[-1].any()
+    assert not quiet[:, 0].any() and not quiet[:, -1].any()
+    assert not quiet[4:7, 5:8].any()     # the cut cell and its eight neighbours
+    assert not quiet[8:11].any()         # within a cell of the plane
+    assert quiet[2, 2] and quiet[5, 3] and quiet[7, 8]

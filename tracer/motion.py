@@ -532,14 +532,15 @@ def thin_path(path, n):
 @njit(cache=True, error_model="numpy")
 def trace_one(s0, herm, grid, sym, bounds, cell, geo, mass, charge, t_max, rtol, atol_p,
               max_step, sample, fine, planes, stops, max_steps,
-              final, cross_plane, cross_state, path):
+              final, cross_plane, cross_state, path, quiet):
     """Trace one ray from state s0 (x, y, z, px, py, pz).
 
     Writes the end state into ``final`` = (t, x, y, z, px, py, pz, ke_J, worst ledger J) and the
     plane crossings into ``cross_plane``/``cross_state`` (rows of t, x, y, z, px, py, pz, ke_J,
     ledger J); ``path`` (possibly of zero rows) receives accepted-step points (t, state, ke_J,
     signed ledger J); when it fills up, every other point is dropped and the spacing doubles, so
-    it always spans the whole ray (its last row is kept for the end point).
+    it always spans the whole ray (its last row is kept for the end point).  In the cells marked
+    by ``quiet`` (:func:`quiet_cells`) accepted steps skip the event search.
 
     Returns
     -------
@@ -689,7 +690,7 @@ def trace_one(s0, herm, grid, sym, bounds, cell, geo, mass, charge, t_max, rtol,
         za, ra = y0[2], map_r(sym, y0[0], y0[1])
         xa, ya_ = y0[0], y0[1]
         t_end = 2.0
-        for m in range(1, n_sub + 1):
+        for m in range(1, 0 if quiet[ci, cj] else n_sub + 1):
             tb = m / n_sub
             dense(rc, tb, buf)
             xb, yb, zb = buf[0], buf[1], buf[2]
@@ -795,6 +796,34 @@ def trace_one(s0, herm, grid, sym, bounds, cell, geo, mass, charge, t_max, rtol,
     return code, electrode, n_cross, n_path, steps, rejected, evals
 
 
+@njit(cache=True, error_model="numpy")
+def quiet_cells(cell, grid, planes):
+    """Cells where an accepted step needs no event search: the cell and its eight neighbours hold
+    no surface, the cell is not on the domain's border, and no plane lies within a cell of it.
+
+    A step never leaves its cell by more than the snapping distance (steps end on walls), so a ray
+    stepping in such a cell can neither land, nor leave the domain, nor cross a plane.
+    """
+    ncz, ncr = cell.shape[0], cell.shape[1]
+    quiet = np.zeros((ncz, ncr), dtype=np.bool_)
+    z0, hz = grid[0], grid[2]
+    for i in range(1, ncz - 1):
+        near_plane = False
+        for q in range(planes.shape[0]):
+            if z0 + (i - 1) * hz <= planes[q] <= z0 + (i + 2) * hz:
+                near_plane = True
+        if near_plane:
+            continue
+        for j in range(1, ncr - 1):
+            free = True
+            for a in range(i - 1, i + 2):
+                for b in range(j - 1, j + 2):
+                    if cell[a, b] != -1:
+                        free = False
+            quiet[i, j] = free
+    return quiet
+
+
 @njit(cache=True, parallel=True, error_model="numpy")
 def trace_rays(starts, herm, grid, sym, bounds, cell, geo, mass, charge, t_max, rtol, atol_p,
                max_step, sample, fine, planes, stops, max_steps, max_cross, paths):
@@ -821,11 +850,12 @@ def trace_rays(starts, herm, grid, sym, bounds, cell, geo, mass, charge, t_max, 
     cross_plane = np.full((n, max_cross), -1, dtype=np.int64)
     cross_state = np.zeros((n, max_cross, 9))
     empty = np.zeros((0, 9))
+    quiet = quiet_cells(cell, grid, planes)
     for r in prange(n):
         path = paths[r] if r < paths.shape[0] else empty
         out = trace_one(starts[r], herm, grid, sym, bounds, cell, geo, mass, charge, t_max, rtol,
                         atol_p[r], max_step, sample, fine, planes, stops, max_steps,
-                        final[r], cross_plane[r], cross_state[r], path)
+                        final[r], cross_plane[r], cross_state[r], path, quiet)
         for i in range(7):
             info[r, i] = out[i]
     return final, info, cross_plane, cross_state
