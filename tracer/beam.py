@@ -13,6 +13,7 @@ import numpy as np
 from scipy import constants
 
 from tracer import ledger, motion, sources, stats
+from tracer.interrupts import by_interrupt
 
 STATUS = {
     motion.LANDED: "landed",      # hit an electrode; the state is at its surface
@@ -251,11 +252,17 @@ def trace(field, beam, planes=(), rtol=1e-9, max_time_s=1e-4, *, keep_paths=0,
     parts = []
     for lo in range(0, max(n, 1), chunk):
         hi = min(n, lo + chunk)
-        parts.append(motion.trace_rays(
-            np.ascontiguousarray(state[lo:hi]), herm, grid_vec, sym, bounds, cell_map, geo,
-            float(sp.mass_kg), float(sp.charge_C), float(max_time_s), float(rtol), atol_p[lo:hi],
-            max_step_cells * cell, sample_cells * cell, fine_cells * cell, plane_z, plane_stop,
-            int(max_steps), int(max_crossings), paths_buf[lo:min(hi, keep)]))
+        try:
+            parts.append(motion.trace_rays(
+                np.ascontiguousarray(state[lo:hi]), herm, grid_vec, sym, bounds, cell_map, geo,
+                float(sp.mass_kg), float(sp.charge_C), float(max_time_s), float(rtol),
+                atol_p[lo:hi], max_step_cells * cell, sample_cells * cell, fine_cells * cell,
+                plane_z, plane_stop, int(max_steps), int(max_crossings),
+                paths_buf[lo:min(hi, keep)]))
+        except SystemError as exc:   # numba's parallel kernel hands a Ctrl-C back wrapped
+            if by_interrupt(exc):
+                raise KeyboardInterrupt from exc
+            raise
         if progress is not None:
             progress(hi, n)
     final, info, cross_plane, cross_state = (np.concatenate([p[k] for p in parts]) for k in range(4))

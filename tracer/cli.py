@@ -390,18 +390,10 @@ def build_parser() -> argparse.ArgumentParser:
     return parser
 
 
-def _by_interrupt(exc) -> bool:
-    """True when a KeyboardInterrupt is the cause (or context) of an exception."""
-    while exc is not None:
-        if isinstance(exc, KeyboardInterrupt):
-            return True
-        exc = exc.__cause__ or exc.__context__
-    return False
-
-
 def main(argv: list[str] | None = None) -> int:
     """Run the command line; return the exit code."""
     from tracer.config import ConfigError
+    from tracer.interrupts import by_interrupt
 
     parser = build_parser()
     args = parser.parse_args(argv)
@@ -423,7 +415,7 @@ def main(argv: list[str] | None = None) -> int:
         print("tracer: interrupted", file=sys.stderr)
         return 130
     except Exception as exc:  # an internal fault: say so plainly, keep the details for --debug
-        if _by_interrupt(exc):  # numba's parallel kernels hand a Ctrl-C back inside a SystemError
+        if by_interrupt(exc):  # numba's parallel kernels hand a Ctrl-C back inside a SystemError
             print("tracer: interrupted", file=sys.stderr)
             return 130
         if args.debug:

@@ -4,7 +4,9 @@ A scan is a list of voltage sets (the product of per-electrode ranges, or the ro
 :func:`voltage_sets`).  For every set the basis maps are combined (no new Laplace solve, DESIGN §2),
 every beam is traced, and the beam figures are measured (:func:`measure`).  The sets run through any
 :class:`concurrent.futures.Executor`; the result is the same, bit for bit, whichever ran them,
-because each set is an independent, deterministic computation on the same maps.
+because each set is an independent, deterministic computation on the same maps.  With its own
+process pool, the scanning process itself runs sets from the end of the queue until the workers
+deliver their first, so the pool's start-up is not idle time.
 
 Columns of the table
 --------------------
@@ -638,6 +640,25 @@ def scan(setup, maps=None, executor=None, *, out=None, workers=None, progress=No
     return ScanResult(table, names, digest, rows.resumed, time.perf_counter() - t_start, trace_s, files)
 
 
+def _while_workers_start(futures, context, sets, todo, finish):
+    """Run sets in this process, from the end of the queue, until a worker delivers its first one.
+
+    A set taken here is withdrawn from the pool first (a queued future can be cancelled), so every
+    set still runs exactly once; the rows are the same whichever process runs them.  Returns the
+    futures left to the pool.
+    """
+    delivered = threading.Event()
+    for f in futures:
+        f.add_done_callback(lambda f: f.cancelled() or delivered.set())
+    taken = set()
+    for k in range(len(futures) - 1, -1, -1):
+        if delivered.is_set() or not futures[k].cancel():
+            break
+        taken.add(k)
+        finish(*_task(context, todo[k], sets[todo[k]]))
+    return [f for k, f in enumerate(futures) if k not in taken]
+
+
 def _run_all(executor, context, workers, sets, todo, finish):
     """Submit the sets to an executor and record each as it completes; cancel the rest on any exit."""
     own = executor is None
@@ -646,6 +667,8 @@ def _run_all(executor, context, workers, sets, todo, finish):
     submit = _submitter(executor, context, own)
     futures = [submit(i, sets[i]) for i in todo]
     try:
+        if own:
+            futures = _while_workers_start(futures, context, sets, todo, finish)
         for future in as_completed(futures):
             finish(*future.result())
     finally:
