@@ -146,17 +146,20 @@ class BeamRun:
             ``status`` {status: count} for every status; ``transmission`` {plane: fraction of the
             rays that crossed it at least once}; ``planes`` {plane: :class:`tracer.stats.PlaneStats`
             fields as a dict, plus ``current_A`` through the plane}; ``landing`` {electrode:
-            :class:`tracer.stats.LandingStats` fields as a dict}; ``ledger_worst_eV``, ``ledger_worst_relative``, ``ledger_threshold``,
-            ``ledger_suspects``; ``warning`` (a one-line warning, or "").
+            :class:`tracer.stats.LandingStats` fields as a dict}; ``ledger_worst_eV``,
+            ``ledger_worst_relative``, ``ledger_threshold``, ``ledger_suspects``; ``warning`` (a
+            one-line warning, or "").
         """
         rec = self.records
         n = len(rec)
         status = {s: int(np.count_nonzero(rec["status"] == s)) for s in STATUS.values()}
         current = float(self.starts["weight_A"].sum())
-        planes = {p: asdict(stats.plane_stats(self.at_plane(p), self.species, n)) for p in self.planes}
-        for p in self.planes:      # the current through each plane (each ray counted once)
-            crossed = np.unique(self.at_plane(p)["ray"])
-            planes[p]["current_A"] = (float(rec["weight_A"][np.isin(rec["ray"], crossed)].sum())
+        planes = {}
+        for p in self.planes:
+            rows = self.at_plane(p)
+            planes[p] = asdict(stats.plane_stats(rows, self.species, n))
+            # the current through the plane: each ray that crossed it counted once
+            planes[p]["current_A"] = (float(rec["weight_A"][np.isin(rec["ray"], rows["ray"])].sum())
                                       if current > 0 else math.nan)
         weights = rec["weight_A"] if current > 0 else np.full(n, math.nan)
         landing = {name: asdict(ls) for name, ls in
@@ -248,6 +251,7 @@ def trace(field, beam, planes=(), rtol=1e-9, max_time_s=1e-4, *, keep_paths=0,
     herm = np.ascontiguousarray(field.hermite, dtype=np.float64)
     geo = tuple(field.table.arrays())
     cell_map = np.ascontiguousarray(field.raster.cell)
+    quiet = motion.quiet_cells(cell_map, grid_vec, plane_z)
     chunk = max(256, -(-n // 20))   # between chunks, progress is shown and Ctrl-C is seen
     parts = []
     for lo in range(0, max(n, 1), chunk):
@@ -258,7 +262,7 @@ def trace(field, beam, planes=(), rtol=1e-9, max_time_s=1e-4, *, keep_paths=0,
                 float(sp.mass_kg), float(sp.charge_C), float(max_time_s), float(rtol),
                 atol_p[lo:hi], max_step_cells * cell, sample_cells * cell, fine_cells * cell,
                 plane_z, plane_stop, int(max_steps), int(max_crossings),
-                paths_buf[lo:min(hi, keep)]))
+                paths_buf[lo:min(hi, keep)], quiet))
         except SystemError as exc:   # numba's parallel kernel hands a Ctrl-C back wrapped
             if by_interrupt(exc):
                 raise KeyboardInterrupt from exc

@@ -66,9 +66,15 @@ def _cache_dir(args):
     return Path(args.cache) if args.cache else default_cache_dir()
 
 
-def _caution(setup, echo) -> None:
-    if max((abs(e.voltage_V) for e in setup.electrodes), default=0.0) > HIGH_VOLTAGE:
+def _caution(voltages, echo) -> None:
+    """The high-voltage caution when any of these voltages exceeds 1 kV."""
+    if max((abs(float(v)) for v in voltages), default=0.0) > HIGH_VOLTAGE:
         echo(CAUTION)
+
+
+def _volts(setup):
+    """The setup's electrode voltages."""
+    return [e.voltage_V for e in setup.electrodes]
 
 
 def cmd_check(args, echo) -> int:
@@ -76,7 +82,7 @@ def cmd_check(args, echo) -> int:
 
     setup = _load(args.config)
     echo(describe(setup))
-    _caution(setup, echo)
+    _caution(_volts(setup), echo)
     return 0
 
 
@@ -91,7 +97,7 @@ def cmd_solve(args, echo) -> int:
         echo(f"  {name:<16s} {len(hist):3d} cycles, relative residual {hist[-1]:.1e}")
     for f in files:
         echo(f"wrote {f}")
-    _caution(setup, echo)
+    _caution(_volts(setup), echo)
     return 0
 
 
@@ -134,7 +140,7 @@ def _run_config(setup, args, out: Path, echo) -> int:
         echo("")
     for f in write_run_outputs(result, out):
         echo(f"wrote {f}")
-    _caution(setup, echo)
+    _caution(_volts(setup), echo)
     return 0
 
 
@@ -203,7 +209,7 @@ def cmd_gun(args, echo) -> int:
         echo(f"warning: {result.warning}")
     out.mkdir(parents=True, exist_ok=True)
     echo(f"wrote {plot_field(result.field, out / 'gun.png', paths=result.paths_zr(), title=setup.title)}")
-    _caution(setup, echo)
+    _caution(_volts(setup), echo)
     return 0
 
 
@@ -227,17 +233,8 @@ def cmd_show(args, echo) -> int:
     out.mkdir(parents=True, exist_ok=True)
     for f in run_figures(result.field, list(result.beams.values()), out, title=result.title):
         echo(f"wrote {f}")
-    if max((abs(v) for v in result.field.voltages), default=0.0) > HIGH_VOLTAGE:
-        echo(CAUTION)
+    _caution(result.field.voltages, echo)
     return 0
-
-
-def _caution_with(setup, volts, echo) -> None:
-    """The caution when any of these voltages (scanned or tuned), or the setup's, exceeds 1 kV."""
-    if max((abs(v) for v in volts), default=0.0) > HIGH_VOLTAGE:
-        echo(CAUTION)
-    else:
-        _caution(setup, echo)
 
 
 def _scan_executor(address):
@@ -295,7 +292,7 @@ def cmd_scan(args, echo) -> int:
             echo(f"  smallest {figure}: {table[figure][k] * 1e3:.4g} mm at {at}")
     for f in result.files + tuple(plot_scan(table, result.names, out, title=setup.title)):
         echo(f"wrote {f}")
-    _caution_with(setup, [float(v) for n in result.names for v in table[f"{n}_V"]], echo)
+    _caution(_volts(setup) + [v for n in result.names for v in table[f"{n}_V"]], echo)
     return 0
 
 
@@ -317,7 +314,7 @@ def cmd_tune(args, echo) -> int:
         echo(f"  {name:<16s} {volts:12.4f} V")
     out.mkdir(parents=True, exist_ok=True)
     echo(f"wrote {plot_tune(result, out / 'tune.png')}")
-    _caution_with(setup, result.voltages.values(), echo)
+    _caution(_volts(setup) + list(result.voltages.values()), echo)
     return 0
 
 
@@ -340,7 +337,7 @@ def cmd_optics(args, echo) -> int:
     out = _out_dir(args)
     out.mkdir(parents=True, exist_ok=True)
     echo(f"wrote {plot_optics(props, out / 'optics.png')}")
-    _caution(setup, echo)
+    _caution(_volts(setup), echo)
     return 0
 
 

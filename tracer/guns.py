@@ -37,7 +37,6 @@ import dataclasses
 import math
 import warnings
 from dataclasses import dataclass
-from pathlib import Path
 
 import numpy as np
 
@@ -45,6 +44,7 @@ from tracer import emission
 from tracer.deposit import charge_density
 from tracer.fieldmap import edge_reflection, hermite_data
 from tracer.geometry import electrode_at
+from tracer.stats import radius
 
 EMIT_CELLS = 2.0
 """Distance d of the ray starts from the cathode surface, in cells."""
@@ -334,8 +334,7 @@ def _trace(field, setup, sites, distance):
 
 def _path_zrt(path, symmetry):
     """(z, r, t) columns of a ray path (r = hypot(x, y) in axial, y in planar)."""
-    r = path["y_m"] if symmetry != "axial" else np.hypot(path["x_m"], path["y_m"])
-    return np.column_stack([path["z_m"], r, path["time_s"]])
+    return np.column_stack([path["z_m"], radius(path, symmetry), path["time_s"]])
 
 
 def _layer_paths(sites, distance, mass_kg, charge_C):

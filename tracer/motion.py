@@ -826,7 +826,7 @@ def quiet_cells(cell, grid, planes):
 
 @njit(cache=True, parallel=True, error_model="numpy")
 def trace_rays(starts, herm, grid, sym, bounds, cell, geo, mass, charge, t_max, rtol, atol_p,
-               max_step, sample, fine, planes, stops, max_steps, max_cross, paths):
+               max_step, sample, fine, planes, stops, max_steps, max_cross, paths, quiet):
     """Trace many rays in parallel (numba prange); see :func:`trace_one` for the layouts.
 
     Parameters
@@ -837,6 +837,8 @@ def trace_rays(starts, herm, grid, sym, bounds, cell, geo, mass, charge, t_max, 
         Absolute momentum tolerance of each ray.
     paths : float64[k, m, 9]
         Path buffers of the first k rays (k may be 0).
+    quiet : bool[nz - 1, nr - 1]
+        :func:`quiet_cells` of the cell map and planes.
 
     Returns
     -------
@@ -850,7 +852,6 @@ def trace_rays(starts, herm, grid, sym, bounds, cell, geo, mass, charge, t_max, 
     cross_plane = np.full((n, max_cross), -1, dtype=np.int64)
     cross_state = np.zeros((n, max_cross, 9))
     empty = np.zeros((0, 9))
-    quiet = quiet_cells(cell, grid, planes)
     for r in prange(n):
         path = paths[r] if r < paths.shape[0] else empty
         out = trace_one(starts[r], herm, grid, sym, bounds, cell, geo, mass, charge, t_max, rtol,

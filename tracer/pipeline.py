@@ -1,4 +1,4 @@
-"""The steps from a setup to results: ``tracer.solver`` and ``tracer.run``.
+"""The steps from a setup to results: ``tracer.solve`` and ``tracer.run``.
 
 Each step is a function of the previous step's output (DESIGN §2); the command line and the
 Python API call the same functions.

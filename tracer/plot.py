@@ -14,6 +14,8 @@ matplotlib.use("Agg")
 import matplotlib.pyplot as plt  # noqa: E402
 import numpy as np  # noqa: E402
 
+from tracer.stats import radius  # noqa: E402
+
 MM = 1e3
 
 
@@ -102,8 +104,7 @@ def plot_field(field, path, paths=(), title: str | None = None, levels: int = 24
 
 def _path_zr(path, symmetry):
     """(z, r) points of a ray path record array (r = hypot(x, y) in axial, y in planar)."""
-    r = path["y_m"] if symmetry == "planar" else np.hypot(path["x_m"], path["y_m"])
-    return np.column_stack([path["z_m"], r])
+    return np.column_stack([path["z_m"], radius(path, symmetry)])
 
 
 def plot_landing_energy(runs, path) -> Path | None:

@@ -17,17 +17,18 @@ def describe(setup) -> str:
     str
         Several lines of text, ready to print.
     """
+    from tracer.grid import Grid
+
     d = setup.domain
-    cells_z = round((d.z_m[1] - d.z_m[0]) / d.cell_m)
-    cells_r = round((d.r_m[1] - d.r_m[0]) / d.cell_m)
+    g = Grid.from_domain(d)
     side = "r" if d.symmetry == "axial" else "y"
     lines = [
         setup.title or "(untitled setup)",
         f"domain: {d.symmetry}, z {d.z_m[0] * 1e3:g}..{d.z_m[1] * 1e3:g} mm, "
         f"{side} {d.r_m[0] * 1e3:g}..{d.r_m[1] * 1e3:g} mm, cell {d.cell_m * 1e3:g} mm "
-        f"({cells_z + 1} x {cells_r + 1} = {(cells_z + 1) * (cells_r + 1):,} nodes)",
+        f"({g.nz} x {g.nr} = {g.nz * g.nr:,} nodes)",
         "edges: " + ", ".join(f"{s} {k}" for s, k in
-                              zip((f"z_min", "z_max", f"{side}_min", f"{side}_max"), d.edges)),
+                              zip(("z_min", "z_max", f"{side}_min", f"{side}_max"), d.edges)),
         f"electrodes ({len(setup.electrodes)}):",
     ]
     for e in setup.electrodes:

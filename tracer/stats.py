@@ -47,6 +47,11 @@ def _extreme(a, fn):
     return float(fn(a)) if len(a) else math.nan
 
 
+def radius(rows, symmetry="axial"):
+    """The transverse coordinate of the map: r = hypot(x, y) in axial symmetry, y in planar."""
+    return rows["y_m"] if symmetry == "planar" else np.hypot(rows["x_m"], rows["y_m"])
+
+
 def rms_emittance(u, slope):
     """Statistical rms emittance sqrt(<du^2><du'^2> - <du du'>^2).
 
@@ -232,7 +237,7 @@ def landing_stats(records, electrode, weight_A=None, symmetry="axial"):
         weight_A = records["weight_A"]
     hit = (records["status"] == "landed") & (records["electrode"] == electrode)
     rows = records[hit]
-    radius = rows["y_m"] if symmetry == "planar" else np.hypot(rows["x_m"], rows["y_m"])
+    r = radius(rows, symmetry)
     energy = rows["energy_eV"]
     return LandingStats(
         electrode=electrode,
@@ -243,8 +248,8 @@ def landing_stats(records, electrode, weight_A=None, symmetry="axial"):
         energy_std_eV=_std(energy),
         energy_min_eV=_extreme(energy, np.min),
         energy_max_eV=_extreme(energy, np.max),
-        radius_min_m=_extreme(radius, np.min),
-        radius_max_m=_extreme(radius, np.max),
+        radius_min_m=_extreme(r, np.min),
+        radius_max_m=_extreme(r, np.max),
     )
 
 
