@@ -11,7 +11,7 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from tracer.config import Arc, ConfigError, Domain, Electrode, Polygon, Rect
-from tracer.geometry import SNAP, electrode_at, first_hit, rasterize, shape_table
+from tracer.geometry import SNAP, Raster, electrode_at, first_hit, index_dtype, rasterize, shape_table
 from tracer.grid import Grid, locate
 
 AXIAL = Domain("axial", (0.0, 0.04), (0.0, 0.02), 1e-3, ("ground", "ground", "axis", "ground"))
@@ -380,3 +380,20 @@ def test_touching_or_equal_voltage_shapes_are_accepted():
     tri_a = Polygon(((0.01, 0.0), (0.02, 0.0), (0.02, 0.01)))
     tri_b = Polygon(((0.01, 0.0), (0.02, 0.01), (0.01, 0.01)))
     _table([tri_a], [tri_b], voltages=[5.0, 0.0])  # share the diagonal
+
+
+def test_raster_integers_are_stored_compactly():
+    """The Raster keeps its electrode indices in the smallest signed dtype that holds them, and an
+    int64 Raster (as older map files hold) becomes the same compact Raster."""
+    table = _table([Rect((0.01, 0.02), (0.0, 0.005))], [Arc(0.03, (0.0, 0.004), (0.0, math.pi))])
+    grid = Grid.from_domain(AXIAL)
+    raster = rasterize(table, grid)
+    for a in (raster.owner, raster.arm_owner, raster.cell):
+        assert a.dtype == np.int8
+    assert raster.arm.dtype == np.float64
+    wide = Raster(owner=raster.owner.astype(np.int64), arm=raster.arm, arm_owner=raster.arm_owner.astype(np.int64),
+                  cell=raster.cell.astype(np.int64))
+    for name in ("owner", "arm_owner", "cell"):
+        assert getattr(wide, name).dtype == np.int8
+        np.testing.assert_array_equal(getattr(wide, name), getattr(raster, name))
+    assert index_dtype(127) == np.int8 and index_dtype(128) == np.int16 and index_dtype(40_000) == np.int32

@@ -5,6 +5,7 @@ Each physics check names its source.  Grids stay below ~1e5 nodes.
 
 import math
 
+import numba
 import numpy as np
 import pytest
 import scipy.sparse.linalg as spla
@@ -17,7 +18,9 @@ from tracer.geometry import Raster, rasterize
 from tracer.grid import Grid
 from tracer.solver import SolveError, assemble, solve_poisson, solve_unit_maps
 from tracer.solver.relax import add_fixed, boundary_rhs, residual
-from tracer.solver.stencil import AXIS, GROUND, OPEN, coefficients, operator
+from tracer.solver import passes
+from tracer.solver.stencil import AXIS, FIXED, GROUND, OPEN, coefficients, operator
+from tracer.solver.transfer import axis_transfer
 
 MM = 1e-3
 
@@ -105,6 +108,78 @@ def test_kernels_and_sparse_matrix_are_one_operator():
     b = boundary_rhs(op, geometry, [2.0])
     assert b[4, 4] == pytest.approx(2.0 * 2.0 / (0.4e-3 * 1.4e-3))  # c_+z * V at the cut arm
     assert np.count_nonzero(b) == 12
+
+
+def _transfer_matrix(t, n_coarse):
+    """Dense 1-D interpolation (n_fine x n_coarse) of a transfer.Axis1D."""
+    p = np.zeros((t.lo.size, n_coarse))
+    p[np.arange(t.lo.size), t.lo] += 1.0 - t.w
+    p[np.arange(t.lo.size), t.lo + 1] += t.w
+    return p
+
+
+def test_fused_passes_equal_the_operations_one_by_one():
+    """A fused pass (correction, red–black sweeps, residual and restriction in one wavefront over
+    the rows) against the same steps done one at a time with the assembled CSR matrix A = D - N:
+    a half-sweep is u_c += (b - A u)_c / d_c on the nodes of one colour (they do not couple), the
+    prolongation is P_z U P_r^T and the restriction R_z res R_r^T with R the row-normalized P^T
+    (common practice for multigrid transfers)."""
+    grid, table = _lens(0.5 * MM)
+    coarse = grid.coarsen()
+    fine_op = operator(grid, rasterize(table, grid))[0]
+    coarse_index = operator(coarse, rasterize(table, coarse))[0][0]
+    system = assemble(grid, rasterize(table, grid))
+    matrix, free = system.matrix, system.free
+    d = matrix.diagonal()
+    tz, tr = axis_transfer(grid.nz, coarse.nz), axis_transfer(grid.nr, coarse.nr)
+    pz, pr = _transfer_matrix(tz, coarse.nz), _transfer_matrix(tr, coarse.nr)
+    rz, rr = pz.T / pz.sum(axis=0)[:, None], pr.T / pr.sum(axis=0)[:, None]
+    rng = np.random.default_rng(7)
+    u = np.where(free, rng.normal(size=grid.shape), 0.0)
+    b = np.where(free, rng.normal(size=grid.shape), 0.0)
+    cu = rng.normal(size=coarse.shape)
+    colour = np.add.outer(np.arange(grid.nz), np.arange(grid.nr)) % 2
+
+    expected = u + np.where(free, pz @ cu @ pr.T, 0.0)
+    for _ in range(2):
+        for c in (0, 1):
+            x = system.gather(expected)
+            res = system.gather(b) - matrix @ x
+            x = x + np.where(system.gather(colour) == c, res / d, 0.0)
+            expected = system.scatter(x)
+    res = system.scatter(system.gather(b) - matrix @ system.gather(expected))
+    restricted = np.where(coarse_index != FIXED, rz @ res @ rr.T, 0.0)
+
+    fused = u.copy()
+    empty = np.zeros((0, 0))
+    norm = passes.fused_pass(2, fused, b, *fine_op, True, passes.NORM, cu, empty, np.zeros((0, 0), np.int32),
+                             *tz.arrays(), *tr.arrays())
+    np.testing.assert_allclose(fused, expected, rtol=0, atol=1e-12 * np.abs(expected).max())
+    assert norm == pytest.approx(np.linalg.norm(system.gather(res) / d), rel=1e-9)
+
+    got = np.full(coarse.shape, np.nan)
+    again = expected.copy()
+    passes.fused_pass(0, again, b, *fine_op, False, passes.RESTRICT, empty, got, coarse_index,
+                      *tz.arrays(), *tr.arrays())
+    np.testing.assert_array_equal(again, expected)  # no sweeps: u is left alone
+    np.testing.assert_allclose(got, restricted, rtol=0, atol=1e-12 * np.abs(restricted).max())
+
+
+def test_unit_maps_do_not_depend_on_the_thread_count():
+    """The unit maps are solved on parallel threads, each map on its own work arrays: one thread
+    and two give the same maps to the last bit, and the same residual histories."""
+    grid, table = _lens(0.25 * MM)
+    threads = numba.get_num_threads()
+    try:
+        numba.set_num_threads(1)
+        one = solve_unit_maps(grid, table)
+        numba.set_num_threads(min(2, numba.config.NUMBA_NUM_THREADS))
+        two = solve_unit_maps(grid, table)
+    finally:
+        numba.set_num_threads(threads)
+    np.testing.assert_array_equal(one.unit, two.unit)
+    for a, b in zip(one.history, two.history):
+        np.testing.assert_array_equal(a, b)
 
 
 # ---------------------------------------------------------------------------- analytic potentials

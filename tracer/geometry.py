@@ -84,31 +84,50 @@ class ShapeTable:
         return self.kind, self.owner, self.start, self.count, self.points, self.sector, self.bbox
 
 
+def index_dtype(n):
+    """The smallest signed integer dtype that holds electrode indices -2 .. n - 1."""
+    for dtype in (np.int8, np.int16, np.int32):
+        if n <= np.iinfo(dtype).max:
+            return np.dtype(dtype)
+    return np.dtype(np.int64)
+
+
 @dataclass(frozen=True, eq=False)
 class Raster:
     """The geometry on a node grid.
 
     Attributes
     ----------
-    owner : int64[nz, nr]
+    owner : int[nz, nr]
         -1 for a free node; k for a node inside (or on, or within ``SNAP`` of) electrode k.
     arm : float64[nz, nr, 4]
         For free nodes, the distance to the first conductor surface in directions
         (+z, -z, +r, -r) as a fraction of hz or hr; 1.0 when the neighbour node is reached first.
         Conductor nodes and arms leaving the grid carry 1.0.  On the axis or mirror row the -r arm
         is the mirror image of the +r arm.
-    arm_owner : int64[nz, nr, 4]
+    arm_owner : int[nz, nr, 4]
         Electrode met on that arm: the surface's electrode when ``arm < 1``, the neighbour node's
         owner when the arm ends on a conductor node, -1 when it ends on a free node (or leaves the grid).
-    cell : int64[nz - 1, nr - 1]
+    cell : int[nz - 1, nr - 1]
         Cell ``[iz, ir]`` spans nodes ``iz..iz+1`` and ``ir..ir+1``: -1 no surface touches it,
         -2 a surface passes through or near it (or a shape lies inside it), k wholly inside electrode k.
+
+    The integer arrays are stored in the smallest signed dtype that holds their electrode indices
+    (``index_dtype``, int8 for up to 127 electrodes), whatever dtype they are given in.
     """
 
     owner: np.ndarray
     arm: np.ndarray
     arm_owner: np.ndarray
     cell: np.ndarray
+
+    def __post_init__(self):
+        labels = ("owner", "arm_owner", "cell")
+        top = max(int(np.max(getattr(self, name), initial=-1)) for name in labels)
+        dtype = index_dtype(top + 1)
+        for name in labels:
+            object.__setattr__(self, name, np.ascontiguousarray(getattr(self, name), dtype=dtype))
+        object.__setattr__(self, "arm", np.ascontiguousarray(self.arm, dtype=np.float64))
 
 
 # ----------------------------------------------------------------------------------------------
@@ -655,21 +674,22 @@ def _arms(node, touched, kind, owner, start, count, points, sector, bbox, geo, m
 
 
 @njit(cache=True, error_model="numpy")
-def _rasterize(kind, owner, start, count, points, sector, bbox, z0, r0, hz, hr, nz, nr, mirror):
+def _rasterize(kind, owner, start, count, points, sector, bbox, z0, r0, hz, hr, mirror, node, arm, arm_owner, cell):
+    """Fill the Raster arrays ``node`` (-1), ``arm`` (1.0), ``arm_owner`` (-1) and ``cell`` (-1),
+    given with those values."""
+    nz, nr = node.shape
     step = 0.25 * min(hz, hr)
     geo = np.array([z0, r0, hz, hr, 0.5 * step + 1e-3 * hz, 0.5 * step + 1e-3 * hr, 1.0 if mirror else 0.0])
-    node = np.full((nz, nr), -1, dtype=np.int64)
-    inside = np.full((nz - 1, nr - 1), -1, dtype=np.int64)
-    stamp = np.full((nz - 1, nr - 1), -1, dtype=np.int64)
+    stamp = np.full((nz - 1, nr - 1), -1, dtype=np.int32)
     touched = np.zeros((nz - 1, nr - 1), dtype=np.bool_)
     for j in range(kind.size):
         _mark_boundary(j, kind, start, count, points, sector, step, geo, stamp, touched)
-        _fill_shape(j, kind, owner, start, count, points, sector, bbox, geo, stamp, inside, node)
-    arm = np.ones((nz, nr, 4))
-    arm_owner = np.full((nz, nr, 4), -1, dtype=np.int64)
+        _fill_shape(j, kind, owner, start, count, points, sector, bbox, geo, stamp, cell, node)
     _arms(node, touched, kind, owner, start, count, points, sector, bbox, geo, mirror, arm, arm_owner)
-    cell = np.where(inside >= 0, inside, np.where(touched, -2, -1))
-    return node, arm, arm_owner, cell
+    for iz in range(nz - 1):  # cells not wholly inside an electrode: touched (-2) or free (-1)
+        for ir in range(nr - 1):
+            if cell[iz, ir] < 0 and touched[iz, ir]:
+                cell[iz, ir] = -2
 
 
 def rasterize(table, grid):
@@ -684,7 +704,11 @@ def rasterize(table, grid):
     -------
     Raster
     """
-    node, arm, arm_owner, cell = _rasterize(
-        *table.arrays(), grid.z0, grid.r0, grid.hz, grid.hr, grid.nz, grid.nr, grid.mirror
-    )
+    dtype = index_dtype(len(table.names))
+    nz, nr = grid.nz, grid.nr
+    node = np.full((nz, nr), -1, dtype=dtype)
+    arm = np.ones((nz, nr, 4))
+    arm_owner = np.full((nz, nr, 4), -1, dtype=dtype)
+    cell = np.full((nz - 1, nr - 1), -1, dtype=dtype)
+    _rasterize(*table.arrays(), grid.z0, grid.r0, grid.hz, grid.hr, grid.mirror, node, arm, arm_owner, cell)
     return Raster(owner=node, arm=arm, arm_owner=arm_owner, cell=cell)

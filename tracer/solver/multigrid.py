@@ -3,22 +3,31 @@
 Each coarser level is ``Grid.coarsen()`` of the one above, with the geometry rasterized again on it,
 so every level carries its own Shortley–Weller operator.  Smoothing is red–black Gauss–Seidel,
 transfer is bilinear interpolation and its normalized transpose, and the coarsest level is solved
-directly with a sparse LU factorization.
+directly with a sparse LU factorization.  The work on a level runs in two fused passes
+(``passes.fused_pass``): smoothing, residual and restriction; then the correction, smoothing and
+(on the finest level) the residual norm for the convergence test.
 """
 
+import threading
 from dataclasses import dataclass
 
 import numpy as np
 import scipy.sparse.linalg as spla
 
-from . import relax
+from . import passes, relax
 from .assemble import system_matrix
-from .stencil import FIXED, operator, surface_band
-from .transfer import axis_transfer, prolong_add, restrict
+from .stencil import operator
+from .transfer import axis_transfer
 
-COARSEST_NODES = 2500
+COARSEST_NODES = 10_000
+"""Coarsening stops at the first level with at most this many nodes.  Far coarser levels no
+longer resolve thin electrodes, and the cycles converge more slowly (about 0.2 instead of 0.1 per
+cycle on the three-tube lens of the solver benchmark with a 82 x 14 coarsest grid)."""
 MIN_CELLS = 4
-BAND_WIDTH = 2  # nodes around conductors that get extra Gauss–Seidel passes
+
+_NONE = np.zeros((0, 0))
+_NO_INDEX = np.zeros((0, 0), dtype=np.int32)
+_NO_TRANSFER = (np.zeros(0, dtype=np.int64), np.zeros(0), np.zeros(0), np.zeros(0))
 
 
 class SolveError(RuntimeError):
@@ -27,7 +36,7 @@ class SolveError(RuntimeError):
 
 @dataclass(frozen=True)
 class Level:
-    """One grid level: its stencil data (see ``relax``), surface band and work arrays.
+    """One grid level: its stencil data.
 
     Attributes
     ----------
@@ -41,41 +50,36 @@ class Level:
     grid: object
     op: tuple
     geometry: tuple
-    free: np.ndarray
-    band: np.ndarray
-    res: np.ndarray
-    u: np.ndarray
-    b: np.ndarray
 
 
 def _level(grid, raster, coarse):
     op, geometry = operator(grid, raster)
-    index = op[0]
-    shape = (grid.nz, grid.nr)
-    res = np.zeros(shape)
-    u = np.zeros(shape) if coarse else res[:0]  # the fine level works on the caller's arrays
-    b = np.zeros(shape) if coarse else res[:0]
-    band = surface_band(index, raster.owner, raster.arm, raster.arm_owner, BAND_WIDTH)
-    free = index != FIXED
     # coarse levels need only their operator: drop their Raster arrays
-    return Level(grid=grid, op=op, geometry=None if coarse else geometry, free=free, band=band, res=res, u=u, b=b)
+    return Level(grid=grid, op=op, geometry=None if coarse else geometry)
 
 
 @dataclass(frozen=True)
 class Hierarchy:
-    """The levels from fine to coarse, the transfers between them and the coarsest factorization."""
+    """The levels from fine to coarse, the transfers between them and the coarsest factorization.
+
+    A hierarchy is read-only while solving; each solve brings its own ``workspace()``, so several
+    threads may solve on one hierarchy at once.
+    """
 
     levels: tuple
     transfers: tuple  # (z Axis1D, r Axis1D) from level l + 1 to level l
-    halves: tuple  # work arrays (fine nz, coarse nr) of the restriction from level l to l + 1
     coarse_lu: object
     coarse_free: np.ndarray
+    coarse_lock: object  # serializes the sparse LU solves on the coarsest level
     pre: int
     post: int
-    band: int
+
+    def workspace(self):
+        """Work arrays of one solve: ``(u, b)`` of every level below the finest."""
+        return tuple((np.zeros(lv.grid.shape), np.zeros(lv.grid.shape)) for lv in self.levels[1:])
 
 
-def build_hierarchy(grid, raster, rasterize_level, *, pre=2, post=2, band=1):
+def build_hierarchy(grid, raster, rasterize_level, *, pre=2, post=2):
     """Build the multigrid levels below a fine grid.
 
     Parameters
@@ -88,9 +92,6 @@ def build_hierarchy(grid, raster, rasterize_level, *, pre=2, post=2, band=1):
         ``rasterize_level(coarse_grid) -> Raster`` for the coarser levels.
     pre, post : int
         Red–black Gauss–Seidel sweeps before and after the coarse-grid correction.
-    band : int
-        Extra symmetric Gauss–Seidel passes over the nodes near conductors, before the restriction
-        and after the correction.
     """
     levels = [_level(grid, raster, coarse=False)]
     transfers = []
@@ -109,44 +110,62 @@ def build_hierarchy(grid, raster, rasterize_level, *, pre=2, post=2, band=1):
     return Hierarchy(
         levels=tuple(levels),
         transfers=tuple(transfers),
-        halves=tuple(np.zeros((lv.grid.nz, co.grid.nr)) for lv, co in zip(levels, levels[1:])),
         coarse_lu=lu,
         coarse_free=system.free,
+        coarse_lock=threading.Lock(),
         pre=pre,
         post=post,
-        band=band,
     )
 
 
 def _coarsest(h, u, b):
     u[...] = 0.0
     if h.coarse_lu is not None:
-        u[h.coarse_free] = h.coarse_lu.solve(b[h.coarse_free])
+        with h.coarse_lock:
+            u[h.coarse_free] = h.coarse_lu.solve(b[h.coarse_free])
 
 
-def vcycle(h, u, b, level=0):
-    """One V-cycle on ``A u = b`` at ``level``, updating ``u`` in place."""
+def residual_norm(h, u, b):
+    """The 2-norm of ``D^-1 (b - A u)`` on the fine level (D the diagonal of A)."""
+    return passes.fused_pass(0, u, b, *h.levels[0].op, False, passes.NORM, _NONE, _NONE, _NO_INDEX,
+                             *_NO_TRANSFER, *_NO_TRANSFER)
+
+
+def vcycle(h, work, u, b, level=0):
+    """One V-cycle on ``A u = b`` at ``level``, updating ``u`` in place.
+
+    Parameters
+    ----------
+    h : Hierarchy
+    work : tuple
+        ``h.workspace()``.
+    u, b : float64[nz, nr]
+        The unknown and right-hand side on ``level``.
+
+    Returns
+    -------
+    float
+        The 2-norm of ``D^-1 (b - A u)`` after the cycle on the finest level (level 0), else 0.0.
+    """
     lv = h.levels[level]
     if level == len(h.levels) - 1:
         _coarsest(h, u, b)
-        return
-    relax.smooth(h.pre, u, b, *lv.op)
-    relax.band_sweeps(h.band, lv.band, u, b, *lv.op)
-    relax.residual(u, b, lv.res, *lv.op)
+        return residual_norm(h, u, b) if level == 0 else 0.0
     co = h.levels[level + 1]
-    tz, tr = h.transfers[level]
-    restrict(lv.res, h.halves[level], co.b, co.free, tz.ptr, tz.idx, tz.weight, tr.ptr, tr.idx, tr.weight)
-    co.u[...] = 0.0
-    vcycle(h, co.u, co.b, level + 1)
-    prolong_add(co.u, u, lv.free, tz.lo, tz.w, tr.lo, tr.w)
-    relax.band_sweeps(h.band, lv.band, u, b, *lv.op)
-    relax.smooth(h.post, u, b, *lv.op)
+    cu, cb = work[level]
+    tz, tr = (t.arrays() for t in h.transfers[level])
+    passes.fused_pass(h.pre, u, b, *lv.op, False, passes.RESTRICT, _NONE, cb, co.op[0], *tz, *tr)
+    cu[...] = 0.0
+    vcycle(h, work, cu, cb, level + 1)
+    mode = passes.NORM if level == 0 else passes.NO_RESIDUAL
+    return passes.fused_pass(h.post, u, b, *lv.op, True, mode, cu, _NONE, _NO_INDEX, *tz, *tr)
 
 
-def iterate(h, u, b, *, rtol=1e-10, max_cycles=60):
+def iterate(h, u, b, *, rtol=1e-10, max_cycles=60, work=None):
     """V-cycles from the guess ``u`` until ``|D^-1 (b - A u)| <= rtol |D^-1 b|``.
 
-    D is the diagonal of A (see ``relax.residual``).
+    D is the diagonal of A (see ``relax.residual``).  ``work`` is ``h.workspace()`` (made here
+    if not given).
 
     Returns
     -------
@@ -164,15 +183,15 @@ def iterate(h, u, b, *, rtol=1e-10, max_cycles=60):
     if bnorm == 0.0:
         u[...] = 0.0
         return np.zeros(1)
-    history = [relax.residual(u, b, lv.res, *lv.op) / bnorm if u.any() else 1.0]
+    work = h.workspace() if work is None else work
+    history = [residual_norm(h, u, b) / bnorm if u.any() else 1.0]
     while history[-1] > rtol:
         if len(history) > max_cycles:
             raise SolveError(
                 f"no convergence in {max_cycles} multigrid cycles: relative residual "
                 f"{history[-1]:.3e} > {rtol:.1e}"
             )
-        vcycle(h, u, b)
-        rel = relax.residual(u, b, lv.res, *lv.op) / bnorm
+        rel = vcycle(h, work, u, b) / bnorm
         history.append(rel)
         if not np.isfinite(rel) or rel > 1e3 * history[0]:
             raise SolveError(f"multigrid diverged: relative residual {rel:.3e} after {len(history) - 1} cycles")

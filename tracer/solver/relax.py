@@ -1,4 +1,4 @@
-"""Grid kernels for the stencil of ``stencil.py``: right-hand side, residual, Gauss–Seidel.
+"""Grid kernels for the stencil of ``stencil.py``: right-hand side, residual, Gauss–Seidel rows.
 
 The operator kernels take ``op = (index, table, cuts)``: the node index (FIXED, REGULAR or a CUT
 node's row), the regular-node table by radial index and the cut table, all from ``stencil.py``.
@@ -6,13 +6,9 @@ The unknown ``u`` is the homogeneous part of the solution (zero on fixed nodes).
 """
 
 import numpy as np
-from numba import njit, prange
+from numba import njit
 
 from .stencil import FIXED, REGULAR, arm_coefficients, end_owner
-
-PARALLEL_NODES = 200_000
-"""Levels with at least this many nodes run their sweeps and residuals on all numba threads."""
-
 
 @njit(cache=True, inline="always")
 def _value(owner, values):
@@ -20,7 +16,7 @@ def _value(owner, values):
     return values[owner] if owner >= 0 else 0.0
 
 
-@njit(cache=True, parallel=True)
+@njit(cache=True, nogil=True)
 def add_boundary(b, values, index, table, owner, arm, arm_owner, geo, edges):
     """Turn a source array into the right-hand side: ``b += sum_k c_k V_k``, zero on fixed nodes.
 
@@ -36,7 +32,7 @@ def add_boundary(b, values, index, table, owner, arm, arm_owner, geo, edges):
         The Raster arrays and ``stencil_params`` of the level.
     """
     nz, nr = owner.shape
-    for iz in prange(nz):
+    for iz in range(nz):
         for ir in range(nr):
             j = index[iz, ir]
             if j == FIXED:
@@ -81,114 +77,77 @@ def boundary_rhs(op, geometry, values, source=None):
 
 @njit(cache=True, inline="always")
 def _node(iz, ir, u, index, table, cuts):
-    """(d, sum_k c_k u_k) of a free node, the sum over the arms that end on nodes."""
+    """(d, 1 / d, sum_k c_k u_k) of a free node, the sum over the arms that end on nodes."""
     j = index[iz, ir]
     if j == REGULAR:
         s = table[0, ir] * (u[iz + 1, ir] + u[iz - 1, ir])
-        return table[3, ir], s + table[1, ir] * u[iz, ir + 1] + table[2, ir] * u[iz, ir - 1]
+        return table[3, ir], table[4, ir], s + table[1, ir] * u[iz, ir + 1] + table[2, ir] * u[iz, ir - 1]
     nz, nr = u.shape
     # a zero coefficient marks an arm without a neighbour node; clamping keeps the index in range
     s = cuts[j, 0] * u[min(iz + 1, nz - 1), ir] + cuts[j, 1] * u[max(iz - 1, 0), ir]
     s += cuts[j, 2] * u[iz, min(ir + 1, nr - 1)] + cuts[j, 3] * u[iz, max(ir - 1, 0)]
-    return cuts[j, 4], s
+    return cuts[j, 4], cuts[j, 5], s
 
 
-@njit(cache=True, inline="always")
-def _residual_row(iz, u, b, out, index, table, cuts):
+@njit(cache=True, nogil=True, error_model="numpy")
+def residual_row(iz, u, b, out, index, table, cuts):
+    """Write row ``iz`` of ``b - A u`` into ``out`` (zero on fixed nodes); return its sum of
+    ``(res / d)^2``."""
     total = 0.0
     for ir in range(u.shape[1]):
         if index[iz, ir] == FIXED:
-            out[iz, ir] = 0.0
+            out[ir] = 0.0
             continue
-        d, s = _node(iz, ir, u, index, table, cuts)
+        d, inv, s = _node(iz, ir, u, index, table, cuts)
         res = b[iz, ir] - d * u[iz, ir] + s
-        out[iz, ir] = res
-        total += (res / d) ** 2
+        out[ir] = res
+        total += (res * inv) ** 2
     return total
 
 
-@njit(cache=True, parallel=True)
+@njit(cache=True, nogil=True)
 def residual(u, b, out, index, table, cuts):
     """Write ``out = b - A u`` (zero on fixed nodes) and return the 2-norm of ``D^-1 out``.
 
     The diagonal scaling makes the norm a sum of node values (volts), so nodes with very short
     arms, whose rows carry very large coefficients, do not dominate it.
     """
-    nz = u.shape[0]
     total = 0.0
-    if u.size >= PARALLEL_NODES:
-        for iz in prange(nz):
-            total += _residual_row(iz, u, b, out, index, table, cuts)
-    else:
-        for iz in range(nz):
-            total += _residual_row(iz, u, b, out, index, table, cuts)
+    for iz in range(u.shape[0]):
+        total += residual_row(iz, u, b, out[iz], index, table, cuts)
     return np.sqrt(total)
 
 
-@njit(cache=True, parallel=True)
+@njit(cache=True, nogil=True)
 def scaled_norm(b, index, table, cuts):
     """The 2-norm of ``D^-1 b`` over the free nodes (the scale of ``residual``)."""
     nz, nr = b.shape
     total = 0.0
-    for iz in prange(nz):
+    for iz in range(nz):
         for ir in range(nr):
             j = index[iz, ir]
             if j == FIXED:
                 continue
-            d = table[3, ir] if j == REGULAR else cuts[j, 4]
-            total += (b[iz, ir] / d) ** 2
+            inv = table[4, ir] if j == REGULAR else cuts[j, 5]
+            total += (b[iz, ir] * inv) ** 2
     return np.sqrt(total)
 
 
-@njit(cache=True, inline="always")
-def _sweep_row(iz, colour, u, b, index, table, cuts):
+@njit(cache=True, nogil=True, error_model="numpy")
+def sweep_row(iz, colour, u, b, index, table, cuts):
+    """Gauss–Seidel update of the nodes of one colour (``(iz + ir) % 2 == colour``) in row ``iz``."""
     for ir in range((iz + colour) % 2, u.shape[1], 2):
         if index[iz, ir] == FIXED:
             continue
-        d, s = _node(iz, ir, u, index, table, cuts)
-        u[iz, ir] = (b[iz, ir] + s) / d
+        _, inv, s = _node(iz, ir, u, index, table, cuts)
+        u[iz, ir] = (b[iz, ir] + s) * inv
 
 
-@njit(cache=True, parallel=True)
-def _half_sweep(colour, u, b, index, table, cuts):
-    if u.size >= PARALLEL_NODES:
-        for iz in prange(u.shape[0]):
-            _sweep_row(iz, colour, u, b, index, table, cuts)
-    else:
-        for iz in range(u.shape[0]):
-            _sweep_row(iz, colour, u, b, index, table, cuts)
-
-
-@njit(cache=True)
-def smooth(sweeps, u, b, index, table, cuts):
-    """Red–black Gauss–Seidel sweeps on ``A u = b`` in place (red: iz + ir even)."""
-    for _ in range(sweeps):
-        _half_sweep(0, u, b, index, table, cuts)
-        _half_sweep(1, u, b, index, table, cuts)
-
-
-@njit(cache=True)
-def band_sweeps(passes, band, u, b, index, table, cuts):
-    """Symmetric Gauss–Seidel passes (forward, then backward) over the nodes ``band[:, (iz, ir)]``.
-
-    Used on the free nodes near electrode surfaces, where the error left by the coarse-grid
-    correction concentrates (around conductor corners and curved faces between nodes).
-    """
-    n = band.shape[0]
-    for _ in range(passes):
-        for q in range(2 * n):
-            p = q if q < n else 2 * n - 1 - q
-            iz = band[p, 0]
-            ir = band[p, 1]
-            d, s = _node(iz, ir, u, index, table, cuts)
-            u[iz, ir] = (b[iz, ir] + s) / d
-
-
-@njit(cache=True, parallel=True)
+@njit(cache=True, nogil=True)
 def add_fixed(u, values, owner):
     """Add the electrode voltages on the electrode nodes: ``u += values[owner]`` where owner >= 0."""
     nz, nr = owner.shape
-    for iz in prange(nz):
+    for iz in range(nz):
         for ir in range(nr):
             if owner[iz, ir] >= 0:
                 u[iz, ir] += values[owner[iz, ir]]

@@ -26,7 +26,6 @@ so the sweeps never read the Raster's arm arrays.
 
 import numpy as np
 from numba import njit
-from scipy import ndimage
 
 GROUND = 0
 OPEN = 1
@@ -196,10 +195,10 @@ def node_index(owner, arm, arm_owner, edges):
 
 @njit(cache=True)
 def cut_table(index, owner, arm, arm_owner, geo, edges):
-    """Rows (c_+z, c_-z, c_+r, c_-r, d) of the CUT nodes: the coefficients of the neighbour nodes
-    (0 for arms that end on a surface or are folded away) and the diagonal d = sum of all arms."""
+    """Rows (c_+z, c_-z, c_+r, c_-r, d, 1 / d) of the CUT nodes: the coefficients of the neighbour
+    nodes (0 for arms that end on a surface or are folded away) and the diagonal d = sum of all arms."""
     nz, nr = owner.shape
-    out = np.zeros((max(index.max() + 1, 0), 5))
+    out = np.zeros((max(index.max() + 1, 0), 6))
     for iz in range(nz):
         for ir in range(nr):
             j = index[iz, ir]
@@ -210,28 +209,22 @@ def cut_table(index, owner, arm, arm_owner, geo, edges):
                 if not on_surface(arm, arm_owner, iz, ir, k):
                     out[j, k] = c[k]
             out[j, 4] = c[0] + c[1] + c[2] + c[3]
+            out[j, 5] = 1.0 / out[j, 4]
     return out
 
 
 @njit(cache=True)
 def regular_table(nr, geo, edges):
-    """Coefficients of REGULAR nodes by radial index: rows (c_z, c_+r, c_-r, diagonal)."""
-    tab = np.zeros((4, nr))
+    """Coefficients of REGULAR nodes by radial index: rows (c_z, c_+r, c_-r, diagonal, 1 / diagonal)."""
+    tab = np.zeros((5, nr))
     for ir in range(1, nr - 1):
         ce, cw, cn, cs = coefficients(1, ir, 3, nr, 1.0, 1.0, 1.0, 1.0, geo, edges)
         tab[0, ir] = ce
         tab[1, ir] = cn
         tab[2, ir] = cs
         tab[3, ir] = ce + cw + cn + cs
+        tab[4, ir] = 1.0 / tab[3, ir]
     return tab
-
-
-def surface_band(index, owner, arm, arm_owner, width):
-    """Free nodes within ``width`` nodes (along z and r) of a conductor, as int64[n, 2] (iz, ir)."""
-    seed = (owner >= 0) | ((arm < 1.0) & (arm_owner >= 0)).any(axis=2)
-    square = np.ones((2 * width + 1, 2 * width + 1), dtype=bool)
-    near = ndimage.binary_dilation(seed, structure=square)
-    return np.argwhere(near & (index != FIXED)).astype(np.int64)
 
 
 def operator(grid, raster):

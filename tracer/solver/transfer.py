@@ -2,15 +2,16 @@
 
 Prolongation is bilinear interpolation of the coarse correction at the fine nodes; restriction is
 its transpose with each coarse row scaled to unit weight, i.e. a weighted average of the fine
-residuals around each coarse node.  Both are tensor products of 1-D operators.
+residuals around each coarse node.  Both are tensor products of 1-D operators, applied here one
+fine row at a time.
 """
 
 from dataclasses import dataclass
 
 import numpy as np
-from numba import njit, prange
+from numba import njit
 
-from .relax import PARALLEL_NODES
+from .stencil import FIXED
 
 
 @dataclass(frozen=True)
@@ -21,14 +22,19 @@ class Axis1D:
     ----------
     lo, w : int64[n_fine], float64[n_fine]
         Fine node i lies between coarse nodes lo[i] and lo[i] + 1, at fraction w[i].
-    ptr, idx, weight : CSR rows (one per coarse node) of the restriction.
+    wlo, whi : float64[n_fine]
+        Restriction weights of fine node i on coarse nodes lo[i] and lo[i] + 1: the interpolation
+        weights 1 - w[i] and w[i], divided by the total weight each coarse node receives.
     """
 
     lo: np.ndarray
     w: np.ndarray
-    ptr: np.ndarray
-    idx: np.ndarray
-    weight: np.ndarray
+    wlo: np.ndarray
+    whi: np.ndarray
+
+    def arrays(self):
+        """``(lo, w, wlo, whi)``, the kernels' arguments."""
+        return self.lo, self.w, self.wlo, self.whi
 
 
 def axis_transfer(n_fine, n_coarse):
@@ -36,24 +42,17 @@ def axis_transfer(n_fine, n_coarse):
     s = np.arange(n_fine) * ((n_coarse - 1) / (n_fine - 1))
     lo = np.minimum(np.floor(s).astype(np.int64), n_coarse - 2)
     w = s - lo
-    rows = np.concatenate([lo, lo + 1])
-    cols = np.concatenate([np.arange(n_fine), np.arange(n_fine)])
-    vals = np.concatenate([1.0 - w, w])
-    keep = vals > 0.0
-    rows, cols, vals = rows[keep], cols[keep], vals[keep]
-    order = np.lexsort((cols, rows))
-    rows, cols, vals = rows[order], cols[order], vals[order]
-    sums = np.bincount(rows, weights=vals, minlength=n_coarse)
-    ptr = np.concatenate([[0], np.cumsum(np.bincount(rows, minlength=n_coarse))]).astype(np.int64)
-    return Axis1D(lo=lo, w=w, ptr=ptr, idx=cols.astype(np.int64), weight=vals / sums[rows])
+    sums = np.bincount(lo, weights=1.0 - w, minlength=n_coarse) + np.bincount(lo + 1, weights=w, minlength=n_coarse)
+    return Axis1D(lo=lo, w=w, wlo=(1.0 - w) / sums[lo], whi=w / sums[lo + 1])
 
 
-@njit(cache=True, inline="always")
-def _prolong_row(iz, coarse, fine, fine_free, zlo, zw, rlo, rw):
+@njit(cache=True, nogil=True)
+def prolong_row(iz, coarse, fine, fine_index, zlo, zw, rlo, rw):
+    """``fine += P coarse`` on the free nodes of fine row ``iz``."""
     i = zlo[iz]
     a = zw[iz]
     for ir in range(fine.shape[1]):
-        if not fine_free[iz, ir]:
+        if fine_index[iz, ir] == FIXED:
             continue
         j = rlo[ir]
         b = rw[ir]
@@ -62,47 +61,22 @@ def _prolong_row(iz, coarse, fine, fine_free, zlo, zw, rlo, rw):
         )
 
 
-@njit(cache=True, parallel=True)
-def prolong_add(coarse, fine, fine_free, zlo, zw, rlo, rw):
-    """``fine += P coarse`` on the free fine nodes."""
-    if fine.size >= PARALLEL_NODES:
-        for iz in prange(fine.shape[0]):
-            _prolong_row(iz, coarse, fine, fine_free, zlo, zw, rlo, rw)
-    else:
-        for iz in range(fine.shape[0]):
-            _prolong_row(iz, coarse, fine, fine_free, zlo, zw, rlo, rw)
+@njit(cache=True, nogil=True)
+def restrict_row(iz, row, half, coarse, coarse_index, zlo, zwlo, zwhi, rlo, rwlo, rwhi):
+    """Add fine row ``iz`` (values ``row``) restricted to the free coarse nodes: ``coarse += R row``.
 
-
-@njit(cache=True, inline="always")
-def _restrict_r(iz, fine, half, rptr, ridx, rwt):
-    for j in range(half.shape[1]):
-        s = 0.0
-        for q in range(rptr[j], rptr[j + 1]):
-            s += rwt[q] * fine[iz, ridx[q]]
-        half[iz, j] = s
-
-
-@njit(cache=True, inline="always")
-def _restrict_z(i, half, coarse, coarse_free, zptr, zidx, zwt):
-    for j in range(coarse.shape[1]):
-        s = 0.0
-        if coarse_free[i, j]:
-            for p in range(zptr[i], zptr[i + 1]):
-                s += zwt[p] * half[zidx[p], j]
-        coarse[i, j] = s
-
-
-@njit(cache=True, parallel=True)
-def restrict(fine, half, coarse, coarse_free, zptr, zidx, zwt, rptr, ridx, rwt):
-    """``coarse = R fine`` on the free coarse nodes (zero on fixed ones), first along r into
-    ``half`` (fine rows by coarse columns), then along z."""
-    if fine.size >= PARALLEL_NODES:
-        for iz in prange(fine.shape[0]):
-            _restrict_r(iz, fine, half, rptr, ridx, rwt)
-        for i in prange(coarse.shape[0]):
-            _restrict_z(i, half, coarse, coarse_free, zptr, zidx, zwt)
-    else:
-        for iz in range(fine.shape[0]):
-            _restrict_r(iz, fine, half, rptr, ridx, rwt)
-        for i in range(coarse.shape[0]):
-            _restrict_z(i, half, coarse, coarse_free, zptr, zidx, zwt)
+    ``half`` is work space of one coarse row; ``coarse`` must start at zero and receives every
+    fine row once.
+    """
+    half[:] = 0.0
+    for ir in range(row.size):
+        j = rlo[ir]
+        half[j] += rwlo[ir] * row[ir]
+        half[j + 1] += rwhi[ir] * row[ir]
+    i = zlo[iz]
+    for i_c, weight in ((i, zwlo[iz]), (i + 1, zwhi[iz])):
+        if weight == 0.0:
+            continue
+        for j in range(half.size):
+            if coarse_index[i_c, j] != FIXED:
+                coarse[i_c, j] += weight * half[j]

@@ -1,8 +1,11 @@
 """Unit maps (one electrode at 1 V, the others and the ground edges at 0 V) and Poisson solves."""
 
+import threading
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
 
 import numpy as np
+from numba import get_num_threads
 from scipy.constants import epsilon_0
 
 from ..geometry import Raster, rasterize
@@ -30,11 +33,31 @@ class UnitSolution:
     history: tuple
 
 
-def _solve(hierarchy, u, b, rtol, max_cycles, what):
+def _solve(hierarchy, u, b, rtol, max_cycles, what, work=None):
     try:
-        return iterate(hierarchy, u, b, rtol=rtol, max_cycles=max_cycles)
+        return iterate(hierarchy, u, b, rtol=rtol, max_cycles=max_cycles, work=work)
     except SolveError as err:
         raise SolveError(f"{what}: {err}") from None
+
+
+def _in_threads(fn, items, workers):
+    """``fn(item)`` for each item on up to ``workers`` threads, yielded in order.
+
+    The solver kernels release the GIL, so independent solves run in parallel without the
+    fork-join of a parallel kernel at every pass (which costs a scheduler wake-up per pass when
+    another process shares the cores).  The first failure is raised once the running calls end.
+    """
+    if workers <= 1:
+        yield from map(fn, items)
+        return
+    with ThreadPoolExecutor(max_workers=workers) as pool:
+        futures = [pool.submit(fn, item) for item in items]
+        try:
+            for future in futures:
+                yield future.result()
+        finally:
+            for future in futures:
+                future.cancel()
 
 
 def solve_unit_maps(grid, table, *, rtol=1e-10, max_cycles=60, progress=None):
@@ -67,15 +90,25 @@ def solve_unit_maps(grid, table, *, rtol=1e-10, max_cycles=60, progress=None):
     fine = hierarchy.levels[0]
     n = len(table.names)
     unit = np.zeros((n, grid.nz, grid.nr))
-    history = []
-    for k, name in enumerate(table.names):
-        values = np.zeros(n)
-        values[k] = 1.0
-        b = relax.boundary_rhs(fine.op, fine.geometry, values)
-        history.append(_solve(hierarchy, unit[k], b, rtol, max_cycles, f"unit map of electrode {name!r}"))
+    local = threading.local()  # per thread: one right-hand side array and workspace, reused
+
+    def one(k):
+        if not hasattr(local, "b"):
+            local.b = np.empty((grid.nz, grid.nr))
+            local.work = hierarchy.workspace()
+        values = np.eye(n)[k]
+        local.b[...] = 0.0
+        relax.add_boundary(local.b, values, fine.op[0], fine.op[1], *fine.geometry)
+        what = f"unit map of electrode {table.names[k]!r}"
+        history = _solve(hierarchy, unit[k], local.b, rtol, max_cycles, what, local.work)
         relax.add_fixed(unit[k], values, raster.owner)
+        return history
+
+    history = []
+    for done, h in enumerate(_in_threads(one, range(n), min(n, get_num_threads())), start=1):
+        history.append(h)
         if progress is not None:
-            progress(k + 1, n)
+            progress(done, n)
     return UnitSolution(unit=unit, raster=raster, history=tuple(history))
 
 
