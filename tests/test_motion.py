@@ -194,3 +194,27 @@ def test_quiet_cells_keep_the_event_search_near_surfaces_planes_and_edges():
     assert not quiet[4:7, 5:8].any()     # the cut cell and its eight neighbours
     assert not quiet[8:11].any()         # within a cell of the plane
     assert quiet[2, 2] and quiet[5, 3] and quiet[7, 8]
+
+
+@pytest.mark.parametrize("sym", [0, 1, 2])
+def test_power_form_of_a_cell_is_its_hermite_patch(sym):
+    """The per-cell power form the tracer evaluates is the same polynomial as the map's Hermite
+    patch (tracer.fieldmap.hermite_eval), continued past the cell's walls, for random node data."""
+    rng = np.random.default_rng(3)
+    hz, hr = 0.2e-3, 0.3e-3
+    herm = rng.normal(size=(4, 6, 5)) * np.array([1.0, 1 / hz, 1 / hr, 1 / (hz * hr)])[:, None, None]
+    grid = np.array([0.0, 0.0, hz, hr, 6, 5, 5 * hz, 4 * hr])
+    i, j = 2, 1
+    a = np.empty((4, 4))
+    motion.patch_coefficients(herm, i, j, hz, hr, a)
+    x = rng.uniform(-0.5, 1.5, 200) * hr + j * hr
+    z = rng.uniform(-0.5, 1.5, 200) * hz + i * hz
+    for xk, zk in zip(x, z):
+        v, ex, ey, ez = motion.patch_field(a, i * hz, j * hr, grid, sym, 0.0, xk, zk)
+        # the Hermite patch of a one-cell grid, which hermite_eval continues beyond it
+        ref = hermite_eval_many(np.ascontiguousarray(herm[:, i:i + 2, j:j + 2]), i * hz, j * hr, hz,
+                                hr, 2, 2, False, np.array([zk]), np.array([abs(xk)]))
+        assert v == pytest.approx(ref[0][0], rel=1e-12, abs=1e-12)
+        assert -ez == pytest.approx(ref[1][0], rel=1e-10, abs=1e-9)
+        e_y = -ref[2][0] * (np.sign(xk) if sym != 1 else 1.0)
+        assert ey == pytest.approx(e_y, rel=1e-10, abs=1e-9) and ex == 0.0
