@@ -2,6 +2,11 @@
 
 import dataclasses
 import math
+import os
+import signal
+import subprocess
+import sys
+import time
 from pathlib import Path
 
 import numpy as np
@@ -9,7 +14,10 @@ import pytest
 from scipy import constants
 
 import tracer
-from tracer.pipeline import CONFIGS, run
+from tracer.beside import beside
+from tracer.pipeline import CONFIGS, run, write_run_outputs
+from tracer.plot import run_figures
+from tracer.store import StoreError, atomic_path
 
 ROOT = Path(__file__).resolve().parent.parent
 
@@ -158,3 +166,98 @@ def test_demo_without_out_picks_the_next_fresh_folder(tmp_path, monkeypatch, cap
     assert main(["demo", "--rays", "10", "--quiet"]) == 0
     assert (tmp_path / "tracer-demo-2" / "result.h5").is_file()
     assert not any((tmp_path / "tracer-demo").iterdir())
+
+
+def test_run_outputs_are_the_files_and_every_picture(soft_landing, tmp_path):
+    """write_run_outputs returns each file it wrote, the pictures drawn beside the files included,
+    and leaves no temporary file behind; the pictures are those drawn one by one."""
+    files = write_run_outputs(soft_landing, tmp_path / "out")
+    planes = soft_landing.beams["c60"].planes
+    assert [f.name for f in files] == (["result.h5", "landings.csv", "rays.png", "landing_energy.png",
+                                        "landing_positions.png"]
+                                       + [f"phase_c60_{plane}.png" for plane in planes])
+    assert sorted(p.name for p in (tmp_path / "out").iterdir()) == sorted(f.name for f in files)
+    alone = run_figures(soft_landing.field, list(soft_landing.beams.values()), tmp_path / "alone",
+                        title=soft_landing.setup.title)
+    for picture in alone:
+        assert picture.read_bytes() == (tmp_path / "out" / picture.name).read_bytes(), picture.name
+
+
+def test_beside_runs_the_job_in_a_child_and_hands_back_its_result_or_error():
+    with beside(os.getpid) as done:
+        here = os.getpid()
+    assert done[0] != here
+
+    def fails():
+        raise ValueError("no such electrode")
+
+    with pytest.raises(ValueError, match="no such electrode"):
+        with beside(fails):
+            pass
+    with pytest.raises(TypeError, match="could not send back its result"):
+        with beside(lambda: fails):         # a function is not a JSON value
+            pass
+
+    def fails_in_our_own_way():
+        raise StoreError("old.h5: not a tracer result file")
+
+    with pytest.raises(RuntimeError, match="StoreError: old.h5: not a tracer result file"):
+        with beside(fails_in_our_own_way):
+            pass
+
+
+def test_an_interrupted_block_interrupts_the_child_and_leaves_no_temporary_file(tmp_path):
+    """Ctrl-C during the block: the child's atomic write is cut short and cleaned up too."""
+    def slow_write():
+        with atomic_path(tmp_path / "slow.png") as tmp:
+            tmp.write_bytes(b"half a picture")
+            time.sleep(60)
+
+    t0 = time.perf_counter()
+    with pytest.raises(KeyboardInterrupt):
+        with beside(slow_write):
+            while not any(tmp_path.iterdir()):      # the child's temporary file exists
+                time.sleep(0.01)
+            raise KeyboardInterrupt
+    assert time.perf_counter() - t0 < 30
+    assert list(tmp_path.iterdir()) == []
+
+
+CTRL_C = """
+import sys, time
+from pathlib import Path
+from tracer.beside import beside
+from tracer.store import atomic_path
+
+out = Path(sys.argv[1])
+
+def slow(name):
+    with atomic_path(out / name) as tmp:
+        tmp.write_bytes(b"half a file")
+        time.sleep(60)
+
+with beside(lambda: slow("picture.png")):
+    slow("result.h5")
+"""
+
+
+def test_ctrl_c_to_both_processes_leaves_no_file(tmp_path):
+    """Ctrl-C at a terminal reaches the whole process group: the parent and the child of `beside`
+    are both in the middle of an atomic write, and neither leaves a file behind."""
+    out = tmp_path / "out"
+    out.mkdir()
+    proc = subprocess.Popen([sys.executable, "-c", CTRL_C, str(out)], start_new_session=True,
+                            stderr=subprocess.PIPE, text=True)
+    deadline = time.monotonic() + 60
+    while len(list(out.iterdir())) < 2 and time.monotonic() < deadline:   # both temporary files
+        time.sleep(0.02)
+    assert len(list(out.iterdir())) == 2
+    try:
+        os.killpg(proc.pid, signal.SIGINT)
+        _, err = proc.communicate(timeout=30)
+    finally:
+        if proc.poll() is None:
+            os.killpg(proc.pid, signal.SIGKILL)
+            proc.wait()
+    assert proc.returncode != 0 and "KeyboardInterrupt" in err
+    assert list(out.iterdir()) == []

@@ -1,5 +1,8 @@
 """Tests of the result files: openPMD HDF5 (result.h5) and the landings CSV."""
 
+import csv
+import dataclasses
+import io
 import json
 import subprocess
 import sys
@@ -12,8 +15,8 @@ from scipy import constants
 from tracer.beam import trace
 from tracer.config import load
 from tracer.fieldmap import solve_basis
-from tracer.store import (LANDING_COLUMNS, StoreError, read_landings_csv, read_result, write_landings_csv,
-                          write_maps, write_result)
+from tracer.store import (LANDING_COLUMNS, StoreError, read_landings_csv, read_result, staged_folder,
+                          write_landings_csv, write_maps, write_result)
 
 AXIAL = """
 title = "two tubes and a target (test geometry, illustrative)"
@@ -248,6 +251,51 @@ def test_landings_csv_round_trip(result, tmp_path):
         assert np.allclose(np.linalg.norm(u, axis=0)[moving], 1.0, rtol=1e-14)
     by_name = write_landings_csv(tmp_path / "by_name.csv", {r.name: r for r in runs})
     assert by_name.read_bytes() == path.read_bytes()
+
+
+def test_landings_csv_cells_are_those_of_the_csv_module(result, tmp_path):
+    """Text cells that hold a comma, a quote or a line end are quoted exactly as the csv module's
+    writer quotes them, and every float has 17 significant digits (the reference is
+    csv.writer row by row, Python standard library)."""
+    _, _, runs, _ = result
+    run = runs[0]
+    rec = run.records.astype([(n, "U24" if n == "electrode" else run.records.dtype[n])
+                              for n in run.records.dtype.names])
+    rec["electrode"][:4] = ["a,b", 'say "hi"', "", "two\nlines"]
+    rec["x_m"][:3] = [np.nan, -0.0, np.inf]
+    odd = dataclasses.replace(run, name='beam, "one"', records=rec)
+    path = write_landings_csv(tmp_path / "landings.csv", [odd, *runs[1:]])
+    expected = io.StringIO(newline="")
+    writer = csv.writer(expected)
+    writer.writerow([name for name, _ in LANDING_COLUMNS])
+    for r in [odd, *runs[1:]]:
+        rec, p = r.records, np.sqrt(r.records["px"] ** 2 + r.records["py"] ** 2 + r.records["pz"] ** 2)
+        p = np.where(p > 0, p, 1.0)
+        for k in range(len(rec)):
+            floats = [rec["x_m"][k] * 1e3, rec["y_m"][k] * 1e3, rec["z_m"][k] * 1e3,
+                      np.hypot(rec["x_m"][k], rec["y_m"][k]) * 1e3, rec["time_s"][k] * 1e9,
+                      rec["energy_eV"][k], rec["px"][k] / p[k], rec["py"][k] / p[k], rec["pz"][k] / p[k],
+                      rec["ledger_eV"][k], r.starts["energy_eV"][rec["ray"][k]]]
+            writer.writerow([r.name, int(rec["ray"][k]), rec["status"][k], rec["electrode"][k]]
+                            + [format(float(v), ".17g") for v in floats])
+    assert path.read_bytes() == expected.getvalue().encode()
+    back = read_landings_csv(path)
+    assert back["beam"][0] == 'beam, "one"'
+    assert list(back["electrode"][:4]) == ["a,b", 'say "hi"', "", "two\nlines"]
+
+
+def test_a_staged_folder_adds_its_files_only_when_the_block_succeeds(tmp_path):
+    (tmp_path / "result.h5").write_bytes(b"old")
+    with pytest.raises(KeyboardInterrupt):
+        with staged_folder(tmp_path) as staging:
+            (staging / "rays.png").write_bytes(b"new picture")
+            raise KeyboardInterrupt
+    assert [p.name for p in tmp_path.iterdir()] == ["result.h5"]
+    with staged_folder(tmp_path) as staging:
+        (staging / "rays.png").write_bytes(b"new picture")
+        (staging / "result.h5").write_bytes(b"new")
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["rays.png", "result.h5"]
+    assert (tmp_path / "result.h5").read_bytes() == b"new"
 
 
 def test_a_failed_csv_write_leaves_nothing(tmp_path):

@@ -126,16 +126,30 @@ def run(setup, *, maps=None, voltages=None, cache_dir=None, progress=None) -> Ru
 
 
 def write_run_outputs(result: RunResult, out) -> list[Path]:
-    """Write ``result.h5``, ``landings.csv`` and the pictures of a run into a folder."""
+    """Write ``result.h5``, ``landings.csv`` and the pictures of a run into a folder.
+
+    The pictures after the first (:func:`tracer.plot.figure_jobs`) are drawn in a child process
+    (:func:`beside`) while this one writes the files and the first picture; they are drawn into a
+    staging folder and moved beside the others only when everything has been written, so an
+    interrupted write adds no picture to the folder."""
     from tracer import plot
-    from tracer.store import write_landings_csv, write_result
+    from tracer.beside import beside
+    from tracer.store import staged_folder, write_landings_csv, write_result
 
     out = Path(out)
     out.mkdir(parents=True, exist_ok=True)
     setup = result.setup
     runs = list(result.beams.values())
-    files = [write_result(out / "result.h5", result.field, runs, setup=setup,
-                          summaries=result.summary()),
-             write_landings_csv(out / "landings.csv", runs)]
-    files += plot.run_figures(result.field, runs, out, title=setup.title)
-    return files
+    (first_name, first), *others = plot.figure_jobs(result.field, runs, title=setup.title)
+
+    def draw_others():
+        """The names of the pictures drawn (a picture with nothing to show is not drawn)."""
+        return [name for name, draw in others if draw(staging / name) is not None]
+
+    with staged_folder(out) as staging:
+        with beside(draw_others) as drawn:
+            files = [write_result(out / "result.h5", result.field, runs, setup=setup,
+                                  summaries=result.summary()),
+                     write_landings_csv(out / "landings.csv", runs),
+                     first(out / first_name)]
+    return [f for f in files if f is not None] + [out / name for name in drawn[0]]

@@ -1,7 +1,8 @@
 """matplotlib figures: electrodes with equipotentials and rays, histograms, scan curves.
 
 Every figure is written to a PNG file with labelled axes and units; the functions
-return the path they wrote.  The Agg backend is used, so no screen is needed.
+return the path they wrote.  Figures are drawn with matplotlib's object-oriented API on its Agg
+canvas (no pyplot, no figure registry, no screen).
 """
 
 from __future__ import annotations
@@ -9,23 +10,32 @@ from __future__ import annotations
 from pathlib import Path
 
 import matplotlib
+import numpy as np
+from matplotlib.backends.backend_agg import FigureCanvasAgg
+from matplotlib.collections import LineCollection
+from matplotlib.figure import Figure
 
-matplotlib.use("Agg")
-import matplotlib.pyplot as plt  # noqa: E402
-import numpy as np  # noqa: E402
-
-from tracer.stats import radius  # noqa: E402
+from tracer.stats import radius
 
 MM = 1e3
+PNG_COMPRESSION = 1
+"""zlib level of the PNG files: the same pixels as the default level 6 in about half the time, in
+files 5 to 25 % larger."""
+
+
+def new_figure(figsize) -> Figure:
+    """A figure on an Agg canvas, with constrained layout so that labels and colour bars fit."""
+    fig = Figure(figsize=figsize, layout="constrained")
+    FigureCanvasAgg(fig)
+    return fig
 
 
 def save(fig, path, dpi=150) -> Path:
-    """Write a figure to a PNG atomically (a temporary file renamed into place) and close it."""
+    """Write a figure to a PNG atomically (a temporary file renamed into place)."""
     from tracer.store import atomic_path
 
     with atomic_path(path) as tmp:
-        fig.savefig(tmp, dpi=dpi, format="png")
-    plt.close(fig)
+        fig.savefig(tmp, dpi=dpi, format="png", pil_kwargs={"compress_level": PNG_COMPRESSION})
     return Path(path)
 
 
@@ -45,7 +55,7 @@ def _shape_outlines(table):
 
 def draw_electrodes(ax, table, labels=True) -> None:
     """Fill every electrode shape and label each electrode once, at its largest shape."""
-    colours = plt.get_cmap("tab10")
+    colours = matplotlib.colormaps["tab10"]
     biggest = {}
     for owner, pts in _shape_outlines(table):
         ax.fill(pts[:, 0] * MM, pts[:, 1] * MM, color=colours(owner % 10), alpha=0.85, lw=0.5,
@@ -82,16 +92,17 @@ def plot_field(field, path, paths=(), title: str | None = None, levels: int = 24
     v = field.potential(zz.ravel(), rr.ravel()).reshape(zz.shape)
     span = (g.z1 - g.z0) / (g.r1 - g.r0)
     width = 12.0
-    fig, ax = plt.subplots(figsize=(width, min(8.0, max(2.5, 1.4 + width / span))),
-                           layout="constrained")
+    fig = new_figure((width, min(8.0, max(2.5, 1.4 + width / span))))
+    ax = fig.subplots()
     lo, hi = float(v.min()), float(v.max())
     if hi > lo:
         cs = ax.contour(zz * MM, rr * MM, v, levels=np.linspace(lo, hi, levels + 2)[1:-1],
                         cmap="viridis", linewidths=0.7, zorder=2)
         ax.clabel(cs, cs.levels[::3], fmt="%.4g V", fontsize=6)
     draw_electrodes(ax, field.table)
-    for p in paths:
-        ax.plot(p[:, 0] * MM, p[:, 1] * MM, color="crimson", lw=0.5, alpha=0.8, zorder=4)
+    if len(paths):
+        ax.add_collection(LineCollection([p * MM for p in paths], colors="crimson", linewidths=0.5,
+                                         alpha=0.8, zorder=4), autolim=False)
     side = "r" if g.symmetry == "axial" else "y"
     ax.set_xlabel("z (mm)")
     ax.set_ylabel(f"{side} (mm)")
@@ -113,8 +124,8 @@ def plot_landing_energy(runs, path) -> Path | None:
     panels = [(run, rows) for run, rows in panels if len(rows)]
     if not panels:
         return None
-    fig, axes = plt.subplots(len(panels), 1, figsize=(7, 2.8 * len(panels)), layout="constrained",
-                             squeeze=False)
+    fig = new_figure((7, 2.8 * len(panels)))
+    axes = fig.subplots(len(panels), 1, squeeze=False)
     for ax, (run, rows) in zip(axes[:, 0], panels):
         for name in np.unique(rows["electrode"]):
             e = rows["energy_eV"][rows["electrode"] == name]
@@ -133,7 +144,8 @@ def plot_landing_positions(runs, path, symmetry="axial") -> Path | None:
     rows = [(run, r) for run, r in rows if len(r)]
     if not rows:
         return None
-    fig, ax = plt.subplots(figsize=(7, 4), layout="constrained")
+    fig = new_figure((7, 4))
+    ax = fig.subplots()
     side = "y" if symmetry == "planar" else "r"
     for run, r in rows:
         zr = _path_zr(r, symmetry)
@@ -163,8 +175,11 @@ def plot_phase_space(run, plane, path, symmetry="axial") -> Path | None:
             slope = np.where(u > 0, (rows["x_m"] * rows["px"] + rows["y_m"] * rows["py"])
                              / (u * rows["pz"]), 0.0)
         side = "r"
-    fig, ax = plt.subplots(figsize=(5.5, 4.2), layout="constrained")
-    dots = ax.scatter(u * MM, slope * 1e3, s=3, c=rows["energy_eV"], cmap="viridis")
+    fig = new_figure((5.5, 4.2))
+    ax = fig.subplots()
+    # filled dots of 3.2 pt without an outline: one colour each, so every dot is a path of its own,
+    # and stroking 10^4 outlines would double the drawing time
+    dots = ax.scatter(u * MM, slope * 1e3, s=10.5, c=rows["energy_eV"], cmap="viridis", linewidths=0)
     fig.colorbar(dots, ax=ax, label="kinetic energy (eV)")
     ax.set_xlabel(f"{side} (mm)")
     ax.set_ylabel(f"{side}' (mrad)")
@@ -172,19 +187,28 @@ def plot_phase_space(run, plane, path, symmetry="axial") -> Path | None:
     return save(fig, path)
 
 
-def run_figures(field, runs, out, title=None) -> list[Path]:
-    """All pictures of a run: rays over the equipotentials, landings, phase space at each plane.
+def figure_jobs(field, runs, title=None) -> list:
+    """The pictures of a run, each as ``(file name, draw)``: ``draw(path)`` writes the picture and
+    returns the path (or None when it has nothing to show).  Rays over the equipotentials come
+    first (the only picture that evaluates the potential map), then landing energies, landing
+    positions and phase space at each plane.
 
     ``runs`` are BeamRuns or beams read back from a result file (``name``, ``records``,
     ``crossings``, ``paths``, ``planes``)."""
-    out = Path(out)
     sym = field.grid.symmetry
     paths = [_path_zr(p, sym) for run in runs for p in run.paths]
-    files = [plot_field(field, out / "rays.png", paths=paths, title=title),
-             plot_landing_energy(runs, out / "landing_energy.png"),
-             plot_landing_positions(runs, out / "landing_positions.png", sym)]
-    files += [plot_phase_space(run, plane, out / f"phase_{run.name}_{plane}.png", sym)
-              for run in runs for plane in run.planes]
+    jobs = [("rays.png", lambda path: plot_field(field, path, paths=paths, title=title)),
+            ("landing_energy.png", lambda path: plot_landing_energy(runs, path)),
+            ("landing_positions.png", lambda path: plot_landing_positions(runs, path, sym))]
+    jobs += [(f"phase_{run.name}_{plane}.png",
+              lambda path, run=run, plane=plane: plot_phase_space(run, plane, path, sym))
+             for run in runs for plane in run.planes]
+    return jobs
+
+
+def run_figures(field, runs, out, title=None) -> list[Path]:
+    """Draw all pictures of a run (:func:`figure_jobs`) into a folder; return the paths written."""
+    files = [draw(Path(out) / name) for name, draw in figure_jobs(field, runs, title=title)]
     return [f for f in files if f is not None]
 
 
@@ -265,8 +289,8 @@ def plot_scan(table, names, out, title=None) -> list[Path]:
     for prefix, figures in groups.items():
         cols = min(len(figures), 3 if len(names) == 1 else 2)
         rows = -(-len(figures) // cols)
-        fig, axes = plt.subplots(rows, cols, figsize=(4.2 * cols, 2.9 * rows), layout="constrained",
-                                 squeeze=False)
+        fig = new_figure((4.2 * cols, 2.9 * rows))
+        axes = fig.subplots(rows, cols, squeeze=False)
         for ax, figure in zip(axes.ravel(), figures):
             _scan_panel(fig, ax, table, names, figure)
             ax.set_title(figure, fontsize=8)
@@ -292,7 +316,8 @@ def plot_tune(result, path) -> Path:
     names = list(result.voltages)
     factor, label = _scaled(result.figure)
     best = int(np.argmin(points["objective"]))
-    fig, ax = plt.subplots(figsize=(6.5, 4), layout="constrained")
+    fig = new_figure((6.5, 4))
+    ax = fig.subplots()
     x = points[f"{names[0]}_V"] if len(names) == 1 else np.arange(1, len(points) + 1)
     ax.scatter(x, points["value"] * factor, s=10, label="trials")
     ax.scatter([x[best]], [points["value"][best] * factor], s=60, marker="*", color="crimson",
@@ -313,7 +338,8 @@ def plot_optics(props, path) -> Path:
     path : str or Path
     """
     z = props.z_m * MM
-    fig, (top, bottom) = plt.subplots(2, 1, figsize=(9, 6.5), sharex=True, layout="constrained")
+    fig = new_figure((9, 6.5))
+    top, bottom = fig.subplots(2, 1, sharex=True)
     top.plot(z, props.axial[0], color="black", label="V (V)")
     twin = top.twinx()
     twin.plot(z, props.axial[1], color="tab:blue", lw=0.9, label="V' (V/m)")

@@ -29,10 +29,12 @@ import contextlib
 import csv
 import dataclasses
 import datetime
+import io
 import json
 import os
 import re
 import secrets
+import shutil
 from collections.abc import Mapping
 from dataclasses import dataclass
 from pathlib import Path
@@ -83,6 +85,27 @@ def atomic_path(path):
         with contextlib.suppress(FileNotFoundError):
             os.unlink(tmp)
         raise
+
+
+@contextlib.contextmanager
+def staged_folder(folder):
+    """Yield a temporary folder inside ``folder``; move its files into ``folder`` when the block
+    succeeds.
+
+    On an exception the temporary folder is removed with everything in it, and ``folder`` keeps
+    only what it held before.  Files written into the temporary folder with ``atomic_path`` are
+    complete when they are moved.
+    """
+    folder = Path(folder)
+    folder.mkdir(parents=True, exist_ok=True)
+    tmp = folder / f".staged.{os.getpid()}.{secrets.token_hex(4)}.tmp"
+    tmp.mkdir()
+    try:
+        yield tmp
+        for item in sorted(tmp.iterdir()):
+            os.replace(item, folder / item.name)
+    finally:
+        shutil.rmtree(tmp, ignore_errors=True)
 
 
 def _text(value: str) -> np.bytes_:
@@ -440,8 +463,9 @@ def _write_species(particles, name, rows, species, weighting, codes, attrs):
             vectors.setdefault(record, {})[component] = rows[field]
         elif field in codes:
             lookup = {label: code for code, label in codes[field].items()}
-            _particle_record(group, record, np.array([lookup[v] for v in rows[field].tolist()], np.int64),
-                             n, attrs={"codes": json.dumps(codes[field])})
+            labels, index = np.unique(rows[field], return_inverse=True)
+            values = np.array([lookup[v] for v in labels.tolist()], np.int64)[index.ravel()]
+            _particle_record(group, record, values, n, attrs={"codes": json.dumps(codes[field])})
         elif field != "plane":            # a crossing species is a single plane (attribute)
             _particle_record(group, record, rows[field], n,
                              *_RECORD_UNITS.get(record, (DIMENSIONLESS, 1.0, 0.0, 0)))
@@ -727,6 +751,9 @@ LANDING_COLUMNS = (
 """Columns of ``landings.csv``: the unit of every quantity is in its name (direction cosines ux,
 uy, uz are unitless; r is the distance from the z axis)."""
 
+_CSV_END = "\r\n"
+"""The line end of ``landings.csv`` (the csv module's default)."""
+
 
 def _landing_columns(run) -> dict:
     """The CSV columns of one run, in the units of the header."""
@@ -760,15 +787,30 @@ def write_landings_csv(path, runs) -> Path:
     """
     runs = list(runs.values()) if isinstance(runs, Mapping) else list(runs)
     names = [name for name, _ in LANDING_COLUMNS]
+    row = ",".join("%.17g" if kind is np.float64 else "%s" for _, kind in LANDING_COLUMNS) + _CSV_END
     with atomic_path(path) as tmp, open(tmp, "w", newline="", encoding="utf-8") as out:
-        writer = csv.writer(out)
-        writer.writerow(names)
+        csv.writer(out, lineterminator=_CSV_END).writerow(names)
         for run in runs:
             columns = _landing_columns(run)
-            cells = [[format(v, ".17g") for v in columns[name].tolist()] if kind is np.float64
-                     else [str(v) for v in columns[name].tolist()] for name, kind in LANDING_COLUMNS]
-            writer.writerows(zip(*cells))
+            cells = [_csv_text(columns[name]) if kind is str else columns[name].tolist()
+                     for name, kind in LANDING_COLUMNS]
+            out.write("".join([row % values for values in zip(*cells)]))
     return Path(path)
+
+
+def _csv_text(values) -> list:
+    """Text cells as the csv module writes them (quoted when they hold a comma, quote or line
+    end), each distinct value quoted once."""
+    distinct, index = np.unique(np.asarray(values, dtype=str), return_inverse=True)
+    buffer = io.StringIO()
+    writer = csv.writer(buffer, lineterminator=_CSV_END)
+    cells = []
+    for value in distinct.tolist():
+        buffer.seek(0)
+        buffer.truncate()
+        writer.writerow([value, ""])     # a row of one empty cell would be written as ""
+        cells.append(buffer.getvalue()[:-1 - len(_CSV_END)])
+    return [cells[k] for k in index.tolist()]
 
 
 def read_landings_csv(path) -> np.ndarray:

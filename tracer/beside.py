@@ -1,0 +1,97 @@
+"""A job run in a forked child process while the caller goes on (the run's pictures drawn while
+its files are written), with results and errors handed back as JSON and Ctrl-C handled once."""
+
+import builtins
+import contextlib
+import json
+import os
+import signal
+
+
+@contextlib.contextmanager
+def beside(job):
+    """Run ``job()`` in a forked child process while the block runs.
+
+    Yields a list that holds the job's return value (a JSON value) once the block has ended.  An
+    exception of the job is raised again at the end of the block: a built-in exception as its own
+    type, any other as a RuntimeError that names it.  When the block raises (Ctrl-C included),
+    the child is stopped, exactly once, by a KeyboardInterrupt raised inside it (so that its
+    atomic writes remove their temporary files), and waited for.  The child ignores Ctrl-C of its
+    own: it hears of it through this process.  Without ``os.fork`` the job runs at the end of
+    the block.
+
+    The child starts as a copy of this process with a single thread: the job must not use
+    numba's parallel kernels or HDF5 files (plain numpy, matplotlib and file writes are fine).
+    """
+    done = []
+    if not hasattr(os, "fork"):
+        yield done
+        done.append(job())
+        return
+    read_end, write_end = os.pipe()
+    # both signals are held until the child has its own handlers: it never runs the caller's code
+    mask = signal.pthread_sigmask(signal.SIG_BLOCK, {signal.SIGINT, signal.SIGTERM})
+    try:
+        pid = os.fork()
+    except OSError:
+        signal.pthread_sigmask(signal.SIG_SETMASK, mask)
+        os.close(read_end)
+        os.close(write_end)
+        raise
+    if pid == 0:
+        _child(job, read_end, write_end, mask)
+    signal.pthread_sigmask(signal.SIG_SETMASK, mask)
+    os.close(write_end)
+    reader = os.fdopen(read_end, "rb")
+    try:
+        yield done
+        reply = reader.read()
+    except BaseException:
+        with contextlib.suppress(ProcessLookupError):
+            os.kill(pid, signal.SIGTERM)
+        raise
+    finally:
+        reader.close()           # a child still writing its reply gets a broken pipe
+        os.waitpid(pid, 0)
+    try:
+        reply = json.loads(reply)
+    except ValueError:           # no reply: the child was killed
+        raise RuntimeError(f"the child process ended without a reply ({reply[-200:]!r})") from None
+    if "error" in reply:
+        raise _rebuilt(*reply["error"])
+    done.append(reply["value"])
+
+
+def _rebuilt(kind, message):
+    """The exception a child of :func:`beside` reported, from its type name and message."""
+    cls = getattr(builtins, kind, None)
+    if isinstance(cls, type) and issubclass(cls, BaseException):
+        return cls(message)
+    return RuntimeError(f"in the child process: {kind}: {message}")
+
+
+def _interrupted(signum, frame):
+    """SIGTERM in a child of :func:`beside`: a KeyboardInterrupt, once."""
+    signal.signal(signal.SIGTERM, signal.SIG_IGN)
+    raise KeyboardInterrupt
+
+
+def _child(job, read_end, write_end, mask):
+    """The forked side of :func:`beside`: run the job, send back its value or error, exit."""
+    try:
+        os.close(read_end)
+        signal.signal(signal.SIGINT, signal.SIG_IGN)
+        signal.signal(signal.SIGTERM, _interrupted)
+        signal.pthread_sigmask(signal.SIG_SETMASK, mask)
+        try:
+            value = job()
+            try:
+                reply = json.dumps({"value": value})
+            except (TypeError, ValueError) as err:
+                raise TypeError(f"the child process could not send back its result {value!r}: {err}") from err
+        except BaseException as err:
+            reply = json.dumps({"error": [type(err).__name__, str(err)]})
+        with os.fdopen(write_end, "w") as pipe:
+            pipe.write(reply)
+    finally:
+        os._exit(0)
