@@ -92,7 +92,8 @@ def plot_field(field, path, paths=(), title: str | None = None, levels: int = 24
     v = field.potential(zz.ravel(), rr.ravel()).reshape(zz.shape)
     span = (g.z1 - g.z0) / (g.r1 - g.r0)
     width = 12.0
-    fig = new_figure((width, min(8.0, max(2.5, 1.4 + width / span))))
+    # the axes (about 0.8 in narrower than the figure) at equal aspect, with room for the labels
+    fig = new_figure((width, min(8.0, max(2.0, 0.9 + (width - 0.8) / span))))
     ax = fig.subplots()
     lo, hi = float(v.min()), float(v.max())
     if hi > lo:
