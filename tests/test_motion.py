@@ -11,7 +11,7 @@ from scipy.integrate._ivp.rk import RK45
 from tracer import motion
 from tracer.beam import symmetry_code, trace
 from tracer.config import loads
-from tracer.fieldmap import PotentialMap, hermite_eval_many
+from tracer.fieldmap import PotentialMap, hermite_eval_many, patch_coefficients
 from tracer.geometry import rasterize, shape_table
 from tracer.grid import Grid
 
@@ -197,24 +197,29 @@ def test_quiet_cells_keep_the_event_search_near_surfaces_planes_and_edges():
 
 
 @pytest.mark.parametrize("sym", [0, 1, 2])
-def test_power_form_of_a_cell_is_its_hermite_patch(sym):
-    """The per-cell power form the tracer evaluates is the same polynomial as the map's Hermite
-    patch (tracer.fieldmap.hermite_eval), continued past the cell's walls, for random node data."""
+def test_field_of_a_cell_is_the_map_interpolant_in_3d(sym):
+    """The tracer's field in one cell is the map's interpolant (tracer.fieldmap.hermite_eval),
+    continued past the cell's walls, with E_r split into E_x = E_r x / r and E_y = E_r y / r in
+    axial symmetry, E_y = E_r in planar and E_y = sign(y) E_r above a mirror plane (common
+    practice), for random node data."""
     rng = np.random.default_rng(3)
     hz, hr = 0.2e-3, 0.3e-3
     herm = rng.normal(size=(4, 6, 5)) * np.array([1.0, 1 / hz, 1 / hr, 1 / (hz * hr)])[:, None, None]
     grid = np.array([0.0, 0.0, hz, hr, 6, 5, 5 * hz, 4 * hr])
     i, j = 2, 1
-    a = np.empty((4, 4))
-    motion.patch_coefficients(herm, i, j, hz, hr, a)
-    x = rng.uniform(-0.5, 1.5, 200) * hr + j * hr
+    a = patch_coefficients(herm, i, j, hz, hr)
+    phi = rng.uniform(0.0, 2 * np.pi, 200)
+    rho = rng.uniform(-0.5, 1.5, 200) * hr + j * hr
     z = rng.uniform(-0.5, 1.5, 200) * hz + i * hz
-    for xk, zk in zip(x, z):
-        v, ex, ey, ez = motion.patch_field(a, i * hz, j * hr, grid, sym, 0.0, xk, zk)
+    one_cell = np.ascontiguousarray(herm[:, i:i + 2, j:j + 2])
+    for ph, rk, zk in zip(phi, rho, z):
+        x, y = (rk * np.cos(ph), rk * np.sin(ph)) if sym == 0 else (0.0, rk if sym == 1 else -rk)
+        v, ex, ey, ez = motion.patch_field(a, i * hz, j * hr, grid, sym, x, y, zk)
         # the Hermite patch of a one-cell grid, which hermite_eval continues beyond it
-        ref = hermite_eval_many(np.ascontiguousarray(herm[:, i:i + 2, j:j + 2]), i * hz, j * hr, hz,
-                                hr, 2, 2, False, np.array([zk]), np.array([abs(xk)]))
+        ref = hermite_eval_many(one_cell, i * hz, j * hr, hz, hr, 2, 2, False, np.array([zk]),
+                                np.array([rk]))
+        e_r = -ref[2][0]
         assert v == pytest.approx(ref[0][0], rel=1e-12, abs=1e-12)
         assert -ez == pytest.approx(ref[1][0], rel=1e-10, abs=1e-9)
-        e_y = -ref[2][0] * (np.sign(xk) if sym != 1 else 1.0)
-        assert ey == pytest.approx(e_y, rel=1e-10, abs=1e-9) and ex == 0.0
+        want = {0: (e_r * np.cos(ph), e_r * np.sin(ph)), 1: (0.0, e_r), 2: (0.0, -e_r)}[sym]
+        assert (ex, ey) == pytest.approx(want, rel=1e-10, abs=1e-9)

@@ -66,16 +66,63 @@ def cell_index(x, x0, h, n):
 
 
 @njit(cache=True, error_model="numpy", inline="always")
-def _cubic_hermite(u, h):
-    """Cubic Hermite weights at fraction u of a cell of length h, and their derivatives.
+def _to_power(v0, v1, s0, s1):
+    """Power-form coefficients (1, u, u^2, u^3) of the cubic on u in [0, 1] with end values v0, v1
+    and end slopes s0, s1 (per unit u): the cubic Hermite basis written out."""
+    return v0, s0, 3.0 * (v1 - v0) - 2.0 * s0 - s1, 2.0 * (v0 - v1) + s0 + s1
 
-    Returns (value weights of the two ends, slope weights, d/dx of each of the four).
+
+@njit(cache=True, error_model="numpy", inline="always")
+def patch_coefficients(h, i, j, hz, hr):
+    """The bicubic Hermite patch of cell (i, j) in power form.
+
+    Parameters
+    ----------
+    h : float64[4, nz, nr]
+        Node data (V, dV/dz, dV/dr, d2V/dzdr).
+    i, j : int
+        The cell (nodes i, i + 1 along z and j, j + 1 along r).
+    hz, hr : float
+        Grid spacings.
+
+    Returns
+    -------
+    tuple of 16 float
+        ``a[4 p + q]``, the coefficient of u^p w^q, u and w the fractions of the cell along z and r
+        (see :func:`patch_eval`).
     """
-    u2 = u * u
-    a1 = u2 * (3.0 - 2.0 * u)
-    da1 = 6.0 * u * (1.0 - u) / h
-    return (1.0 - a1, a1, h * u * (u - 1.0) * (u - 1.0), h * u2 * (u - 1.0),
-            -da1, da1, (3.0 * u - 1.0) * (u - 1.0), u * (3.0 * u - 2.0))
+    v0 = _to_power(h[0, i, j], h[0, i + 1, j], hz * h[1, i, j], hz * h[1, i + 1, j])
+    v1 = _to_power(h[0, i, j + 1], h[0, i + 1, j + 1], hz * h[1, i, j + 1], hz * h[1, i + 1, j + 1])
+    s0 = _to_power(hr * h[2, i, j], hr * h[2, i + 1, j], hz * hr * h[3, i, j], hz * hr * h[3, i + 1, j])
+    s1 = _to_power(hr * h[2, i, j + 1], hr * h[2, i + 1, j + 1], hz * hr * h[3, i, j + 1],
+                   hz * hr * h[3, i + 1, j + 1])
+    return (_to_power(v0[0], v1[0], s0[0], s1[0]) + _to_power(v0[1], v1[1], s0[1], s1[1])
+            + _to_power(v0[2], v1[2], s0[2], s1[2]) + _to_power(v0[3], v1[3], s0[3], s1[3]))
+
+
+@njit(cache=True, error_model="numpy", inline="always")
+def patch_eval(a, u, w):
+    """A patch in power form (:func:`patch_coefficients`) and its derivatives at (u, w).
+
+    Returns
+    -------
+    (V, dV/du, dV/dw) : tuple of float
+        u and w may lie outside [0, 1]: the polynomial is continued beyond the cell's walls.
+    """
+    # the cubic in w of each power of u, and its w-derivative (constant indices: the tuple stays
+    # in registers)
+    c0, d0 = _cubic(a[0], a[1], a[2], a[3], w)
+    c1, d1 = _cubic(a[4], a[5], a[6], a[7], w)
+    c2, d2 = _cubic(a[8], a[9], a[10], a[11], w)
+    c3, d3 = _cubic(a[12], a[13], a[14], a[15], w)
+    v, vu = _cubic(c0, c1, c2, c3, u)
+    return v, vu, _cubic(d0, d1, d2, d3, u)[0]
+
+
+@njit(cache=True, error_model="numpy", inline="always")
+def _cubic(a0, a1, a2, a3, x):
+    """``a0 + a1 x + a2 x^2 + a3 x^3`` and its derivative (Horner)."""
+    return a0 + x * (a1 + x * (a2 + x * a3)), a1 + x * (2.0 * a2 + 3.0 * x * a3)
 
 
 @njit(cache=True, error_model="numpy", inline="always")
@@ -105,26 +152,8 @@ def hermite_eval(h, z0, r0, hz, hr, nz, nr, mirror, z, r):
         sign = -1.0
     i = cell_index(z, z0, hz, nz)
     j = cell_index(r, r0, hr, nr)
-    a0, a1, b0, b1, da0, da1, db0, db1 = _cubic_hermite((z - z0) / hz - i, hz)
-    c0, c1, d0, d1, dc0, dc1, dd0, dd1 = _cubic_hermite((r - r0) / hr - j, hr)
-    v = 0.0
-    vz = 0.0
-    vr = 0.0
-    for p in range(2):
-        ip = i + p
-        # contract the r direction on the z-side p: g = value, gz = z-slope, e/ez = their r-derivatives
-        g = c0 * h[0, ip, j] + c1 * h[0, ip, j + 1] + d0 * h[2, ip, j] + d1 * h[2, ip, j + 1]
-        gz = c0 * h[1, ip, j] + c1 * h[1, ip, j + 1] + d0 * h[3, ip, j] + d1 * h[3, ip, j + 1]
-        e = dc0 * h[0, ip, j] + dc1 * h[0, ip, j + 1] + dd0 * h[2, ip, j] + dd1 * h[2, ip, j + 1]
-        ez = dc0 * h[1, ip, j] + dc1 * h[1, ip, j + 1] + dd0 * h[3, ip, j] + dd1 * h[3, ip, j + 1]
-        if p == 0:
-            wa, wb, wda, wdb = a0, b0, da0, db0
-        else:
-            wa, wb, wda, wdb = a1, b1, da1, db1
-        v += wa * g + wb * gz
-        vz += wda * g + wdb * gz
-        vr += wa * e + wb * ez
-    return v, vz, sign * vr
+    v, vu, vw = patch_eval(patch_coefficients(h, i, j, hz, hr), (z - z0) / hz - i, (r - r0) / hr - j)
+    return v, vu / hz, sign * vw / hr
 
 
 @njit(cache=True, error_model="numpy")

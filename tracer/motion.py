@@ -5,8 +5,8 @@ Rays move by the relativistic equations of motion in momentum form,
     dx/dt = p / (gamma m),     dp/dt = q E(x),     gamma = sqrt(1 + (|p| / (m c))^2),
 
 in 3-D Cartesian coordinates (x, y, z), z along the axis. The field comes from a (z, r) potential
-map through the bicubic Hermite interpolant of :mod:`tracer.fieldmap`, put in power form per
-cell (:func:`patch_coefficients`):
+map through the bicubic Hermite interpolant of :mod:`tracer.fieldmap`, each cell's patch in power
+form (``fieldmap.patch_coefficients``), computed once per cell for all of its steps:
 
 * axial symmetry: r = hypot(x, y), E_x = E_r x / r, E_y = E_r y / r (zero on the axis);
 * planar: the map's r is y, E_x = 0;
@@ -56,7 +56,7 @@ import numpy as np
 from numba import njit, prange
 from scipy import constants
 
-from tracer.fieldmap import cell_index
+from tracer.fieldmap import cell_index, patch_coefficients, patch_eval
 from tracer.geometry import electrode_at, first_hit
 from tracer.ledger import kinetic_energy_J
 
@@ -125,39 +125,14 @@ def cell_ahead(grid, sym, s, length):
 
 
 @njit(cache=True, error_model="numpy", inline="always")
-def _to_power(v0, v1, s0, s1):
-    """Power-form coefficients of the cubic with end values v0, v1 and end slopes s0, s1 (per cell)."""
-    return v0, s0, 3.0 * (v1 - v0) - 2.0 * s0 - s1, 2.0 * (v0 - v1) + s0 + s1
-
-
-@njit(cache=True, error_model="numpy", inline="always")
-def patch_coefficients(herm, i, j, hz, hr, a):
-    """Write into a[p, q] the coefficients of u^p w^q of cell (i, j)'s bicubic Hermite patch.
-
-    u and w are the fractions of the cell along z and r.  This is the polynomial that
-    :func:`tracer.fieldmap.hermite_eval` evaluates from the Hermite basis, rewritten once per cell
-    so that the many evaluations of one cell's steps cost a few multiply-adds each.
-    """
-    for q in range(2):
-        for p in range(2):
-            a[p, q] = herm[0, i + p, j + q]
-            a[2 + p, q] = hz * herm[1, i + p, j + q]
-            a[p, 2 + q] = hr * herm[2, i + p, j + q]
-            a[2 + p, 2 + q] = hz * hr * herm[3, i + p, j + q]
-    for q in range(4):
-        a[0, q], a[1, q], a[2, q], a[3, q] = _to_power(a[0, q], a[1, q], a[2, q], a[3, q])
-    for p in range(4):
-        a[p, 0], a[p, 1], a[p, 2], a[p, 3] = _to_power(a[p, 0], a[p, 1], a[p, 2], a[p, 3])
-
-
-@njit(cache=True, error_model="numpy", inline="always")
 def patch_field(a, pz, pr, grid, sym, x, y, z):
     """Potential and field at a 3-D point from the bicubic polynomial of one interpolation cell.
 
     Parameters
     ----------
-    a : float64[4, 4]
-        The cell's :func:`patch_coefficients`; the polynomial is continued beyond its walls.
+    a : tuple of 16 float
+        The cell's ``tracer.fieldmap.patch_coefficients``; the polynomial is continued beyond its
+        walls.
     pz, pr : float
         The cell's first corner (z, r).
     grid : float64[8]
@@ -174,17 +149,7 @@ def patch_field(a, pz, pr, grid, sym, x, y, z):
     """
     z0, r0, hz, hr, z1, r1 = grid[0], grid[1], grid[2], grid[3], grid[6], grid[7]
     r = map_r(sym, x, y)
-    u = (min(max(z, z0), z1) - pz) / hz
-    w = (min(max(r, r0), r1) - pr) / hr
-    v = 0.0
-    vu = 0.0
-    vw = 0.0
-    for p in range(3, -1, -1):   # Horner in u over the cubics in w of each power of u
-        c = a[p, 0] + w * (a[p, 1] + w * (a[p, 2] + w * a[p, 3]))
-        d = a[p, 1] + w * (2.0 * a[p, 2] + 3.0 * w * a[p, 3])
-        vu = vu * u + v
-        v = v * u + c
-        vw = vw * u + d
+    v, vu, vw = patch_eval(a, (min(max(z, z0), z1) - pz) / hz, (min(max(r, r0), r1) - pr) / hr)
     dvdr = vw / hr
     ez = -vu / hz
     if sym == 0:
@@ -199,13 +164,12 @@ def patch_field(a, pz, pr, grid, sym, x, y, z):
     return v, 0.0, -dvdr, ez
 
 
-@njit(cache=True, error_model="numpy")
+@njit(cache=True, error_model="numpy", inline="always")
 def field_at(herm, grid, sym, x, y, z):
     """Potential and field of the interpolant at a 3-D point (see :func:`patch_field`)."""
     i, j = cell_of(grid, sym, x, y, z)
-    a = np.empty((4, 4))
-    patch_coefficients(herm, i, j, grid[2], grid[3], a)
-    return patch_field(a, grid[0] + i * grid[2], grid[1] + j * grid[3], grid, sym, x, y, z)
+    return patch_field(patch_coefficients(herm, i, j, grid[2], grid[3]), grid[0] + i * grid[2],
+                       grid[1] + j * grid[3], grid, sym, x, y, z)
 
 
 @njit(cache=True, error_model="numpy", inline="always")
@@ -606,9 +570,8 @@ def trace_one(s0, herm, grid, sym, bounds, cell, geo, mass, charge, t_max, rtol,
     r_start = map_r(sym, y0[0], y0[1])
     z0, r0, hz, hr = grid[0], grid[1], grid[2], grid[3]
     ci, cj = cell_ahead(grid, sym, y0, snap)
-    patch = np.empty((4, 4))        # the power form of the current cell's polynomial
-    patch_next = np.empty((4, 4))   # and of the cell the ray is about to enter
-    patch_coefficients(herm, ci, cj, hz, hr, patch)
+    patch = patch_coefficients(herm, ci, cj, hz, hr)   # the current cell's polynomial
+    patch_next = patch                                  # and that of the cell ahead
     v_start = derivative(patch, z0 + ci * hz, r0 + cj * hr, grid, sym, mass, charge, y0, ks, 0)
     evals += 1
     k0[:] = ks[0]
@@ -702,7 +665,7 @@ def trace_one(s0, herm, grid, sym, bounds, cell, geo, mass, charge, t_max, rtol,
             if past and dt * speed(y1, mass) > snap:
                 th = wall_theta(rt, sym, box, 1.0, geo, buf)
             else:
-                patch_coefficients(herm, ni, nj, hz, hr, patch_next)
+                patch_next = patch_coefficients(herm, ni, nj, hz, hr)
                 v_next = derivative(patch_next, z0 + ni * hz, r0 + nj * hr, grid, sym, mass,
                                     charge, y1, k_next, 0)
                 evals += 1
@@ -801,7 +764,7 @@ def trace_one(s0, herm, grid, sym, bounds, cell, geo, mass, charge, t_max, rtol,
                 k0[i] = ks[0, i]
             if enter:
                 ci, cj = ni, nj
-                patch, patch_next = patch_next, patch
+                patch = patch_next
             if n_path_cap > 0 and steps % stride == 0:
                 if n_path == n_path_cap - 1:
                     n_path = thin_path(path, n_path)
