@@ -152,7 +152,7 @@ class BeamRun:
         """
         rec = self.records
         n = len(rec)
-        status = {s: int(np.count_nonzero(rec["status"] == s)) for s in STATUS.values()}
+        status = {s: 0 for s in STATUS.values()} | stats.loss_reasons(rec)
         current = float(self.starts["weight_A"].sum())
         planes = {}
         for p in self.planes:
