@@ -120,6 +120,77 @@ def test_dense_output_matches_scipy_interpolant():
         assert np.allclose(out, ref, rtol=0, atol=1e-13)
 
 
+def test_dp_step_is_the_tableau_applied_to_the_rate():
+    """One kernel step equals the Dormand–Prince formulas written out with numpy over the same
+    right-hand side (Dormand & Prince 1980: y1 = y0 + h sum b_i k_i, error h sum e_i k_i)."""
+    rng = np.random.default_rng(5)
+    a = tuple(rng.normal(size=16))
+    grid = np.array([0.0, 0.0, 1e-3, 1e-3, 11.0, 11.0, 1e-2, 1e-2])
+    mass, charge = constants.m_p, constants.e
+    y0 = np.array([2e-3, 1e-3, 3e-3, 1e-23, -2e-23, 5e-22])
+    h = 1e-9
+
+    def f(s):
+        return np.array(motion.rate(a, 2e-3, 1e-3, grid, 0, mass, charge, tuple(s))[1])
+
+    ks = [f(y0)]
+    for st in range(1, 7):
+        ks.append(f(y0 + h * (motion.DP_A[st, :st] @ np.array(ks))))
+    y1, v1, *rest, err = motion.dp_step(a, 2e-3, 1e-3, grid, 0, mass, charge, tuple(y0),
+                                        tuple(ks[0]), h)
+    assert np.allclose(y1, y0 + h * (motion.DP_B @ np.array(ks)), rtol=1e-14, atol=0)
+    assert np.allclose(np.array(rest), np.array(ks[1:]), rtol=1e-12, atol=0)
+    assert np.allclose(err, h * (motion.DP_E @ np.array(ks)), rtol=1e-9, atol=1e-30)
+    assert v1 == motion.rate(a, 2e-3, 1e-3, grid, 0, mass, charge, y1)[0]
+
+
+def test_wall_prediction_continues_the_dense_output_and_finds_the_crossing():
+    """The predicted path is the last step's dense output continued (its re-expansion about the
+    step's end is the same quartic: Taylor's theorem), and the predicted exit time puts that path
+    on a wall of the cell to the requested tolerance."""
+    rng = np.random.default_rng(11)
+    hp = 2e-9
+    y0 = np.array([1.1e-3, 0.4e-3, 20.1e-3, 0.0, 0.0, 0.0])
+    k0 = np.array([3e3, 4e3, 2e5, 0.0, 0.0, 0.0])
+    rc = np.zeros((5, 6))
+    rc[0] = y0 - hp * k0
+    rc[1] = hp * k0
+    rc[2:, :3] = rng.normal(scale=1e-7, size=(3, 3))
+    q = np.empty((3, 5))
+    motion.reach(rc, hp, y0, k0, constants.m_p, 2e-9, q)
+    out = np.empty(6)
+    for tau in (0.0, 0.7e-9, 2e-9, 5e-9):
+        motion.dense(rc, 1.0 + tau / hp, out)
+        pred = [motion.series(q, i, tau)[0] for i in range(3)]
+        assert np.allclose(pred, out[:3], rtol=1e-12, atol=1e-15)
+    grid = np.array([0.0, 0.0, 0.25e-3, 0.25e-3, 241.0, 33.0, 60e-3, 8e-3])
+    tol = 2.5e-8
+    box = np.empty(4)
+    for h, crosses in ((2e-9, True), (0.5e-9, False)):
+        motion.cell_box(grid, 80, 4, box)
+        walls = box.copy()
+        tau = motion.exit_time(q, y0, k0, 0, box, h, tol)
+        if not crosses:
+            assert tau == h          # the path stays inside the cell for the whole step
+            continue
+        assert 0.0 < tau < h
+        z = motion.series(q, 2, tau)[0]
+        assert abs(z - walls[1]) < tol
+        # the path is inside the cell before the crossing
+        zs = [motion.series(q, 2, t)[0] for t in np.linspace(0.0, tau, 20)[:-1]]
+        assert max(zs) < walls[1]
+    # a ray moving out across the cell's outer wall (r) before it reaches the next z wall
+    y0 = np.array([1.2e-3, 0.1e-3, 20.01e-3, 0.0, 0.0, 0.0])
+    k0 = np.array([2e5, 1e4, 5e4, 0.0, 0.0, 0.0])
+    motion.reach(rc, 0.0, y0, k0, constants.m_p, 1e-9, q)     # no last step: constant rate
+    motion.cell_box(grid, 80, 4, box)
+    walls = box.copy()
+    tau = motion.exit_time(q, y0, k0, 0, box, 1e-9, tol)
+    x, y = motion.series(q, 0, tau)[0], motion.series(q, 1, tau)[0]
+    assert 0.0 < tau < 1e-9 and abs(np.hypot(x, y) - walls[3]) < tol
+    assert motion.series(q, 2, tau)[0] < walls[1]
+
+
 def equations(field, mass, charge, sym):
     """Right-hand side for solve_ivp: the same physics as the kernel, written with numpy, on the
     same interpolant (tracer.fieldmap.hermite_eval)."""

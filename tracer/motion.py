@@ -82,6 +82,11 @@ DP_D = np.array([-12715105075 / 11282082432, 0.0, 87487479700 / 32700410799,
                  -10690763975 / 1880347072, 701980252875 / 199316789632,
                  -1453857185 / 822651844, 69997945 / 29380423])
 
+# The same tableau as tuples of seven weights (compile-time constants of the kernel): row i of A
+# for stage i + 1 (i = 1..6) and the error weights E.
+STAGE_WEIGHTS = tuple(tuple(float(a) for a in row) + (0.0,) for row in DP_A)
+ERROR_WEIGHTS = tuple(float(e) for e in DP_E)
+
 SYMMETRY_CODE = {"axial": 0, "planar": 1, "mirror": 2}
 
 # Ray end codes (see tracer.beam.STATUS for the names).
@@ -147,14 +152,16 @@ def patch_field(a, pz, pr, grid, sym, x, y, z):
     (V, Ex, Ey, Ez) : tuple of float
         Volts and V/m. Points outside the grid are clamped onto it.
     """
-    z0, r0, hz, hr, z1, r1 = grid[0], grid[1], grid[2], grid[3], grid[6], grid[7]
+    z0, r0, z1, r1 = grid[0], grid[1], grid[6], grid[7]
+    iz, ir = 1.0 / grid[2], 1.0 / grid[3]
     r = map_r(sym, x, y)
-    v, vu, vw = patch_eval(a, (min(max(z, z0), z1) - pz) / hz, (min(max(r, r0), r1) - pr) / hr)
-    dvdr = vw / hr
-    ez = -vu / hz
+    v, vu, vw = patch_eval(a, (min(max(z, z0), z1) - pz) * iz, (min(max(r, r0), r1) - pr) * ir)
+    dvdr = vw * ir
+    ez = -vu * iz
     if sym == 0:
         if r > 0.0:
-            return v, -dvdr * x / r, -dvdr * y / r, ez
+            f = -dvdr / r
+            return v, f * x, f * y, ez
         return v, 0.0, 0.0, ez
     if sym == 2:
         if y < 0.0:
@@ -173,20 +180,62 @@ def field_at(herm, grid, sym, x, y, z):
 
 
 @njit(cache=True, error_model="numpy", inline="always")
-def derivative(a, pz, pr, grid, sym, mass, charge, s, ks, row):
+def rate(a, pz, pr, grid, sym, mass, charge, s):
     """Right-hand side of the equations of motion in the field of one cell (see
-    :func:`patch_field`); writes ks[row], returns the potential at s."""
+    :func:`patch_field`) at state s (x, y, z, px, py, pz).
+
+    Returns
+    -------
+    (V, k) : the potential at s and the 6-tuple d(state)/dt.
+    """
     mc = mass * C_LIGHT
     px, py, pz_ = s[3], s[4], s[5]
-    gm = mass * math.sqrt(1.0 + (px * px + py * py + pz_ * pz_) / (mc * mc))
-    ks[row, 0] = px / gm
-    ks[row, 1] = py / gm
-    ks[row, 2] = pz_ / gm
+    igm = 1.0 / (mass * math.sqrt(1.0 + (px * px + py * py + pz_ * pz_) / (mc * mc)))
     v, ex, ey, ez = patch_field(a, pz, pr, grid, sym, s[0], s[1], s[2])
-    ks[row, 3] = charge * ex
-    ks[row, 4] = charge * ey
-    ks[row, 5] = charge * ez
-    return v
+    return v, (px * igm, py * igm, pz_ * igm, charge * ex, charge * ey, charge * ez)
+
+
+@njit(cache=True, error_model="numpy", inline="always")
+def _dot7(w, i, k1, k2, k3, k4, k5, k6, k7):
+    """Component i of sum_j w[j] k_j over seven stage rates."""
+    return (w[0] * k1[i] + w[1] * k2[i] + w[2] * k3[i] + w[3] * k4[i] + w[4] * k5[i]
+            + w[5] * k6[i] + w[6] * k7[i])
+
+
+@njit(cache=True, error_model="numpy", inline="always")
+def combine(y, h, w, k1, k2, k3, k4, k5, k6, k7):
+    """The 6-tuple y + h sum_j w[j] k_j (a stage's state, or with y = 0 an error estimate)."""
+    return (y[0] + h * _dot7(w, 0, k1, k2, k3, k4, k5, k6, k7),
+            y[1] + h * _dot7(w, 1, k1, k2, k3, k4, k5, k6, k7),
+            y[2] + h * _dot7(w, 2, k1, k2, k3, k4, k5, k6, k7),
+            y[3] + h * _dot7(w, 3, k1, k2, k3, k4, k5, k6, k7),
+            y[4] + h * _dot7(w, 4, k1, k2, k3, k4, k5, k6, k7),
+            y[5] + h * _dot7(w, 5, k1, k2, k3, k4, k5, k6, k7))
+
+
+@njit(cache=True, error_model="numpy", inline="always")
+def dp_step(a, pz, pr, grid, sym, mass, charge, y, k1, h):
+    """One Dormand–Prince 5(4) step of length h from state y with first-stage rate k1, all
+    stages in the field of one cell's polynomial (``a`` at corner pz, pr).
+
+    States and rates are 6-tuples, so the stages stay in registers.
+
+    Returns
+    -------
+    (y1, v1, k2, k3, k4, k5, k6, k7, err) : the fifth-order end state, its potential, the stage
+    rates (k7 at y1, the next step's k1), and the embedded error estimate h sum_j E_j k_j.
+    """
+    w = STAGE_WEIGHTS
+    o = (0.0, 0.0, 0.0, 0.0, 0.0, 0.0)
+    k2 = rate(a, pz, pr, grid, sym, mass, charge, combine(y, h, w[1], k1, o, o, o, o, o, o))[1]
+    k3 = rate(a, pz, pr, grid, sym, mass, charge, combine(y, h, w[2], k1, k2, o, o, o, o, o))[1]
+    k4 = rate(a, pz, pr, grid, sym, mass, charge, combine(y, h, w[3], k1, k2, k3, o, o, o, o))[1]
+    k5 = rate(a, pz, pr, grid, sym, mass, charge, combine(y, h, w[4], k1, k2, k3, k4, o, o, o))[1]
+    k6 = rate(a, pz, pr, grid, sym, mass, charge, combine(y, h, w[5], k1, k2, k3, k4, k5, o, o))[1]
+    y1 = combine(y, h, w[6], k1, k2, k3, k4, k5, k6, o)
+    v1, k7 = rate(a, pz, pr, grid, sym, mass, charge, y1)
+    err = combine(o, h, ERROR_WEIGHTS, k1, k2, k3, k4, k5, k6, k7)
+    return y1, v1, k2, k3, k4, k5, k6, k7, err
 
 
 @njit(cache=True, error_model="numpy", inline="always")
@@ -362,75 +411,125 @@ def closest_to_axis(s, k):
 
 
 @njit(cache=True, error_model="numpy", inline="always")
-def predict(rc, hp, y0, k0, mass, tau, out):
-    """Predicted position ``tau`` after state y0 (into out[:3]): the last accepted step's dense
-    output (of length ``hp``) continued, or constant acceleration when there is none."""
-    if hp > 0.0 and tau <= PREDICT_SPAN * hp:
-        dense(rc, 1.0 + tau / hp, out)
+def reach(rc, hp, y0, k0, mass, h, q):
+    """Power series in time since state y0 of the predicted position (into q[3, 5]): the last
+    accepted step's dense output (of length ``hp``) continued when h is within ``PREDICT_SPAN``
+    of its length, else constant acceleration from y0."""
+    if hp > 0.0 and h <= PREDICT_SPAN * hp:
+        for i in range(3):
+            # the dense output in powers of theta, then re-expanded about its end (theta = 1)
+            p1 = rc[1, i] + rc[2, i]
+            p2 = rc[3, i] + rc[4, i] - rc[2, i]
+            p3 = -(rc[3, i] + 2.0 * rc[4, i])
+            p4 = rc[4, i]
+            q[i, 0] = rc[0, i] + p1 + p2 + p3 + p4
+            q[i, 1] = (p1 + 2.0 * p2 + 3.0 * p3 + 4.0 * p4) / hp
+            q[i, 2] = (p2 + 3.0 * p3 + 6.0 * p4) / (hp * hp)
+            q[i, 3] = (p3 + 4.0 * p4) / (hp * hp * hp)
+            q[i, 4] = p4 / (hp * hp * hp * hp)
         return
     mc = mass * C_LIGHT
     gm = mass * math.sqrt(1.0 + (y0[3] * y0[3] + y0[4] * y0[4] + y0[5] * y0[5]) / (mc * mc))
     for i in range(3):
-        out[i] = y0[i] + tau * (k0[i] + 0.5 * tau * k0[3 + i] / gm)
+        q[i, 0] = y0[i]
+        q[i, 1] = k0[i]
+        q[i, 2] = 0.5 * k0[3 + i] / gm
+        q[i, 3] = 0.0
+        q[i, 4] = 0.0
 
 
-@njit(cache=True, error_model="numpy")
-def exit_time(rc, hp, y0, k0, mass, sym, box, h, tol, buf):
+@njit(cache=True, error_model="numpy", inline="always")
+def series(q, i, tau):
+    """Value and rate at tau of row i of a :func:`reach` series (Horner)."""
+    v = q[i, 4]
+    d = 0.0
+    for m in range(3, -1, -1):
+        d = d * tau + v
+        v = v * tau + q[i, m]
+    return v, d
+
+
+@njit(cache=True, error_model="numpy", inline="always")
+def series_past(q, sym, w, wall, tau):
+    """How far the predicted point at tau lies beyond wall w (0 z_lo, 1 z_hi, 2 r_lo, 3 r_hi) at
+    ``wall``, and the rate of that distance."""
+    if w < 2:
+        z, dz = series(q, 2, tau)
+        return (wall - z, -dz) if w == 0 else (z - wall, dz)
+    if sym == 0:
+        x, dx = series(q, 0, tau)
+        y, dy = series(q, 1, tau)
+        r = math.sqrt(x * x + y * y)
+        dr = (x * dx + y * dy) / r if r > 0.0 else math.sqrt(dx * dx + dy * dy)
+    else:
+        r, dr = series(q, 1, tau)
+        if sym == 2 and r < 0.0:
+            r, dr = -r, -dr
+    return (wall - r, -dr) if w == 2 else (r - wall, dr)
+
+
+@njit(cache=True, error_model="numpy", inline="always")
+def crossing(q, sym, w, wall, g_lo, hi, g_hi, tol):
+    """Time in (0, hi] at which the predicted path reaches a wall it lies ``g_lo`` < 0 beyond at 0
+    and ``g_hi`` > 0 beyond at hi, to ``tol`` metres: Newton's method kept inside the bracket."""
+    lo = 0.0
+    tau = lo - g_lo * (hi - lo) / (g_hi - g_lo)
+    for _ in range(12):
+        g, dg = series_past(q, sym, w, wall, tau)
+        if abs(g) < tol:
+            break
+        if g > 0.0:
+            hi = tau
+        else:
+            lo = tau
+        nxt = tau - g / dg if dg != 0.0 else -1.0
+        tau = nxt if lo < nxt < hi else 0.5 * (lo + hi)
+    return tau
+
+
+@njit(cache=True, error_model="numpy", inline="always")
+def first_crossing(best, q, sym, w, wall, g_0, hi, g_hi, tol):
+    """The earlier of ``best`` and the predicted crossing of wall w, when the path lies before
+    it at 0 (``g_0`` < 0) and beyond it at hi (``g_hi`` > 0)."""
+    if g_0 < 0.0 and g_hi > 0.0:
+        return min(best, crossing(q, sym, w, wall, g_0, hi, g_hi, tol))
+    return best
+
+
+@njit(cache=True, error_model="numpy", inline="always")
+def exit_time(q, y0, k0, sym, box, h, tol):
     """Predicted time within ``h`` at which a ray leaves its cell (``box``); h if it stays.
 
-    The crossing is found to ``tol`` metres.
-
-    The walls the ray moves away from are first pushed back by a cell (the start may lie on, or
-    just before, the wall it has entered through); the crossing of the wall the predicted end lies
-    farthest beyond is then found by regula falsi (Illinois).
+    ``q`` is the predicted path (:func:`reach`), the crossing is found to ``tol`` metres. The
+    walls the ray moves away from are pushed back by a cell (the start may lie on, or just
+    before, the wall it has entered through); of the walls the predicted path lies beyond at h (or,
+    in axial symmetry, at its straight line's closest approach to the axis), the first crossed
+    is taken.
     """
+    z_lo, z_hi, r_lo, r_hi = box[0], box[1], box[2], box[3]
+    z0_, r0_ = y0[2], map_r(sym, y0[0], y0[1])
     if k0[2] >= 0.0:
-        box[0] = min(box[0], y0[2]) - (box[1] - box[0])
+        z_lo = min(z_lo, z0_) - (z_hi - z_lo)
     else:
-        box[1] = max(box[1], y0[2]) + (box[1] - box[0])
-    r0_ = map_r(sym, y0[0], y0[1])
-    if r_rate(sym, y0, k0) >= 0.0:
-        box[2] = min(box[2], r0_) - (box[3] - box[2])
+        z_hi = max(z_hi, z0_) + (z_hi - z_lo)
+    inward = r_rate(sym, y0, k0) < 0.0
+    if inward:
+        r_hi = max(r_hi, r0_) + (r_hi - r_lo)
     else:
-        box[3] = max(box[3], r0_) + (box[3] - box[2])
+        r_lo = min(r_lo, r0_) - (r_hi - r_lo)
+    z_h = series(q, 2, h)[0]
+    r_h = map_r(sym, series(q, 0, h)[0], series(q, 1, h)[0])
+    best = first_crossing(h, q, sym, 0, z_lo, z_lo - z0_, h, z_lo - z_h, tol)
+    best = first_crossing(best, q, sym, 1, z_hi, z0_ - z_hi, h, z_h - z_hi, tol)
+    best = first_crossing(best, q, sym, 3, r_hi, r0_ - r_hi, h, r_h - r_hi, tol)
+    g_lo = r_lo - r_h
     hi = h
-    predict(rc, hp, y0, k0, mass, hi, buf)
-    w, g_hi = beyond(box, sym, buf)
-    if g_hi <= 0.0 and sym == 0:
+    if g_lo <= 0.0 and sym == 0 and inward and r_lo > 0.0:
         tau = closest_to_axis(y0, k0)
         if 0.0 < tau < h:
-            predict(rc, hp, y0, k0, mass, tau, buf)
-            w, g = beyond(box, sym, buf)
-            if g > 0.0:
-                hi, g_hi = tau, g
-    if g_hi <= 0.0:
-        return h
-    tau = hi
-    for _ in range(3):          # a wall crossed earlier than wall w takes its place
-        lo = 0.0
-        g_lo = past_wall(box, sym, y0, w)
-        side = 0
-        for _ in range(8):
-            tau = lo - g_lo * (hi - lo) / (g_hi - g_lo)
-            predict(rc, hp, y0, k0, mass, tau, buf)
-            g = past_wall(box, sym, buf, w)
-            if abs(g) < tol:
-                break
-            if g > 0.0:
-                hi, g_hi = tau, g
-                if side == 1:
-                    g_lo *= 0.5
-                side = 1
-            else:
-                lo, g_lo = tau, g
-                if side == -1:
-                    g_hi *= 0.5
-                side = -1
-        q, g = beyond(box, sym, buf)
-        if q == w or g <= tol:
-            break
-        w, hi, g_hi = q, tau, g
-    return tau
+            hi = tau
+            g_lo = series_past(q, sym, 2, r_lo, hi)[0]
+    return first_crossing(best, q, sym, 2, r_lo, r_lo - r0_, hi, g_lo, tol)
 
 
 @njit(cache=True, error_model="numpy", inline="always")
@@ -460,7 +559,7 @@ def kink_error(k_next, k_this, dt, y0, y1, rtol, atol_p):
     return math.sqrt(acc / 6.0)
 
 
-@njit(cache=True, error_model="numpy")
+@njit(cache=True, error_model="numpy", inline="always")
 def excursion(rc, sym, y0, k0, y1, k1, h, box, buf):
     """theta where the path of a step whose ends lie in the box leaves it between them, else 2.0.
 
@@ -544,14 +643,14 @@ def trace_one(s0, herm, grid, sym, bounds, cell, geo, mass, charge, t_max, rtol,
     -------
     (code, electrode, n_cross, n_path, steps, rejected, evaluations)
     """
-    ks = np.empty((7, 6))
-    k0 = np.empty(6)           # ks[0] and ks[6] as vectors, for the helpers
-    k1 = np.empty(6)
-    k_next = np.empty((1, 6))  # the first stage of the next step when it enters a new cell
+    ks = np.empty((7, 6))      # the stage rates of the last step within error, for its dense output
+    k0 = np.empty(6)           # the current step's first stage rate
+    k1 = np.empty(6)           # the rate at the end of the last step
+    k_next = np.empty(6)       # the first stage of the next step when it enters a new cell
     y0 = s0.copy()
     y1 = np.empty(6)
-    tmp = np.empty(6)
     rc = np.zeros((5, 6))      # dense output of the last accepted step
+    ahead = np.empty((3, 5))   # the predicted path of the next step (reach)
     rt = np.zeros((5, 6))      # dense output of the trial step
     buf = np.empty(6)
     pa = np.empty(2)
@@ -572,9 +671,10 @@ def trace_one(s0, herm, grid, sym, bounds, cell, geo, mass, charge, t_max, rtol,
     ci, cj = cell_ahead(grid, sym, y0, snap)
     patch = patch_coefficients(herm, ci, cj, hz, hr)   # the current cell's polynomial
     patch_next = patch                                  # and that of the cell ahead
-    v_start = derivative(patch, z0 + ci * hz, r0 + cj * hr, grid, sym, mass, charge, y0, ks, 0)
+    v_start, kt = rate(patch, z0 + ci * hz, r0 + cj * hr, grid, sym, mass, charge, y0)
     evals += 1
-    k0[:] = ks[0]
+    for i in range(6):
+        k0[i] = kt[i]
     ke_start = kinetic_energy_J(y0[3], y0[4], y0[5], mass)
     worst = 0.0
     for i in range(6):
@@ -610,31 +710,22 @@ def trace_one(s0, herm, grid, sym, bounds, cell, geo, mass, charge, t_max, rtol,
         else:
             h = min(h_err, step_cap(y0, k0, mass, max_step), t_max - t)
             cell_box(grid, ci, cj, box)
-            h_wall = exit_time(rc, hp, y0, k0, mass, sym, box, STRETCH * h, 0.1 * snap, buf)
+            reach(rc, hp, y0, k0, mass, STRETCH * h, ahead)
+            h_wall = exit_time(ahead, y0, k0, sym, box, STRETCH * h, 0.1 * snap)
             if h_wall < STRETCH * h:
                 h = h_wall
         if t + h == t:
             code = STALLED
             break
-        for st in range(1, 7):
-            for i in range(6):
-                acc = 0.0
-                for j in range(st):
-                    acc += DP_A[st, j] * ks[j, i]
-                tmp[i] = y0[i] + h * acc
-            if st == 6:
-                for i in range(6):
-                    y1[i] = tmp[i]
-            v1 = derivative(patch, z0 + ci * hz, r0 + cj * hr, grid, sym, mass, charge, tmp, ks, st)
+        ya = (y0[0], y0[1], y0[2], y0[3], y0[4], y0[5])
+        ka = (k0[0], k0[1], k0[2], k0[3], k0[4], k0[5])
+        yb, v1, k2, k3, k4, k5, k6, k7, err = dp_step(patch, z0 + ci * hz, r0 + cj * hr, grid,
+                                                      sym, mass, charge, ya, ka, h)
         evals += 6
-        k1[:] = ks[6]
         acc2 = 0.0
         for i in range(6):
-            e = 0.0
-            for j in range(7):
-                e += DP_E[j] * ks[j, i]
             a = atol_x if i < 3 else atol_p
-            e *= h / (a + rtol * max(abs(y0[i]), abs(y1[i])))
+            e = err[i] / (a + rtol * max(abs(ya[i]), abs(yb[i])))
             acc2 += e * e
         enorm = math.sqrt(acc2 / 6.0)
         if not enorm <= 1.0:
@@ -642,6 +733,16 @@ def trace_one(s0, herm, grid, sym, bounds, cell, geo, mass, charge, t_max, rtol,
             fac = FAC_MIN if not enorm < 1e300 else max(FAC_MIN, SAFETY * enorm ** -0.2)
             h_err = h * min(1.0, fac)
             continue
+        for i in range(6):
+            y1[i] = yb[i]
+            k1[i] = k7[i]
+            ks[0, i] = ka[i]
+            ks[1, i] = k2[i]
+            ks[2, i] = k3[i]
+            ks[3, i] = k4[i]
+            ks[4, i] = k5[i]
+            ks[5, i] = k6[i]
+            ks[6, i] = k7[i]
 
         # the cell the step ends in, and the one it is about to enter
         dense_coefficients(y0, y1, ks, h, rt)
@@ -666,10 +767,12 @@ def trace_one(s0, herm, grid, sym, bounds, cell, geo, mass, charge, t_max, rtol,
                 th = wall_theta(rt, sym, box, 1.0, geo, buf)
             else:
                 patch_next = patch_coefficients(herm, ni, nj, hz, hr)
-                v_next = derivative(patch_next, z0 + ni * hz, r0 + nj * hr, grid, sym, mass,
-                                    charge, y1, k_next, 0)
+                v_next, kt = rate(patch_next, z0 + ni * hz, r0 + nj * hr, grid, sym, mass, charge,
+                                  yb)
                 evals += 1
-                if cut or kink_error(k_next[0], k1, dt, y0, y1, rtol, atol_p) <= KINK_FRACTION:
+                for i in range(6):
+                    k_next[i] = kt[i]
+                if cut or kink_error(k_next, k1, dt, y0, y1, rtol, atol_p) <= KINK_FRACTION:
                     enter = True
                 elif past:
                     th = wall_theta(rt, sym, box, 1.0, geo, buf)
@@ -684,13 +787,14 @@ def trace_one(s0, herm, grid, sym, bounds, cell, geo, mass, charge, t_max, rtol,
             for i in range(6):
                 rc[m, i] = rt[m, i]
         hp = h
-        vmax = max(speed(y0, mass), speed(y1, mass))
-        n_sub = max(1, int(math.ceil(vmax * h / sample)))
+        n_sub = 0
+        if not quiet[ci, cj]:
+            n_sub = max(1, int(math.ceil(max(speed(y0, mass), speed(y1, mass)) * h / sample)))
         ta = 0.0
         za, ra = y0[2], map_r(sym, y0[0], y0[1])
         xa, ya_ = y0[0], y0[1]
         t_end = 2.0
-        for m in range(1, 0 if quiet[ci, cj] else n_sub + 1):
+        for m in range(1, n_sub + 1):
             tb = m / n_sub
             dense(rc, tb, buf)
             xb, yb, zb = buf[0], buf[1], buf[2]
@@ -760,8 +864,7 @@ def trace_one(s0, herm, grid, sym, bounds, cell, geo, mass, charge, t_max, rtol,
             t = t_new
             for i in range(6):
                 y0[i] = y1[i]
-                ks[0, i] = k_next[0, i] if enter else k1[i]
-                k0[i] = ks[0, i]
+                k0[i] = k_next[i] if enter else k1[i]
             if enter:
                 ci, cj = ni, nj
                 patch = patch_next
@@ -774,7 +877,12 @@ def trace_one(s0, herm, grid, sym, bounds, cell, geo, mass, charge, t_max, rtol,
                     n_path += 1
             # the step-size proposal; a step shortened to a wall does not shrink the next one
             base = max(h, h_err) if h < h_err else h
-            h_err = min(h * max(FAC_MIN, SAFETY * max(enorm, 1e-10) ** -0.2), FAC_MAX * base)
+            cap = FAC_MAX * base
+            x = SAFETY * h / cap       # an error below x^5 proposes more than the cap
+            if enorm < x * x * x * x * x:
+                h_err = cap
+            else:
+                h_err = min(h * max(FAC_MIN, SAFETY * max(enorm, 1e-10) ** -0.2), cap)
         else:
             dense(rc, t_end, buf)
             for i in range(6):
