@@ -82,11 +82,6 @@ DP_D = np.array([-12715105075 / 11282082432, 0.0, 87487479700 / 32700410799,
                  -10690763975 / 1880347072, 701980252875 / 199316789632,
                  -1453857185 / 822651844, 69997945 / 29380423])
 
-# The same tableau as tuples of seven weights (compile-time constants of the kernel): row i of A
-# for stage i + 1 (i = 1..6) and the error weights E.
-STAGE_WEIGHTS = tuple(tuple(float(a) for a in row) + (0.0,) for row in DP_A)
-ERROR_WEIGHTS = tuple(float(e) for e in DP_E)
-
 SYMMETRY_CODE = {"axial": 0, "planar": 1, "mirror": 2}
 
 # Ray end codes (see tracer.beam.STATUS for the names).
@@ -180,62 +175,41 @@ def field_at(herm, grid, sym, x, y, z):
 
 
 @njit(cache=True, error_model="numpy", inline="always")
-def rate(a, pz, pr, grid, sym, mass, charge, s):
+def rate(a, pz, pr, grid, sym, mass, charge, s, ks, row):
     """Right-hand side of the equations of motion in the field of one cell (see
-    :func:`patch_field`) at state s (x, y, z, px, py, pz).
-
-    Returns
-    -------
-    (V, k) : the potential at s and the 6-tuple d(state)/dt.
-    """
+    :func:`patch_field`) at state s (x, y, z, px, py, pz): d(state)/dt into ks[row]; returns the
+    potential at s."""
     mc = mass * C_LIGHT
     px, py, pz_ = s[3], s[4], s[5]
     igm = 1.0 / (mass * math.sqrt(1.0 + (px * px + py * py + pz_ * pz_) / (mc * mc)))
+    ks[row, 0] = px * igm
+    ks[row, 1] = py * igm
+    ks[row, 2] = pz_ * igm
     v, ex, ey, ez = patch_field(a, pz, pr, grid, sym, s[0], s[1], s[2])
-    return v, (px * igm, py * igm, pz_ * igm, charge * ex, charge * ey, charge * ez)
+    ks[row, 3] = charge * ex
+    ks[row, 4] = charge * ey
+    ks[row, 5] = charge * ez
+    return v
 
 
 @njit(cache=True, error_model="numpy", inline="always")
-def _dot7(w, i, k1, k2, k3, k4, k5, k6, k7):
-    """Component i of sum_j w[j] k_j over seven stage rates."""
-    return (w[0] * k1[i] + w[1] * k2[i] + w[2] * k3[i] + w[3] * k4[i] + w[4] * k5[i]
-            + w[5] * k6[i] + w[6] * k7[i])
+def dp_step(a, pz, pr, grid, sym, mass, charge, y0, ks, h, y1):
+    """One Dormand–Prince 5(4) step of length h from state y0, all stages in the field of one
+    cell's polynomial (``a`` at corner pz, pr).
 
-
-@njit(cache=True, error_model="numpy", inline="always")
-def combine(y, h, w, k1, k2, k3, k4, k5, k6, k7):
-    """The 6-tuple y + h sum_j w[j] k_j (a stage's state, or with y = 0 an error estimate)."""
-    return (y[0] + h * _dot7(w, 0, k1, k2, k3, k4, k5, k6, k7),
-            y[1] + h * _dot7(w, 1, k1, k2, k3, k4, k5, k6, k7),
-            y[2] + h * _dot7(w, 2, k1, k2, k3, k4, k5, k6, k7),
-            y[3] + h * _dot7(w, 3, k1, k2, k3, k4, k5, k6, k7),
-            y[4] + h * _dot7(w, 4, k1, k2, k3, k4, k5, k6, k7),
-            y[5] + h * _dot7(w, 5, k1, k2, k3, k4, k5, k6, k7))
-
-
-@njit(cache=True, error_model="numpy", inline="always")
-def dp_step(a, pz, pr, grid, sym, mass, charge, y, k1, h):
-    """One Dormand–Prince 5(4) step of length h from state y with first-stage rate k1, all
-    stages in the field of one cell's polynomial (``a`` at corner pz, pr).
-
-    States and rates are 6-tuples, so the stages stay in registers.
-
-    Returns
-    -------
-    (y1, v1, k2, k3, k4, k5, k6, k7, err) : the fifth-order end state, its potential, the stage
-    rates (k7 at y1, the next step's k1), and the embedded error estimate h sum_j E_j k_j.
+    ks[0] holds the first stage's rate; the step writes the other six into ks[1:] (ks[6], at the
+    end state, is the next step's first) and the fifth-order end state into y1. Returns the
+    potential at y1.
     """
-    w = STAGE_WEIGHTS
-    o = (0.0, 0.0, 0.0, 0.0, 0.0, 0.0)
-    k2 = rate(a, pz, pr, grid, sym, mass, charge, combine(y, h, w[1], k1, o, o, o, o, o, o))[1]
-    k3 = rate(a, pz, pr, grid, sym, mass, charge, combine(y, h, w[2], k1, k2, o, o, o, o, o))[1]
-    k4 = rate(a, pz, pr, grid, sym, mass, charge, combine(y, h, w[3], k1, k2, k3, o, o, o, o))[1]
-    k5 = rate(a, pz, pr, grid, sym, mass, charge, combine(y, h, w[4], k1, k2, k3, k4, o, o, o))[1]
-    k6 = rate(a, pz, pr, grid, sym, mass, charge, combine(y, h, w[5], k1, k2, k3, k4, k5, o, o))[1]
-    y1 = combine(y, h, w[6], k1, k2, k3, k4, k5, k6, o)
-    v1, k7 = rate(a, pz, pr, grid, sym, mass, charge, y1)
-    err = combine(o, h, ERROR_WEIGHTS, k1, k2, k3, k4, k5, k6, k7)
-    return y1, v1, k2, k3, k4, k5, k6, k7, err
+    v1 = 0.0
+    for st in range(1, 7):
+        for i in range(6):
+            acc = 0.0
+            for j in range(st):
+                acc += DP_A[st, j] * ks[j, i]
+            y1[i] = y0[i] + h * acc
+        v1 = rate(a, pz, pr, grid, sym, mass, charge, y1, ks, st)
+    return v1
 
 
 @njit(cache=True, error_model="numpy", inline="always")
@@ -496,7 +470,7 @@ def first_crossing(best, q, sym, w, wall, g_0, hi, g_hi, tol):
     return best
 
 
-@njit(cache=True, error_model="numpy", inline="always")
+@njit(cache=True, error_model="numpy")
 def exit_time(q, y0, k0, sym, box, h, tol):
     """Predicted time within ``h`` at which a ray leaves its cell (``box``); h if it stays.
 
@@ -559,7 +533,7 @@ def kink_error(k_next, k_this, dt, y0, y1, rtol, atol_p):
     return math.sqrt(acc / 6.0)
 
 
-@njit(cache=True, error_model="numpy", inline="always")
+@njit(cache=True, error_model="numpy")
 def excursion(rc, sym, y0, k0, y1, k1, h, box, buf):
     """theta where the path of a step whose ends lie in the box leaves it between them, else 2.0.
 
@@ -643,10 +617,10 @@ def trace_one(s0, herm, grid, sym, bounds, cell, geo, mass, charge, t_max, rtol,
     -------
     (code, electrode, n_cross, n_path, steps, rejected, evaluations)
     """
-    ks = np.empty((7, 6))      # the stage rates of the last step within error, for its dense output
+    ks = np.empty((7, 6))      # the stage rates of the current step
     k0 = np.empty(6)           # the current step's first stage rate
     k1 = np.empty(6)           # the rate at the end of the last step
-    k_next = np.empty(6)       # the first stage of the next step when it enters a new cell
+    k_next = np.empty((1, 6))  # the first stage of the next step when it enters a new cell
     y0 = s0.copy()
     y1 = np.empty(6)
     rc = np.zeros((5, 6))      # dense output of the last accepted step
@@ -671,10 +645,9 @@ def trace_one(s0, herm, grid, sym, bounds, cell, geo, mass, charge, t_max, rtol,
     ci, cj = cell_ahead(grid, sym, y0, snap)
     patch = patch_coefficients(herm, ci, cj, hz, hr)   # the current cell's polynomial
     patch_next = patch                                  # and that of the cell ahead
-    v_start, kt = rate(patch, z0 + ci * hz, r0 + cj * hr, grid, sym, mass, charge, y0)
+    v_start = rate(patch, z0 + ci * hz, r0 + cj * hr, grid, sym, mass, charge, y0, ks, 0)
     evals += 1
-    for i in range(6):
-        k0[i] = kt[i]
+    k0[:] = ks[0]
     ke_start = kinetic_energy_J(y0[3], y0[4], y0[5], mass)
     worst = 0.0
     for i in range(6):
@@ -717,15 +690,16 @@ def trace_one(s0, herm, grid, sym, bounds, cell, geo, mass, charge, t_max, rtol,
         if t + h == t:
             code = STALLED
             break
-        ya = (y0[0], y0[1], y0[2], y0[3], y0[4], y0[5])
-        ka = (k0[0], k0[1], k0[2], k0[3], k0[4], k0[5])
-        yb, v1, k2, k3, k4, k5, k6, k7, err = dp_step(patch, z0 + ci * hz, r0 + cj * hr, grid,
-                                                      sym, mass, charge, ya, ka, h)
+        ks[0] = k0
+        v1 = dp_step(patch, z0 + ci * hz, r0 + cj * hr, grid, sym, mass, charge, y0, ks, h, y1)
         evals += 6
         acc2 = 0.0
         for i in range(6):
+            e = 0.0
+            for j in range(7):
+                e += DP_E[j] * ks[j, i]
             a = atol_x if i < 3 else atol_p
-            e = err[i] / (a + rtol * max(abs(ya[i]), abs(yb[i])))
+            e *= h / (a + rtol * max(abs(y0[i]), abs(y1[i])))
             acc2 += e * e
         enorm = math.sqrt(acc2 / 6.0)
         if not enorm <= 1.0:
@@ -733,16 +707,7 @@ def trace_one(s0, herm, grid, sym, bounds, cell, geo, mass, charge, t_max, rtol,
             fac = FAC_MIN if not enorm < 1e300 else max(FAC_MIN, SAFETY * enorm ** -0.2)
             h_err = h * min(1.0, fac)
             continue
-        for i in range(6):
-            y1[i] = yb[i]
-            k1[i] = k7[i]
-            ks[0, i] = ka[i]
-            ks[1, i] = k2[i]
-            ks[2, i] = k3[i]
-            ks[3, i] = k4[i]
-            ks[4, i] = k5[i]
-            ks[5, i] = k6[i]
-            ks[6, i] = k7[i]
+        k1[:] = ks[6]
 
         # the cell the step ends in, and the one it is about to enter
         dense_coefficients(y0, y1, ks, h, rt)
@@ -767,12 +732,10 @@ def trace_one(s0, herm, grid, sym, bounds, cell, geo, mass, charge, t_max, rtol,
                 th = wall_theta(rt, sym, box, 1.0, geo, buf)
             else:
                 patch_next = patch_coefficients(herm, ni, nj, hz, hr)
-                v_next, kt = rate(patch_next, z0 + ni * hz, r0 + nj * hr, grid, sym, mass, charge,
-                                  yb)
+                v_next = rate(patch_next, z0 + ni * hz, r0 + nj * hr, grid, sym, mass, charge,
+                              y1, k_next, 0)
                 evals += 1
-                for i in range(6):
-                    k_next[i] = kt[i]
-                if cut or kink_error(k_next, k1, dt, y0, y1, rtol, atol_p) <= KINK_FRACTION:
+                if cut or kink_error(k_next[0], k1, dt, y0, y1, rtol, atol_p) <= KINK_FRACTION:
                     enter = True
                 elif past:
                     th = wall_theta(rt, sym, box, 1.0, geo, buf)
@@ -864,7 +827,7 @@ def trace_one(s0, herm, grid, sym, bounds, cell, geo, mass, charge, t_max, rtol,
             t = t_new
             for i in range(6):
                 y0[i] = y1[i]
-                k0[i] = k_next[i] if enter else k1[i]
+                k0[i] = k_next[0, i] if enter else k1[i]
             if enter:
                 ci, cj = ni, nj
                 patch = patch_next
