@@ -164,7 +164,7 @@ def vcycle(h, work, u, b, level=0):
 def iterate(h, u, b, *, rtol=1e-10, max_cycles=60, work=None):
     """V-cycles from the guess ``u`` until ``|D^-1 (b - A u)| <= rtol |D^-1 b|``.
 
-    D is the diagonal of A (see ``relax.residual``).  ``work`` is ``h.workspace()`` (made here
+    D is the diagonal of A (see ``residual_norm``).  ``work`` is ``h.workspace()`` (made here
     if not given).
 
     Returns

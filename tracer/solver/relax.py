@@ -92,7 +92,11 @@ def _node(iz, ir, u, index, table, cuts):
 @njit(cache=True, nogil=True, error_model="numpy")
 def residual_row(iz, u, b, out, index, table, cuts):
     """Write row ``iz`` of ``b - A u`` into ``out`` (zero on fixed nodes); return its sum of
-    ``(res / d)^2``."""
+    ``(res / d)^2``.
+
+    The diagonal scaling makes the norm a sum of node values (volts), so nodes with very short
+    arms, whose rows carry very large coefficients, do not dominate it.
+    """
     total = 0.0
     for ir in range(u.shape[1]):
         if index[iz, ir] == FIXED:
@@ -106,21 +110,8 @@ def residual_row(iz, u, b, out, index, table, cuts):
 
 
 @njit(cache=True, nogil=True)
-def residual(u, b, out, index, table, cuts):
-    """Write ``out = b - A u`` (zero on fixed nodes) and return the 2-norm of ``D^-1 out``.
-
-    The diagonal scaling makes the norm a sum of node values (volts), so nodes with very short
-    arms, whose rows carry very large coefficients, do not dominate it.
-    """
-    total = 0.0
-    for iz in range(u.shape[0]):
-        total += residual_row(iz, u, b, out[iz], index, table, cuts)
-    return np.sqrt(total)
-
-
-@njit(cache=True, nogil=True)
 def scaled_norm(b, index, table, cuts):
-    """The 2-norm of ``D^-1 b`` over the free nodes (the scale of ``residual``)."""
+    """The 2-norm of ``D^-1 b`` over the free nodes (the scale of the residual norm)."""
     nz, nr = b.shape
     total = 0.0
     for iz in range(nz):
