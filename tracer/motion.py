@@ -343,12 +343,17 @@ def hold(box, sym, s):
 
 
 @njit(cache=True, error_model="numpy", inline="always")
+def wall_side(w):
+    """-1 for a lower wall (0 z_lo, 2 r_lo), +1 for an upper one (1 z_hi, 3 r_hi): how far a
+    coordinate c lies beyond wall w at ``wall`` is ``wall_side(w) * (c - wall)``."""
+    return 1.0 if w & 1 else -1.0
+
+
+@njit(cache=True, error_model="numpy", inline="always")
 def past_wall(box, sym, s, w):
     """How far the point of state s lies beyond wall w (0 z_lo, 1 z_hi, 2 r_lo, 3 r_hi) of a box."""
-    if w < 2:
-        return box[0] - s[2] if w == 0 else s[2] - box[1]
-    r = map_r(sym, s[0], s[1])
-    return box[2] - r if w == 2 else r - box[3]
+    c = s[2] if w < 2 else map_r(sym, s[0], s[1])
+    return wall_side(w) * (c - box[w])
 
 
 @njit(cache=True, error_model="numpy", inline="always")
@@ -428,18 +433,18 @@ def series_past(q, sym, w, wall, tau):
     """How far the predicted point at tau lies beyond wall w (0 z_lo, 1 z_hi, 2 r_lo, 3 r_hi) at
     ``wall``, and the rate of that distance."""
     if w < 2:
-        z, dz = series(q, 2, tau)
-        return (wall - z, -dz) if w == 0 else (z - wall, dz)
-    if sym == 0:
+        c, dc = series(q, 2, tau)
+    elif sym == 0:
         x, dx = series(q, 0, tau)
         y, dy = series(q, 1, tau)
-        r = math.sqrt(x * x + y * y)
-        dr = (x * dx + y * dy) / r if r > 0.0 else math.sqrt(dx * dx + dy * dy)
+        c = math.sqrt(x * x + y * y)
+        dc = (x * dx + y * dy) / c if c > 0.0 else math.sqrt(dx * dx + dy * dy)
     else:
-        r, dr = series(q, 1, tau)
-        if sym == 2 and r < 0.0:
-            r, dr = -r, -dr
-    return (wall - r, -dr) if w == 2 else (r - wall, dr)
+        c, dc = series(q, 1, tau)
+        if sym == 2 and c < 0.0:
+            c, dc = -c, -dc
+    sg = wall_side(w)
+    return sg * (c - wall), sg * dc
 
 
 @njit(cache=True, error_model="numpy", inline="always")
@@ -618,8 +623,8 @@ def trace_one(s0, herm, grid, sym, bounds, cell, geo, mass, charge, t_max, rtol,
     (code, electrode, n_cross, n_path, steps, rejected, evaluations)
     """
     ks = np.empty((7, 6))      # the stage rates of the current step
-    k0 = np.empty(6)           # the current step's first stage rate
-    k1 = np.empty(6)           # the rate at the end of the last step
+    k0 = ks[0]                 # the current step's first stage rate
+    k1 = ks[6]                 # the rate at the end of the step
     k_next = np.empty((1, 6))  # the first stage of the next step when it enters a new cell
     y0 = s0.copy()
     y1 = np.empty(6)
@@ -647,7 +652,6 @@ def trace_one(s0, herm, grid, sym, bounds, cell, geo, mass, charge, t_max, rtol,
     patch_next = patch                                  # and that of the cell ahead
     v_start = rate(patch, z0 + ci * hz, r0 + cj * hr, grid, sym, mass, charge, y0, ks, 0)
     evals += 1
-    k0[:] = ks[0]
     ke_start = kinetic_energy_J(y0[3], y0[4], y0[5], mass)
     worst = 0.0
     for i in range(6):
@@ -690,7 +694,6 @@ def trace_one(s0, herm, grid, sym, bounds, cell, geo, mass, charge, t_max, rtol,
         if t + h == t:
             code = STALLED
             break
-        ks[0] = k0
         v1 = dp_step(patch, z0 + ci * hz, r0 + cj * hr, grid, sym, mass, charge, y0, ks, h, y1)
         evals += 6
         acc2 = 0.0
@@ -707,7 +710,6 @@ def trace_one(s0, herm, grid, sym, bounds, cell, geo, mass, charge, t_max, rtol,
             fac = FAC_MIN if not enorm < 1e300 else max(FAC_MIN, SAFETY * enorm ** -0.2)
             h_err = h * min(1.0, fac)
             continue
-        k1[:] = ks[6]
 
         # the cell the step ends in, and the one it is about to enter
         dense_coefficients(y0, y1, ks, h, rt)
