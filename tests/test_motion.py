@@ -102,49 +102,69 @@ def test_tableau_order_conditions():
     assert np.abs(motion.DP_E).max() > 1e-3
 
 
-def test_dense_output_matches_scipy_interpolant():
-    """The continuous extension in Hairer's form equals scipy's RK45 dense output polynomial
-    (Shampine 1986; library: scipy.integrate.RK45.P) for arbitrary stage values."""
-    rng = np.random.default_rng(3)
-    h = 0.37
-    ks = rng.normal(size=(7, 6))
-    y0 = rng.normal(size=6)
-    y1 = y0 + h * (motion.DP_B @ ks)
-    rc = np.zeros((5, 6))
-    motion.dense_coefficients(y0, y1, ks, h, rc)
-    out = np.empty(6)
-    for theta in (0.0, 0.13, 0.5, 0.77, 1.0):
-        motion.dense(rc, theta, out)
-        q = ks.T @ RK45.P
-        ref = y0 + h * q @ (theta ** np.arange(1, 5))
-        assert np.allclose(out, ref, rtol=0, atol=1e-13)
-
-
-def test_dp_step_is_the_tableau_applied_to_the_rate():
-    """One kernel step equals the Dormand–Prince formulas written out with numpy over the same
-    right-hand side (Dormand & Prince 1980: stage i at y0 + h sum_j a_ij k_j, y1 = y0 + h sum b_i k_i)."""
-    rng = np.random.default_rng(5)
+def lane_steps(rng, h, rtol=1e-9, atol_x=1e-12, atol_p=1e-30):
+    """One lane_step of protons from random states in a random cell polynomial: the workspace
+    after the step, the right-hand side f(s) -> (rate, V) it used, and the start states."""
     a = tuple(rng.normal(size=16))
     grid = np.array([0.0, 0.0, 1e-3, 1e-3, 11.0, 11.0, 1e-2, 1e-2])
     mass, charge = constants.m_p, constants.e
-    y0 = np.array([2e-3, 1e-3, 3e-3, 1e-23, -2e-23, 5e-22])
-    h = 1e-9
     row = np.empty((1, 6))
 
     def f(s):
         v = motion.rate(a, 2e-3, 1e-3, grid, 0, mass, charge, s, row, 0)
         return row[0].copy(), v
 
-    ks = [f(y0)[0]]
-    for st in range(1, 7):
-        ks.append(f(y0 + h * (motion.DP_A[st, :st] @ np.array(ks)))[0])
-    stages = np.empty((7, 6))
-    stages[0] = ks[0]
-    y1 = np.empty(6)
-    v1 = motion.dp_step(a, 2e-3, 1e-3, grid, 0, mass, charge, y0, stages, h, y1)
-    assert np.allclose(y1, y0 + h * (motion.DP_B @ np.array(ks)), rtol=1e-14, atol=0)
-    assert np.allclose(stages, np.array(ks), rtol=1e-12, atol=0)
-    assert v1 == f(y1)[1]
+    states = np.empty((motion.LANES, 6))
+    states[:, :3] = [2e-3, 1e-3, 3e-3] + 1e-4 * rng.normal(size=(motion.LANES, 3))
+    states[:, 3:] = [1e-23, -2e-23, 5e-22] * (1.0 + 0.1 * rng.normal(size=(motion.LANES, 3)))
+    w = np.zeros((motion.W_ROWS, motion.LANES))
+    for lane, s in enumerate(states):
+        w[motion.W_Y0:motion.W_Y0 + 6, lane] = s
+        w[motion.W_K:motion.W_K + 6, lane] = f(s)[0]
+        w[motion.W_PATCH:motion.W_PATCH + 16, lane] = a
+    w[motion.W_CZ], w[motion.W_CR], w[motion.W_H], w[motion.W_ATOL] = 2e-3, 1e-3, h, atol_p
+    motion.lane_step(w, grid, 0, mass, charge, rtol, atol_x)
+    return w, f, states
+
+
+def test_dense_output_matches_scipy_interpolant():
+    """The continuous extension of a lane step in Hairer's form equals scipy's RK45 dense output
+    polynomial (Shampine 1986; library: scipy.integrate.RK45.P) over the step's stage rates."""
+    h = 1e-9
+    w, _, states = lane_steps(np.random.default_rng(3), h)
+    out = np.empty(6)
+    for lane, y0 in enumerate(states):
+        ks = w[motion.W_K:motion.W_K + 42, lane].reshape(7, 6)
+        rc = np.ascontiguousarray(w[motion.W_DENSE:motion.W_DENSE + 30, lane].reshape(5, 6))
+        assert np.array_equal(rc[0], y0)
+        for theta in (0.0, 0.13, 0.5, 0.77, 1.0):
+            motion.dense(rc, theta, out)
+            ref = y0 + h * (ks.T @ RK45.P) @ (theta ** np.arange(1, 5))
+            assert np.allclose(out, ref, rtol=1e-13, atol=0)
+        motion.dense(rc, 1.0, out)
+        assert np.allclose(out, w[motion.W_Y1:motion.W_Y1 + 6, lane], rtol=1e-14, atol=0)
+
+
+def test_lane_step_is_the_tableau_applied_to_the_rate():
+    """Each lane's step equals the Dormand–Prince formulas written out with numpy over the same
+    right-hand side (Dormand & Prince 1980: stage i at y0 + h sum_j a_ij k_j, y1 = y0 + h sum
+    b_i k_i, error estimate h sum_j e_j k_j scaled by atol + rtol max(|y0|, |y1|))."""
+    h, rtol, atol_x, atol_p = 1e-9, 1e-9, 1e-12, 1e-30
+    w, f, states = lane_steps(np.random.default_rng(5), h, rtol, atol_x, atol_p)
+    for lane, y0 in enumerate(states):
+        ks = [f(y0)[0]]
+        for st in range(1, 7):
+            ks.append(f(y0 + h * (motion.DP_A[st, :st] @ np.array(ks)))[0])
+        ks = np.array(ks)
+        y1 = w[motion.W_Y1:motion.W_Y1 + 6, lane]
+        assert np.allclose(y1, y0 + h * (motion.DP_B @ ks), rtol=1e-14, atol=0)
+        assert np.allclose(w[motion.W_K:motion.W_K + 42, lane].reshape(7, 6), ks, rtol=1e-12,
+                           atol=0)
+        assert w[motion.W_V1, lane] == f(y1)[1]
+        scale = np.r_[np.full(3, atol_x), np.full(3, atol_p)] + rtol * np.maximum(abs(y0), abs(y1))
+        err = np.sqrt(np.mean((h * (motion.DP_E @ ks) / scale) ** 2))
+        assert w[motion.W_ERR, lane] == pytest.approx(err, rel=1e-10)
+    assert len({w[motion.W_Y1, lane] for lane in range(motion.LANES)}) == motion.LANES
 
 
 def test_wall_prediction_continues_the_dense_output_and_finds_the_crossing():

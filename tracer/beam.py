@@ -9,6 +9,7 @@ from __future__ import annotations
 import math
 from dataclasses import asdict, dataclass, field as dataclass_field
 
+import numba
 import numpy as np
 from scipy import constants
 
@@ -256,13 +257,14 @@ def trace(field, beam, planes=(), rtol=1e-9, max_time_s=1e-4, *, keep_paths=0,
     parts = []
     for lo in range(0, max(n, 1), chunk):
         hi = min(n, lo + chunk)
+        group = max(motion.LANES, -(-(hi - lo) // (2 * numba.get_num_threads())))  # two per thread
         try:
             parts.append(motion.trace_rays(
                 np.ascontiguousarray(state[lo:hi]), herm, grid_vec, sym, bounds, cell_map, geo,
                 float(sp.mass_kg), float(sp.charge_C), float(max_time_s), float(rtol),
                 atol_p[lo:hi], max_step_cells * cell, sample_cells * cell, fine_cells * cell,
                 plane_z, plane_stop, int(max_steps), int(max_crossings),
-                paths_buf[lo:min(hi, keep)], quiet))
+                paths_buf[lo:min(hi, keep)], quiet, group))
         except SystemError as exc:   # numba's parallel kernel hands a Ctrl-C back wrapped
             if by_interrupt(exc):
                 raise KeyboardInterrupt from exc

@@ -37,6 +37,12 @@ cell's walls, and ends at the wall where the ray leaves the cell:
   tolerance; a step that overshoots further, or whose path leaves the cell between its ends (a ray
   passing the axis, or turning), is cut back to the wall on its own dense output and redone.
 
+Lanes. One thread traces ``LANES`` rays side by side: each round every lane chooses its step,
+:func:`lane_step` takes all the steps at once with the loops over lanes innermost (so they compile
+to SIMD instructions), and every lane then checks its own step, walls and events; a lane whose ray
+has ended takes the next. The lanes do not interact: a ray's result does not depend on its
+neighbours.
+
 Step length and electrodes. A step is never longer than ``max_step`` metres of path, and never
 leaves its cell, so the Runge–Kutta stages cannot jump over a region where the field changes.
 Electrodes are found on the dense output, not at step ends: each accepted step is cut into pieces
@@ -96,16 +102,30 @@ KINK_FRACTION = 0.05  # largest error of the stretch past a wall, as a fraction 
 PREDICT_SPAN = 3.0    # the last step's dense output predicts at most this many of its lengths ahead
 STRETCH = 1.1         # a step may grow by this factor to reach the wall instead of stopping short
 SAFETY, FAC_MIN, FAC_MAX = 0.9, 0.2, 5.0
+NO_PATCH = (0.0,) * 16  # a placeholder cell polynomial
+
+# Rays stepped together by one thread: their Runge–Kutta stages run as SIMD loops over the lanes.
+LANES = 8
+# Rows of the lane workspace of lane_step (float64[W_ROWS, LANES]), one column per lane.
+W_Y0 = 0        # 6: the state a step starts from
+W_Y1 = 6        # 6: the stage point; after the step, the end state
+W_K = 12        # 42: stage rates, stage j component i in row W_K + 6 j + i
+W_PATCH = 54    # 16: the cell's polynomial (tracer.fieldmap.patch_coefficients)
+W_CZ = 70       # the cell's first corner, z
+W_CR = 71       # and r
+W_H = 72        # the step's length in time
+W_V1 = 73       # the potential at the end state
+W_ERR = 74      # the scaled error norm of the step
+W_ATOL = 75     # the ray's absolute momentum tolerance
+W_DENSE = 76    # 30: continuous extension, coefficient m component i in row W_DENSE + 6 m + i
+W_ROWS = 106
 
 
 @njit(cache=True, error_model="numpy", inline="always")
 def map_r(sym, x, y):
     """The map coordinate r of a 3-D point (hypot(x, y), |y| or y)."""
-    if sym == 0:
-        return math.sqrt(x * x + y * y)
-    if sym == 2:
-        return abs(y)
-    return y
+    rr = math.sqrt(x * x + y * y)     # selects, no branches: loops over lanes stay SIMD
+    return rr if sym == 0 else (abs(y) if sym == 2 else y)
 
 
 @njit(cache=True, error_model="numpy", inline="always")
@@ -150,20 +170,19 @@ def patch_field(a, pz, pr, grid, sym, x, y, z):
     z0, r0, z1, r1 = grid[0], grid[1], grid[6], grid[7]
     iz, ir = 1.0 / grid[2], 1.0 / grid[3]
     r = map_r(sym, x, y)
-    v, vu, vw = patch_eval(a, (min(max(z, z0), z1) - pz) * iz, (min(max(r, r0), r1) - pr) * ir)
+    # selects rather than min, max and branches: loops over lanes stay SIMD
+    zc = z0 if z0 > z else z
+    zc = z1 if z1 < zc else zc
+    rc = r0 if r0 > r else r
+    rc = r1 if r1 < rc else rc
+    v, vu, vw = patch_eval(a, (zc - pz) * iz, (rc - pr) * ir)
     dvdr = vw * ir
     ez = -vu * iz
-    if sym == 0:
-        if r > 0.0:
-            f = -dvdr / r
-            return v, f * x, f * y, ez
-        return v, 0.0, 0.0, ez
-    if sym == 2:
-        if y < 0.0:
-            return v, 0.0, dvdr, ez
-        if y == 0.0:
-            return v, 0.0, 0.0, ez
-    return v, 0.0, -dvdr, ez
+    f = -dvdr / (r if r > 0.0 else 1.0)
+    f = f if r > 0.0 else 0.0
+    ey = dvdr if y < 0.0 else (0.0 if y == 0.0 else -dvdr)
+    ey = f * y if sym == 0 else (ey if sym == 2 else -dvdr)
+    return v, (f * x if sym == 0 else 0.0), ey, ez
 
 
 @njit(cache=True, error_model="numpy", inline="always")
@@ -179,37 +198,15 @@ def rate(a, pz, pr, grid, sym, mass, charge, s, ks, row):
     """Right-hand side of the equations of motion in the field of one cell (see
     :func:`patch_field`) at state s (x, y, z, px, py, pz): d(state)/dt into ks[row]; returns the
     potential at s."""
-    mc = mass * C_LIGHT
-    px, py, pz_ = s[3], s[4], s[5]
-    igm = 1.0 / (mass * math.sqrt(1.0 + (px * px + py * py + pz_ * pz_) / (mc * mc)))
-    ks[row, 0] = px * igm
-    ks[row, 1] = py * igm
-    ks[row, 2] = pz_ * igm
+    igm = inverse_gamma_mass(mass, s[3], s[4], s[5])
+    ks[row, 0] = s[3] * igm
+    ks[row, 1] = s[4] * igm
+    ks[row, 2] = s[5] * igm
     v, ex, ey, ez = patch_field(a, pz, pr, grid, sym, s[0], s[1], s[2])
     ks[row, 3] = charge * ex
     ks[row, 4] = charge * ey
     ks[row, 5] = charge * ez
     return v
-
-
-@njit(cache=True, error_model="numpy", inline="always")
-def dp_step(a, pz, pr, grid, sym, mass, charge, y0, ks, h, y1):
-    """One Dormand–Prince 5(4) step of length h from state y0, all stages in the field of one
-    cell's polynomial (``a`` at corner pz, pr).
-
-    ks[0] holds the first stage's rate; the step writes the other six into ks[1:] (ks[6], at the
-    end state, is the next step's first) and the fifth-order end state into y1. Returns the
-    potential at y1.
-    """
-    v1 = 0.0
-    for st in range(1, 7):
-        for i in range(6):
-            acc = 0.0
-            for j in range(st):
-                acc += DP_A[st, j] * ks[j, i]
-            y1[i] = y0[i] + h * acc
-        v1 = rate(a, pz, pr, grid, sym, mass, charge, y1, ks, st)
-    return v1
 
 
 @njit(cache=True, error_model="numpy", inline="always")
@@ -221,18 +218,86 @@ def dense(rc, theta, out):
 
 
 @njit(cache=True, error_model="numpy", inline="always")
-def dense_coefficients(y0, y1, ks, h, rc):
-    """Coefficients of the continuous extension of an accepted step (Hairer et al. 1993)."""
-    for i in range(6):
-        d = y1[i] - y0[i]
-        rc[0, i] = y0[i]
-        rc[1, i] = d
-        rc[2, i] = h * ks[0, i] - d
-        rc[3, i] = d - h * ks[6, i] - rc[2, i]
-        acc = 0.0
-        for j in range(7):
-            acc += DP_D[j] * ks[j, i]
-        rc[4, i] = h * acc
+def inverse_gamma_mass(mass, px, py, pz):
+    """1 / (gamma m) of a momentum (the velocity is p / (gamma m))."""
+    mc = mass * C_LIGHT
+    return 1.0 / (mass * math.sqrt(1.0 + (px * px + py * py + pz * pz) / (mc * mc)))
+
+
+@njit(cache=True, error_model="numpy", inline="always")
+def lane_stage(w, st, grid, sym, mass, charge):
+    """Stage st of the step in every lane: the stage point into ``W_Y1``, its rate into row
+    ``W_K + 6 st`` and its potential into ``W_V1`` (see :func:`rate`).
+
+    st is a constant at every call, so the loops inside the loop over lanes unroll and that loop
+    compiles to SIMD instructions over the lanes.
+    """
+    g = (grid[0], grid[1], grid[2], grid[3], grid[4], grid[5], grid[6], grid[7])  # in registers
+    for l in range(LANES):
+        h = w[W_H, l]
+        for i in range(6):
+            acc = 0.0
+            for j in range(st):
+                acc += DP_A[st, j] * w[W_K + 6 * j + i, l]
+            w[W_Y1 + i, l] = w[W_Y0 + i, l] + h * acc
+        igm = inverse_gamma_mass(mass, w[W_Y1 + 3, l], w[W_Y1 + 4, l], w[W_Y1 + 5, l])
+        for i in range(3):
+            w[W_K + 6 * st + i, l] = w[W_Y1 + 3 + i, l] * igm
+        a = (w[W_PATCH, l], w[W_PATCH + 1, l], w[W_PATCH + 2, l], w[W_PATCH + 3, l],
+             w[W_PATCH + 4, l], w[W_PATCH + 5, l], w[W_PATCH + 6, l], w[W_PATCH + 7, l],
+             w[W_PATCH + 8, l], w[W_PATCH + 9, l], w[W_PATCH + 10, l], w[W_PATCH + 11, l],
+             w[W_PATCH + 12, l], w[W_PATCH + 13, l], w[W_PATCH + 14, l], w[W_PATCH + 15, l])
+        v, ex, ey, ez = patch_field(a, w[W_CZ, l], w[W_CR, l], g, sym, w[W_Y1, l],
+                                    w[W_Y1 + 1, l], w[W_Y1 + 2, l])
+        w[W_K + 6 * st + 3, l] = charge * ex
+        w[W_K + 6 * st + 4, l] = charge * ey
+        w[W_K + 6 * st + 5, l] = charge * ez
+        w[W_V1, l] = v
+
+
+@njit(cache=True, error_model="numpy", inline="always")
+def lane_step(w, grid, sym, mass, charge, rtol, atol_x):
+    """One Dormand–Prince 5(4) step in every lane of a workspace (rows ``W_*``, one column a lane).
+
+    Each lane steps from its state y0 (``W_Y0``) with first stage rate ``W_K`` over its length
+    ``W_H``, all stages in its cell's polynomial (``W_PATCH`` at corner ``W_CZ``, ``W_CR``; see
+    :func:`patch_field`). Writes the other six stage rates (the last, at the end state, is the
+    next step's first), the fifth-order end state into ``W_Y1`` and its potential into ``W_V1``,
+    the scaled error norm (RMS over the six components of the embedded estimate, each scaled by
+    atol + rtol max(|y0|, |y1|); ``atol_x`` for positions, ``W_ATOL`` for momenta) into ``W_ERR``
+    and the continuous extension (Hairer et al. 1993) into ``W_DENSE``.
+
+    Each loop over lanes holds only loops of constant length and branches the compiler turns into
+    selects, so it compiles to SIMD instructions over the lanes (when w is a workspace allocated
+    by the caller it is inlined into, whose shape the compiler then knows).
+    """
+    lane_stage(w, 1, grid, sym, mass, charge)
+    lane_stage(w, 2, grid, sym, mass, charge)
+    lane_stage(w, 3, grid, sym, mass, charge)
+    lane_stage(w, 4, grid, sym, mass, charge)
+    lane_stage(w, 5, grid, sym, mass, charge)
+    lane_stage(w, 6, grid, sym, mass, charge)
+    for l in range(LANES):
+        h = w[W_H, l]
+        acc2 = 0.0
+        for i in range(6):
+            e = 0.0
+            d = 0.0
+            for j in range(7):
+                e += DP_E[j] * w[W_K + 6 * j + i, l]
+                d += DP_D[j] * w[W_K + 6 * j + i, l]
+            y0, y1 = w[W_Y0 + i, l], w[W_Y1 + i, l]
+            a0, a1 = abs(y0), abs(y1)
+            e *= h / ((atol_x if i < 3 else w[W_ATOL, l]) + rtol * (a1 if a1 > a0 else a0))
+            acc2 += e * e
+            dy = y1 - y0
+            r2 = h * w[W_K + i, l] - dy
+            w[W_DENSE + i, l] = y0
+            w[W_DENSE + 6 + i, l] = dy
+            w[W_DENSE + 12 + i, l] = r2
+            w[W_DENSE + 18 + i, l] = dy - h * w[W_K + 36 + i, l] - r2
+            w[W_DENSE + 24 + i, l] = h * d
+        w[W_ERR, l] = math.sqrt(acc2 / 6.0)
 
 
 @njit(cache=True, error_model="numpy", inline="always")
@@ -605,268 +670,343 @@ def thin_path(path, n):
     return m
 
 
+@njit(cache=True, error_model="numpy", inline="always")
+def put_patch(w, l, a, pz, pr):
+    """Write a cell's polynomial (16 coefficients) and first corner into lane l of a workspace."""
+    for m in range(16):
+        w[W_PATCH + m, l] = a[m]
+    w[W_CZ, l] = pz
+    w[W_CR, l] = pr
+
+
 @njit(cache=True, error_model="numpy")
-def trace_one(s0, herm, grid, sym, bounds, cell, geo, mass, charge, t_max, rtol, atol_p,
-              max_step, sample, fine, planes, stops, max_steps,
-              final, cross_plane, cross_state, path, quiet):
-    """Trace one ray from state s0 (x, y, z, px, py, pz).
+def trace_lanes(lo, hi, starts, herm, grid, sym, bounds, cell, geo, mass, charge, t_max, rtol,
+                atol_p, max_step, sample, fine, planes, stops, max_steps, final, info,
+                cross_plane, cross_state, paths, quiet):
+    """Trace rays lo..hi-1 of ``starts`` on one thread, ``LANES`` at a time.
 
-    Writes the end state into ``final`` = (t, x, y, z, px, py, pz, ke_J, worst ledger J) and the
-    plane crossings into ``cross_plane``/``cross_state`` (rows of t, x, y, z, px, py, pz, ke_J,
-    ledger J); ``path`` (possibly of zero rows) receives accepted-step points (t, state, ke_J,
-    signed ledger J); when it fills up, every other point is dropped and the spacing doubles, so
-    it always spans the whole ray (its last row is kept for the end point).  In the cells marked
-    by ``quiet`` (:func:`quiet_cells`) accepted steps skip the event search.
-
-    Returns
-    -------
-    (code, electrode, n_cross, n_path, steps, rejected, evaluations)
+    Every lane holds one ray; each round, every lane chooses its step, :func:`lane_step` takes all
+    the steps at once, and every lane checks its own: error, cell walls, events, the ledger. A lane
+    whose ray has ended takes the next ray. Row r of ``final`` = (t, x, y, z, px, py, pz, ke_J,
+    worst ledger J), ``info`` = (code, electrode, crossings, path points, steps, rejected steps,
+    field evaluations), ``cross_plane``/``cross_state`` (rows of t, x, y, z, px, py, pz, ke_J,
+    ledger J) receive ray r's results; ``paths[r]`` (for r < len(paths)) receives its accepted-step
+    points (t, state, ke_J, signed ledger J); when it fills up, every other point is dropped and
+    the spacing doubles, so it always spans the whole ray (its last row is kept for the end
+    point). In the cells marked by ``quiet`` (:func:`quiet_cells`) accepted steps skip the event
+    search.
     """
-    ks = np.empty((7, 6))      # the stage rates of the current step
-    k0 = ks[0]                 # the current step's first stage rate
-    k1 = ks[6]                 # the rate at the end of the step
-    k_next = np.empty((1, 6))  # the first stage of the next step when it enters a new cell
-    y0 = s0.copy()
-    y1 = np.empty(6)
-    rc = np.zeros((5, 6))      # dense output of the last accepted step
-    ahead = np.empty((3, 5))   # the predicted path of the next step (reach)
-    rt = np.zeros((5, 6))      # dense output of the trial step
+    w = np.zeros((W_ROWS, LANES))
+    ray = np.full(LANES, -1)
+    code = np.full(LANES, RUNNING)
+    electrode = np.full(LANES, -1)
+    ci = np.zeros(LANES, dtype=np.int64)
+    cj = np.zeros(LANES, dtype=np.int64)
+    steps = np.zeros(LANES, dtype=np.int64)
+    rejected = np.zeros(LANES, dtype=np.int64)
+    evals = np.zeros(LANES, dtype=np.int64)
+    n_cross = np.zeros(LANES, dtype=np.int64)
+    n_path = np.zeros(LANES, dtype=np.int64)
+    stride = np.ones(LANES, dtype=np.int64)
+    cut = np.zeros(LANES, dtype=np.bool_)
+    t = np.zeros(LANES)
+    hp = np.zeros(LANES)      # length of the last accepted step (0: none, no prediction from it)
+    h_cut = np.zeros(LANES)   # length of a step cut back to a wall, to be redone
+    h_err = np.zeros(LANES)   # the step-size proposal of the error control
+    worst = np.zeros(LANES)
+    ke_start = np.zeros(LANES)
+    v_start = np.zeros(LANES)
+    y0 = np.zeros((LANES, 6))
+    k0 = np.zeros((LANES, 6))     # the first stage rate of the lane's next step
+    y1 = np.zeros((LANES, 6))
+    k1 = np.zeros((LANES, 6))     # the rate at the end of the step
+    rc = np.zeros((LANES, 5, 6))  # dense output of the last accepted step
+    rt = np.zeros((LANES, 5, 6))  # dense output of the trial step
+    k_new = np.empty((1, 6))      # a rate in a new cell
+    ahead = np.empty((3, 5))      # the predicted path of the next step (reach)
     buf = np.empty(6)
     pa = np.empty(2)
     box = np.empty(4)
     atol_x = rtol * min(grid[2], grid[3])
     snap = SNAP * min(grid[2], grid[3])
-    max_cross = cross_plane.shape[0]
-    n_path_cap = path.shape[0]
-    n_cross = 0
-    n_path = 0
-    stride = 1
-    steps = 0
-    rejected = 0
-    evals = 0
-
-    r_start = map_r(sym, y0[0], y0[1])
+    max_cross = cross_plane.shape[1]
     z0, r0, hz, hr = grid[0], grid[1], grid[2], grid[3]
-    ci, cj = cell_ahead(grid, sym, y0, snap)
-    patch = patch_coefficients(herm, ci, cj, hz, hr)   # the current cell's polynomial
-    patch_next = patch                                  # and that of the cell ahead
-    v_start = rate(patch, z0 + ci * hz, r0 + cj * hr, grid, sym, mass, charge, y0, ks, 0)
-    evals += 1
-    ke_start = kinetic_energy_J(y0[3], y0[4], y0[5], mass)
-    worst = 0.0
-    for i in range(6):
-        final[1 + i] = y0[i]
-    final[0] = 0.0
-    final[7] = ke_start
-    final[8] = 0.0
-    if outside(bounds, sym, y0[2], r_start):
-        return LEFT, -1, 0, 0, 0, 0, evals
-    k_in = electrode_at(y0[2], r_start, geo[0], geo[1], geo[2], geo[3], geo[4], geo[5], geo[6])
-    if k_in >= 0:
-        return INSIDE, k_in, 0, 0, 0, 0, evals
-    if n_path_cap > 0:
-        put_path(path, 0, 0.0, y0, ke_start, 0.0)
-        n_path = 1
-
-    t = 0.0
-    v1 = v_start
-    v_next = v_start
-    hp = 0.0          # length of the last accepted step (0: none, no prediction from it)
-    h_cut = 0.0       # length of a step cut back to a wall, to be redone
-    h_err = min(step_cap(y0, k0, mass, max_step), t_max)
-    code = RUNNING
-    electrode = -1
-    while code == RUNNING:
-        if steps + rejected >= max_steps:
-            code = STALLED
+    nxt = lo
+    while True:
+        # idle lanes take the next rays
+        active = 0
+        for l in range(LANES):
+            if ray[l] < 0 and nxt < hi:
+                r = nxt
+                nxt += 1
+                ray[l] = r
+                for i in range(6):
+                    y0[l, i] = starts[r, i]
+                i, j = cell_ahead(grid, sym, y0[l], snap)
+                ci[l] = i
+                cj[l] = j
+                patch = patch_coefficients(herm, ci[l], cj[l], hz, hr)
+                v_start[l] = rate(patch, z0 + ci[l] * hz, r0 + cj[l] * hr, grid, sym, mass,
+                                  charge, y0[l], k_new, 0)
+                for i in range(6):
+                    k0[l, i] = k_new[0, i]
+                    w[W_Y0 + i, l] = y0[l, i]
+                    w[W_K + i, l] = k_new[0, i]
+                put_patch(w, l, patch, z0 + ci[l] * hz, r0 + cj[l] * hr)
+                w[W_ATOL, l] = atol_p[r]
+                ke_start[l] = kinetic_energy_J(y0[l, 3], y0[l, 4], y0[l, 5], mass)
+                evals[l] = 1
+                steps[l] = 0
+                rejected[l] = 0
+                n_cross[l] = 0
+                n_path[l] = 0
+                stride[l] = 1
+                t[l] = 0.0
+                hp[l] = 0.0
+                h_cut[l] = 0.0
+                worst[l] = 0.0
+                h_err[l] = min(step_cap(y0[l], k0[l], mass, max_step), t_max)
+                code[l] = RUNNING
+                electrode[l] = -1
+                r_start = map_r(sym, y0[l, 0], y0[l, 1])
+                k_in = electrode_at(y0[l, 2], r_start, geo[0], geo[1], geo[2], geo[3], geo[4],
+                                    geo[5], geo[6])
+                if outside(bounds, sym, y0[l, 2], r_start):
+                    code[l] = LEFT
+                elif k_in >= 0:
+                    code[l] = INSIDE
+                    electrode[l] = k_in
+                elif r < paths.shape[0]:
+                    put_path(paths[r], 0, 0.0, y0[l], ke_start[l], 0.0)
+                    n_path[l] = 1
+            if ray[l] >= 0:
+                active += 1
+        if active == 0:
             break
-        cut = h_cut > 0.0
-        if cut:
-            h = min(h_cut, t_max - t)
-            h_cut = 0.0
-        else:
-            h = min(h_err, step_cap(y0, k0, mass, max_step), t_max - t)
-            cell_box(grid, ci, cj, box)
-            reach(rc, hp, y0, k0, mass, STRETCH * h, ahead)
-            h_wall = exit_time(ahead, y0, k0, sym, box, STRETCH * h, 0.1 * snap)
-            if h_wall < STRETCH * h:
-                h = h_wall
-        if t + h == t:
-            code = STALLED
-            break
-        v1 = dp_step(patch, z0 + ci * hz, r0 + cj * hr, grid, sym, mass, charge, y0, ks, h, y1)
-        evals += 6
-        acc2 = 0.0
-        for i in range(6):
-            e = 0.0
-            for j in range(7):
-                e += DP_E[j] * ks[j, i]
-            a = atol_x if i < 3 else atol_p
-            e *= h / (a + rtol * max(abs(y0[i]), abs(y1[i])))
-            acc2 += e * e
-        enorm = math.sqrt(acc2 / 6.0)
-        if not enorm <= 1.0:
-            rejected += 1
-            fac = FAC_MIN if not enorm < 1e300 else max(FAC_MIN, SAFETY * enorm ** -0.2)
-            h_err = h * min(1.0, fac)
-            continue
 
-        # the cell the step ends in, and the one it is about to enter
-        dense_coefficients(y0, y1, ks, h, rt)
-        cell_box(grid, ci, cj, box)
-        hold(box, sym, y0)       # a step may start just before the wall it has entered through
-        i1, j1 = cell_of(grid, sym, y1[0], y1[1], y1[2])
-        ni, nj = cell_ahead(grid, sym, y1, snap)
-        past = i1 != ci or j1 != cj
-        if past and ni == ci and nj == cj:
-            ni, nj = i1, j1
-        th = 2.0
-        if abs(ni - ci) > 1 or abs(nj - cj) > 1:
-            th = wall_theta(rt, sym, box, 1.0, geo, buf)
-        elif not past:
-            th = excursion(rt, sym, y0, k0, y1, k1, h, box, buf)
-            if th <= 1.0:
-                th = wall_theta(rt, sym, box, th, geo, buf)
-        enter = False
-        if th > 1.0 and (ni != ci or nj != cj):
-            dt = wall_time(grid, sym, y1, k1, ci, cj, ni, nj)
-            if past and dt * speed(y1, mass) > snap:
-                th = wall_theta(rt, sym, box, 1.0, geo, buf)
+        # each lane chooses its step
+        for l in range(LANES):
+            if ray[l] < 0 or code[l] != RUNNING:
+                continue
+            if steps[l] + rejected[l] >= max_steps:
+                code[l] = STALLED
+                continue
+            cut[l] = h_cut[l] > 0.0
+            if cut[l]:
+                h = min(h_cut[l], t_max - t[l])
+                h_cut[l] = 0.0
             else:
-                patch_next = patch_coefficients(herm, ni, nj, hz, hr)
-                v_next = rate(patch_next, z0 + ni * hz, r0 + nj * hr, grid, sym, mass, charge,
-                              y1, k_next, 0)
-                evals += 1
-                if cut or kink_error(k_next[0], k1, dt, y0, y1, rtol, atol_p) <= KINK_FRACTION:
-                    enter = True
-                elif past:
-                    th = wall_theta(rt, sym, box, 1.0, geo, buf)
-        if th <= 1.0:
-            rejected += 1
-            h_cut = th * h
-            continue
+                h = min(h_err[l], step_cap(y0[l], k0[l], mass, max_step), t_max - t[l])
+                cell_box(grid, ci[l], cj[l], box)
+                reach(rc[l], hp[l], y0[l], k0[l], mass, STRETCH * h, ahead)
+                h_wall = exit_time(ahead, y0[l], k0[l], sym, box, STRETCH * h, 0.1 * snap)
+                if h_wall < STRETCH * h:
+                    h = h_wall
+            if t[l] + h == t[l]:
+                code[l] = STALLED
+                continue
+            w[W_H, l] = h
 
-        # accepted step: look for events on the dense output, piece by piece
-        steps += 1
-        for m in range(5):
+        lane_step(w, grid, sym, mass, charge, rtol, atol_x)
+
+        # each lane checks its step
+        for l in range(LANES):
+            if ray[l] < 0 or code[l] != RUNNING:
+                continue
+            r = ray[l]
+            h = w[W_H, l]
+            evals[l] += 6
+            enorm = w[W_ERR, l]
+            if not enorm <= 1.0:
+                rejected[l] += 1
+                fac = FAC_MIN if not enorm < 1e300 else max(FAC_MIN, SAFETY * enorm ** -0.2)
+                h_err[l] = h * min(1.0, fac)
+                continue
             for i in range(6):
-                rc[m, i] = rt[m, i]
-        hp = h
-        n_sub = 0
-        if not quiet[ci, cj]:
-            n_sub = max(1, int(math.ceil(max(speed(y0, mass), speed(y1, mass)) * h / sample)))
-        ta = 0.0
-        za, ra = y0[2], map_r(sym, y0[0], y0[1])
-        xa, ya_ = y0[0], y0[1]
-        t_end = 2.0
-        for m in range(1, n_sub + 1):
-            tb = m / n_sub
-            dense(rc, tb, buf)
-            xb, yb, zb = buf[0], buf[1], buf[2]
-            rb = map_r(sym, xb, yb)
-            chord = math.sqrt((xb - xa) ** 2 + (yb - ya_) ** 2 + (zb - za) ** 2)
-            # leaving the domain
-            if outside(bounds, sym, zb, rb):
-                if zb > bounds[1]:
-                    t_end = min(t_end, locate(rc, sym, ta, tb, EV_Z, bounds[1], True, geo, buf))
-                if zb < bounds[0]:
-                    t_end = min(t_end, locate(rc, sym, ta, tb, EV_Z, bounds[0], False, geo, buf))
-                if rb > bounds[3]:
-                    t_end = min(t_end, locate(rc, sym, ta, tb, EV_R, bounds[3], True, geo, buf))
-                if sym == 1 and rb < bounds[2]:
-                    t_end = min(t_end, locate(rc, sym, ta, tb, EV_R, bounds[2], False, geo, buf))
-                code = LEFT
-            # landing on an electrode
-            if touches_surface(cell, grid, za, ra, zb, rb, 0.5 * chord if sym == 0 else 0.0):
-                pa[0] = za
-                pa[1] = ra
-                th, k = find_landing(rc, sym, ta, min(tb, t_end), pa, chord, fine, geo, buf)
-                if th < t_end:
-                    t_end = th
-                    code = LANDED
-                    electrode = k
-            # detector planes
-            for q in range(planes.shape[0]):
-                zp = planes[q]
-                if (za >= zp) != (zb >= zp):
-                    th = locate(rc, sym, ta, tb, EV_Z, zp, zb >= zp, geo, buf)
-                    if th <= t_end:
-                        if stops[q]:
-                            t_end = th
-                            code = PLANE
-                            electrode = -1
-                        if n_cross < max_cross:
-                            dense(rc, th, buf)
-                            cross_plane[n_cross] = q
-                            cross_state[n_cross, 0] = t + th * h
-                            for i in range(6):
-                                cross_state[n_cross, 1 + i] = buf[i]
-                            cross_state[n_cross, 7] = kinetic_energy_J(buf[3], buf[4], buf[5], mass)
-                            vq = field_at(herm, grid, sym, buf[0], buf[1], buf[2])[0]
-                            res = cross_state[n_cross, 7] - ke_start + charge * (vq - v_start)
-                            worst = max(worst, abs(res))
-                            cross_state[n_cross, 8] = worst
-                        n_cross += 1
-            if code != RUNNING:
-                break
-            ta, za, ra, xa, ya_ = tb, zb, rb, xb, yb
+                y1[l, i] = w[W_Y1 + i, l]
+                k1[l, i] = w[W_K + 36 + i, l]
+            for m in range(5):
+                for i in range(6):
+                    rt[l, m, i] = w[W_DENSE + 6 * m + i, l]
+            v1 = w[W_V1, l]
 
-        if code == RUNNING:
-            t_new = t + h
-            # the ledger takes the potential of the cell the step ends in
-            if past:
-                if enter and i1 == ni and j1 == nj:
-                    v1 = v_next
+            # the cell the step ends in, and the one it is about to enter
+            cell_box(grid, ci[l], cj[l], box)
+            hold(box, sym, y0[l])    # a step may start just before the wall it has entered through
+            i1, j1 = cell_of(grid, sym, y1[l, 0], y1[l, 1], y1[l, 2])
+            ni, nj = cell_ahead(grid, sym, y1[l], snap)
+            past = i1 != ci[l] or j1 != cj[l]
+            if past and ni == ci[l] and nj == cj[l]:
+                ni, nj = i1, j1
+            th = 2.0
+            if abs(ni - ci[l]) > 1 or abs(nj - cj[l]) > 1:
+                th = wall_theta(rt[l], sym, box, 1.0, geo, buf)
+            elif not past:
+                th = excursion(rt[l], sym, y0[l], k0[l], y1[l], k1[l], h, box, buf)
+                if th <= 1.0:
+                    th = wall_theta(rt[l], sym, box, th, geo, buf)
+            enter = False
+            v_next = v1
+            patch_next = NO_PATCH
+            if th > 1.0 and (ni != ci[l] or nj != cj[l]):
+                dt = wall_time(grid, sym, y1[l], k1[l], ci[l], cj[l], ni, nj)
+                if past and dt * speed(y1[l], mass) > snap:
+                    th = wall_theta(rt[l], sym, box, 1.0, geo, buf)
                 else:
-                    v1 = field_at(herm, grid, sym, y1[0], y1[1], y1[2])[0]
-                    evals += 1
-            ke1 = kinetic_energy_J(y1[3], y1[4], y1[5], mass)
-            res = ke1 - ke_start + charge * (v1 - v_start)
-            worst = max(worst, abs(res))
-            if t_new >= t_max:
-                code = TIME
-                t_new = t_max
-            t = t_new
-            for i in range(6):
-                y0[i] = y1[i]
-                k0[i] = k_next[0, i] if enter else k1[i]
-            if enter:
-                ci, cj = ni, nj
-                patch = patch_next
-            if n_path_cap > 0 and steps % stride == 0:
-                if n_path == n_path_cap - 1:
-                    n_path = thin_path(path, n_path)
-                    stride *= 2
-                if steps % stride == 0:
-                    put_path(path, n_path, t, y0, ke1, res)
-                    n_path += 1
-            # the step-size proposal; a step shortened to a wall does not shrink the next one
-            base = max(h, h_err) if h < h_err else h
-            cap = FAC_MAX * base
-            x = SAFETY * h / cap       # an error below x^5 proposes more than the cap
-            if enorm < x * x * x * x * x:
-                h_err = cap
-            else:
-                h_err = min(h * max(FAC_MIN, SAFETY * max(enorm, 1e-10) ** -0.2), cap)
-        else:
-            dense(rc, t_end, buf)
-            for i in range(6):
-                y0[i] = buf[i]
-            t = t + t_end * h
-            ke1 = kinetic_energy_J(y0[3], y0[4], y0[5], mass)
-            v1 = field_at(herm, grid, sym, y0[0], y0[1], y0[2])[0]
-            res = ke1 - ke_start + charge * (v1 - v_start)
-            worst = max(worst, abs(res))
-            if n_path_cap > 0:
-                put_path(path, n_path, t, y0, ke1, res)
-                n_path += 1
+                    patch_next = patch_coefficients(herm, ni, nj, hz, hr)
+                    v_next = rate(patch_next, z0 + ni * hz, r0 + nj * hr, grid, sym, mass, charge,
+                                  y1[l], k_new, 0)
+                    evals[l] += 1
+                    if cut[l] or (kink_error(k_new[0], k1[l], dt, y0[l], y1[l], rtol, atol_p[r])
+                                  <= KINK_FRACTION):
+                        enter = True
+                    elif past:
+                        th = wall_theta(rt[l], sym, box, 1.0, geo, buf)
+            if th <= 1.0:
+                rejected[l] += 1
+                h_cut[l] = th * h
+                continue
 
-    final[0] = t
-    for i in range(6):
-        final[1 + i] = y0[i]
-    final[7] = kinetic_energy_J(y0[3], y0[4], y0[5], mass)
-    final[8] = worst
-    return code, electrode, n_cross, n_path, steps, rejected, evals
+            # accepted step: look for events on the dense output, piece by piece
+            steps[l] += 1
+            for m in range(5):
+                for i in range(6):
+                    rc[l, m, i] = rt[l, m, i]
+            hp[l] = h
+            n_sub = 0
+            if not quiet[ci[l], cj[l]]:
+                n_sub = max(1, int(math.ceil(max(speed(y0[l], mass), speed(y1[l], mass)) * h
+                                             / sample)))
+            rcl = rc[l]
+            ta = 0.0
+            za, ra = y0[l, 2], map_r(sym, y0[l, 0], y0[l, 1])
+            xa, ya_ = y0[l, 0], y0[l, 1]
+            t_end = 2.0
+            for m in range(1, n_sub + 1):
+                tb = m / n_sub
+                dense(rcl, tb, buf)
+                xb, yb, zb = buf[0], buf[1], buf[2]
+                rb = map_r(sym, xb, yb)
+                chord = math.sqrt((xb - xa) ** 2 + (yb - ya_) ** 2 + (zb - za) ** 2)
+                # leaving the domain
+                if outside(bounds, sym, zb, rb):
+                    if zb > bounds[1]:
+                        t_end = min(t_end, locate(rcl, sym, ta, tb, EV_Z, bounds[1], True, geo, buf))
+                    if zb < bounds[0]:
+                        t_end = min(t_end, locate(rcl, sym, ta, tb, EV_Z, bounds[0], False, geo, buf))
+                    if rb > bounds[3]:
+                        t_end = min(t_end, locate(rcl, sym, ta, tb, EV_R, bounds[3], True, geo, buf))
+                    if sym == 1 and rb < bounds[2]:
+                        t_end = min(t_end, locate(rcl, sym, ta, tb, EV_R, bounds[2], False, geo, buf))
+                    code[l] = LEFT
+                # landing on an electrode
+                if touches_surface(cell, grid, za, ra, zb, rb, 0.5 * chord if sym == 0 else 0.0):
+                    pa[0] = za
+                    pa[1] = ra
+                    th, k = find_landing(rcl, sym, ta, min(tb, t_end), pa, chord, fine, geo, buf)
+                    if th < t_end:
+                        t_end = th
+                        code[l] = LANDED
+                        electrode[l] = k
+                # detector planes
+                for q in range(planes.shape[0]):
+                    zp = planes[q]
+                    if (za >= zp) != (zb >= zp):
+                        th = locate(rcl, sym, ta, tb, EV_Z, zp, zb >= zp, geo, buf)
+                        if th <= t_end:
+                            if stops[q]:
+                                t_end = th
+                                code[l] = PLANE
+                                electrode[l] = -1
+                            nc = n_cross[l]
+                            if nc < max_cross:
+                                dense(rcl, th, buf)
+                                cross_plane[r, nc] = q
+                                cross_state[r, nc, 0] = t[l] + th * h
+                                for i in range(6):
+                                    cross_state[r, nc, 1 + i] = buf[i]
+                                ke = kinetic_energy_J(buf[3], buf[4], buf[5], mass)
+                                cross_state[r, nc, 7] = ke
+                                vq = field_at(herm, grid, sym, buf[0], buf[1], buf[2])[0]
+                                worst[l] = max(worst[l], abs(ke - ke_start[l] + charge * (vq - v_start[l])))
+                                cross_state[r, nc, 8] = worst[l]
+                            n_cross[l] += 1
+                if code[l] != RUNNING:
+                    break
+                ta, za, ra, xa, ya_ = tb, zb, rb, xb, yb
+
+            n_path_cap = paths.shape[1] if r < paths.shape[0] else 0
+            if code[l] == RUNNING:
+                t_new = t[l] + h
+                # the ledger takes the potential of the cell the step ends in
+                if past:
+                    if enter and i1 == ni and j1 == nj:
+                        v1 = v_next
+                    else:
+                        v1 = field_at(herm, grid, sym, y1[l, 0], y1[l, 1], y1[l, 2])[0]
+                        evals[l] += 1
+                ke1 = kinetic_energy_J(y1[l, 3], y1[l, 4], y1[l, 5], mass)
+                res = ke1 - ke_start[l] + charge * (v1 - v_start[l])
+                worst[l] = max(worst[l], abs(res))
+                if t_new >= t_max:
+                    code[l] = TIME
+                    t_new = t_max
+                t[l] = t_new
+                for i in range(6):
+                    y0[l, i] = y1[l, i]
+                    k0[l, i] = k_new[0, i] if enter else k1[l, i]
+                    w[W_Y0 + i, l] = y0[l, i]
+                    w[W_K + i, l] = k0[l, i]
+                if enter:
+                    ci[l] = ni
+                    cj[l] = nj
+                    put_patch(w, l, patch_next, z0 + ni * hz, r0 + nj * hr)
+                if n_path_cap > 0 and steps[l] % stride[l] == 0:
+                    if n_path[l] == n_path_cap - 1:
+                        n_path[l] = thin_path(paths[r], n_path[l])
+                        stride[l] *= 2
+                    if steps[l] % stride[l] == 0:
+                        put_path(paths[r], n_path[l], t[l], y0[l], ke1, res)
+                        n_path[l] += 1
+                # the step-size proposal; a step shortened to a wall does not shrink the next one
+                base = max(h, h_err[l]) if h < h_err[l] else h
+                cap = FAC_MAX * base
+                x = SAFETY * h / cap       # an error below x^5 proposes more than the cap
+                if enorm < x * x * x * x * x:
+                    h_err[l] = cap
+                else:
+                    h_err[l] = min(h * max(FAC_MIN, SAFETY * max(enorm, 1e-10) ** -0.2), cap)
+            else:
+                dense(rcl, t_end, buf)
+                for i in range(6):
+                    y0[l, i] = buf[i]
+                t[l] = t[l] + t_end * h
+                ke1 = kinetic_energy_J(y0[l, 3], y0[l, 4], y0[l, 5], mass)
+                v1 = field_at(herm, grid, sym, y0[l, 0], y0[l, 1], y0[l, 2])[0]
+                res = ke1 - ke_start[l] + charge * (v1 - v_start[l])
+                worst[l] = max(worst[l], abs(res))
+                if n_path_cap > 0:
+                    put_path(paths[r], n_path[l], t[l], y0[l], ke1, res)
+                    n_path[l] += 1
+
+        # lanes whose ray has ended hand in its results
+        for l in range(LANES):
+            r = ray[l]
+            if r < 0 or code[l] == RUNNING:
+                continue
+            final[r, 0] = t[l]
+            for i in range(6):
+                final[r, 1 + i] = y0[l, i]
+            final[r, 7] = kinetic_energy_J(y0[l, 3], y0[l, 4], y0[l, 5], mass)
+            final[r, 8] = worst[l]
+            info[r, 0] = code[l]
+            info[r, 1] = electrode[l]
+            info[r, 2] = n_cross[l]
+            info[r, 3] = n_path[l]
+            info[r, 4] = steps[l]
+            info[r, 5] = rejected[l]
+            info[r, 6] = evals[l]
+            ray[l] = -1
 
 
 @njit(cache=True, error_model="numpy")
@@ -899,8 +1039,9 @@ def quiet_cells(cell, grid, planes):
 
 @njit(cache=True, parallel=True, error_model="numpy")
 def trace_rays(starts, herm, grid, sym, bounds, cell, geo, mass, charge, t_max, rtol, atol_p,
-               max_step, sample, fine, planes, stops, max_steps, max_cross, paths, quiet):
-    """Trace many rays in parallel (numba prange); see :func:`trace_one` for the layouts.
+               max_step, sample, fine, planes, stops, max_steps, max_cross, paths, quiet, group):
+    """Trace many rays in parallel (numba prange over groups of rays, each traced by
+    :func:`trace_lanes`, whose docstring gives the layouts).
 
     Parameters
     ----------
@@ -912,6 +1053,8 @@ def trace_rays(starts, herm, grid, sym, bounds, cell, geo, mass, charge, t_max, 
         Path buffers of the first k rays (k may be 0).
     quiet : bool[nz - 1, nr - 1]
         :func:`quiet_cells` of the cell map and planes.
+    group : int
+        Rays per group (one thread traces a group, ``LANES`` rays at a time).
 
     Returns
     -------
@@ -924,12 +1067,8 @@ def trace_rays(starts, herm, grid, sym, bounds, cell, geo, mass, charge, t_max, 
     info = np.zeros((n, 7), dtype=np.int64)
     cross_plane = np.full((n, max_cross), -1, dtype=np.int64)
     cross_state = np.zeros((n, max_cross, 9))
-    empty = np.zeros((0, 9))
-    for r in prange(n):
-        path = paths[r] if r < paths.shape[0] else empty
-        out = trace_one(starts[r], herm, grid, sym, bounds, cell, geo, mass, charge, t_max, rtol,
-                        atol_p[r], max_step, sample, fine, planes, stops, max_steps,
-                        final[r], cross_plane[r], cross_state[r], path, quiet)
-        for i in range(7):
-            info[r, i] = out[i]
+    for g in prange(-(-n // group)):
+        trace_lanes(g * group, min(n, (g + 1) * group), starts, herm, grid, sym, bounds, cell, geo,
+                    mass, charge, t_max, rtol, atol_p, max_step, sample, fine, planes, stops,
+                    max_steps, final, info, cross_plane, cross_state, paths, quiet)
     return final, info, cross_plane, cross_state
