@@ -118,7 +118,8 @@ W_V1 = 73       # the potential at the end state
 W_ERR = 74      # the scaled error norm of the step
 W_ATOL = 75     # the ray's absolute momentum tolerance
 W_DENSE = 76    # 30: continuous extension, coefficient m component i in row W_DENSE + 6 m + i
-W_ROWS = 106
+W_RATE = 106    # 6: the rate at a stage point
+W_ROWS = 112
 
 
 @njit(cache=True, error_model="numpy", inline="always")
@@ -229,7 +230,8 @@ def lane_stage(w, st, grid, sym, mass, charge):
     """Stage st of the step in every lane: the stage point into ``W_Y1``, its rate into row
     ``W_K + 6 st`` and its potential into ``W_V1`` (see :func:`rate`).
 
-    st is a constant at every call, so the loops inside the loop over lanes unroll and that loop
+    The sums run over all six earlier rows (the tableau's zeros add exact zeros), so the loops inside
+    the loop over lanes have constant lengths and unroll, and that loop, writing only fixed rows,
     compiles to SIMD instructions over the lanes.
     """
     g = (grid[0], grid[1], grid[2], grid[3], grid[4], grid[5], grid[6], grid[7])  # in registers
@@ -237,22 +239,25 @@ def lane_stage(w, st, grid, sym, mass, charge):
         h = w[W_H, l]
         for i in range(6):
             acc = 0.0
-            for j in range(st):
+            for j in range(6):   # DP_A[st, j] is 0 for j >= st: adding 0 k_j (finite) is exact
                 acc += DP_A[st, j] * w[W_K + 6 * j + i, l]
             w[W_Y1 + i, l] = w[W_Y0 + i, l] + h * acc
         igm = inverse_gamma_mass(mass, w[W_Y1 + 3, l], w[W_Y1 + 4, l], w[W_Y1 + 5, l])
         for i in range(3):
-            w[W_K + 6 * st + i, l] = w[W_Y1 + 3 + i, l] * igm
+            w[W_RATE + i, l] = w[W_Y1 + 3 + i, l] * igm
         a = (w[W_PATCH, l], w[W_PATCH + 1, l], w[W_PATCH + 2, l], w[W_PATCH + 3, l],
              w[W_PATCH + 4, l], w[W_PATCH + 5, l], w[W_PATCH + 6, l], w[W_PATCH + 7, l],
              w[W_PATCH + 8, l], w[W_PATCH + 9, l], w[W_PATCH + 10, l], w[W_PATCH + 11, l],
              w[W_PATCH + 12, l], w[W_PATCH + 13, l], w[W_PATCH + 14, l], w[W_PATCH + 15, l])
         v, ex, ey, ez = patch_field(a, w[W_CZ, l], w[W_CR, l], g, sym, w[W_Y1, l],
                                     w[W_Y1 + 1, l], w[W_Y1 + 2, l])
-        w[W_K + 6 * st + 3, l] = charge * ex
-        w[W_K + 6 * st + 4, l] = charge * ey
-        w[W_K + 6 * st + 5, l] = charge * ez
+        w[W_RATE + 3, l] = charge * ex
+        w[W_RATE + 4, l] = charge * ey
+        w[W_RATE + 5, l] = charge * ez
         w[W_V1, l] = v
+    for i in range(6):
+        for l in range(LANES):
+            w[W_K + 6 * st + i, l] = w[W_RATE + i, l]
 
 
 @njit(cache=True, error_model="numpy", inline="always")
@@ -269,14 +274,10 @@ def lane_step(w, grid, sym, mass, charge, rtol, atol_x):
 
     Each loop over lanes holds only loops of constant length and branches the compiler turns into
     selects, so it compiles to SIMD instructions over the lanes (when w is a workspace allocated
-    by the caller it is inlined into, whose shape the compiler then knows).
+    by the caller it is inlined into, whose shape the compiler then knows; ``W_RATE`` is scratch).
     """
-    lane_stage(w, 1, grid, sym, mass, charge)
-    lane_stage(w, 2, grid, sym, mass, charge)
-    lane_stage(w, 3, grid, sym, mass, charge)
-    lane_stage(w, 4, grid, sym, mass, charge)
-    lane_stage(w, 5, grid, sym, mass, charge)
-    lane_stage(w, 6, grid, sym, mass, charge)
+    for st in range(1, 7):
+        lane_stage(w, st, grid, sym, mass, charge)
     for l in range(LANES):
         h = w[W_H, l]
         acc2 = 0.0
