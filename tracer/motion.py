@@ -102,7 +102,6 @@ KINK_FRACTION = 0.05  # largest error of the stretch past a wall, as a fraction 
 PREDICT_SPAN = 3.0    # the last step's dense output predicts at most this many of its lengths ahead
 STRETCH = 1.1         # a step may grow by this factor to reach the wall instead of stopping short
 SAFETY, FAC_MIN, FAC_MAX = 0.9, 0.2, 5.0
-NO_PATCH = (0.0,) * 16  # a placeholder cell polynomial
 
 # Rays stepped together by one thread: their Runge–Kutta stages run as SIMD loops over the lanes.
 LANES = 8
@@ -119,7 +118,9 @@ W_ERR = 74      # the scaled error norm of the step
 W_ATOL = 75     # the ray's absolute momentum tolerance
 W_DENSE = 76    # 30: continuous extension, coefficient m component i in row W_DENSE + 6 m + i
 W_RATE = 106    # 6: the rate at a stage point
-W_ROWS = 112
+W_NEXT = 112    # 18: the polynomial and first corner of the cell a step is about to enter
+W_VN = 130      # the potential at the end state in that cell
+W_ROWS = 131
 
 
 @njit(cache=True, error_model="numpy", inline="always")
@@ -226,6 +227,35 @@ def inverse_gamma_mass(mass, px, py, pz):
 
 
 @njit(cache=True, error_model="numpy", inline="always")
+def lane_rate(w, l, g, sym, mass, charge, patch, v_row):
+    """The rate at lane l's point ``W_Y1`` in the cell polynomial of rows patch..patch+17 (16
+    coefficients, then the first corner) into ``W_RATE``, the potential into row v_row (see
+    :func:`rate`; g is the grid vector as a tuple)."""
+    igm = inverse_gamma_mass(mass, w[W_Y1 + 3, l], w[W_Y1 + 4, l], w[W_Y1 + 5, l])
+    for i in range(3):
+        w[W_RATE + i, l] = w[W_Y1 + 3 + i, l] * igm
+    a = (w[patch, l], w[patch + 1, l], w[patch + 2, l], w[patch + 3, l], w[patch + 4, l],
+         w[patch + 5, l], w[patch + 6, l], w[patch + 7, l], w[patch + 8, l], w[patch + 9, l],
+         w[patch + 10, l], w[patch + 11, l], w[patch + 12, l], w[patch + 13, l],
+         w[patch + 14, l], w[patch + 15, l])
+    v, ex, ey, ez = patch_field(a, w[patch + 16, l], w[patch + 17, l], g, sym, w[W_Y1, l],
+                                w[W_Y1 + 1, l], w[W_Y1 + 2, l])
+    w[W_RATE + 3, l] = charge * ex
+    w[W_RATE + 4, l] = charge * ey
+    w[W_RATE + 5, l] = charge * ez
+    w[v_row, l] = v
+
+
+@njit(cache=True, error_model="numpy", inline="always")
+def lane_next_rates(w, grid, sym, mass, charge):
+    """The rates at the end states ``W_Y1`` of all lanes in the cells they are about to enter
+    (``W_NEXT``) into ``W_RATE``, the potentials into ``W_VN``: one SIMD loop over the lanes."""
+    g = (grid[0], grid[1], grid[2], grid[3], grid[4], grid[5], grid[6], grid[7])  # in registers
+    for l in range(LANES):
+        lane_rate(w, l, g, sym, mass, charge, W_NEXT, W_VN)
+
+
+@njit(cache=True, error_model="numpy", inline="always")
 def lane_stage(w, st, grid, sym, mass, charge):
     """Stage st of the step in every lane: the stage point into ``W_Y1``, its rate into row
     ``W_K + 6 st`` and its potential into ``W_V1`` (see :func:`rate`).
@@ -242,19 +272,7 @@ def lane_stage(w, st, grid, sym, mass, charge):
             for j in range(6):   # DP_A[st, j] is 0 for j >= st: adding 0 k_j (finite) is exact
                 acc += DP_A[st, j] * w[W_K + 6 * j + i, l]
             w[W_Y1 + i, l] = w[W_Y0 + i, l] + h * acc
-        igm = inverse_gamma_mass(mass, w[W_Y1 + 3, l], w[W_Y1 + 4, l], w[W_Y1 + 5, l])
-        for i in range(3):
-            w[W_RATE + i, l] = w[W_Y1 + 3 + i, l] * igm
-        a = (w[W_PATCH, l], w[W_PATCH + 1, l], w[W_PATCH + 2, l], w[W_PATCH + 3, l],
-             w[W_PATCH + 4, l], w[W_PATCH + 5, l], w[W_PATCH + 6, l], w[W_PATCH + 7, l],
-             w[W_PATCH + 8, l], w[W_PATCH + 9, l], w[W_PATCH + 10, l], w[W_PATCH + 11, l],
-             w[W_PATCH + 12, l], w[W_PATCH + 13, l], w[W_PATCH + 14, l], w[W_PATCH + 15, l])
-        v, ex, ey, ez = patch_field(a, w[W_CZ, l], w[W_CR, l], g, sym, w[W_Y1, l],
-                                    w[W_Y1 + 1, l], w[W_Y1 + 2, l])
-        w[W_RATE + 3, l] = charge * ex
-        w[W_RATE + 4, l] = charge * ey
-        w[W_RATE + 5, l] = charge * ez
-        w[W_V1, l] = v
+        lane_rate(w, l, g, sym, mass, charge, W_PATCH, W_V1)
     for i in range(6):
         for l in range(LANES):
             w[W_K + 6 * st + i, l] = w[W_RATE + i, l]
@@ -672,12 +690,13 @@ def thin_path(path, n):
 
 
 @njit(cache=True, error_model="numpy", inline="always")
-def put_patch(w, l, a, pz, pr):
-    """Write a cell's polynomial (16 coefficients) and first corner into lane l of a workspace."""
+def put_patch(w, l, row, a, pz, pr):
+    """Write a cell's polynomial (16 coefficients) and first corner into rows row..row+17 of lane l
+    of a workspace."""
     for m in range(16):
-        w[W_PATCH + m, l] = a[m]
-    w[W_CZ, l] = pz
-    w[W_CR, l] = pr
+        w[row + m, l] = a[m]
+    w[row + 16, l] = pz
+    w[row + 17, l] = pr
 
 
 @njit(cache=True, error_model="numpy")
@@ -724,6 +743,12 @@ def trace_lanes(lo, hi, starts, herm, grid, sym, bounds, cell, geo, mass, charge
     rc = np.zeros((LANES, 5, 6))  # dense output of the last accepted step
     rt = np.zeros((LANES, 5, 6))  # dense output of the trial step
     k_new = np.empty((1, 6))      # a rate in a new cell
+    passed = np.zeros(LANES, dtype=np.bool_)      # the step passed the error test
+    need = np.zeros(LANES, dtype=np.bool_)        # the step is to enter the next cell (W_NEXT)
+    past_cell = np.zeros(LANES, dtype=np.bool_)   # the step ends outside its cell
+    end_cell = np.zeros((LANES, 4), dtype=np.int64)  # the cell it ends in, the cell ahead
+    theta = np.zeros(LANES)       # where on the step it is to be cut back (> 1: nowhere)
+    dt = np.zeros(LANES)          # time between the step's end and the wall it is passing
     ahead = np.empty((3, 5))      # the predicted path of the next step (reach)
     buf = np.empty(6)
     pa = np.empty(2)
@@ -753,7 +778,7 @@ def trace_lanes(lo, hi, starts, herm, grid, sym, bounds, cell, geo, mass, charge
                     k0[l, i] = k_new[0, i]
                     w[W_Y0 + i, l] = y0[l, i]
                     w[W_K + i, l] = k_new[0, i]
-                put_patch(w, l, patch, z0 + ci[l] * hz, r0 + cj[l] * hr)
+                put_patch(w, l, W_PATCH, patch, z0 + ci[l] * hz, r0 + cj[l] * hr)
                 w[W_ATOL, l] = atol_p[r]
                 ke_start[l] = kinetic_energy_J(y0[l, 3], y0[l, 4], y0[l, 5], mass)
                 evals[l] = 1
@@ -810,11 +835,11 @@ def trace_lanes(lo, hi, starts, herm, grid, sym, bounds, cell, geo, mass, charge
 
         lane_step(w, grid, sym, mass, charge, rtol, atol_x)
 
-        # each lane checks its step
+        # each lane checks its step: error, then the cell it ends in and the one it is entering
         for l in range(LANES):
+            passed[l] = False
             if ray[l] < 0 or code[l] != RUNNING:
                 continue
-            r = ray[l]
             h = w[W_H, l]
             evals[l] += 6
             enorm = w[W_ERR, l]
@@ -823,15 +848,13 @@ def trace_lanes(lo, hi, starts, herm, grid, sym, bounds, cell, geo, mass, charge
                 fac = FAC_MIN if not enorm < 1e300 else max(FAC_MIN, SAFETY * enorm ** -0.2)
                 h_err[l] = h * min(1.0, fac)
                 continue
+            passed[l] = True
             for i in range(6):
                 y1[l, i] = w[W_Y1 + i, l]
                 k1[l, i] = w[W_K + 36 + i, l]
             for m in range(5):
                 for i in range(6):
                     rt[l, m, i] = w[W_DENSE + 6 * m + i, l]
-            v1 = w[W_V1, l]
-
-            # the cell the step ends in, and the one it is about to enter
             cell_box(grid, ci[l], cj[l], box)
             hold(box, sym, y0[l])    # a step may start just before the wall it has entered through
             i1, j1 = cell_of(grid, sym, y1[l, 0], y1[l, 1], y1[l, 2])
@@ -846,23 +869,50 @@ def trace_lanes(lo, hi, starts, herm, grid, sym, bounds, cell, geo, mass, charge
                 th = excursion(rt[l], sym, y0[l], k0[l], y1[l], k1[l], h, box, buf)
                 if th <= 1.0:
                     th = wall_theta(rt[l], sym, box, th, geo, buf)
-            enter = False
-            v_next = v1
-            patch_next = NO_PATCH
+            need[l] = False
             if th > 1.0 and (ni != ci[l] or nj != cj[l]):
-                dt = wall_time(grid, sym, y1[l], k1[l], ci[l], cj[l], ni, nj)
-                if past and dt * speed(y1[l], mass) > snap:
+                dt[l] = wall_time(grid, sym, y1[l], k1[l], ci[l], cj[l], ni, nj)
+                if past and dt[l] * speed(y1[l], mass) > snap:
                     th = wall_theta(rt[l], sym, box, 1.0, geo, buf)
                 else:
-                    patch_next = patch_coefficients(herm, ni, nj, hz, hr)
-                    v_next = rate(patch_next, z0 + ni * hz, r0 + nj * hr, grid, sym, mass, charge,
-                                  y1[l], k_new, 0)
-                    evals[l] += 1
-                    if cut[l] or (kink_error(k_new[0], k1[l], dt, y0[l], y1[l], rtol, atol_p[r])
-                                  <= KINK_FRACTION):
-                        enter = True
-                    elif past:
-                        th = wall_theta(rt[l], sym, box, 1.0, geo, buf)
+                    need[l] = True
+                    put_patch(w, l, W_NEXT, patch_coefficients(herm, ni, nj, hz, hr),
+                              z0 + ni * hz, r0 + nj * hr)
+            theta[l] = th
+            past_cell[l] = past
+            end_cell[l, 0] = i1
+            end_cell[l, 1] = j1
+            end_cell[l, 2] = ni
+            end_cell[l, 3] = nj
+
+        # the rates in the cells the steps are entering, all lanes at once
+        lane_next_rates(w, grid, sym, mass, charge)
+
+        # each lane enters the next cell, or cuts its step back to the wall, or goes on
+        for l in range(LANES):
+            if not passed[l]:
+                continue
+            r = ray[l]
+            h = w[W_H, l]
+            enorm = w[W_ERR, l]
+            v1 = w[W_V1, l]
+            th = theta[l]
+            past = past_cell[l]
+            i1, j1, ni, nj = end_cell[l, 0], end_cell[l, 1], end_cell[l, 2], end_cell[l, 3]
+            enter = False
+            v_next = v1
+            if need[l]:
+                v_next = w[W_VN, l]
+                for i in range(6):
+                    k_new[0, i] = w[W_RATE + i, l]
+                evals[l] += 1
+                if cut[l] or (kink_error(k_new[0], k1[l], dt[l], y0[l], y1[l], rtol, atol_p[r])
+                              <= KINK_FRACTION):
+                    enter = True
+                elif past:
+                    cell_box(grid, ci[l], cj[l], box)
+                    hold(box, sym, y0[l])
+                    th = wall_theta(rt[l], sym, box, 1.0, geo, buf)
             if th <= 1.0:
                 rejected[l] += 1
                 h_cut[l] = th * h
@@ -961,7 +1011,8 @@ def trace_lanes(lo, hi, starts, herm, grid, sym, bounds, cell, geo, mass, charge
                 if enter:
                     ci[l] = ni
                     cj[l] = nj
-                    put_patch(w, l, patch_next, z0 + ni * hz, r0 + nj * hr)
+                    for m in range(18):
+                        w[W_PATCH + m, l] = w[W_NEXT + m, l]
                 if n_path_cap > 0 and steps[l] % stride[l] == 0:
                     if n_path[l] == n_path_cap - 1:
                         n_path[l] = thin_path(paths[r], n_path[l])
