@@ -706,8 +706,9 @@ def trace_lanes(lo, hi, starts, herm, grid, sym, bounds, cell, geo, mass, charge
     """Trace rays lo..hi-1 of ``starts`` on one thread, ``LANES`` at a time.
 
     Every lane holds one ray; each round, every lane chooses its step, :func:`lane_step` takes all
-    the steps at once, and every lane checks its own: error, cell walls, events, the ledger. A lane
-    whose ray has ended takes the next ray. Row r of ``final`` = (t, x, y, z, px, py, pz, ke_J,
+    the steps at once, and every lane checks its own: error and cell walls, then (after
+    :func:`lane_next_rates` has given the rates in the cells the steps are entering) the kink at
+    the wall, events and the ledger. A lane whose ray has ended takes the next ray. Row r of ``final`` = (t, x, y, z, px, py, pz, ke_J,
     worst ledger J), ``info`` = (code, electrode, crossings, path points, steps, rejected steps,
     field evaluations), ``cross_plane``/``cross_state`` (rows of t, x, y, z, px, py, pz, ke_J,
     ledger J) receive ray r's results; ``paths[r]`` (for r < len(paths)) receives its accepted-step
@@ -744,7 +745,7 @@ def trace_lanes(lo, hi, starts, herm, grid, sym, bounds, cell, geo, mass, charge
     rt = np.zeros((LANES, 5, 6))  # dense output of the trial step
     k_new = np.empty((1, 6))      # a rate in a new cell
     passed = np.zeros(LANES, dtype=np.bool_)      # the step passed the error test
-    need = np.zeros(LANES, dtype=np.bool_)        # the step is to enter the next cell (W_NEXT)
+    need = np.zeros(LANES, dtype=np.bool_)        # the step needs the rate in the cell ahead
     past_cell = np.zeros(LANES, dtype=np.bool_)   # the step ends outside its cell
     end_cell = np.zeros((LANES, 4), dtype=np.int64)  # the cell it ends in, the cell ahead
     theta = np.zeros(LANES)       # where on the step it is to be cut back (> 1: nowhere)
