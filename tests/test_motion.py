@@ -191,27 +191,25 @@ def test_wall_prediction_continues_the_dense_output_and_finds_the_crossing():
     box = np.empty(4)
     for h, crosses in ((2e-9, True), (0.5e-9, False)):
         motion.cell_box(grid, 80, 4, box)
-        walls = box.copy()
         tau = motion.exit_time(q, y0, k0, 0, box, h, tol)
         if not crosses:
             assert tau == h          # the path stays inside the cell for the whole step
             continue
         assert 0.0 < tau < h
         z = motion.series(q, 2, tau)[0]
-        assert abs(z - walls[1]) < tol
+        assert abs(z - box[1]) < tol
         # the path is inside the cell before the crossing
         zs = [motion.series(q, 2, t)[0] for t in np.linspace(0.0, tau, 20)[:-1]]
-        assert max(zs) < walls[1]
+        assert max(zs) < box[1]
     # a ray moving out across the cell's outer wall (r) before it reaches the next z wall
     y0 = np.array([1.2e-3, 0.1e-3, 20.01e-3, 0.0, 0.0, 0.0])
     k0 = np.array([2e5, 1e4, 5e4, 0.0, 0.0, 0.0])
     motion.reach(rc, 0.0, y0, k0, constants.m_p, 1e-9, q)     # no last step: constant rate
     motion.cell_box(grid, 80, 4, box)
-    walls = box.copy()
     tau = motion.exit_time(q, y0, k0, 0, box, 1e-9, tol)
     x, y = motion.series(q, 0, tau)[0], motion.series(q, 1, tau)[0]
-    assert 0.0 < tau < 1e-9 and abs(np.hypot(x, y) - walls[3]) < tol
-    assert motion.series(q, 2, tau)[0] < walls[1]
+    assert 0.0 < tau < 1e-9 and abs(np.hypot(x, y) - box[3]) < tol
+    assert motion.series(q, 2, tau)[0] < box[1]
 
 
 def equations(field, mass, charge, sym):

@@ -220,10 +220,16 @@ def dense(rc, theta, out):
 
 
 @njit(cache=True, error_model="numpy", inline="always")
-def inverse_gamma_mass(mass, px, py, pz):
-    """1 / (gamma m) of a momentum (the velocity is p / (gamma m))."""
+def gamma_mass(mass, px, py, pz):
+    """gamma m of a momentum (the velocity is p / (gamma m))."""
     mc = mass * C_LIGHT
-    return 1.0 / (mass * math.sqrt(1.0 + (px * px + py * py + pz * pz) / (mc * mc)))
+    return mass * math.sqrt(1.0 + (px * px + py * py + pz * pz) / (mc * mc))
+
+
+@njit(cache=True, error_model="numpy", inline="always")
+def inverse_gamma_mass(mass, px, py, pz):
+    """1 / (gamma m) of a momentum (see :func:`gamma_mass`)."""
+    return 1.0 / gamma_mass(mass, px, py, pz)
 
 
 @njit(cache=True, error_model="numpy", inline="always")
@@ -324,9 +330,7 @@ def step_cap(s, k, mass, length):
     """Longest time step that moves a ray at most ``length`` metres (constant-acceleration estimate)."""
     v = math.sqrt(k[0] * k[0] + k[1] * k[1] + k[2] * k[2])
     f = math.sqrt(k[3] * k[3] + k[4] * k[4] + k[5] * k[5])
-    mc = mass * C_LIGHT
-    gm = mass * math.sqrt(1.0 + (s[3] * s[3] + s[4] * s[4] + s[5] * s[5]) / (mc * mc))
-    a = f / gm
+    a = f / gamma_mass(mass, s[3], s[4], s[5])
     den = v + math.sqrt(v * v + 2.0 * a * length)
     if den <= 0.0:
         return np.inf
@@ -491,8 +495,7 @@ def reach(rc, hp, y0, k0, mass, h, q):
             q[i, 3] = (p3 + 4.0 * p4) / (hp * hp * hp)
             q[i, 4] = p4 / (hp * hp * hp * hp)
         return
-    mc = mass * C_LIGHT
-    gm = mass * math.sqrt(1.0 + (y0[3] * y0[3] + y0[4] * y0[4] + y0[5] * y0[5]) / (mc * mc))
+    gm = gamma_mass(mass, y0[3], y0[4], y0[5])
     for i in range(3):
         q[i, 0] = y0[i]
         q[i, 1] = k0[i]
@@ -708,14 +711,15 @@ def trace_lanes(lo, hi, starts, herm, grid, sym, bounds, cell, geo, mass, charge
     Every lane holds one ray; each round, every lane chooses its step, :func:`lane_step` takes all
     the steps at once, and every lane checks its own: error and cell walls, then (after
     :func:`lane_next_rates` has given the rates in the cells the steps are entering) the kink at
-    the wall, events and the ledger. A lane whose ray has ended takes the next ray. Row r of ``final`` = (t, x, y, z, px, py, pz, ke_J,
-    worst ledger J), ``info`` = (code, electrode, crossings, path points, steps, rejected steps,
-    field evaluations), ``cross_plane``/``cross_state`` (rows of t, x, y, z, px, py, pz, ke_J,
-    ledger J) receive ray r's results; ``paths[r]`` (for r < len(paths)) receives its accepted-step
-    points (t, state, ke_J, signed ledger J); when it fills up, every other point is dropped and
-    the spacing doubles, so it always spans the whole ray (its last row is kept for the end
-    point). In the cells marked by ``quiet`` (:func:`quiet_cells`) accepted steps skip the event
-    search.
+    the wall, events and the ledger. A lane whose ray has ended takes the next ray.
+
+    Row r of ``final`` = (t, x, y, z, px, py, pz, ke_J, worst ledger J), ``info`` = (code,
+    electrode, crossings, path points, steps, rejected steps, field evaluations),
+    ``cross_plane``/``cross_state`` (rows of t, x, y, z, px, py, pz, ke_J, ledger J) receive ray
+    r's results; ``paths[r]`` (for r < len(paths)) receives its accepted-step points (t, state,
+    ke_J, signed ledger J); when it fills up, every other point is dropped and the spacing
+    doubles, so it always spans the whole ray (its last row is kept for the end point). In the
+    cells marked by ``quiet`` (:func:`quiet_cells`) accepted steps skip the event search.
     """
     w = np.zeros((W_ROWS, LANES))
     ray = np.full(LANES, -1)
@@ -796,16 +800,17 @@ def trace_lanes(lo, hi, starts, herm, grid, sym, bounds, cell, geo, mass, charge
                 code[l] = RUNNING
                 electrode[l] = -1
                 r_start = map_r(sym, y0[l, 0], y0[l, 1])
-                k_in = electrode_at(y0[l, 2], r_start, geo[0], geo[1], geo[2], geo[3], geo[4],
-                                    geo[5], geo[6])
                 if outside(bounds, sym, y0[l, 2], r_start):
                     code[l] = LEFT
-                elif k_in >= 0:
-                    code[l] = INSIDE
-                    electrode[l] = k_in
-                elif r < paths.shape[0]:
-                    put_path(paths[r], 0, 0.0, y0[l], ke_start[l], 0.0)
-                    n_path[l] = 1
+                else:
+                    k_in = electrode_at(y0[l, 2], r_start, geo[0], geo[1], geo[2], geo[3],
+                                        geo[4], geo[5], geo[6])
+                    if k_in >= 0:
+                        code[l] = INSIDE
+                        electrode[l] = k_in
+                    elif r < paths.shape[0]:
+                        put_path(paths[r], 0, 0.0, y0[l], ke_start[l], 0.0)
+                        n_path[l] = 1
             if ray[l] >= 0:
                 active += 1
         if active == 0:
