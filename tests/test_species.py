@@ -8,6 +8,7 @@ import pytest
 from scipy import constants
 
 import tracer
+from tracer.cli import main
 from tracer.config import ConfigError
 from tracer.pipeline import CONFIGS
 from tracer.species import Species, custom_species, species
@@ -313,3 +314,10 @@ def test_an_ambiguous_species_in_a_config_names_the_key_and_the_readings(tmp_pat
     assert caught.value.key == "beam[0].species"
     assert "⁴He₂⁺" in caught.value.message and "⁴He²⁺" in caught.value.message
 
+
+def test_check_prints_each_beams_mass_charge_and_basis(capsys, tmp_path, monkeypatch):
+    monkeypatch.setenv("TRACER_CACHE", str(tmp_path / "cache"))
+    assert main(["check", str(CONFIGS / "einzel_argon.toml")]) == 0
+    out = capsys.readouterr().out
+    ar = species("40Ar+")
+    assert f"beam argon: 500 x 40Ar+: ⁴⁰Ar⁺, {ar.mass_u:.9g} u (isotopic), charge +1 e; at 1500 eV" in out

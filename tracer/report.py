@@ -35,7 +35,7 @@ def describe(setup) -> str:
         kinds = ", ".join(type(s).__name__.lower() for s in e.shapes)
         lines.append(f"  {e.name:<16s} {e.voltage_V:>10.1f} V   {kinds}")
     for b in setup.beams:
-        lines.append(f"beam {b.name}: {b.count} x {b.species.name} at {b.energy_eV:g} eV, "
+        lines.append(f"beam {b.name}: {b.count} x {b.species.describe()}; at {b.energy_eV:g} eV, "
                      f"from z = {b.start_z_m * 1e3:g} mm")
     for p in setup.planes:
         lines.append(f"plane {p.name}: z = {p.z_m * 1e3:g} mm" + (" (stops rays)" if p.stop else ""))
