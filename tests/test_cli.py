@@ -1,5 +1,6 @@
 """The command line: exit codes, one-line errors, what each command writes."""
 
+import os
 import subprocess
 import sys
 
@@ -77,3 +78,11 @@ def test_debug_shows_the_traceback(tmp_path):
 def test_missing_config_is_bad_input(tmp_path, capsys):
     assert main(["check", str(tmp_path / "nothing.toml")]) == 2
     assert "no such config file" in capsys.readouterr().err
+
+
+def test_a_terminal_without_unicode_gets_escapes_not_a_fault():
+    """Species formulas print with superscripts; an ASCII-only stream shows them escaped."""
+    proc = subprocess.run([sys.executable, "-m", "tracer", "check", str(EINZEL)], capture_output=True,
+                          text=True, env={**os.environ, "PYTHONIOENCODING": "ascii"})
+    assert proc.returncode == 0, proc.stderr
+    assert "\\u207a" in proc.stdout and "39.9618345 u" in proc.stdout

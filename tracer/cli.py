@@ -392,6 +392,9 @@ def main(argv: list[str] | None = None) -> int:
     from tracer.config import ConfigError
     from tracer.interrupts import by_interrupt
 
+    for stream in (sys.stdout, sys.stderr):   # a terminal that cannot show a character gets an escape
+        if hasattr(stream, "reconfigure"):
+            stream.reconfigure(errors="backslashreplace")
     parser = build_parser()
     args = parser.parse_args(argv)
     func = COMMANDS[args.command][0]
