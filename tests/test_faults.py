@@ -28,7 +28,8 @@ from scipy import constants
 
 import tracer
 from test_bad_input import TRAP
-from tracer import cache, store
+from tracer import cache
+from tracer.store import atomic, maps_file, openpmd, result_file
 from tracer.cli import main
 from tracer.pipeline import DEFAULT_RTOL
 
@@ -48,7 +49,7 @@ def trap(tmp_path_factory):
         mp.setenv("TRACER_CACHE", str(cache_dir))
         code = main(["run", str(config), "--out", str(out), "--quiet"])
     return SimpleNamespace(code=code, config=config, out=out, cache=cache_dir, stdout=stdout.getvalue(),
-                           setup=tracer.load(config), result=store.read_result(out / "result.h5"))
+                           setup=tracer.load(config), result=result_file.read_result(out / "result.h5"))
 
 
 def test_rays_starting_inside_an_electrode_are_counted_not_fatal(trap):
@@ -123,7 +124,7 @@ def test_a_stale_cache_file_is_recomputed(trap, monkeypatch):
     import tracer.solver
 
     path = cache.cache_file(trap.cache, trap.setup, rtol=DEFAULT_RTOL)
-    good = store.read_maps(path)
+    good = maps_file.read_maps(path)
     assert cache.load_cached(trap.setup, trap.cache, rtol=DEFAULT_RTOL) is not None
     with h5py.File(path, "r+") as f:
         f["/tracer/maps"].attrs["geometry_hash"] = "0" * 64
@@ -135,7 +136,7 @@ def test_a_stale_cache_file_is_recomputed(trap, monkeypatch):
     assert len(solves) == 1
     assert maps.geometry_hash == trap.setup.geometry_hash()
     assert maps.unit.tobytes() == good.unit.tobytes()
-    assert store.read_maps(path).geometry_hash == trap.setup.geometry_hash()
+    assert maps_file.read_maps(path).geometry_hash == trap.setup.geometry_hash()
     assert not [p for p in trap.cache.iterdir() if p.suffix == ".tmp"]
 
 
@@ -149,12 +150,12 @@ def test_atomic_path_removes_its_temporary_on_an_interrupt(tmp_path):
     target.write_bytes(b"the complete old file")
     for fault in (KeyboardInterrupt, OSError):
         with pytest.raises(fault):
-            with store.atomic_path(target) as tmp:
+            with atomic.atomic_path(target) as tmp:
                 tmp.write_bytes(b"half a new fi")
                 raise fault()
         assert target.read_bytes() == b"the complete old file"
         assert [p.name for p in tmp_path.iterdir()] == ["result.h5"]
-    with store.atomic_path(target) as tmp:
+    with atomic.atomic_path(target) as tmp:
         tmp.write_bytes(b"new")
     assert target.read_bytes() == b"new" and [p.name for p in tmp_path.iterdir()] == ["result.h5"]
 
@@ -166,7 +167,7 @@ def test_ctrl_c_while_writing_the_result_keeps_the_old_file(trap, tmp_path, monk
     (out / "result.h5").write_bytes((trap.out / "result.h5").read_bytes())
     before = (out / "result.h5").read_bytes()
     writes = []
-    write_mesh = store.write_mesh
+    write_mesh = openpmd.write_mesh
 
     def interrupted(*args, **kwargs):
         writes.append(args)
@@ -174,7 +175,7 @@ def test_ctrl_c_while_writing_the_result_keeps_the_old_file(trap, tmp_path, monk
             raise KeyboardInterrupt
         return write_mesh(*args, **kwargs)
 
-    monkeypatch.setattr(store, "write_mesh", interrupted)
+    monkeypatch.setattr(openpmd, "write_mesh", interrupted)
     monkeypatch.setenv("TRACER_CACHE", str(trap.cache))
     assert main(["run", str(trap.config), "--out", str(out), "--quiet"]) == 130
     assert capsys.readouterr().err == "tracer: interrupted\n"
@@ -221,7 +222,7 @@ def test_sigint_during_tracing_exits_130_and_leaves_no_half_file(trap, tmp_path)
     assert b"tracer: interrupted" in seen and b"Traceback" not in seen
     assert waited < 30               # the tracer stops within a chunk of rays, not at the end
     # killed while tracing: nothing was written, no half file, no temporary left behind
-    assert not (out / "result.h5").exists() or store.read_result(out / "result.h5")
+    assert not (out / "result.h5").exists() or result_file.read_result(out / "result.h5")
     assert leftovers(out) == [] and leftovers(trap.cache) == []
 
 

@@ -17,7 +17,8 @@ import tracer
 from tracer.beside import beside
 from tracer.pipeline import CONFIGS, run, write_run_outputs
 from tracer.plot import run_figures
-from tracer.store import StoreError, atomic_path
+from tracer.store import StoreError
+from tracer.store.atomic import atomic_path
 
 ROOT = Path(__file__).resolve().parent.parent
 
@@ -227,7 +228,7 @@ CTRL_C = """
 import sys, time
 from pathlib import Path
 from tracer.beside import beside
-from tracer.store import atomic_path
+from tracer.store.atomic import atomic_path
 
 out = Path(sys.argv[1])
 

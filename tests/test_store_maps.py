@@ -13,7 +13,9 @@ from tracer.config import loads
 from tracer.fieldmap import BasisMaps
 from tracer.geometry import rasterize, shape_table
 from tracer.grid import Grid
-from tracer.store import StoreError, openpmd_file, read_maps, read_tags, write_maps
+from tracer.store import StoreError
+from tracer.store.maps_file import read_maps, read_tags, write_maps
+from tracer.store.openpmd import openpmd_file
 
 PLATES = """
 title = "deflector plates (test geometry)"

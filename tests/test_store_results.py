@@ -15,8 +15,10 @@ from scipy import constants
 from tracer.beam import trace
 from tracer.config import load
 from tracer.fieldmap import solve_basis
-from tracer.store import (LANDING_COLUMNS, StoreError, read_landings_csv, read_result, staged_folder,
-                          write_landings_csv, write_maps, write_result)
+from tracer.store import StoreError
+from tracer.store.landings_csv import LANDING_COLUMNS, read_landings_csv, write_landings_csv
+from tracer.store.maps_file import write_maps
+from tracer.store.result_file import read_result, write_result
 
 AXIAL = """
 title = "two tubes and a target (test geometry, illustrative)"
@@ -282,20 +284,6 @@ def test_landings_csv_cells_are_those_of_the_csv_module(result, tmp_path):
     back = read_landings_csv(path)
     assert back["beam"][0] == 'beam, "one"'
     assert list(back["electrode"][:4]) == ["a,b", 'say "hi"', "", "two\nlines"]
-
-
-def test_a_staged_folder_adds_its_files_only_when_the_block_succeeds(tmp_path):
-    (tmp_path / "result.h5").write_bytes(b"old")
-    with pytest.raises(KeyboardInterrupt):
-        with staged_folder(tmp_path) as staging:
-            (staging / "rays.png").write_bytes(b"new picture")
-            raise KeyboardInterrupt
-    assert [p.name for p in tmp_path.iterdir()] == ["result.h5"]
-    with staged_folder(tmp_path) as staging:
-        (staging / "rays.png").write_bytes(b"new picture")
-        (staging / "result.h5").write_bytes(b"new")
-    assert sorted(p.name for p in tmp_path.iterdir()) == ["rays.png", "result.h5"]
-    assert (tmp_path / "result.h5").read_bytes() == b"new"
 
 
 def test_a_failed_csv_write_leaves_nothing(tmp_path):

@@ -1,6 +1,6 @@
 """A disk cache of basis maps, keyed by the geometry and the solver settings (not the voltages).
 
-A cache file is a maps file (``tracer.store``) named after the cache key, with the key stored
+A cache file is a maps file (``tracer.store.maps_file``) named after the cache key, with the key stored
 inside it.  A file whose stored key or geometry hash does not match, or that cannot be read, is
 treated as missing: the maps are solved again and the file is replaced (atomically).  The key
 includes the tracer version, so a new version never reads maps made by an older solver.
@@ -15,7 +15,8 @@ from pathlib import Path
 
 from tracer import __version__
 from tracer.fieldmap import solve_basis
-from tracer.store import StoreError, read_maps, read_tags, write_maps
+from tracer.store import StoreError
+from tracer.store.maps_file import read_maps, read_tags, write_maps
 
 CACHE_FORMAT = "tracer-cache-1"
 

@@ -216,7 +216,8 @@ def cmd_gun(args, echo) -> int:
 def cmd_show(args, echo) -> int:
     from tracer.plot import run_figures
     from tracer.report import format_summary
-    from tracer.store import StoreError, read_result
+    from tracer.store import StoreError
+    from tracer.store.result_file import read_result
 
     if not Path(args.config).is_file():
         raise InputError(f"{args.config}: no such result file")

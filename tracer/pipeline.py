@@ -53,7 +53,7 @@ def solve(setup, *, cache_dir=None, rtol: float = DEFAULT_RTOL, progress=None):
 def write_solve_outputs(setup, maps, out) -> list[Path]:
     """Write the basis maps (``maps.h5``) and the equipotential picture into a folder."""
     from tracer.plot import plot_field
-    from tracer.store import write_maps
+    from tracer.store.maps_file import write_maps
 
     out = Path(out)
     out.mkdir(parents=True, exist_ok=True)
@@ -134,7 +134,9 @@ def write_run_outputs(result: RunResult, out) -> list[Path]:
     interrupted write adds no picture to the folder."""
     from tracer import plot
     from tracer.beside import beside
-    from tracer.store import staged_folder, write_landings_csv, write_result
+    from tracer.store.atomic import staged_folder
+    from tracer.store.landings_csv import write_landings_csv
+    from tracer.store.result_file import write_result
 
     out = Path(out)
     out.mkdir(parents=True, exist_ok=True)

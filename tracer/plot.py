@@ -32,7 +32,7 @@ def new_figure(figsize) -> Figure:
 
 def save(fig, path, dpi=150) -> Path:
     """Write a figure to a PNG atomically (a temporary file renamed into place)."""
-    from tracer.store import atomic_path
+    from tracer.store.atomic import atomic_path
 
     with atomic_path(path) as tmp:
         fig.savefig(tmp, dpi=dpi, format="png", pil_kwargs={"compress_level": PNG_COMPRESSION})

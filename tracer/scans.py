@@ -412,7 +412,7 @@ class Rows:
         return f"{_FIRST_LINE}{self.digest}\n" + ",".join(("set",) + self.header) + "\n"
 
     def _start_fresh(self):
-        from tracer.store import atomic_path
+        from tracer.store.atomic import atomic_path
 
         with atomic_path(self.csv) as tmp:
             _write_synced(tmp, self._prologue())
@@ -432,7 +432,7 @@ class Rows:
             self.done[row[0]] = row[1]
         self.resumed = len(self.done)
         if not clean:
-            from tracer.store import atomic_path
+            from tracer.store.atomic import atomic_path
 
             with atomic_path(self.csv) as tmp:
                 _write_synced(tmp, self._prologue() + "".join(
@@ -478,7 +478,7 @@ class Rows:
             return
         import h5py
 
-        from tracer.store import atomic_path
+        from tracer.store.atomic import atomic_path
 
         table, index = self.table()
         with atomic_path(self.h5) as tmp, h5py.File(tmp, "w") as f:

@@ -1,0 +1,334 @@
+"""The field and the traced beams in one openPMD 1.1.0 HDF5 file (``result.h5``).
+
+``write_result`` writes the potential and field meshes and, for every beam, its start states,
+final states and plane crossings as particle species (layout at ``write_result``);
+``read_result`` reads them back.  The node potential is stored, not the Hermite data:
+``read_result`` rebuilds the interpolant from it (equal to rounding).
+"""
+
+from __future__ import annotations
+
+import json
+from collections.abc import Mapping
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+from scipy import constants
+
+from tracer.beam import STATUS
+from tracer.fieldmap import PotentialMap, edge_reflection, hermite_data
+from tracer.geometry import Raster, ShapeTable
+from tracer.grid import Grid
+from tracer.species import Species
+from tracer.store import openpmd
+from tracer.store.hdf5 import plain, read_array, read_fields, tracer_group, write_fields
+from tracer.store.openpmd import (CHARGE, CURRENT, DIMENSIONLESS, ELECTRIC_FIELD, ENERGY, LENGTH, MASS,
+                                  MOMENTUM, PARTICLES_PATH, POTENTIAL, TIME, particle_patches,
+                                  particle_record, read_component, text)
+
+RESULT_GROUP = "tracer/result"
+RESULT_FORMAT = "tracer-result-1"
+
+_FIELD_RECORDS = {
+    "x_m": ("position", "x"), "y_m": ("position", "y"), "z_m": ("position", "z"),
+    "px": ("momentum", "x"), "py": ("momentum", "y"), "pz": ("momentum", "z"),
+    "time_s": ("time", None), "energy_eV": ("kineticEnergy", None),
+    "ledger_eV": ("ledgerError", None), "ray": ("rayIndex", None), "weight_A": ("rayCurrent", None),
+}
+"""Particle record (and component) of each BeamRun field; other fields keep their own name."""
+
+_RECORD_UNITS = {  # unitDimension, unitSI, weightingPower, macroWeighted
+    "position": (LENGTH, 1.0, 0.0, 0), "momentum": (MOMENTUM, 1.0, 1.0, 0), "time": (TIME, 1.0, 0.0, 0),
+    "kineticEnergy": (ENERGY, constants.e, 1.0, 0), "ledgerError": (ENERGY, constants.e, 1.0, 0),
+    "rayCurrent": (CURRENT, 1.0, 1.0, 1),
+}
+
+
+def _write_species(particles, name, rows, species, weighting, codes, attrs):
+    """One openPMD particle species from state records (fields as in ``BeamRun.records``)."""
+    group = particles.create_group(name)
+    for key, value in attrs.items():
+        group.attrs[key] = text(value)
+    n = len(rows)
+    vectors = {}
+    for field in rows.dtype.names:
+        record, component = _FIELD_RECORDS.get(field, (field, None))
+        if component is not None:
+            vectors.setdefault(record, {})[component] = rows[field]
+        elif field in codes:
+            lookup = {label: code for code, label in codes[field].items()}
+            labels, index = np.unique(rows[field], return_inverse=True)
+            values = np.array([lookup[v] for v in labels.tolist()], np.int64)[index.ravel()]
+            particle_record(group, record, values, n, attrs={"codes": json.dumps(codes[field])})
+        elif field != "plane":            # a crossing species is a single plane (attribute)
+            particle_record(group, record, rows[field], n,
+                            *_RECORD_UNITS.get(record, (DIMENSIONLESS, 1.0, 0.0, 0)))
+    for record, components in vectors.items():
+        particle_record(group, record, components, n, *_RECORD_UNITS[record])
+    particle_record(group, "positionOffset", {c: 0.0 for c in "xyz"}, n, LENGTH)
+    particle_record(group, "charge", species.charge_C, n, CHARGE, weighting_power=1.0)
+    particle_record(group, "mass", species.mass_kg, n, MASS, weighting_power=1.0)
+    particle_record(group, "weighting", weighting[rows["ray"]], n, weighting_power=1.0, macro_weighted=1)
+    particle_patches(group, rows)
+
+
+def _read_species(group, dtype) -> np.ndarray:
+    """State records of a species written by ``_write_species`` (dtype from the file's names)."""
+    n = int(read_array(group["particlePatches/numParticles"])[0])
+    out = np.zeros(n, dtype=dtype)
+    for field in dtype.names:
+        if field == "plane":
+            out[field] = group.attrs["plane"].decode()
+            continue
+        record, component = _FIELD_RECORDS.get(field, (field, None))
+        values = read_component(group[record] if component is None else group[record][component])
+        if "codes" in group[record].attrs:
+            lookup = {int(k): v for k, v in json.loads(group[record].attrs["codes"]).items()}
+            values = np.array([lookup[c] for c in values.tolist()], dtype=dtype[field])
+        out[field] = values
+    return out
+
+
+def _weighting(run) -> np.ndarray:
+    """Real particles per ray: the ray's current (``weight_A``) × 1 s / |q|; 1 without a current."""
+    current = run.starts["weight_A"]
+    if not np.any(current):
+        return np.ones(len(current))
+    return current * 1.0 / abs(run.species.charge_C)
+
+
+def _dtype_names(array) -> list:
+    return [[name, array.dtype[name].str] for name in array.dtype.names]
+
+
+def _dtype_of(names) -> np.dtype:
+    return np.dtype([(name, kind) for name, kind in names])
+
+
+def write_result(path, field, runs, *, setup=None, summaries=None, author=None) -> Path:
+    """Write the field and the traced beams to one openPMD 1.1.0 HDF5 file (atomically).
+
+    Layout::
+
+        /data/0/meshes/phi                   potential at the grid nodes (V)
+        /data/0/meshes/E                     field components z and r (axial, thetaMode m = 0) or
+                                             z and y (planar), V/m, at the grid nodes
+        /data/0/particles/<beam>_start       start state of every ray
+        /data/0/particles/<beam>_final       final state of every ray
+        /data/0/particles/<beam>_at_<plane>  every crossing of a detector plane
+        /tracer/result                       outside the openPMD base path: electrode names and
+                                             voltages, grid, shape table and raster, per beam its
+                                             species, record names and dtypes and ray paths, the
+                                             summaries (JSON), the config text and geometry hash
+
+    Each species has the standard records position, positionOffset, momentum, charge, mass and
+    weighting (real particles per ray: the ray's current × 1 s / |q|, or 1 without a current), and
+    the records ``kineticEnergy`` and ``ledgerError`` (stored in eV, unitSI = e), ``time`` (s),
+    ``rayIndex``, ``rayCurrent`` (A), ``status`` and ``electrode`` (integer codes; the attribute
+    ``codes`` maps code to name), plus every further field of the arrays under its own name
+    (``steps``, ``evaluations``; ``crossing`` and ``row``, the row in ``BeamRun.crossings``, for
+    the plane species).
+
+    Parameters
+    ----------
+    path : str or os.PathLike
+    field : tracer.fieldmap.PotentialMap
+        The map the beams were traced in.
+    runs : sequence of tracer.beam.BeamRun, or mapping of name to BeamRun
+    setup : tracer.config.Setup, optional
+        Its title, config file text (read from ``setup.source``) and geometry hash are stored.
+    summaries : mapping of beam name to dict, optional
+        The summaries to store (JSON-serializable); default ``run.summary()`` of each run.
+    author : str, optional
+        Author and contact, the openPMD ``author`` attribute.
+
+    Returns
+    -------
+    Path
+    """
+    runs = list(runs.values()) if isinstance(runs, Mapping) else list(runs)
+    summaries = dict(summaries) if summaries is not None else {run.name: run.summary() for run in runs}
+    grid = field.grid
+    zz, rr = np.meshgrid(grid.z, grid.r, indexing="ij")
+    ez, er = field.field(zz, rr)
+    side = "r" if grid.symmetry == "axial" else "y"
+    # status: the tracer's end codes, -1 for a start state; electrode: its index, -1 for none
+    codes = {"status": {-1: "", **STATUS}, "electrode": {-1: "", **dict(enumerate(field.names))}}
+    candidates = []
+    for run in runs:
+        beam = openpmd.identifier(run.name)
+        candidates += [f"{beam}_start", f"{beam}_final"] + [f"{beam}_at_{openpmd.identifier(p)}" for p in run.planes]
+    species_names = iter(openpmd.unique_names(candidates))
+    with openpmd.openpmd_file(path, author=author, particles=True) as (f, it):
+        openpmd.write_mesh(it, "phi", field.potential(zz, rr), grid, POTENTIAL,
+                           attrs={"comment": text("electrostatic potential at the grid nodes")})
+        openpmd.write_mesh(it, "E", {"z": ez, side: er}, grid, ELECTRIC_FIELD,
+                           attrs={"comment": text("electric field -grad(phi) at the grid nodes")})
+        particles = it[PARTICLES_PATH]
+        group = f.create_group(RESULT_GROUP)
+        beams = []
+        for k, run in enumerate(runs):
+            weighting = _weighting(run)
+            about = {"beam": run.name, "speciesName": run.species.name}
+            start, final = next(species_names), next(species_names)
+            _write_species(particles, start, run.starts, run.species, weighting, codes,
+                           {**about, "comment": "start state of every ray"})
+            _write_species(particles, final, run.records, run.species, weighting, codes,
+                           {**about, "comment": "final state of every ray"})
+            order = np.arange(len(run.crossings))
+            planes = {}
+            for plane in run.planes:
+                rows = run.crossings["plane"] == plane
+                planes[plane] = next(species_names)
+                _write_species(particles, planes[plane], _with_row(run.crossings[rows], order[rows]),
+                               run.species, weighting, codes,
+                               {**about, "plane": plane, "comment": f"crossings of plane {plane}"})
+            paths = group.create_group(f"paths/{k}")
+            for i, p in enumerate(run.paths):
+                paths.create_dataset(str(i), data=p)
+            beams.append({"name": run.name, "species": [run.species.name, run.species.mass_kg,
+                                                        run.species.charge_C],
+                          "start": start, "final": final, "planes": planes,
+                          "dtypes": {key: _dtype_names(getattr(run, key))
+                                     for key in ("starts", "records", "crossings")}})
+        group.attrs["format"] = RESULT_FORMAT
+        group.attrs["names"] = json.dumps(list(field.names))
+        group.attrs["voltages"] = np.asarray(field.voltages, dtype=np.float64)
+        group.attrs["beams"] = json.dumps(beams)
+        group.attrs["summaries"] = json.dumps(summaries, default=plain)
+        group.attrs["title"] = setup.title if setup else ""
+        group.attrs["geometry_hash"] = setup.geometry_hash() if setup else ""
+        source = setup.source if setup else None
+        group.create_dataset("config", data=source.read_text() if source and source.is_file() else "")
+        for key, obj in (("grid", grid), ("table", field.table), ("raster", field.raster)):
+            write_fields(group.create_group(key), obj)
+    return Path(path)
+
+
+def _copy_fields(rows, dtype) -> np.ndarray:
+    """Copy the fields of ``rows`` into a new array of ``dtype`` (fields ``dtype`` lacks are dropped)."""
+    out = np.zeros(len(rows), dtype=dtype)
+    for name in dtype.names:
+        if name in rows.dtype.names:
+            out[name] = rows[name]
+    return out
+
+
+def _with_row(rows, order):
+    """Crossing records with their row in ``BeamRun.crossings`` (``row``), to restore the order."""
+    out = _copy_fields(rows, np.dtype(rows.dtype.descr + [("row", np.int64)]))
+    out["row"] = order
+    return out
+
+
+@dataclass(frozen=True)
+class BeamResult:
+    """One beam read back from a result file.
+
+    Attributes
+    ----------
+    name : str
+    species : tracer.species.Species
+    starts, records, crossings : numpy.ndarray
+        As in :class:`tracer.beam.BeamRun` (same dtypes).
+    paths : tuple of numpy.ndarray
+        The kept ray paths.
+    planes : tuple of str
+    weighting : numpy.ndarray
+        Real particles per ray (the openPMD ``weighting``), in ray order.
+    """
+
+    name: str
+    species: Species
+    starts: np.ndarray
+    records: np.ndarray
+    crossings: np.ndarray
+    paths: tuple
+    planes: tuple
+    weighting: np.ndarray
+
+
+@dataclass(frozen=True)
+class ResultFile:
+    """What ``read_result`` reads: enough to print the summaries and redraw the pictures.
+
+    Attributes
+    ----------
+    path : Path
+    title : str
+        The setup's title ("" when none was stored).
+    field : tracer.fieldmap.PotentialMap
+        The potential map rebuilt from the stored node potential (interpolant, electrodes).
+    phi : float64[nz, nr]
+        Node potential (V).
+    e_z, e_r : float64[nz, nr]
+        Node field (V/m); ``e_r`` is E_y in planar symmetry.
+    beams : dict of str to BeamResult
+    summaries : dict of str to dict
+        Per beam, its stored summary.
+    config_text : str
+        The config file's text ("" when none was stored).
+    geometry_hash : str
+        ``Setup.geometry_hash()`` ("" when none was stored).
+    """
+
+    path: Path
+    title: str
+    field: PotentialMap
+    phi: np.ndarray
+    e_z: np.ndarray
+    e_r: np.ndarray
+    beams: dict
+    summaries: dict
+    config_text: str
+    geometry_hash: str
+
+    @property
+    def grid(self) -> Grid:
+        """The node grid of the meshes."""
+        return self.field.grid
+
+
+def read_result(path) -> ResultFile:
+    """Read a result file written by ``write_result``.
+
+    Raises
+    ------
+    StoreError
+        When the file is missing, truncated, corrupt or not a tracer result file.
+    """
+    with tracer_group(path, RESULT_GROUP, RESULT_FORMAT, "result") as (f, group):
+        grid = read_fields(group["grid"], Grid)
+        table = read_fields(group["table"], ShapeTable)
+        raster = read_fields(group["raster"], Raster)
+        it = f[openpmd.iteration_path()]
+        phi = openpmd.read_mesh(it, "phi", grid)
+        e = openpmd.read_mesh(it, "E", grid)
+        voltages = group.attrs["voltages"]
+        hermite = hermite_data(phi, raster.owner, raster.arm, raster.arm_owner, voltages, grid.hz,
+                               grid.hr, edge_reflection(grid.edges))
+        field = PotentialMap(grid, table, raster, tuple(json.loads(group.attrs["names"])),
+                             tuple(voltages.tolist()), hermite)
+        particles = it[PARTICLES_PATH]
+        beams = {}
+        for k, about in enumerate(json.loads(group.attrs["beams"])):
+            dtypes = {key: _dtype_of(names) for key, names in about["dtypes"].items()}
+            crossing_dtype = _dtype_of(about["dtypes"]["crossings"] + [["row", "<i8"]])
+            parts = [_read_species(particles[s], crossing_dtype) for s in about["planes"].values()]
+            crossings = np.concatenate(parts) if parts else np.zeros(0, crossing_dtype)
+            crossings = crossings[np.argsort(crossings["row"], kind="stable")]
+            paths = group[f"paths/{k}"]
+            beams[about["name"]] = BeamResult(
+                name=about["name"], species=Species(*about["species"]),
+                starts=_read_species(particles[about["start"]], dtypes["starts"]),
+                records=_read_species(particles[about["final"]], dtypes["records"]),
+                crossings=_copy_fields(crossings, dtypes["crossings"]),
+                paths=tuple(read_array(paths[str(i)]) for i in range(len(paths))),
+                planes=tuple(about["planes"]),
+                weighting=read_component(particles[about["start"]]["weighting"]))
+        return ResultFile(path=Path(path), title=str(group.attrs["title"]), field=field, phi=phi,
+                          e_z=e["z"], e_r=e["r" if grid.symmetry == "axial" else "y"], beams=beams,
+                          summaries=json.loads(group.attrs["summaries"]),
+                          config_text=read_array(group["config"]).decode(),
+                          geometry_hash=str(group.attrs["geometry_hash"]))
