@@ -12,12 +12,14 @@ import numpy as np
 import pytest
 from scipy import constants
 
-from tracer.beam import trace
+from tracer.beam import BeamRun, trace
+from tracer.cli import main
 from tracer.config import load
 from tracer.fieldmap import solve_basis
 from tracer.store import StoreError
 from tracer.store.landings_csv import LANDING_COLUMNS, read_landings_csv, write_landings_csv
 from tracer.store.maps_file import write_maps
+from tracer.store.openpmd import read_component
 from tracer.store.result_file import read_result, write_result
 
 AXIAL = """
@@ -146,6 +148,27 @@ def test_the_traces_exercise_the_layout(result):
     assert all(len(r.crossings) > 0 and len(r.paths) > 0 for r in runs)
 
 
+def assert_same_run(a, b):
+    """Two BeamRuns hold the same bits: every array field, the ledger report, the plain fields."""
+    assert type(b) is BeamRun
+    assert b.name == a.name and b.species == a.species and b.planes == a.planes
+    assert b.crossings_lost == a.crossings_lost and b.symmetry == a.symmetry
+    for key in ("starts", "records", "crossings"):
+        x, y = getattr(a, key), getattr(b, key)
+        assert x.dtype == y.dtype, key
+        for name in x.dtype.names:
+            assert np.array_equal(x[name], y[name]), (key, name)
+    assert len(b.paths) == len(a.paths)
+    for p, q in zip(a.paths, b.paths):
+        assert p.dtype == q.dtype and np.array_equal(p, q)
+    assert b.energy_scale_eV.dtype == a.energy_scale_eV.dtype
+    assert np.array_equal(b.energy_scale_eV, a.energy_scale_eV)
+    for key in ("worst_eV", "worst_relative", "threshold", "suspects"):
+        assert getattr(b.ledger, key) == getattr(a.ledger, key), key
+    assert np.array_equal(b.ledger.suspect_rays, a.ledger.suspect_rays)
+    assert b.ledger.warning == a.ledger.warning
+
+
 def test_round_trip_is_bit_exact(result):
     setup, field, runs, path = result
     back = read_result(path)
@@ -155,18 +178,12 @@ def test_round_trip_is_bit_exact(result):
     assert back.field.voltages == field.voltages
     assert list(back.beams) == [r.name for r in runs]
     for run in runs:
-        b = back.beams[run.name]
-        assert b.species == run.species and b.planes == run.planes
-        for key in ("starts", "records", "crossings"):
-            a, c = getattr(run, key), getattr(b, key)
-            assert a.dtype == c.dtype, key
-            for name in a.dtype.names:
-                assert np.array_equal(a[name], c[name]), (key, name)
-        assert len(b.paths) == len(run.paths)
-        for p, q in zip(run.paths, b.paths):
-            assert p.dtype == q.dtype and np.array_equal(p, q)
+        assert_same_run(run, back.beams[run.name])
     stored = {r.name: r.summary() for r in runs}
     assert json.dumps(back.summaries, sort_keys=True) == json.dumps(stored, sort_keys=True)
+    # a beam read back is a whole BeamRun: its summary is the one the traced run gave
+    again = {name: b.summary() for name, b in back.beams.items()}
+    assert json.dumps(again, sort_keys=True) == json.dumps(stored, sort_keys=True)
     zz, rr = np.meshgrid(field.grid.z, field.grid.r, indexing="ij")
     assert np.array_equal(back.phi, field.potential(zz, rr))
     ez, er = field.field(zz, rr)
@@ -183,11 +200,27 @@ def test_weighting_is_particles_per_ray(result):
     """weighting = ray current × 1 s / e for a beam with current_A, else 1 (openPMD 1.1.0
     weighting: real particles per macro-particle; e from scipy.constants)."""
     setup, _, runs, path = result
-    back = read_result(path)
-    for beam, run in zip(setup.beams, runs):
-        w = back.beams[run.name].weighting
-        expected = beam.current_A / beam.count / constants.e if beam.current_A else 1.0
-        assert np.allclose(w, expected, rtol=1e-15) and len(w) == beam.count
+    with h5py.File(path, "r") as f:
+        for beam, run in zip(setup.beams, runs):
+            species = next(g for g in f["/data/0/particles"].values()
+                           if g.attrs["beam"].decode() == run.name and b"start" in g.attrs["comment"])
+            w = read_component(species["weighting"])
+            expected = beam.current_A / beam.count / constants.e if beam.current_A else 1.0
+            assert np.allclose(w, expected, rtol=1e-15) and len(w) == beam.count
+
+
+def test_a_run_with_suspects_and_lost_crossings_reads_back_whole(tmp_path_factory):
+    """A strict ledger threshold (suspect rays and a warning) and a crossing buffer of one per ray
+    (lost crossings): the BeamRun read back carries both, and the same summary."""
+    setup, field, _ = traced(tmp_path_factory, AXIAL)
+    planes = (dataclasses.replace(setup.planes[0], name="early", z_m=5e-3), setup.planes[0])
+    run = trace(field, setup.beams[0], planes=planes, ledger_threshold=1e-16, max_crossings=1)
+    assert run.ledger.suspects > 0 and run.crossings_lost > 0
+    path = write_result(tmp_path_factory.mktemp("out") / "result.h5", field, [run], setup=setup)
+    back = read_result(path).beams[run.name]
+    assert_same_run(run, back)
+    assert back.summary()["warning"] == run.summary()["warning"]
+    assert "raise max_crossings" in back.summary()["warning"]
 
 
 def test_records_follow_the_openpmd_standard(result):
@@ -316,6 +349,23 @@ def test_unreadable_result_files_raise_store_error(result, tmp_path):
         del f[f"data/0/particles/{runs[0].name.replace('-', '_')}_final/momentum"]
     with pytest.raises(StoreError, match="broken.h5"):
         read_result(broken)
+
+
+def test_a_result_file_of_the_earlier_format_is_refused_with_advice(result, tmp_path, capsys):
+    """A tracer-result-1 file (written before the ledger's energy scale was stored) is not read
+    half: read_result says which format it is, and `tracer show` exits 2 with that one line."""
+    *_, path = result
+    old = tmp_path / "old.h5"
+    old.write_bytes(path.read_bytes())
+    with h5py.File(old, "a") as f:
+        f["tracer/result"].attrs["format"] = "tracer-result-1"
+        del f["tracer/result/energy_scale_eV"]
+    with pytest.raises(StoreError, match="old.h5: a tracer result file of format tracer-result-1"):
+        read_result(old)
+    assert main(["show", str(old), "--out", str(tmp_path / "pictures")]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and "tracer-result-1" in err[0] and "write it again" in err[0]
+    assert not (tmp_path / "pictures").exists()
 
 
 def test_maps_and_other_csv_files_are_not_results(tmp_path):

@@ -2,8 +2,10 @@
 
 ``write_result`` writes the potential and field meshes and, for every beam, its start states,
 final states and plane crossings as particle species (layout at ``write_result``);
-``read_result`` reads them back.  The node potential is stored, not the Hermite data:
-``read_result`` rebuilds the interpolant from it (equal to rounding).
+``read_result`` reads them back, each beam as the :class:`tracer.beam.BeamRun` the trace
+returned (records, crossings, paths, planes, the ledger report from the stored per-ray energy
+scale and threshold).  The node potential is stored, not the Hermite data: ``read_result``
+rebuilds the interpolant from it (equal to rounding).
 """
 
 from __future__ import annotations
@@ -16,7 +18,8 @@ from pathlib import Path
 import numpy as np
 from scipy import constants
 
-from tracer.beam import STATUS
+from tracer import ledger
+from tracer.beam import STATUS, BeamRun
 from tracer.fieldmap import PotentialMap, edge_reflection, hermite_data
 from tracer.geometry import Raster, ShapeTable
 from tracer.grid import Grid
@@ -28,7 +31,7 @@ from tracer.store.openpmd import (CHARGE, CURRENT, DIMENSIONLESS, ELECTRIC_FIELD
                                   particle_record, read_component, text)
 
 RESULT_GROUP = "tracer/result"
-RESULT_FORMAT = "tracer-result-1"
+RESULT_FORMAT = "tracer-result-2"
 
 _FIELD_RECORDS = {
     "x_m": ("position", "x"), "y_m": ("position", "y"), "z_m": ("position", "z"),
@@ -118,9 +121,12 @@ def write_result(path, field, runs, *, setup=None, summaries=None, author=None) 
         /data/0/particles/<beam>_final       final state of every ray
         /data/0/particles/<beam>_at_<plane>  every crossing of a detector plane
         /tracer/result                       outside the openPMD base path: electrode names and
-                                             voltages, grid, shape table and raster, per beam its
-                                             species, record names and dtypes and ray paths, the
-                                             summaries (JSON), the config text and geometry hash
+                                             voltages, grid, shape table and raster, the summaries
+                                             (JSON), the config text and geometry hash, and per beam
+                                             (JSON) its species, species names, record dtypes,
+                                             ledger threshold and lost crossings
+        /tracer/result/paths/<k>/<i>         the kept path of ray i of the k-th beam
+        /tracer/result/energy_scale_eV/<k>   the k-th beam's per-ray energy scale of the ledger
 
     Each species has the standard records position, positionOffset, momentum, charge, mass and
     weighting (real particles per ray: the ray's current × 1 s / |q|, or 1 without a current), and
@@ -187,11 +193,13 @@ def write_result(path, field, runs, *, setup=None, summaries=None, author=None) 
             paths = group.create_group(f"paths/{k}")
             for i, p in enumerate(run.paths):
                 paths.create_dataset(str(i), data=p)
+            group.create_dataset(f"energy_scale_eV/{k}", data=np.asarray(run.energy_scale_eV, np.float64))
             beams.append({"name": run.name, "species": [run.species.name, run.species.mass_kg,
                                                         run.species.charge_C],
                           "start": start, "final": final, "planes": planes,
                           "dtypes": {key: _dtype_names(getattr(run, key))
-                                     for key in ("starts", "records", "crossings")}})
+                                     for key in ("starts", "records", "crossings")},
+                          "ledger_threshold": run.ledger.threshold, "crossings_lost": run.crossings_lost})
         group.attrs["format"] = RESULT_FORMAT
         group.attrs["names"] = json.dumps(list(field.names))
         group.attrs["voltages"] = np.asarray(field.voltages, dtype=np.float64)
@@ -223,35 +231,9 @@ def _with_row(rows, order):
 
 
 @dataclass(frozen=True)
-class BeamResult:
-    """One beam read back from a result file.
-
-    Attributes
-    ----------
-    name : str
-    species : tracer.species.Species
-    starts, records, crossings : numpy.ndarray
-        As in :class:`tracer.beam.BeamRun` (same dtypes).
-    paths : tuple of numpy.ndarray
-        The kept ray paths.
-    planes : tuple of str
-    weighting : numpy.ndarray
-        Real particles per ray (the openPMD ``weighting``), in ray order.
-    """
-
-    name: str
-    species: Species
-    starts: np.ndarray
-    records: np.ndarray
-    crossings: np.ndarray
-    paths: tuple
-    planes: tuple
-    weighting: np.ndarray
-
-
-@dataclass(frozen=True)
 class ResultFile:
-    """What ``read_result`` reads: enough to print the summaries and redraw the pictures.
+    """What ``read_result`` reads: the field, every beam as the BeamRun its trace returned, and
+    what the setup and the run's summaries were.
 
     Attributes
     ----------
@@ -264,7 +246,8 @@ class ResultFile:
         Node potential (V).
     e_z, e_r : float64[nz, nr]
         Node field (V/m); ``e_r`` is E_y in planar symmetry.
-    beams : dict of str to BeamResult
+    beams : dict of str to tracer.beam.BeamRun
+        By beam name, in the order they were written.
     summaries : dict of str to dict
         Per beam, its stored summary.
     config_text : str
@@ -290,13 +273,34 @@ class ResultFile:
         return self.field.grid
 
 
+def _read_beam(group, particles, k, about, symmetry) -> BeamRun:
+    """The k-th beam of a result file, ``about`` its entry in the beams JSON."""
+    dtypes = {key: _dtype_of(names) for key, names in about["dtypes"].items()}
+    crossing_dtype = _dtype_of(about["dtypes"]["crossings"] + [["row", "<i8"]])
+    parts = [_read_species(particles[s], crossing_dtype) for s in about["planes"].values()]
+    crossings = np.concatenate(parts) if parts else np.zeros(0, crossing_dtype)
+    crossings = crossings[np.argsort(crossings["row"], kind="stable")]
+    records = _read_species(particles[about["final"]], dtypes["records"])
+    scale = read_array(group[f"energy_scale_eV/{k}"])
+    report = ledger.ledger_report(records["ledger_eV"], scale, about["ledger_threshold"],
+                                  traced=records["status"] != "inside")
+    paths = group[f"paths/{k}"]
+    return BeamRun(name=about["name"], species=Species(*about["species"]),
+                   starts=_read_species(particles[about["start"]], dtypes["starts"]), records=records,
+                   crossings=_copy_fields(crossings, dtypes["crossings"]),
+                   paths=tuple(read_array(paths[str(i)]) for i in range(len(paths))),
+                   planes=tuple(about["planes"]), ledger=report, energy_scale_eV=scale,
+                   crossings_lost=int(about["crossings_lost"]), symmetry=symmetry)
+
+
 def read_result(path) -> ResultFile:
-    """Read a result file written by ``write_result``.
+    """Read a result file written by ``write_result``: its beams as BeamRuns.
 
     Raises
     ------
     StoreError
-        When the file is missing, truncated, corrupt or not a tracer result file.
+        When the file is missing, truncated, corrupt, not a tracer result file, or of another
+        format (an earlier version's ``tracer-result-1`` lacks the ledger's energy scale).
     """
     with tracer_group(path, RESULT_GROUP, RESULT_FORMAT, "result") as (f, group):
         grid = read_fields(group["grid"], Grid)
@@ -310,23 +314,9 @@ def read_result(path) -> ResultFile:
                                grid.hr, edge_reflection(grid.edges))
         field = PotentialMap(grid, table, raster, tuple(json.loads(group.attrs["names"])),
                              tuple(voltages.tolist()), hermite)
-        particles = it[PARTICLES_PATH]
         beams = {}
         for k, about in enumerate(json.loads(group.attrs["beams"])):
-            dtypes = {key: _dtype_of(names) for key, names in about["dtypes"].items()}
-            crossing_dtype = _dtype_of(about["dtypes"]["crossings"] + [["row", "<i8"]])
-            parts = [_read_species(particles[s], crossing_dtype) for s in about["planes"].values()]
-            crossings = np.concatenate(parts) if parts else np.zeros(0, crossing_dtype)
-            crossings = crossings[np.argsort(crossings["row"], kind="stable")]
-            paths = group[f"paths/{k}"]
-            beams[about["name"]] = BeamResult(
-                name=about["name"], species=Species(*about["species"]),
-                starts=_read_species(particles[about["start"]], dtypes["starts"]),
-                records=_read_species(particles[about["final"]], dtypes["records"]),
-                crossings=_copy_fields(crossings, dtypes["crossings"]),
-                paths=tuple(read_array(paths[str(i)]) for i in range(len(paths))),
-                planes=tuple(about["planes"]),
-                weighting=read_component(particles[about["start"]]["weighting"]))
+            beams[about["name"]] = _read_beam(group, it[PARTICLES_PATH], k, about, grid.symmetry)
         return ResultFile(path=Path(path), title=str(group.attrs["title"]), field=field, phi=phi,
                           e_z=e["z"], e_r=e["r" if grid.symmetry == "axial" else "y"], beams=beams,
                           summaries=json.loads(group.attrs["summaries"]),
