@@ -16,6 +16,7 @@ from matplotlib.collections import LineCollection
 from matplotlib.figure import Figure
 
 from tracer.stats import radius
+from tracer.store.atomic import atomic_path
 
 MM = 1e3
 PNG_COMPRESSION = 1
@@ -32,8 +33,6 @@ def new_figure(figsize) -> Figure:
 
 def save(fig, path, dpi=150) -> Path:
     """Write a figure to a PNG atomically (a temporary file renamed into place)."""
-    from tracer.store.atomic import atomic_path
-
     with atomic_path(path) as tmp:
         fig.savefig(tmp, dpi=dpi, format="png", pil_kwargs={"compress_level": PNG_COMPRESSION})
     return Path(path)
