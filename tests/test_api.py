@@ -20,3 +20,38 @@ def test_public_names_survive_importing_every_module():
     for name in CLASSES:
         assert isinstance(getattr(tracer, name), type), name
     assert set(FUNCTIONS + CLASSES) <= set(dir(tracer))
+
+
+def _imports(path, package, modules):
+    """The tracer modules a source file imports, at its top or inside functions."""
+    import ast
+
+    found = set()
+    for node in ast.walk(ast.parse(path.read_text())):
+        if isinstance(node, ast.ImportFrom):
+            base = package.rsplit(".", node.level - 1)[0] if node.level else ""
+            target = ".".join(p for p in (base, node.module) if p)
+            # ``from package import module`` imports the module, not a circle through the package
+            found |= {f"{target}.{a.name}" if f"{target}.{a.name}" in modules else target for a in node.names}
+        elif isinstance(node, ast.Import):
+            found |= {a.name for a in node.names}
+    return found & set(modules)
+
+
+def test_no_module_imports_another_that_imports_it_back():
+    """No import circle in the package, counting imports inside functions (which could hide one)."""
+    from pathlib import Path
+
+    root = Path(tracer.__file__).parent
+    modules = {}
+    for path in root.rglob("*.py"):
+        parts = path.relative_to(root.parent).with_suffix("").parts
+        modules[".".join(parts[:-1] if parts[-1] == "__init__" else parts)] = path
+    graph = {name: _imports(path, name if path.name == "__init__.py" else name.rpartition(".")[0], modules)
+             - {name, "tracer"} for name, path in modules.items()}
+
+    def reaches(start, goal, seen):
+        return any(m == goal or (m not in seen and not seen.add(m) and reaches(m, goal, seen))
+                   for m in graph[start])
+
+    assert sorted(name for name in graph if reaches(name, name, set())) == []

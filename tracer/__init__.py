@@ -10,8 +10,8 @@ from importlib import import_module
 __version__ = "0.1.0"
 
 _PUBLIC = {
-    "ConfigError": "tracer.config",
-    "Setup": "tracer.config",
+    "ConfigError": "tracer.schema",
+    "Setup": "tracer.schema",
     "load": "tracer.config",
     "loads": "tracer.config",
     "Species": "tracer.species",

@@ -1,4 +1,4 @@
-"""Read a setup from TOML into frozen dataclasses.
+"""Read a setup from TOML into the frozen dataclasses of :mod:`tracer.schema`.
 
 The schema is that of the house design (DESIGN section 5). Every key that
 carries a unit says so in its suffix; inside, everything is SI (mm -> m,
@@ -40,21 +40,25 @@ Keys (defaults in brackets; "r" stands for "y" in a domain with y_mm)::
 from __future__ import annotations
 
 import csv
-import dataclasses
 import datetime
 import difflib
-import hashlib
 import json
 import math
 import os
 import pathlib
 import re
 import tomllib
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 
 from scipy import constants
 
-from .species import Species, custom_species, species
+from tracer.geometry import shape_table
+from tracer.schema import (Arc, Beam, ConfigError, Domain, Electrode, GunSpec, OpticsSpec, Plane, Polygon,
+                           Rect, ScanSpec, Setup, TraceOptions, TuneSpec)
+from tracer.species import custom_species, species
+
+__all__ = ["Arc", "Beam", "ConfigError", "Domain", "Electrode", "GunSpec", "OpticsSpec", "Plane", "Polygon",
+           "Rect", "ScanSpec", "Setup", "TraceOptions", "TuneSpec", "load", "loads"]
 
 _MM_PER_M = round(1 / constants.milli)   # conversions divide, so 52 mm -> 0.052 m exactly rounded
 _DEG = constants.degree
@@ -72,374 +76,6 @@ _BARE_KEY = re.compile(r"[A-Za-z0-9_\-]+")
 _REQUIRED = object()
 
 _TOP = ("title", "domain", "electrode", "beam", "plane", "trace", "scan", "tune", "gun", "optics")
-
-
-class ConfigError(ValueError):
-    """A bad setup: ``str(error) == f"{key}: {message}"``.
-
-    Parameters
-    ----------
-    key : str
-        Key path of the bad entry (``"electrode[2].rect[0].r_mm"``), or
-        ``"line L, column C"`` for a TOML syntax error.
-    message : str
-        What is wrong, naming the bad value.
-    """
-
-    def __init__(self, key: str, message: str):
-        super().__init__(f"{key}: {message}")
-        self.key = key
-        self.message = message
-
-    def __reduce__(self):
-        return (type(self), (self.key, self.message))
-
-
-# ---------------------------------------------------------------- dataclasses
-
-
-@dataclass(frozen=True)
-class Rect:
-    """A rectangle in the (z, r) half-plane; in axial symmetry a tube or a disc.
-
-    Parameters
-    ----------
-    z_m : tuple of float
-        (start, end) along z, metres.
-    r_m : tuple of float
-        (inner, outer) radius, or (lower, upper) y in planar symmetry, metres.
-    """
-
-    z_m: tuple[float, float]
-    r_m: tuple[float, float]
-
-
-@dataclass(frozen=True)
-class Polygon:
-    """A closed polygon in the (z, r) half-plane.
-
-    Parameters
-    ----------
-    points_m : tuple of (float, float)
-        Vertices (z, r) in metres, at least 3, non-zero area.
-    """
-
-    points_m: tuple[tuple[float, float], ...]
-
-
-@dataclass(frozen=True)
-class Arc:
-    """A spherical-shell sector about (center_z, 0) (an annular sector in planar symmetry).
-
-    Parameters
-    ----------
-    center_z_m : float
-        Centre on the axis, metres.
-    radii_m : tuple of float
-        (inner, outer) radius, metres; inner may be 0 (a solid sector).
-    angles_rad : tuple of float
-        (first, second) polar angle from the +z direction, within 0..pi.
-    """
-
-    center_z_m: float
-    radii_m: tuple[float, float]
-    angles_rad: tuple[float, float]
-
-
-@dataclass(frozen=True)
-class Electrode:
-    """A named conductor held at a voltage.
-
-    Parameters
-    ----------
-    name : str
-        Unique name.
-    voltage_V : float
-        Voltage in volts.
-    shapes : tuple of Rect, Polygon or Arc
-        Its shapes: the rects, then the polygons, then the arcs, each in file order.
-    """
-
-    name: str
-    voltage_V: float
-    shapes: tuple[Rect | Polygon | Arc, ...]
-
-
-@dataclass(frozen=True)
-class Domain:
-    """The solved region.
-
-    Parameters
-    ----------
-    symmetry : str
-        ``"axial"`` (rotation about z, coordinates (z, r)) or ``"planar"`` ((z, y), invariant in x).
-    z_m : tuple of float
-        (start, end) along z, metres.
-    r_m : tuple of float
-        (0, r_max) for axial or mirrored planar; (y_min, y_max) for planar with y_mm.
-    cell_m : float
-        Grid spacing, metres.
-    edges : tuple of str
-        (z_min, z_max, r_min, r_max), each ``"ground"`` or ``"open"`` (zero normal field);
-        r_min is ``"axis"`` when r = 0 is the axis or a mirror plane.
-    """
-
-    symmetry: str
-    z_m: tuple[float, float]
-    r_m: tuple[float, float]
-    cell_m: float
-    edges: tuple[str, str, str, str]
-
-    @property
-    def mirror(self) -> bool:
-        """True when r_min is the axis (axial) or a mirror plane (planar without y_mm)."""
-        return self.edges[2] == "axis"
-
-
-@dataclass(frozen=True)
-class Beam:
-    """A set of rays and where and how they start.
-
-    Parameters
-    ----------
-    name : str
-        Unique name.
-    species : Species
-        What the rays are.
-    energy_eV : float or None
-        Mean start kinetic energy, eV (None when the rays come from ``rays_csv``).
-    start_z_m : float or None
-        Source plane, metres (None with ``rays_csv``).
-    energy_spread_eV : float
-        Standard deviation of the start energy, eV.
-    temperature_K : float or None
-        Source temperature for thermal start energies, kelvin.
-    count : int or None
-        Number of rays (None with ``rays_csv``).
-    seed : int
-        Random seed for the start rays.
-    start_r_m : float
-        The source centre's offset from the axis (along x), or its y in planar symmetry, metres.
-    radius_m : float
-        Source radius (``"uniform"``) or its standard deviation (``"gaussian"``), metres.
-    profile : str
-        ``"uniform"`` or ``"gaussian"``.
-    half_angle_rad : float
-        Cone half-angle (standard deviation for ``"gaussian"``; cut-off for ``"cosine"``), 0..pi/2.
-    angles : str
-        ``"uniform"`` in solid angle, ``"gaussian"`` or ``"cosine"`` (Lambert).
-    current_A : float or None
-        Beam current, amperes.
-    rays_csv : pathlib.Path or None
-        A file of start rays (resolved against the config file's folder).
-    """
-
-    name: str
-    species: Species
-    energy_eV: float | None
-    start_z_m: float | None
-    energy_spread_eV: float = 0.0
-    temperature_K: float | None = None
-    count: int | None = 100
-    seed: int = 0
-    start_r_m: float = 0.0
-    radius_m: float = 0.0
-    profile: str = "uniform"
-    half_angle_rad: float = 0.0
-    angles: str = "uniform"
-    current_A: float | None = None
-    rays_csv: pathlib.Path | None = None
-
-
-@dataclass(frozen=True)
-class Plane:
-    """A detector plane z = const.
-
-    Parameters
-    ----------
-    name : str
-        Unique name.
-    z_m : float
-        Position, metres (inside the domain).
-    stop : bool
-        Whether rays end when they cross it.
-    """
-
-    name: str
-    z_m: float
-    stop: bool = False
-
-
-@dataclass(frozen=True)
-class TraceOptions:
-    """How rays are traced.
-
-    Parameters
-    ----------
-    max_time_s : float
-        Longest flight time of a ray, seconds.
-    rtol : float
-        Relative tolerance of the integrator, in (0, 1).
-    ledger_threshold : float
-        Relative energy-ledger error above which a ray is flagged.
-    keep_paths : int
-        Number of rays whose path points are kept for plots.
-    """
-
-    max_time_s: float = 1e-4
-    rtol: float = 1e-9
-    ledger_threshold: float = 1e-6
-    keep_paths: int = 50
-
-
-@dataclass(frozen=True)
-class ScanSpec:
-    """A batch of voltage sets.
-
-    Parameters
-    ----------
-    ranges : tuple of (str, float, float, int)
-        (electrode name, from_V, to_V, count); the scan is the product of the ranges.
-    csv : pathlib.Path or None
-        Instead of ranges, a CSV file whose header names ``<electrode>_V`` columns and
-        whose rows are the voltage sets.
-    """
-
-    ranges: tuple[tuple[str, float, float, int], ...]
-    csv: pathlib.Path | None = None
-
-
-@dataclass(frozen=True)
-class TuneSpec:
-    """An optimiser over electrode voltages.
-
-    Parameters
-    ----------
-    vary : tuple of (str, float, float)
-        (electrode name, lo_V, hi_V).
-    goal : str
-        ``"smallest_spot"``, ``"most_transmitted"``, ``"landing_energy"`` or ``"focus"``.
-    goal_value : float or None
-        The target landing energy (eV) or focus position z (m) for those goals, else None.
-    at : str or None
-        The plane where the goal is measured; None means where the rays end.
-    seed : int
-        Random seed of the optimiser.
-    """
-
-    vary: tuple[tuple[str, float, float], ...]
-    goal: str
-    goal_value: float | None = None
-    at: str | None = None
-    seed: int = 0
-
-
-@dataclass(frozen=True)
-class GunSpec:
-    """A self-consistent run with space charge from an emitting electrode.
-
-    Parameters
-    ----------
-    cathode : str
-        The emitting electrode.
-    emission : str
-        ``"space_charge"`` (space-charge-limited) or ``"thermionic"`` (Richardson-Dushman).
-    rays : int
-        Number of emitted rays.
-    temperature_K : float or None
-        Cathode temperature, kelvin (needed for thermionic emission).
-    work_function_eV : float or None
-        Cathode work function, eV (needed for thermionic emission).
-    schottky : bool
-        Lower the work function by the Schottky effect (thermionic only).
-    relaxation : float
-        Under-relaxation of the space charge between iterations, in (0, 1].
-    max_iterations : int
-        Iteration budget.
-    tolerance : float
-        Relative change of the current at which the iteration has converged.
-    species : Species
-        The emitted particles (electrons unless given).
-    """
-
-    cathode: str
-    emission: str = "space_charge"
-    rays: int = 200
-    temperature_K: float | None = None
-    work_function_eV: float | None = None
-    schottky: bool = False
-    relaxation: float = 0.3
-    max_iterations: int = 50
-    tolerance: float = 1e-3
-    species: Species = field(default_factory=lambda: species("e-"))
-
-
-@dataclass(frozen=True)
-class OpticsSpec:
-    """Paraxial lens properties to compute.
-
-    Parameters
-    ----------
-    species : Species
-        The particles.
-    energy_eV : float
-        Kinetic energy at the z_min end of the map (on the axis), eV (> 0).
-    object_z_m : float or None
-        Object position, metres; None for an object at infinity.
-    """
-
-    species: Species
-    energy_eV: float
-    object_z_m: float | None = None
-
-
-@dataclass(frozen=True)
-class Setup:
-    """Everything a config file describes.
-
-    Parameters
-    ----------
-    title : str
-        What this setup is.
-    domain : Domain
-    electrodes : tuple of Electrode
-    beams : tuple of Beam
-    planes : tuple of Plane
-    trace : TraceOptions
-    scan, tune, gun, optics : ScanSpec, TuneSpec, GunSpec, OpticsSpec or None
-        The optional sections.
-    source : pathlib.Path or None
-        The config file, for relative paths.
-    """
-
-    title: str
-    domain: Domain
-    electrodes: tuple[Electrode, ...]
-    beams: tuple[Beam, ...] = ()
-    planes: tuple[Plane, ...] = ()
-    trace: TraceOptions = TraceOptions()
-    scan: ScanSpec | None = None
-    tune: TuneSpec | None = None
-    gun: GunSpec | None = None
-    optics: OpticsSpec | None = None
-    source: pathlib.Path | None = None
-
-    def voltages(self) -> dict[str, float]:
-        """Return the electrode voltages by name, in electrode order."""
-        return {e.name: e.voltage_V for e in self.electrodes}
-
-    def geometry_hash(self) -> str:
-        """Return the sha256 hex digest of the domain, electrode names and shapes (not voltages)."""
-        payload = {
-            "format": "tracer-geometry-1",
-            "domain": dataclasses.asdict(self.domain),
-            "electrodes": [
-                {"name": e.name, "shapes": [{"kind": type(s).__name__, **dataclasses.asdict(s)} for s in e.shapes]}
-                for e in self.electrodes
-            ],
-        }
-        text = json.dumps(payload, sort_keys=True, separators=(",", ":"), allow_nan=False)
-        return hashlib.sha256(text.encode()).hexdigest()
 
 
 # ---------------------------------------------------------------- entry points
@@ -822,8 +458,6 @@ def _edges(value, symmetry, mirror):
 
 def _check_geometry(electrodes, domain):
     """Refuse shapes that miss the domain or overlap another electrode's at a different voltage."""
-    from .geometry import shape_table
-
     shape_table(electrodes, domain)
 
 

@@ -35,7 +35,7 @@ from dataclasses import dataclass
 import numpy as np
 from numba import njit
 
-from .config import Arc, ConfigError, Polygon, Rect
+from tracer.schema import Arc, ConfigError, Polygon, Rect
 
 POLYGON = 0
 SECTOR = 1
@@ -437,8 +437,8 @@ def shape_table(electrodes, domain):
 
     Parameters
     ----------
-    electrodes : sequence of tracer.config.Electrode
-    domain : tracer.config.Domain
+    electrodes : sequence of tracer.schema.Electrode
+    domain : tracer.schema.Domain
 
     Returns
     -------
