@@ -13,7 +13,7 @@ import numba
 import numpy as np
 from scipy import constants
 
-from tracer import ledger, motion, sources, stats
+from tracer import ledger, measure, motion, sources
 from tracer.interrupts import by_interrupt
 
 STATUS = {
@@ -111,6 +111,9 @@ class BeamRun:
         Crossings beyond the per-ray buffer (``max_crossings``), not recorded.
     symmetry : str
         The map's symmetry ("axial" or "planar"), for the landing radius.
+    crossing_rules : tuple of tracer.measure.CrossingRule
+        Which crossings of each plane count for its figures (:mod:`tracer.measure`), in the order
+        of ``planes``; planes beyond the tuple follow the default rule (each ray's first crossing).
     """
 
     name: str
@@ -124,6 +127,7 @@ class BeamRun:
     energy_scale_eV: np.ndarray = dataclass_field(repr=False)
     crossings_lost: int = 0
     symmetry: str = "axial"
+    crossing_rules: tuple = ()
 
     def at_plane(self, name):
         """The rays where they crossed plane ``name``, one row per crossing (time order per ray).
@@ -137,34 +141,36 @@ class BeamRun:
             raise KeyError(f"no plane {name!r}; the planes are {list(self.planes)}")
         return self.crossings[self.crossings["plane"] == name]
 
+    def crossing_rule(self, name):
+        """Which crossings of plane ``name`` count for its figures (:class:`tracer.measure.CrossingRule`)."""
+        rules = dict(zip(self.planes, self.crossing_rules))
+        return rules.get(name, measure.CrossingRule())
+
     def summary(self):
-        """The beam's figures: what landed where, what crossed each plane, what was lost, the ledger.
+        """The beam's figures (:mod:`tracer.measure`): what landed where, what crossed each plane,
+        what was lost, the ledger.
 
         Returns
         -------
         dict
             ``beam``, ``species``, ``rays``, ``current_A`` (the beam's current, or NaN);
             ``status`` {status: count} for every status; ``transmission`` {plane: fraction of the
-            rays that crossed it at least once}; ``planes`` {plane: :class:`tracer.stats.PlaneStats`
-            fields as a dict, plus ``current_A`` through the plane}; ``landing`` {electrode:
-            :class:`tracer.stats.LandingStats` fields as a dict}; ``ledger_worst_eV``,
+            rays counted at it}; ``planes`` {plane: :class:`tracer.measure.PlaneStats` fields as a
+            dict over the crossings that count, plus ``counted``, the label of the plane's
+            :class:`tracer.measure.CrossingRule`}; ``landing`` {electrode:
+            :class:`tracer.measure.LandingStats` fields as a dict}; ``ledger_worst_eV``,
             ``ledger_worst_relative``, ``ledger_threshold``, ``ledger_suspects``; ``warning`` (a
             one-line warning, or "").
         """
         rec = self.records
         n = len(rec)
-        status = {s: 0 for s in STATUS.values()} | stats.loss_reasons(rec)
+        status = {s: 0 for s in STATUS.values()} | measure.loss_reasons(rec)
         current = float(self.starts["weight_A"].sum())
-        planes = {}
-        for p in self.planes:
-            rows = self.at_plane(p)
-            planes[p] = asdict(stats.plane_stats(rows, self.species, n))
-            # the current through the plane: each ray that crossed it counted once
-            planes[p]["current_A"] = (float(rec["weight_A"][np.isin(rec["ray"], rows["ray"])].sum())
-                                      if current > 0 else math.nan)
+        planes = {p: asdict(measure.plane_figures(self, p)) | {"counted": self.crossing_rule(p).label}
+                  for p in self.planes}
         weights = rec["weight_A"] if current > 0 else np.full(n, math.nan)
         landing = {name: asdict(ls) for name, ls in
-                   stats.landings(rec, weight_A=weights, symmetry=self.symmetry).items()}
+                   measure.landings(rec, weight_A=weights, symmetry=self.symmetry).items()}
         warnings = [w for w in (self.ledger.warning,) if w]
         if status["stalled"]:
             warnings.append(f"{status['stalled']} ray(s) stalled (step size underflow or max_steps)")
@@ -176,7 +182,7 @@ class BeamRun:
             "rays": n,
             "current_A": current if current > 0 else math.nan,
             "status": status,
-            "transmission": {p: planes[p]["fraction"] if n else 0.0 for p in self.planes},
+            "transmission": {p: planes[p]["fraction"] for p in self.planes},
             "planes": planes,
             "landing": landing,
             "ledger_worst_eV": self.ledger.worst_eV,
@@ -310,7 +316,8 @@ def trace(field, beam, planes=(), rtol=1e-9, max_time_s=1e-4, *, keep_paths=0,
     return BeamRun(name=getattr(beam, "name", ""), species=sp, starts=starts, records=records,
                    crossings=crossings, paths=paths, planes=tuple(p.name for p in planes),
                    ledger=report, energy_scale_eV=scale,
-                   crossings_lost=int((info[:, 2] - n_cross).sum()), symmetry=grid.symmetry)
+                   crossings_lost=int((info[:, 2] - n_cross).sum()), symmetry=grid.symmetry,
+                   crossing_rules=tuple(measure.CrossingRule.of(p) for p in planes))
 
 
 def _fill_state(rec, rows):
@@ -323,13 +330,7 @@ def _fill_state(rec, rows):
 
 def _occurrence(ray, plane, n_planes):
     """For each crossing, how many earlier crossings the same ray made of the same plane."""
-    key = ray * max(n_planes, 1) + plane
-    order = np.argsort(key, kind="stable")
-    sorted_key = key[order]
-    first = np.searchsorted(sorted_key, sorted_key, side="left")
-    out = np.empty(len(key), dtype=np.int64)
-    out[order] = np.arange(len(key)) - first
-    return out
+    return measure.occurrence(ray * max(n_planes, 1) + plane)[0]
 
 
 PATH_DTYPE = np.dtype([(k, np.float64) for k in (

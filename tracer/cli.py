@@ -174,8 +174,8 @@ def cmd_gun(args, echo) -> int:
     import numpy as np
 
     from tracer.guns import gun
+    from tracer.measure import plane_figures
     from tracer.plot import plot_field
-    from tracer.stats import plane_stats
 
     setup = _load(args.config)
     if setup.gun is None:
@@ -201,8 +201,9 @@ def cmd_gun(args, echo) -> int:
         echo(f"  crossover at z = {result.crossover_z_m * 1e3:.3f} mm, "
              f"rms radius {result.crossover_radius_m * 1e3:.4g} mm")
     for plane in setup.planes if result.run is not None else ():
-        st = plane_stats(result.run.at_plane(plane.name), result.run.species, len(result.run.records))
-        echo(f"  plane {plane.name}: {st.fraction:.1%} of rays, rms radius {st.rms_radius_m * 1e3:.4g} mm, "
+        st = plane_figures(result.run, plane.name)
+        echo(f"  plane {plane.name} ({result.run.crossing_rule(plane.name).label}): {st.fraction:.1%} of rays, "
+             f"rms radius {st.rms_radius_m * 1e3:.4g} mm, "
              f"emittance x {st.emittance_x_m_rad * 1e6:.4g} mm mrad "
              f"(normalized {st.norm_emittance_x_m_rad * 1e6:.4g}); rays unweighted")
     if result.warning:

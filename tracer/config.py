@@ -25,7 +25,8 @@ Keys (defaults in brackets; "r" stands for "y" in a domain with y_mm)::
                  profile "uniform"|"gaussian", half_angle_deg [0; 90 for cosine] (0..90),
                  angles "uniform"|"gaussian"|"cosine", current_A;
                  or rays_csv (a file of start rays) in place of the distribution keys
-    [[plane]]    name, z_mm, stop [false]
+    [[plane]]    name, z_mm, stop [false], direction "any"|"forward"|"backward" ["any"],
+                 crossing "first"|"last"|"all"|N (from 1) ["first"]
     [trace]      max_time_us or max_time_ns [100 us], rtol [1e-9], ledger_threshold [1e-6],
                  keep_paths [50]
     [scan]       <electrode> = [from_V, to_V, count], ...;  or csv = "sets.csv" (<electrode>_V columns)
@@ -53,8 +54,8 @@ from dataclasses import dataclass
 from scipy import constants
 
 from tracer.geometry import shape_table
-from tracer.schema import (Arc, Beam, ConfigError, Domain, Electrode, GunSpec, OpticsSpec, Plane, Polygon,
-                           Rect, ScanSpec, Setup, TraceOptions, TuneSpec)
+from tracer.schema import (CROSSINGS, DIRECTIONS, Arc, Beam, ConfigError, Domain, Electrode, GunSpec, OpticsSpec,
+                           Plane, Polygon, Rect, ScanSpec, Setup, TraceOptions, TuneSpec)
 from tracer.species import custom_species, species
 
 __all__ = ["Arc", "Beam", "ConfigError", "Domain", "Electrode", "GunSpec", "OpticsSpec", "Plane", "Polygon",
@@ -656,11 +657,30 @@ def _check_start(beam, t, domain, c):
 
 
 def _plane(value, path, domain):
-    t = _Table(value, path, ("name", "z_mm", "stop"))
+    t = _Table(value, path, ("name", "z_mm", "stop", "direction", "crossing"))
     name = t.get("name", _name)
     z = t.get("z_mm", _number) / _MM_PER_M
     _within(z, domain.z_m, t.at("z_mm"), t.data["z_mm"], "z")
-    return Plane(name, z, t.get("stop", _boolean, default=False))
+    stop = t.get("stop", _boolean, default=False)
+    direction = t.get("direction", _choice, default="any", choices=DIRECTIONS)
+    crossing = t.get("crossing", _crossing, default="first")
+    if stop and crossing not in CROSSINGS + (1,):
+        raise ConfigError(t.at("crossing"), f"{crossing} counts nothing: a plane with stop = true ends each ray "
+                                            "at its first crossing")
+    return Plane(name, z, stop, direction, crossing)
+
+
+def _crossing(value, path):
+    """Which crossing of a plane counts: "first", "last", "all" or a whole number from 1."""
+    expected = f"expected one of {', '.join(repr(c) for c in CROSSINGS)} or a whole number from 1"
+    if isinstance(value, str) and value not in CROSSINGS:
+        close = difflib.get_close_matches(value, CROSSINGS, n=1)
+        raise ConfigError(path, f"unknown value {value!r}; " + (f"did you mean {close[0]!r}?" if close else expected))
+    if isinstance(value, str):
+        return value
+    if isinstance(value, bool) or not isinstance(value, int):
+        raise ConfigError(path, f"{expected}, got {_show(value)}")
+    return _integer(value, path, low=1)
 
 
 def _trace(value, path):

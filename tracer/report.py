@@ -64,6 +64,11 @@ def _mm(v):
     return v * 1e3
 
 
+def _plane(name, figures):
+    """A plane's name with the crossings its figures count (absent from summaries stored before)."""
+    return f"{name} ({figures['counted']})" if "counted" in figures else name
+
+
 def format_summary(summary: dict) -> str:
     """The summary of one beam (``BeamRun.summary()``) as readable tables.
 
@@ -86,7 +91,7 @@ def format_summary(summary: dict) -> str:
             ["electrode", "rays", "fraction", "current A", "E mean eV", "E std eV", "E min eV",
              "E max eV", "r min mm", "r max mm"], rows, title="landed on electrodes"))
     if s["planes"]:
-        rows = [[name, d["fraction"], d["current_A"], _mm(d["centroid_x_m"]), _mm(d["centroid_y_m"]),
+        rows = [[_plane(name, d), d["fraction"], d["current_A"], _mm(d["centroid_x_m"]), _mm(d["centroid_y_m"]),
                  _mm(d["rms_radius_m"]), d["rms_divergence_x_rad"] * 1e3,
                  d["emittance_x_m_rad"] * 1e6, d["norm_emittance_x_m_rad"] * 1e6,
                  d["energy_mean_eV"], d["energy_std_eV"], d["time_mean_s"] * 1e9,

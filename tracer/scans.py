@@ -2,32 +2,15 @@
 
 A scan is a list of voltage sets (the product of per-electrode ranges, or the rows of a CSV file;
 :func:`voltage_sets`).  For every set the basis maps are combined (no new Laplace solve, DESIGN §2),
-every beam is traced, and the beam figures are measured (:func:`measure`).  The sets run through any
+every beam is traced, and the beam figures are measured (:func:`tracer.measure.row`).  The sets run through any
 :class:`concurrent.futures.Executor`; the result is the same, bit for bit, whichever ran them,
 because each set is an independent, deterministic computation on the same maps.  With its own
 process pool, the scanning process itself runs sets from the end of the queue until the workers
 deliver their first, so the pool's start-up is not idle time.
 
-Columns of the table
---------------------
-First one column ``<electrode>_V`` per varied electrode, then for each beam (in config order):
-
-* at each plane (the rays' first crossing of it): ``transmission`` (distinct rays that crossed,
-  over the rays started), ``spot_rms_m`` (rms radius about the centroid), ``centroid_x_m``,
-  ``centroid_y_m``, ``divergence_x_rad``, ``divergence_y_rad`` (rms slopes px/pz, py/pz),
-  ``energy_mean_eV``, ``energy_std_eV``, ``tof_mean_s``, ``tof_std_s`` (time of flight);
-* on each electrode: ``landed`` (fraction of the rays that landed on it), ``landing_mean_eV``,
-  ``landing_std_eV``;
-* for the whole beam: ``landed``, ``landing_mean_eV``, ``landing_std_eV`` (all landed rays),
-  ``left`` (fraction that left the domain through an outer edge) and ``ledger_worst_eV`` (the
-  worst energy-ledger residual of any ray).
-
-A figure's column name is ``[beam.][where.]figure``: the beam's name only when the setup has
-several beams; ``where`` is the plane's name only when there are several planes, the electrode's
-name always for a figure on one electrode, and nothing for a whole-beam figure.  Figure names have
-no dot, so the part after the last dot is always the figure.  With one beam and one plane the
-columns read ``transmission``, ``spot_rms_m``, ..., ``focus.landed``, ..., ``landed``, ...
-A figure of no rays (nothing crossed a plane, nothing landed) is NaN.
+The table's columns are the varied voltages, ``<electrode>_V``, then the figures of each beam
+(:func:`tracer.measure.columns`; the module notes of :mod:`tracer.measure` name them and say which
+crossings of a plane count).
 
 Files (when ``out`` is given)
 -----------------------------
@@ -54,7 +37,6 @@ import dataclasses
 import hashlib
 import itertools
 import json
-import math
 import multiprocessing
 import multiprocessing.connection
 import os
@@ -67,18 +49,13 @@ from pathlib import Path
 
 import numpy as np
 
-from tracer import __version__
+from tracer import __version__, measure
 
 TABLE_FORMAT = "tracer-scan-1"
 CSV_NAME = "scan.csv"
 H5_NAME = "scan.h5"
 H5_GROUP = "tracer/scan"
 _FIRST_LINE = "# tracer scan table; config sha256 "
-
-PLANE_FIGURES = ("transmission", "spot_rms_m", "centroid_x_m", "centroid_y_m", "divergence_x_rad",
-                 "divergence_y_rad", "energy_mean_eV", "energy_std_eV", "tof_mean_s", "tof_std_s")
-ELECTRODE_FIGURES = ("landed", "landing_mean_eV", "landing_std_eV")
-BEAM_FIGURES = ELECTRODE_FIGURES + ("left", "ledger_worst_eV")
 
 _TRACE_LOCK = threading.Lock()   # one trace at a time per process: the kernel is itself parallel
 _WORKER = {}                     # the context of a pool worker, set once by its initializer
@@ -170,64 +147,6 @@ def config_hash(setup, names, sets) -> str:
 # What is measured for one voltage set
 
 
-def columns(beams, planes, electrodes):
-    """Figure column names for beams (names), planes (names) and electrodes (names); module notes."""
-    out = []
-    for beam in beams:
-        b = f"{beam}." if len(beams) > 1 else ""
-        for plane in planes:
-            p = f"{plane}." if len(planes) > 1 else ""
-            out += [f"{b}{p}{f}" for f in PLANE_FIGURES]
-        for electrode in electrodes:
-            out += [f"{b}{electrode}.{f}" for f in ELECTRODE_FIGURES]
-        out += [f"{b}{f}" for f in BEAM_FIGURES]
-    return tuple(out)
-
-
-def _beam_landing(records):
-    """Fraction of the rays that landed anywhere, and the mean and spread of their energies."""
-    energy = records["energy_eV"][records["status"] == "landed"]
-    n = len(records)
-    if not len(energy):
-        return (0.0 if n else math.nan), math.nan, math.nan
-    return len(energy) / n, float(np.mean(energy)), float(np.std(energy))
-
-
-def measure(run, electrodes):
-    """The figures of one traced beam, in the order of :func:`columns` for that beam.
-
-    Plane figures come from :func:`tracer.stats.plane_stats` over each ray's first crossing,
-    electrode figures from :func:`tracer.stats.landing_stats`.
-
-    Parameters
-    ----------
-    run : tracer.beam.BeamRun
-    electrodes : sequence of str
-        The electrode names (all electrodes of the setup).
-
-    Returns
-    -------
-    tuple of float
-    """
-    from tracer.stats import landing_stats, plane_stats
-
-    rec = run.records
-    n = len(rec)
-    out = []
-    for plane in run.planes:
-        rows = run.at_plane(plane)
-        s = plane_stats(rows[rows["crossing"] == 0], run.species, n)
-        out += (s.fraction, s.rms_radius_m, s.centroid_x_m, s.centroid_y_m, s.rms_divergence_x_rad,
-                s.rms_divergence_y_rad, s.energy_mean_eV, s.energy_std_eV, s.time_mean_s, s.time_std_s)
-    for electrode in electrodes:
-        s = landing_stats(rec, electrode)
-        out += (s.fraction, s.energy_mean_eV, s.energy_std_eV)
-    out += _beam_landing(rec)
-    out.append(np.count_nonzero(rec["status"] == "left") / n if n else math.nan)
-    out.append(float(rec["ledger_eV"].max()) if n else math.nan)
-    return tuple(out)
-
-
 @dataclass(frozen=True, eq=False)
 class Context:
     """Everything a worker needs to measure voltage sets: sent once per worker.
@@ -259,7 +178,7 @@ class Context:
 
     @property
     def columns(self):
-        return columns([b.name for b in self.beams], [p.name for p in self.planes], self.maps.names)
+        return measure.columns([b.name for b in self.beams], [p.name for p in self.planes], self.maps.names)
 
     def run(self, voltages):
         """Measure one voltage set.
@@ -279,7 +198,7 @@ class Context:
                 t0 = time.perf_counter()
                 run = trace(field, beam, planes=self.planes, rtol=self.rtol, max_time_s=self.max_time_s)
                 trace_s += time.perf_counter() - t0
-            figures += measure(run, self.maps.names)
+            figures += measure.row(run, self.maps.names)
         return np.array(figures, dtype=np.float64), trace_s
 
 

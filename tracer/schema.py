@@ -193,6 +193,13 @@ class Beam:
     rays_csv: pathlib.Path | None = None
 
 
+DIRECTIONS = ("any", "forward", "backward")
+"""The ``direction`` of a plane: the crossings its figures count (any, towards +z, towards -z)."""
+
+CROSSINGS = ("first", "last", "all")
+"""The named ``crossing`` choices of a plane; a whole number N >= 1 picks each ray's N-th crossing."""
+
+
 @dataclass(frozen=True)
 class Plane:
     """A detector plane z = const.
@@ -205,11 +212,18 @@ class Plane:
         Position, metres (inside the domain).
     stop : bool
         Whether rays end when they cross it.
+    direction : str
+        Which crossings its figures count: ``"any"``, ``"forward"`` (towards +z) or ``"backward"``.
+    crossing : str or int
+        Of those, each ray's ``"first"``, ``"last"``, N-th (N >= 1) or ``"all"`` (the rule of
+        :mod:`tracer.measure`).
     """
 
     name: str
     z_m: float
     stop: bool = False
+    direction: str = "any"
+    crossing: str | int = "first"
 
 
 @dataclass(frozen=True)

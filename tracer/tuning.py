@@ -1,7 +1,7 @@
 """Tuning: the electrode voltages (1 to 4, within bounds) that best meet a goal.
 
 Every trial traces the setup's first beam at one voltage set through the combined basis maps and
-measures it with :func:`tracer.scans.measure`, so a trial is exactly a scan row.  Goals
+measures it with :func:`tracer.measure.row`, so a trial is exactly a scan row.  Goals
 (``[tune] goal``, DESIGN §5) and what is minimised:
 
 ``smallest_spot`` (at a plane)
@@ -34,6 +34,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from tracer.scans import Context
+from tracer.schema import ConfigError, Plane
 
 LOST_PENALTY = 10.0
 """Landing-energy goal: a ray that does not land counts as a miss of this many times the target."""
@@ -78,8 +79,6 @@ class TuneResult:
 
 def _target(setup, spec):
     """The plane to trace (or None) and the figure column the goal is read from."""
-    from tracer.config import ConfigError, Plane
-
     planes = {p.name: p for p in setup.planes}
     if spec.goal == "focus":
         return Plane("focus", spec.goal_value), "spot_rms_m"
@@ -193,8 +192,6 @@ def tune(setup, maps=None, *, cache_dir=None, grid_points=11, popsize=8, maxiter
     tracer.config.ConfigError
         For a setup without ``[tune]`` or beams, or a goal that needs a plane without one.
     """
-    from tracer.config import ConfigError
-
     spec = setup.tune
     if spec is None:
         raise ConfigError("tune", "missing: the setup has no [tune] section")

@@ -1,0 +1,440 @@
+"""The figures of a traced beam: one definition of each.
+
+The run summary (:meth:`tracer.beam.BeamRun.summary`), the scan tables (:mod:`tracer.scans`), the
+tuning goals (:mod:`tracer.tuning`) and the gun report all take their figures from here, so the same
+rays give the same numbers wherever they are shown.  The moments, the radius and the emittance are
+computed by :mod:`tracer.stats`.
+
+Which crossings of a plane count
+--------------------------------
+A ray can cross a detector plane more than once: a retarding field or a mirror sends it back
+through, a reflectron returns it.  One rule holds for every figure of a plane, with two choices
+per plane (``[[plane]]`` keys ``direction`` and ``crossing``, :class:`CrossingRule`):
+
+1. Of a ray's crossings of the plane, in time order, only those in the plane's ``direction``
+   count: ``"any"`` (the default), ``"forward"`` (moving towards +z there, pz > 0) or
+   ``"backward"`` (towards -z, pz < 0).
+2. Of those, ``crossing`` picks: ``"first"`` (the default: each ray once, where it first crossed),
+   ``"last"``, a number N (the N-th, counting from 1; a ray with fewer does not count) or
+   ``"all"`` (every one).
+
+The counted crossings are the rows of the plane's moments (a ray counted at two crossings, with
+``"all"``, adds two rows).  ``fraction`` (the scan tables' ``transmission``) is the share of the
+rays started that have a counted crossing, and ``current_A`` the current those rays carry, each ray
+once.  A ray that turns exactly at the plane (pz = 0 at the crossing) counts only in direction
+``"any"``.  Labels such as ``"first crossing"`` or ``"2nd crossing, -z"`` (:attr:`CrossingRule.label`)
+say which rule a figure follows.
+
+Scan columns
+------------
+First one column ``<electrode>_V`` per varied electrode (:mod:`tracer.scans`), then for each beam
+(in config order) the figures of :func:`columns`:
+
+* at each plane (the crossings that count): ``transmission`` (the plane's ``fraction``),
+  ``spot_rms_m`` (rms radius about the centroid), ``centroid_x_m``, ``centroid_y_m``,
+  ``divergence_x_rad``, ``divergence_y_rad`` (rms slopes px/pz, py/pz), ``energy_mean_eV``,
+  ``energy_std_eV``, ``tof_mean_s``, ``tof_std_s`` (time of flight);
+* on each electrode: ``landed`` (fraction of the rays that landed on it), ``landing_mean_eV``,
+  ``landing_std_eV``;
+* for the whole beam: ``landed``, ``landing_mean_eV``, ``landing_std_eV`` (all landed rays),
+  ``left`` (fraction that left the domain through an outer edge) and ``ledger_worst_eV`` (the
+  worst energy-ledger residual of any ray).
+
+A figure's column name is ``[beam.][where.]figure``: the beam's name only when the setup has
+several beams; ``where`` is the plane's name only when there are several planes, the electrode's
+name always for a figure on one electrode, and nothing for a whole-beam figure.  Figure names have
+no dot, so the part after the last dot is always the figure.  With one beam and one plane the
+columns read ``transmission``, ``spot_rms_m``, ..., ``focus.landed``, ..., ``landed``, ...
+A figure of no rays (nothing crossed a plane, nothing landed) is NaN.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+
+from tracer.schema import CROSSINGS, DIRECTIONS
+from tracer.stats import beta_gamma, extreme, mean, radius, rms_emittance, std
+
+_SIDE = {"any": "", "forward": ", +z", "backward": ", -z"}
+
+
+def _ordinal(n):
+    suffix = "th" if n % 100 in (11, 12, 13) else {1: "st", 2: "nd", 3: "rd"}.get(n % 10, "th")
+    return f"{n}{suffix}"
+
+
+def occurrence(keys):
+    """For each element, how many earlier elements have the same key, and how many have it in all.
+
+    Parameters
+    ----------
+    keys : int64[n]
+
+    Returns
+    -------
+    index, count : int64[n]
+        ``index`` is 0 for the first element of each key (in array order), 1 for the next, ...;
+        ``count`` is the number of elements with that key.
+    """
+    order = np.argsort(keys, kind="stable")
+    ordered = keys[order]
+    first = np.searchsorted(ordered, ordered, side="left")
+    index = np.empty(len(keys), dtype=np.int64)
+    count = np.empty(len(keys), dtype=np.int64)
+    index[order] = np.arange(len(keys)) - first
+    count[order] = np.searchsorted(ordered, ordered, side="right") - first
+    return index, count
+
+
+@dataclass(frozen=True)
+class CrossingRule:
+    """Which crossings of a plane count for its figures (module notes).
+
+    Attributes
+    ----------
+    direction : str
+        ``"any"``, ``"forward"`` (pz > 0) or ``"backward"`` (pz < 0).
+    crossing : str or int
+        ``"first"``, ``"last"``, ``"all"`` or N >= 1 (the N-th crossing in that direction).
+    """
+
+    direction: str = "any"
+    crossing: str | int = "first"
+
+    def __post_init__(self):
+        if self.direction not in DIRECTIONS:
+            raise ValueError(f"direction {self.direction!r}: expected one of {', '.join(DIRECTIONS)}")
+        number = isinstance(self.crossing, int) and not isinstance(self.crossing, bool)
+        if not (self.crossing in CROSSINGS if not number else self.crossing >= 1):
+            raise ValueError(f"crossing {self.crossing!r}: expected one of {', '.join(CROSSINGS)} "
+                             "or a whole number from 1")
+
+    @classmethod
+    def of(cls, plane):
+        """The rule of a detector plane (its ``direction`` and ``crossing``; defaults when absent)."""
+        return cls(getattr(plane, "direction", "any"), getattr(plane, "crossing", "first"))
+
+    @property
+    def label(self) -> str:
+        """``"first crossing"``, ``"last crossing, +z"``, ``"2nd crossing, -z"``, ``"every crossing"``."""
+        which = {"all": "every"}.get(self.crossing, self.crossing)
+        if isinstance(which, int):
+            which = _ordinal(which)
+        return f"{which} crossing{_SIDE[self.direction]}"
+
+    def select(self, rows):
+        """The rows that count, in their order.
+
+        Parameters
+        ----------
+        rows : numpy.ndarray
+            The crossings of one plane, each ray's in time order (``BeamRun.at_plane``).
+        """
+        if self.direction != "any":
+            rows = rows[rows["pz"] > 0] if self.direction == "forward" else rows[rows["pz"] < 0]
+        if self.crossing == "all":
+            return rows
+        index, count = occurrence(rows["ray"])
+        if self.crossing == "first":
+            return rows[index == 0]
+        if self.crossing == "last":
+            return rows[index == count - 1]
+        return rows[index == self.crossing - 1]
+
+
+def counted(run, plane):
+    """The crossings of plane ``plane`` (a name) that count for its figures, by the run's rule."""
+    return run.crossing_rule(plane).select(run.at_plane(plane))
+
+
+# --------------------------------------------------------------------------------------------
+# At a plane
+
+
+@dataclass(frozen=True)
+class PlaneStats:
+    """The figures of a beam at a plane, over the crossings that count (module notes).
+
+    Attributes
+    ----------
+    count : int
+        Crossings counted (rows).
+    fraction : float
+        Distinct rays counted, over the rays started.
+    centroid_x_m, centroid_y_m : float
+        Mean transverse position.
+    rms_radius_m : float
+        sqrt(<(x - <x>)^2 + (y - <y>)^2>): the rms radius about the centroid
+        (the spot size).
+    rms_radius_axis_m : float
+        sqrt(<x^2 + y^2>): the rms radius about the axis.
+    rms_x_m, rms_y_m : float
+        Standard deviations of x and y.
+    rms_divergence_x_rad, rms_divergence_y_rad : float
+        Standard deviations of the slopes x' = px/pz and y' = py/pz.
+    emittance_x_m_rad, emittance_y_m_rad : float
+        rms emittances of the x-x' and y-y' planes (:mod:`tracer.stats`).
+    norm_emittance_x_m_rad, norm_emittance_y_m_rad : float
+        beta gamma times the rms emittances.
+    beta_gamma : float
+        <|p|> / (m c).
+    energy_mean_eV, energy_std_eV : float
+        Kinetic energy mean and standard deviation.
+    time_mean_s, time_std_s : float
+        Time of flight to the plane, mean and standard deviation.
+    current_A : float
+        The current of the rays counted, each ray once (NaN when the rays carry none).
+    """
+
+    count: int
+    fraction: float
+    centroid_x_m: float
+    centroid_y_m: float
+    rms_radius_m: float
+    rms_radius_axis_m: float
+    rms_x_m: float
+    rms_y_m: float
+    rms_divergence_x_rad: float
+    rms_divergence_y_rad: float
+    emittance_x_m_rad: float
+    emittance_y_m_rad: float
+    norm_emittance_x_m_rad: float
+    norm_emittance_y_m_rad: float
+    beta_gamma: float
+    energy_mean_eV: float
+    energy_std_eV: float
+    time_mean_s: float
+    time_std_s: float
+    current_A: float
+
+
+def plane_stats(rows, species, records):
+    """The figures of the given crossing rows.
+
+    Parameters
+    ----------
+    rows : numpy.ndarray
+        Structured rows, one per crossing counted (:func:`counted`); a ray with two rows adds
+        two to the moments but counts once in ``fraction`` and ``current_A``.
+    species : tracer.species.Species
+        The beam's species (its mass sets beta gamma).
+    records : numpy.ndarray
+        The rays started (``BeamRun.records``): the denominator of ``fraction``, and their
+        ``weight_A`` (when the field is there and sums above 0) the current.
+
+    Returns
+    -------
+    PlaneStats
+    """
+    x, y = rows["x_m"], rows["y_m"]
+    xs, ys = rows["px"] / rows["pz"], rows["py"] / rows["pz"]
+    cx, cy = mean(x), mean(y)
+    bg = beta_gamma(rows, species.mass_kg)
+    ex, ey = rms_emittance(x, xs), rms_emittance(y, ys)
+    n = len(records)
+    weights = records["weight_A"] if "weight_A" in records.dtype.names else np.zeros(n)
+    return PlaneStats(
+        count=len(rows),
+        fraction=len(np.unique(rows["ray"])) / n if n else math.nan,
+        centroid_x_m=cx,
+        centroid_y_m=cy,
+        rms_radius_m=math.sqrt(mean((x - cx) ** 2 + (y - cy) ** 2)),
+        rms_radius_axis_m=math.sqrt(mean(x * x + y * y)),
+        rms_x_m=std(x),
+        rms_y_m=std(y),
+        rms_divergence_x_rad=std(xs),
+        rms_divergence_y_rad=std(ys),
+        emittance_x_m_rad=ex,
+        emittance_y_m_rad=ey,
+        norm_emittance_x_m_rad=bg * ex,
+        norm_emittance_y_m_rad=bg * ey,
+        beta_gamma=bg,
+        energy_mean_eV=mean(rows["energy_eV"]),
+        energy_std_eV=std(rows["energy_eV"]),
+        time_mean_s=mean(rows["time_s"]),
+        time_std_s=std(rows["time_s"]),
+        current_A=(float(weights[np.isin(records["ray"], rows["ray"])].sum())
+                   if weights.sum() > 0 else math.nan),
+    )
+
+
+def plane_figures(run, plane):
+    """The figures of a traced beam at plane ``plane`` (a name), by the plane's rule.
+
+    Parameters
+    ----------
+    run : tracer.beam.BeamRun
+
+    Returns
+    -------
+    PlaneStats
+    """
+    return plane_stats(counted(run, plane), run.species, run.records)
+
+
+# --------------------------------------------------------------------------------------------
+# On electrodes, and how rays ended
+
+
+@dataclass(frozen=True)
+class LandingStats:
+    """The rays that landed on one electrode (or on any).
+
+    Attributes
+    ----------
+    electrode : str
+        Its name ("" for any electrode).
+    count : int
+    fraction : float
+        ``count`` over all rays of the records.
+    current_A : float
+        Sum of the landed rays' ``weight_A`` (NaN when no weights are known).
+    energy_mean_eV, energy_std_eV, energy_min_eV, energy_max_eV : float
+        Landing kinetic energies.
+    radius_min_m, radius_max_m : float
+        Range of the landing radius: r = hypot(x, y) in axial symmetry, y (signed)
+        in planar symmetry.
+    """
+
+    electrode: str
+    count: int
+    fraction: float
+    current_A: float
+    energy_mean_eV: float
+    energy_std_eV: float
+    energy_min_eV: float
+    energy_max_eV: float
+    radius_min_m: float
+    radius_max_m: float
+
+
+def landing_stats(records, electrode=None, weight_A=None, symmetry="axial"):
+    """Statistics of the rays with status ``"landed"`` on one electrode, or on any.
+
+    Parameters
+    ----------
+    records : ndarray
+        ``BeamRun.records``: one row per ray started.
+    electrode : str, optional
+        The electrode's name; None for every landed ray.
+    weight_A : ndarray, optional
+        The current of each row of ``records`` (same order; e.g. the start
+        states' ``weight_A``, which are in ray order too).  Default: the
+        records' own ``weight_A`` field if they have one.
+    symmetry : {"axial", "planar"}
+        Which transverse coordinate is the landing "radius".
+
+    Returns
+    -------
+    LandingStats
+    """
+    if weight_A is None and "weight_A" in records.dtype.names:
+        weight_A = records["weight_A"]
+    hit = records["status"] == "landed"
+    if electrode is not None:
+        hit &= records["electrode"] == electrode
+    rows = records[hit]
+    r = radius(rows, symmetry)
+    energy = rows["energy_eV"]
+    return LandingStats(
+        electrode=electrode or "",
+        count=len(rows),
+        fraction=len(rows) / len(records) if len(records) else math.nan,
+        current_A=math.nan if weight_A is None else float(np.sum(np.asarray(weight_A)[hit])),
+        energy_mean_eV=mean(energy),
+        energy_std_eV=std(energy),
+        energy_min_eV=extreme(energy, np.min),
+        energy_max_eV=extreme(energy, np.max),
+        radius_min_m=extreme(r, np.min),
+        radius_max_m=extreme(r, np.max),
+    )
+
+
+def landings(records, weight_A=None, symmetry="axial"):
+    """:func:`landing_stats` for every electrode that some ray landed on.
+
+    Returns
+    -------
+    dict[str, LandingStats]
+        In order of the electrode names.
+    """
+    names = np.unique(records["electrode"][records["status"] == "landed"])
+    return {str(name): landing_stats(records, str(name), weight_A, symmetry) for name in names}
+
+
+def loss_reasons(records):
+    """How many rays ended with each status.
+
+    Parameters
+    ----------
+    records : ndarray
+        ``BeamRun.records``.
+
+    Returns
+    -------
+    dict[str, int]
+        Count per status (``"landed"``, ``"plane"``, ``"left"``, ``"time"``,
+        ``"inside"``, ...), for the statuses that occur, sorted by name.
+    """
+    names, counts = np.unique(records["status"], return_counts=True)
+    return {str(name): int(count) for name, count in zip(names, counts)}
+
+
+# --------------------------------------------------------------------------------------------
+# A scan row
+
+
+PLANE_COLUMNS = {"transmission": "fraction", "spot_rms_m": "rms_radius_m", "centroid_x_m": "centroid_x_m",
+                 "centroid_y_m": "centroid_y_m", "divergence_x_rad": "rms_divergence_x_rad",
+                 "divergence_y_rad": "rms_divergence_y_rad", "energy_mean_eV": "energy_mean_eV",
+                 "energy_std_eV": "energy_std_eV", "tof_mean_s": "time_mean_s", "tof_std_s": "time_std_s"}
+"""Scan column of each plane figure: the :class:`PlaneStats` field it is."""
+
+LANDING_COLUMNS = {"landed": "fraction", "landing_mean_eV": "energy_mean_eV", "landing_std_eV": "energy_std_eV"}
+"""Scan column of each landing figure: the :class:`LandingStats` field it is."""
+
+BEAM_COLUMNS = tuple(LANDING_COLUMNS) + ("left", "ledger_worst_eV")
+"""Scan columns of the whole beam: its landings on any electrode, the share that left, the ledger."""
+
+
+def columns(beams, planes, electrodes):
+    """Figure column names for beams (names), planes (names) and electrodes (names); module notes."""
+    out = []
+    for beam in beams:
+        b = f"{beam}." if len(beams) > 1 else ""
+        for plane in planes:
+            p = f"{plane}." if len(planes) > 1 else ""
+            out += [f"{b}{p}{f}" for f in PLANE_COLUMNS]
+        for electrode in electrodes:
+            out += [f"{b}{electrode}.{f}" for f in LANDING_COLUMNS]
+        out += [f"{b}{f}" for f in BEAM_COLUMNS]
+    return tuple(out)
+
+
+def row(run, electrodes):
+    """The figures of one traced beam, in the order of :func:`columns` for that beam.
+
+    Parameters
+    ----------
+    run : tracer.beam.BeamRun
+    electrodes : sequence of str
+        The electrode names (all electrodes of the setup).
+
+    Returns
+    -------
+    tuple of float
+    """
+    rec = run.records
+    n = len(rec)
+    out = []
+    for plane in run.planes:
+        s = plane_figures(run, plane)
+        out += (getattr(s, name) for name in PLANE_COLUMNS.values())
+    for s in [landing_stats(rec, e) for e in electrodes] + [landing_stats(rec)]:
+        out += (getattr(s, name) for name in LANDING_COLUMNS.values())
+    out.append(loss_reasons(rec).get("left", 0) / n if n else math.nan)
+    out.append(run.ledger.worst_eV if n else math.nan)
+    return tuple(out)
