@@ -16,7 +16,8 @@ from tracer.beam import trace
 from tracer.config import loads
 from tracer.pipeline import solve
 from tracer.measure import columns
-from tracer.scans import CSV_NAME, Rows, config_hash, read_h5, scan, voltage_sets
+from tracer.journal import CSV_NAME, Rows, config_hash, read_h5
+from tracer.scans import scan, voltage_sets
 
 from test_trace import THREE_TUBE
 

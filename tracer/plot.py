@@ -262,7 +262,7 @@ def plot_scan(table, names, out, title=None) -> list[Path]:
     """Scan pictures: each figure against the voltage (one varied electrode) or as a map (two).
 
     One PNG per group of columns that share a prefix (``scan.png`` for the unprefixed figures,
-    ``scan_<prefix>.png`` for the others, see :mod:`tracer.scans`), one panel per figure; figures
+    ``scan_<prefix>.png`` for the others, see :mod:`tracer.measure`), one panel per figure; figures
     that are NaN at every set are left out.
 
     Parameters

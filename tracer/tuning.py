@@ -33,7 +33,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from tracer.scans import Context
+from tracer.executors import Context
 from tracer.schema import ConfigError, Plane
 
 LOST_PENALTY = 10.0

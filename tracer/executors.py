@@ -1,0 +1,235 @@
+"""Running voltage sets on any executor: the work of one set, and the process pool.
+
+A :class:`Context` holds everything one voltage set needs (the basis maps, the beams, the planes,
+the trace options) and measures a set: the maps combined (no new Laplace solve, DESIGN §2), every
+beam traced, the figures of :func:`tracer.measure.row`.  Sets are independent and deterministic, so
+a table is the same, bit for bit, whichever executor ran them.  :func:`run_sets` hands them to any
+:class:`concurrent.futures.Executor` and reports each as it completes: its own process pool
+(:func:`process_pool`, whose workers get the context once), a ``dask.distributed`` client's
+executor (:func:`cluster_executor`; the context is scattered once to every worker), or any other
+(the context goes with every set).  With its own pool, the calling process runs sets from the end
+of the queue until the workers deliver their first, so the pool's start-up is not idle time.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import multiprocessing
+import multiprocessing.connection
+import os
+import signal
+import threading
+import time
+from concurrent.futures import ProcessPoolExecutor, as_completed
+from dataclasses import dataclass
+
+import numpy as np
+
+from tracer import measure
+
+_TRACE_LOCK = threading.Lock()   # one trace at a time per process: the kernel is itself parallel
+_WORKER = {}                     # the context of a pool worker, set once by its initializer
+
+
+class ClusterError(Exception):
+    """No executor at a scheduler's address: dask.distributed is missing or the scheduler does not answer."""
+
+
+@contextlib.contextmanager
+def cluster_executor(address):
+    """The executor of a ``dask.distributed`` client connected to the scheduler at ``address``.
+
+    A context manager; the client is closed on leaving it.
+
+    Raises
+    ------
+    ClusterError
+        On entering, when dask.distributed is not installed or the scheduler cannot be reached
+        (within 20 s).
+    """
+    try:
+        from distributed import Client
+    except ImportError:
+        raise ClusterError("needs dask.distributed: pip install 'tracer[cluster]'") from None
+    try:
+        client = Client(address, timeout="20s")
+    except (OSError, TimeoutError, ValueError) as exc:
+        raise ClusterError(f"{address}: cannot connect ({exc})") from None
+    with client:
+        yield client.get_executor()
+
+
+@dataclass(frozen=True, eq=False)
+class Context:
+    """Everything a worker needs to measure voltage sets: sent once per worker.
+
+    Attributes
+    ----------
+    maps : tracer.fieldmap.BasisMaps
+    beams, planes : tuple
+        The setup's beams and detector planes.
+    names : tuple of str
+        The varied electrodes, in the order of a voltage set's values.
+    rtol, max_time_s : float
+        Trace options.
+    """
+
+    maps: object
+    beams: tuple
+    planes: tuple
+    names: tuple
+    rtol: float
+    max_time_s: float
+
+    @classmethod
+    def of(cls, setup, maps, names, planes=None, beams=None):
+        """The context of a setup (planes and beams default to the setup's)."""
+        return cls(maps, tuple(setup.beams if beams is None else beams),
+                   tuple(setup.planes if planes is None else planes), tuple(names),
+                   setup.trace.rtol, setup.trace.max_time_s)
+
+    @property
+    def columns(self):
+        return measure.columns([b.name for b in self.beams], [p.name for p in self.planes], self.maps.names)
+
+    def run(self, voltages):
+        """Measure one voltage set.
+
+        Returns
+        -------
+        figures : float64[n_columns]
+        trace_s : float
+            Seconds spent inside ``tracer.beam.trace``.
+        """
+        from tracer.beam import trace
+
+        field = self.maps.combine(dict(zip(self.names, (float(v) for v in voltages))))
+        figures, trace_s = [], 0.0
+        for beam in self.beams:
+            with _TRACE_LOCK:
+                t0 = time.perf_counter()
+                run = trace(field, beam, planes=self.planes, rtol=self.rtol, max_time_s=self.max_time_s)
+                trace_s += time.perf_counter() - t0
+            figures += measure.row(run, self.maps.names)
+        return np.array(figures, dtype=np.float64), trace_s
+
+
+def _exit_with_parent():
+    """Wait for the parent process to end, then end this worker (a killed parent leaves no orphans)."""
+    multiprocessing.connection.wait([multiprocessing.parent_process().sentinel])
+    os._exit(1)
+
+
+def _init_worker(context, threads):
+    """Pool initializer: keep the context, size numba's thread pool, leave Ctrl-C to the parent,
+    and end with the parent even when it is killed."""
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
+    threading.Thread(target=_exit_with_parent, daemon=True).start()
+    import numba
+
+    numba.set_num_threads(max(1, min(threads, numba.config.NUMBA_NUM_THREADS)))
+    _WORKER["context"] = context
+
+
+def _task_in_worker(index, voltages):
+    """A voltage set in a pool worker whose initializer holds the context."""
+    return (index, *_WORKER["context"].run(voltages))
+
+
+def _task(context, index, voltages):
+    """A voltage set with its context passed along (a scattered dask future, or any object)."""
+    return (index, *context.run(voltages))
+
+
+def process_pool(context, workers=None):
+    """A process pool whose workers receive the context once, through the pool's initializer.
+
+    Parameters
+    ----------
+    context : Context
+    workers : int, optional
+        Number of processes (default: the machine's CPU count); numba's threads are shared out
+        between them.
+
+    Returns
+    -------
+    concurrent.futures.ProcessPoolExecutor
+        Workers are forked from a fresh single-threaded server that has already imported the
+        tracer (the "forkserver" method: safe with numba's threads, and the imports are paid
+        once, not per worker), or spawned where that method does not exist; they ignore SIGINT,
+        so that Ctrl-C reaches only the scanning process.
+    """
+    workers = workers or os.cpu_count() or 1
+    threads = max(1, (os.cpu_count() or 1) // workers)
+    if "forkserver" in multiprocessing.get_all_start_methods():
+        ctx = multiprocessing.get_context("forkserver")
+        ctx.set_forkserver_preload(["tracer.beam", "tracer.executors"])
+    else:
+        ctx = multiprocessing.get_context("spawn")
+    return ProcessPoolExecutor(workers, mp_context=ctx,
+                               initializer=_init_worker, initargs=(context, threads))
+
+
+def _submitter(executor, context, own_pool):
+    """A function (index, voltages) -> Future that hands the context over once per worker."""
+    if own_pool:
+        return lambda i, v: executor.submit(_task_in_worker, i, v)
+    client = getattr(executor, "_client", None)
+    if client is not None and hasattr(client, "scatter"):   # a dask.distributed client's executor
+        shared = client.scatter(context, broadcast=True, hash=False)
+        return lambda i, v: executor.submit(_task, shared, i, v)
+    return lambda i, v: executor.submit(_task, context, i, v)
+
+
+def _while_workers_start(futures, context, sets, todo, finish):
+    """Run sets in this process, from the end of the queue, until a worker delivers its first one.
+
+    A set taken here is withdrawn from the pool first (a queued future can be cancelled), so every
+    set still runs exactly once; the rows are the same whichever process runs them.  Returns the
+    futures left to the pool.
+    """
+    delivered = threading.Event()
+    for f in futures:
+        f.add_done_callback(lambda f: f.cancelled() or delivered.set())
+    taken = set()
+    for k in range(len(futures) - 1, -1, -1):
+        if delivered.is_set() or not futures[k].cancel():
+            break
+        taken.add(k)
+        finish(*_task(context, todo[k], sets[todo[k]]))
+    return [f for k, f in enumerate(futures) if k not in taken]
+
+
+def run_sets(executor, context, workers, sets, todo, finish):
+    """Submit voltage sets to an executor and hand each to ``finish`` as it completes; cancel the
+    rest on any exit (also an interrupt).
+
+    Parameters
+    ----------
+    executor : concurrent.futures.Executor or None
+        None: an own :func:`process_pool` of ``workers`` processes (default the CPU count), shut
+        down at the end.
+    context : Context
+    workers : int or None
+    sets : float64[n_sets, n_names]
+        The voltage sets.
+    todo : list of int
+        The indices of the sets to run.
+    finish : callable
+        ``finish(index, figures, trace_s)`` for each set, in completion order, in this process.
+    """
+    own = executor is None
+    if own:
+        executor = process_pool(context, min(workers or os.cpu_count() or 1, len(todo)))
+    submit = _submitter(executor, context, own)
+    futures = [submit(i, sets[i]) for i in todo]
+    try:
+        if own:
+            futures = _while_workers_start(futures, context, sets, todo, finish)
+        for future in as_completed(futures):
+            finish(*future.result())
+    finally:
+        for future in futures:
+            future.cancel()
+        if own:
+            executor.shutdown(wait=True, cancel_futures=True)

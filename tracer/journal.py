@@ -1,0 +1,224 @@
+"""The durable journal of a scan: its finished rows in ``scan.csv`` and ``scan.h5``.
+
+``scan.csv``
+    One line per finished set, appended, flushed and fsynced as each set completes (in completion
+    order), after a first line ``# tracer scan table; config sha256 <hash>`` and a header row
+    ``set,<columns>`` (``set`` is the set's index in the scan order).  Numbers are written in
+    Python's shortest round-trip form, so rows read back are bit for bit those computed.
+``scan.h5``
+    The finished rows in scan order (``tracer/scan/table``, with their indices in
+    ``tracer/scan/set``), rewritten atomically (temporary file renamed into place) when asked
+    (:meth:`Rows.write_h5`).
+
+Opening the journal of a folder again reads ``scan.csv`` and keeps the finished sets; a last line
+cut short by a killed process is dropped.  The config hash (:func:`config_hash`) covers everything
+the figures depend on; when it differs, the old files are renamed to ``scan.<old hash>.csv`` /
+``.h5`` and a fresh table starts, so rows of different configs are never mixed.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import hashlib
+import json
+import os
+from pathlib import Path
+
+import numpy as np
+
+from tracer import __version__
+from tracer.store.atomic import atomic_path
+
+TABLE_FORMAT = "tracer-scan-1"
+CSV_NAME = "scan.csv"
+H5_NAME = "scan.h5"
+H5_GROUP = "tracer/scan"
+_FIRST_LINE = "# tracer scan table; config sha256 "
+
+
+def _file_digest(path):
+    return hashlib.sha256(Path(path).read_bytes()).hexdigest()
+
+
+def _plain(value):
+    """JSON form of config values: dataclasses by field, paths by their content's digest."""
+    if dataclasses.is_dataclass(value):
+        return {f.name: _plain(getattr(value, f.name)) for f in dataclasses.fields(value)}
+    if isinstance(value, Path):
+        return {"sha256": _file_digest(value)}
+    if isinstance(value, (tuple, list)):
+        return [_plain(v) for v in value]
+    return value
+
+
+def config_hash(setup, names, sets) -> str:
+    """sha256 hex digest of everything a scan table depends on.
+
+    The geometry (``Setup.geometry_hash``), every electrode voltage, the beams (a rays file by its
+    content), the planes, the trace options that change results (``rtol``, ``max_time_s``), the
+    varied electrodes, the voltage sets (exact floats), the table format and the tracer version.
+    Title, paths, plots and the ``[tune]``, ``[gun]``, ``[optics]`` sections are left out.
+    """
+    payload = {
+        "format": TABLE_FORMAT, "version": __version__, "geometry": setup.geometry_hash(),
+        "voltages": setup.voltages(), "beams": _plain(setup.beams), "planes": _plain(setup.planes),
+        "rtol": setup.trace.rtol, "max_time_s": setup.trace.max_time_s, "names": list(names),
+        "sets": np.ascontiguousarray(sets, dtype=np.float64).tobytes().hex(),
+    }
+    text = json.dumps(payload, sort_keys=True, separators=(",", ":"), allow_nan=False)
+    return hashlib.sha256(text.encode()).hexdigest()
+
+
+def _number(value) -> str:
+    return repr(float(value))
+
+
+class Rows:
+    """The finished rows of a scan, kept durably in ``scan.csv`` (module notes).
+
+    Parameters
+    ----------
+    folder : pathlib.Path or None
+        The output folder; None keeps the rows in memory only.
+    digest : str
+        The config hash.
+    header : sequence of str
+        The table's columns (voltages, then figures).
+    sets : float64[n_sets, n_names]
+        The voltage sets, to check the rows read back against.
+    """
+
+    def __init__(self, folder, digest, header, sets):
+        self.folder, self.digest, self.header, self.sets = folder, digest, tuple(header), sets
+        self.done = {}
+        self.resumed = 0
+        self._handle = None
+        if folder is None:
+            return
+        folder.mkdir(parents=True, exist_ok=True)
+        self.csv = folder / CSV_NAME
+        self.h5 = folder / H5_NAME
+        lines = self._read()
+        if lines is None:
+            self._start_fresh()
+        else:
+            self._resume(lines)
+        self._handle = open(self.csv, "a", encoding="utf-8", newline="")
+
+    def _read(self):
+        """Lines of an existing table of this config, or None (and archive any other table)."""
+        if not self.csv.exists():
+            return None
+        lines = self.csv.read_bytes().decode("utf-8", errors="replace").split("\n")
+        if lines[:2] == self._prologue().split("\n")[:2]:
+            return lines
+        first = lines[0]
+        old = first.removeprefix(_FIRST_LINE)[:12] if first.startswith(_FIRST_LINE) else "unknown"
+        for path in (self.csv, self.h5):
+            if path.exists():
+                os.replace(path, path.with_name(f"{path.stem}.{old}{path.suffix}"))
+        return None
+
+    def _prologue(self):
+        return f"{_FIRST_LINE}{self.digest}\n" + ",".join(("set",) + self.header) + "\n"
+
+    def _start_fresh(self):
+        with atomic_path(self.csv) as tmp:
+            _write_synced(tmp, self._prologue())
+
+    def _resume(self, lines):
+        """Take the valid rows; rewrite the file atomically when a line is cut short or bad.
+
+        Only lines ended by a newline count: the text after the last newline (empty for an intact
+        file) is what a killed process may have left half written.
+        """
+        clean = lines[-1] == ""
+        for line in lines[2:-1]:
+            row = self._parse(line)
+            if row is None or row[0] in self.done:
+                clean = False
+                continue
+            self.done[row[0]] = row[1]
+        self.resumed = len(self.done)
+        if not clean:
+            with atomic_path(self.csv) as tmp:
+                _write_synced(tmp, self._prologue() + "".join(
+                    self._line(i, v) for i, v in sorted(self.done.items())))
+
+    def _parse(self, line):
+        fields = line.split(",")
+        if len(fields) != len(self.header) + 1:
+            return None
+        try:
+            index, values = int(fields[0]), np.array([float(f) for f in fields[1:]])
+        except ValueError:
+            return None
+        k = self.sets.shape[1]
+        if not 0 <= index < len(self.sets) or not np.array_equal(values[:k], self.sets[index]):
+            return None
+        return index, values
+
+    def _line(self, index, values):
+        return ",".join([str(index)] + [_number(v) for v in values]) + "\n"
+
+    def add(self, index, values):
+        """Record a finished row: appended, flushed and fsynced before returning."""
+        self.done[index] = values
+        if self._handle is not None:
+            self._handle.write(self._line(index, values))
+            self._handle.flush()
+            os.fsync(self._handle.fileno())
+
+    def table(self):
+        """The finished rows in scan order, as a structured array, and their set indices."""
+        index = np.array(sorted(self.done), dtype=np.int64)
+        table = np.zeros(len(index), dtype=[(c, np.float64) for c in self.header])
+        if len(index):
+            values = np.array([self.done[i] for i in index])
+            for k, c in enumerate(self.header):
+                table[c] = values[:, k]
+        return table, index
+
+    def write_h5(self):
+        """Rewrite ``scan.h5`` atomically with the finished rows."""
+        if self.folder is None:
+            return
+        import h5py
+
+        table, index = self.table()
+        with atomic_path(self.h5) as tmp, h5py.File(tmp, "w") as f:
+            group = f.create_group(H5_GROUP)
+            group.attrs["format"] = TABLE_FORMAT
+            group.attrs["config_sha256"] = self.digest
+            group.attrs["sets_total"] = len(self.sets)
+            group.attrs["columns"] = json.dumps(list(self.header))
+            group.create_dataset("table", data=table)
+            group.create_dataset("set", data=index)
+
+    def close(self):
+        if self._handle is not None:
+            self._handle.close()
+            self._handle = None
+
+
+def _write_synced(path, text):
+    with open(path, "w", encoding="utf-8", newline="") as handle:
+        handle.write(text)
+        handle.flush()
+        os.fsync(handle.fileno())
+
+
+def read_h5(path):
+    """The table, set indices and config hash of a ``scan.h5``.
+
+    Returns
+    -------
+    table : numpy structured array
+    index : int64[n]
+    digest : str
+    """
+    import h5py
+
+    with h5py.File(path, "r") as f:
+        group = f[H5_GROUP]
+        return group["table"][()], group["set"][()], str(group.attrs["config_sha256"])
