@@ -116,24 +116,13 @@ def _stage_progress(args):
     return update
 
 
-def _with_rays(setup, rays):
-    """The setup with every drawn beam cut to ``rays`` rays (``--rays``), for a quick look."""
-    if rays is None:
-        return setup
-    if rays < 1:
-        raise InputError(f"--rays: {rays} must be a positive number of rays")
-    import dataclasses
-
-    beams = tuple(b if b.rays_csv is not None else dataclasses.replace(b, count=min(b.count, rays))
-                  for b in setup.beams)
-    return dataclasses.replace(setup, beams=beams)
-
-
 def _run_config(setup, args, out: Path, echo) -> int:
-    from tracer.pipeline import run, write_run_outputs
+    from tracer.pipeline import run, with_rays, write_run_outputs
     from tracer.report import format_summary
 
-    setup = _with_rays(setup, args.rays)
+    if args.rays is not None and args.rays < 1:
+        raise InputError(f"--rays: {args.rays} must be a positive number of rays")
+    setup = with_rays(setup, args.rays)
     result = run(setup, cache_dir=_cache_dir(args), progress=_stage_progress(args))
     for summary in result.summary().values():
         echo(format_summary(summary))
@@ -151,17 +140,11 @@ def cmd_run(args, echo) -> int:
 
 def cmd_demo(args, echo) -> int:
     from tracer.config import load
-    from tracer.pipeline import DEMO_CONFIG
+    from tracer.pipeline import DEMO_CONFIG, demo_folder
 
-    if args.out:
-        out = Path(args.out)
-        if out.exists() and any(out.iterdir()):
-            raise InputError(f"--out {out}: folder exists and is not empty; name a fresh folder")
-    else:   # a fresh folder every time: tracer-demo, tracer-demo-2, ...
-        out, k = Path("tracer-demo"), 1
-        while out.exists():
-            k += 1
-            out = Path(f"tracer-demo-{k}")
+    out = demo_folder(args.out)
+    if out is None:
+        raise InputError(f"--out {args.out}: folder exists and is not empty; name a fresh folder")
     setup = load(DEMO_CONFIG)
     echo(f"demo: {setup.title}")
     echo(f"config: {DEMO_CONFIG}")
@@ -239,32 +222,10 @@ def cmd_show(args, echo) -> int:
     return 0
 
 
-def _scan_executor(address):
-    """A context manager yielding a dask.distributed executor at ``address``, or None for no address."""
+def cmd_scan(args, echo) -> int:
     import contextlib
 
-    if not address:
-        return contextlib.nullcontext(None)
-    try:
-        from distributed import Client
-    except ImportError:
-        raise InputError("--scheduler needs dask.distributed: pip install 'tracer[cluster]'") from None
-
-    @contextlib.contextmanager
-    def connected():
-        try:
-            client = Client(address, timeout="20s")
-        except (OSError, TimeoutError, ValueError) as exc:
-            raise InputError(f"--scheduler {address}: cannot connect ({exc})") from None
-        with client:
-            yield client.get_executor()
-
-    return connected()
-
-
-def cmd_scan(args, echo) -> int:
-    import numpy as np
-
+    from tracer.executors import ClusterError, cluster_executor
     from tracer.pipeline import solve
     from tracer.plot import plot_scan
     from tracer.scans import scan
@@ -277,9 +238,11 @@ def cmd_scan(args, echo) -> int:
     out = _out_dir(args)
     maps = solve(setup, cache_dir=_cache_dir(args), progress=_progress(args, "solving"))
     try:
-        with _scan_executor(args.scheduler) as executor:
+        with cluster_executor(args.scheduler) if args.scheduler else contextlib.nullcontext() as executor:
             result = scan(setup, maps, executor, out=out, workers=args.workers,
                           progress=_progress(args, "scanning", unit="set"))
+    except ClusterError as exc:
+        raise InputError(f"--scheduler {exc}") from None
     except KeyboardInterrupt:
         print(f"tracer: the finished sets are kept in {out / 'scan.csv'}; run the same command "
               "again to continue", file=sys.stderr)
@@ -288,10 +251,10 @@ def cmd_scan(args, echo) -> int:
     echo(f"{setup.title}\n  {len(table)} voltage sets of {', '.join(result.names)} "
          f"({result.resumed} from an earlier run) in {result.elapsed_s:.1f} s")
     for figure in (f for f in result.figures if f.rpartition(".")[2] == "spot_rms_m"):
-        if np.isfinite(table[figure]).any():
-            k = int(np.nanargmin(table[figure]))
-            at = ", ".join(f"{n} = {table[f'{n}_V'][k]:g} V" for n in result.names)
-            echo(f"  smallest {figure}: {table[figure][k] * 1e3:.4g} mm at {at}")
+        best = result.smallest(figure)
+        if best is not None:
+            at = ", ".join(f"{n} = {v:g} V" for n, v in best[1].items())
+            echo(f"  smallest {figure}: {best[0] * 1e3:.4g} mm at {at}")
     for f in result.files + tuple(plot_scan(table, result.names, out, title=setup.title)):
         echo(f"wrote {f}")
     _caution(_volts(setup) + [v for n in result.names for v in table[f"{n}_V"]], echo)

@@ -6,6 +6,7 @@ Python API call the same functions.
 
 from __future__ import annotations
 
+import dataclasses
 import os
 from dataclasses import dataclass
 from pathlib import Path
@@ -21,6 +22,29 @@ def default_cache_dir() -> Path:
         return Path(os.environ["TRACER_CACHE"])
     base = os.environ.get("XDG_CACHE_HOME") or Path.home() / ".cache"
     return Path(base) / "tracer"
+
+
+def demo_folder(out=None):
+    """The folder for ``tracer demo``: ``out`` when it is new or empty (None when it holds files),
+    else a fresh ``tracer-demo``, ``tracer-demo-2``, ... in the working directory."""
+    if out:
+        out = Path(out)
+        return None if out.exists() and any(out.iterdir()) else out
+    out, k = Path("tracer-demo"), 1
+    while out.exists():
+        k += 1
+        out = Path(f"tracer-demo-{k}")
+    return out
+
+
+def with_rays(setup, rays=None):
+    """The setup with every drawn beam cut to at most ``rays`` rays, for a quick look (beams of a
+    rays file are kept whole); the setup itself when ``rays`` is None."""
+    if rays is None:
+        return setup
+    beams = tuple(b if b.rays_csv is not None else dataclasses.replace(b, count=min(b.count, rays))
+                  for b in setup.beams)
+    return dataclasses.replace(setup, beams=beams)
 
 
 def solve(setup, *, cache_dir=None, rtol: float = DEFAULT_RTOL, progress=None):
