@@ -354,7 +354,7 @@ def build_parser() -> argparse.ArgumentParser:
 
 def main(argv: list[str] | None = None) -> int:
     """Run the command line; return the exit code."""
-    from tracer.config import ConfigError
+    from tracer.schema import ConfigError
     from tracer.interrupts import by_interrupt
 
     for stream in (sys.stdout, sys.stderr):   # a terminal that cannot show a character gets an escape
