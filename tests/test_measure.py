@@ -1,6 +1,7 @@
 """Beam figures: plane moments, emittance, landings and loss counts; which crossings of a plane
 count, and the summary and a scan row agreeing on the same rays."""
 
+import dataclasses
 import math
 import warnings
 
@@ -276,3 +277,10 @@ def test_returning_rays_cross_when_uniform_field_motion_says(mirror):
     assert np.allclose(out["time_s"], (pz_plane - s["pz"]) / force, rtol=1e-8, atol=0)
     assert np.allclose(back["time_s"], (-pz_plane - s["pz"]) / force, rtol=1e-8, atol=0)
     assert np.allclose(back["energy_eV"], 300.0, rtol=1e-10)
+
+
+def test_a_bad_rule_from_python_is_refused_before_tracing(mirror):
+    field, setup, _ = mirror
+    plane = dataclasses.replace(setup.planes[0], direction="sideways")
+    with pytest.raises(ValueError, match="direction 'sideways'"):
+        trace(field, setup.beams[0], planes=(plane,))

@@ -206,7 +206,8 @@ def trace(field, beam, planes=(), rtol=1e-9, max_time_s=1e-4, *, keep_paths=0,
         The source (species, energies, positions, directions, count, seed).
     planes : sequence of tracer.config.Plane
         Detector planes z = const (``name``, ``z_m``, ``stop``); every crossing is recorded, and a
-        plane with ``stop`` true ends the ray there (status "plane").
+        plane with ``stop`` true ends the ray there (status "plane").  Their ``direction`` and
+        ``crossing``, when given, say which crossings count for the figures (:mod:`tracer.measure`).
     rtol : float
         Relative tolerance of the Runge–Kutta steps; absolute tolerances are rtol × cell for
         positions and rtol × the ray's momentum scale (the momentum at its energy scale, see
@@ -247,6 +248,7 @@ def trace(field, beam, planes=(), rtol=1e-9, max_time_s=1e-4, *, keep_paths=0,
     atol_p = rtol * sources.momentum(scale, sp.mass_kg)
     cell = min(grid.hz, grid.hr)
     planes = tuple(planes)
+    rules = tuple(measure.CrossingRule.of(p) for p in planes)   # a bad rule is refused before any work
     plane_z = np.array([p.z_m for p in planes], dtype=np.float64)
     plane_stop = np.array([bool(getattr(p, "stop", False)) for p in planes], dtype=np.bool_)
     keep = min(int(keep_paths), n)
@@ -317,7 +319,7 @@ def trace(field, beam, planes=(), rtol=1e-9, max_time_s=1e-4, *, keep_paths=0,
                    crossings=crossings, paths=paths, planes=tuple(p.name for p in planes),
                    ledger=report, energy_scale_eV=scale,
                    crossings_lost=int((info[:, 2] - n_cross).sum()), symmetry=grid.symmetry,
-                   crossing_rules=tuple(measure.CrossingRule.of(p) for p in planes))
+                   crossing_rules=rules)
 
 
 def _fill_state(rec, rows):
