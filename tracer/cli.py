@@ -354,8 +354,8 @@ def build_parser() -> argparse.ArgumentParser:
 
 def main(argv: list[str] | None = None) -> int:
     """Run the command line; return the exit code."""
-    from tracer.schema import ConfigError
     from tracer.interrupts import by_interrupt
+    from tracer.schema import ConfigError
 
     for stream in (sys.stdout, sys.stderr):   # a terminal that cannot show a character gets an escape
         if hasattr(stream, "reconfigure"):
