@@ -73,6 +73,8 @@ z_mm = 11.0
 [[plane]]
 name = "behind.target"
 z_mm = 29.0
+direction = "forward"
+crossing = "last"
 """
 
 PLANAR = """
@@ -153,6 +155,7 @@ def assert_same_run(a, b):
     assert type(b) is BeamRun
     assert b.name == a.name and b.species == a.species and b.planes == a.planes
     assert b.crossings_lost == a.crossings_lost and b.symmetry == a.symmetry
+    assert b.crossing_rules == a.crossing_rules
     for key in ("starts", "records", "crossings"):
         x, y = getattr(a, key), getattr(b, key)
         assert x.dtype == y.dtype, key

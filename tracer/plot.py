@@ -15,6 +15,7 @@ from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.collections import LineCollection
 from matplotlib.figure import Figure
 
+from tracer.measure import counted
 from tracer.stats import radius
 from tracer.store.atomic import atomic_path
 
@@ -160,11 +161,11 @@ def plot_landing_positions(runs, path, symmetry="axial") -> Path | None:
 
 
 def plot_phase_space(run, plane, path, symmetry="axial") -> Path | None:
-    """Transverse phase space at a plane: (r, r') in axial symmetry, (y, y') in planar.
+    """Transverse phase space at a plane: (r, r') in axial symmetry, (y, y') in planar, of the
+    crossings that count for the plane's figures (:func:`tracer.measure.counted`).
 
-    ``run`` is a BeamRun or a beam read back from a result file (anything with ``name`` and
-    ``crossings``)."""
-    rows = run.crossings[run.crossings["plane"] == plane]
+    ``run`` is a BeamRun (traced, or read back from a result file)."""
+    rows = counted(run, plane)
     if not len(rows):
         return None
     if symmetry == "planar":
@@ -183,7 +184,7 @@ def plot_phase_space(run, plane, path, symmetry="axial") -> Path | None:
     fig.colorbar(dots, ax=ax, label="kinetic energy (eV)")
     ax.set_xlabel(f"{side} (mm)")
     ax.set_ylabel(f"{side}' (mrad)")
-    ax.set_title(f"beam {run.name} at plane {plane}", fontsize=10)
+    ax.set_title(f"beam {run.name} at plane {plane} ({run.crossing_rule(plane).label})", fontsize=10)
     return save(fig, path)
 
 

@@ -23,6 +23,7 @@ from tracer.beam import STATUS, BeamRun
 from tracer.fieldmap import PotentialMap, edge_reflection, hermite_data
 from tracer.geometry import Raster, ShapeTable
 from tracer.grid import Grid
+from tracer.measure import CrossingRule
 from tracer.species import Species
 from tracer.store import openpmd
 from tracer.store.hdf5 import plain, read_array, read_fields, tracer_group, write_fields
@@ -124,7 +125,8 @@ def write_result(path, field, runs, *, setup=None, summaries=None, author=None) 
                                              voltages, grid, shape table and raster, the summaries
                                              (JSON), the config text and geometry hash, and per beam
                                              (JSON) its species, species names, record dtypes,
-                                             ledger threshold and lost crossings
+                                             ledger threshold, lost crossings and which crossings
+                                             of each plane count (direction, crossing)
         /tracer/result/paths/<k>/<i>         the kept path of ray i of the k-th beam
         /tracer/result/energy_scale_eV/<k>   the k-th beam's per-ray energy scale of the ledger
 
@@ -199,7 +201,8 @@ def write_result(path, field, runs, *, setup=None, summaries=None, author=None) 
                           "start": start, "final": final, "planes": planes,
                           "dtypes": {key: _dtype_names(getattr(run, key))
                                      for key in ("starts", "records", "crossings")},
-                          "ledger_threshold": run.ledger.threshold, "crossings_lost": run.crossings_lost})
+                          "ledger_threshold": run.ledger.threshold, "crossings_lost": run.crossings_lost,
+                          "crossing_rules": [[r.direction, r.crossing] for r in run.crossing_rules]})
         group.attrs["format"] = RESULT_FORMAT
         group.attrs["names"] = json.dumps(list(field.names))
         group.attrs["voltages"] = np.asarray(field.voltages, dtype=np.float64)
@@ -290,7 +293,8 @@ def _read_beam(group, particles, k, about, symmetry) -> BeamRun:
                    crossings=_copy_fields(crossings, dtypes["crossings"]),
                    paths=tuple(read_array(paths[str(i)]) for i in range(len(paths))),
                    planes=tuple(about["planes"]), ledger=report, energy_scale_eV=scale,
-                   crossings_lost=int(about["crossings_lost"]), symmetry=symmetry)
+                   crossings_lost=int(about["crossings_lost"]), symmetry=symmetry,
+                   crossing_rules=tuple(CrossingRule(*r) for r in about.get("crossing_rules", ())))
 
 
 def read_result(path) -> ResultFile:
