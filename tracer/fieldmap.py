@@ -524,6 +524,22 @@ class BasisMaps:
         return cls(grid, table, raster, tuple(names), tuple(float(v) for v in voltages), unit,
                    basis_hermite(grid, raster, unit), tuple(history), geometry_hash)
 
+    def settings(self, given: Mapping[str, object] | None = None) -> dict:
+        """Every electrode's setting: the ``given`` one where named, else the setup's voltage.
+
+        Raises
+        ------
+        ValueError
+            For a name that is not an electrode of these maps.
+        """
+        out = dict(zip(self.names, self.voltages))
+        for name, value in (given or {}).items():
+            if name not in out:
+                raise ValueError(f"unknown electrode {name!r}; the electrodes are "
+                                 + ", ".join(repr(n) for n in self.names))
+            out[name] = value
+        return out
+
     def combine(self, voltages: Mapping[str, float] | None = None) -> PotentialMap:
         """The potential map of a voltage set.
 
@@ -537,12 +553,7 @@ class BasisMaps:
         ValueError
             For a name that is not an electrode of these maps.
         """
-        volts = dict(zip(self.names, self.voltages))
-        for name, value in (voltages or {}).items():
-            if name not in volts:
-                raise ValueError(f"unknown electrode {name!r}; the electrodes are "
-                                 + ", ".join(repr(n) for n in self.names))
-            volts[name] = float(value)
+        volts = {name: float(value) for name, value in self.settings(voltages).items()}
         weights = np.array([volts[n] for n in self.names])
         hermite = np.tensordot(weights, self.hermite, axes=1)
         return PotentialMap(self.grid, self.table, self.raster, self.names, tuple(weights.tolist()),

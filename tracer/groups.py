@@ -1,0 +1,125 @@
+"""Electrodes grouped by waveform: one static map and one map per distinct waveform.
+
+The potential is linear in the electrode voltages, V = sum_i v_i(t) phi_i (``BasisMaps``), so with
+each electrode's voltage split into a constant and a varying part, v_i(t) = c_i + s_i w_k(i)(t)
+(``Waveform.split``; s_i = +1, or -1 for an electrode driven with the negative of another's
+waveform, as the two halves of an RF pair),
+
+    V(x, t) = V_static(x) + sum_k w_k(t) M_k(x),   V_static = sum_i c_i phi_i,   M_k = sum_{i in k} s_i phi_i.
+
+Electrodes with a constant voltage, and the constant parts of all the others, fold into the one
+static map; every group of electrodes that shares a varying part (up to its sign) is one map more.
+The ray kernel then evaluates 1 + K maps per stage, K the number of distinct waveforms, however
+many electrodes carry them.
+"""
+
+from __future__ import annotations
+
+import numbers
+from collections.abc import Mapping
+from dataclasses import dataclass
+
+import numpy as np
+
+from tracer.fieldmap import PotentialMap
+from tracer.waveforms import Waveform, WaveArrays, piece, value, wave_arrays
+
+
+@dataclass(frozen=True, eq=False)
+class GroupedMaps:
+    """The static map and one map per group of electrodes that share a waveform.
+
+    Attributes
+    ----------
+    basis : tracer.fieldmap.BasisMaps
+        The basis maps they were combined from.
+    offsets : tuple of float
+        Constant part c_i of each electrode's voltage (electrode order of ``basis.names``).
+    group : tuple of int
+        The group k of each electrode, -1 for a constant one.
+    sign : tuple of float
+        s_i: +1.0, or -1.0 where the electrode carries the negative of its group's waveform (0.0
+        for a constant electrode).
+    waveforms : tuple of Waveform
+        The varying part w_k of each group (zero before its first corner; no DC part).
+    static : float64[4, nz, nr]
+        Hermite node data of V_static.
+    driven : float64[K, 4, nz, nr]
+        Hermite node data of each group's map M_k.
+    arrays : tracer.waveforms.WaveArrays
+        ``waveforms`` as kernel arrays.
+    """
+
+    basis: object
+    offsets: tuple
+    group: tuple
+    sign: tuple
+    waveforms: tuple
+    static: np.ndarray
+    driven: np.ndarray
+    arrays: WaveArrays
+
+    def weights(self, t: float) -> np.ndarray:
+        """w_k(t) of every group (at a corner, the value just after), volts."""
+        m = piece(self.arrays, t)
+        return np.array([value(self.arrays, k, m, t) for k in range(len(self.waveforms))])
+
+    def voltages(self, t: float) -> tuple:
+        """Each electrode's voltage at time t: c_i + s_i w_k(t)."""
+        w = np.r_[self.weights(t), 0.0]                       # group -1 reads the 0.0
+        return tuple(float(c + s * w[k]) for c, s, k in zip(self.offsets, self.sign, self.group))
+
+    def at(self, t: float) -> PotentialMap:
+        """The potential map at time t: V_static + sum_k w_k(t) M_k."""
+        w = self.weights(t)
+        hermite = self.static + np.tensordot(w, self.driven, axes=1) if w.size else self.static
+        b = self.basis
+        return PotentialMap(b.grid, b.table, b.raster, b.names, self.voltages(t), hermite)
+
+
+def group_maps(basis, drive: Mapping[str, float | Waveform] | None = None) -> GroupedMaps:
+    """Fold the constant electrodes into one map and group the others by waveform.
+
+    Parameters
+    ----------
+    basis : tracer.fieldmap.BasisMaps
+    drive : mapping of electrode name to volts or Waveform, optional
+        Electrodes not named keep the setup's voltage (``basis.voltages``).
+
+    Raises
+    ------
+    ValueError
+        For a name that is not an electrode of the maps.
+    TypeError
+        For a drive that is neither a number nor a Waveform.
+    """
+    drives = basis.settings(drive)
+    for name, d in drives.items():
+        if not isinstance(d, (Waveform, numbers.Real)):
+            raise TypeError(f"electrode {name!r}: expected volts or a Waveform, "
+                            f"got {type(d).__name__}")
+    offsets, group, sign, waveforms = [], [], [], []
+    for name in basis.names:
+        d = drives[name]
+        offset, varying = d.split() if isinstance(d, Waveform) else (float(d), None)
+        offsets.append(offset)
+        k, s = -1, 0.0
+        if varying is not None:
+            if varying in waveforms:
+                k, s = waveforms.index(varying), 1.0
+            elif varying.negated() in waveforms:
+                k, s = waveforms.index(varying.negated()), -1.0
+            else:
+                k, s = len(waveforms), 1.0
+                waveforms.append(varying)
+        group.append(k)
+        sign.append(s)
+    herm = basis.hermite
+    static = np.tensordot(np.array(offsets), herm, axes=1)
+    members = np.zeros((len(waveforms), len(basis.names)))
+    for i, (k, s) in enumerate(zip(group, sign)):
+        if k >= 0:
+            members[k, i] = s
+    driven = np.tensordot(members, herm, axes=1)
+    return GroupedMaps(basis, tuple(offsets), tuple(group), tuple(sign), tuple(waveforms),
+                       static, driven, wave_arrays(waveforms))
