@@ -5,10 +5,14 @@ import math
 import numpy as np
 import pytest
 from scipy import constants
+from scipy.integrate import solve_ivp
 
 from test_motion import smooth_map
 from tracer.beam import trace
-from tracer.ledger import energy_scale_eV, kinetic_energy_J, ledger_report
+from tracer.ledger import (GAUSS_POINTS, GAUSS_THETA, GAUSS_WEIGHT, energy_scale_eV,
+                           energy_scale_in_time_eV, jump_work, kinetic_energy_J, ledger_report,
+                           time_ledger_J, time_work)
+from tracer.waveforms import Pulse, Sinusoid, Waveform, piece, value, wave_arrays
 
 C = constants.c
 
@@ -73,3 +77,159 @@ def test_a_loose_tolerance_is_flagged():
     assert "energy ledger" in loose.summary()["warning"]
     tight = trace(field, beam, max_time_s=1e-7, ledger_threshold=1e-8)
     assert tight.summary()["ledger_suspects"] == 0 and tight.summary()["warning"] == ""
+
+
+# --------------------------------------------------------------------------------------------
+# The ledger in time
+
+
+def test_gauss_rule_is_exact_to_degree_seven():
+    """The Gauss–Legendre rule on [0, 1] (Gauss 1814; library: numpy.polynomial.legendre.leggauss)
+    integrates theta^j exactly for j <= 2 GAUSS_POINTS - 1 and not beyond."""
+    for j in range(2 * GAUSS_POINTS):
+        assert GAUSS_WEIGHT @ GAUSS_THETA**j == pytest.approx(1.0 / (j + 1), rel=1e-15)
+    j = 2 * GAUSS_POINTS
+    assert abs(GAUSS_WEIGHT @ GAUSS_THETA**j - 1.0 / (j + 1)) > 1e-6
+
+
+def steps_work(w, t_end, phi_of_t, n_per_step=None):
+    """time_work summed over steps of at most w.max_step_s ending on every corner, phi_k(t) from a
+    function of time (a synthetic path): (work, magnitude, steps)."""
+    edges = np.r_[0.0, w.corner[(w.corner > 0.0) & (w.corner < t_end)], t_end]
+    work = magnitude = 0.0
+    steps = 0
+    for a, b in zip(edges[:-1], edges[1:]):
+        n = max(1, int(math.ceil((b - a) / w.max_step_s))) if n_per_step is None else n_per_step
+        for t0 in np.linspace(a, b, n + 1)[:-1]:
+            h = (b - a) / n
+            phi = np.array([phi_of_t(t0 + th * h) for th in GAUSS_THETA])
+            dw, dm = time_work(w, piece(w, t0), t0, h, phi)
+            work += dw
+            magnitude += dm
+            steps += 1
+    return work, magnitude, steps
+
+
+def test_time_work_of_a_ramp_on_a_cubic_path_is_exact():
+    """A pulse's ramp (slope 2000 V / 40 ns) times a map value cubic in time along the path: the
+    rule is exact (degree 3 < 8), one step per piece, to round-off of the closed form
+    slope x ∫ phi dt."""
+    w = wave_arrays([Waveform(pulses=(Pulse(2000.0, 10e-9, rise_s=40e-9, width_s=1e-6),))])
+    c = (0.3, 2e6, -4e13, 7e20)
+
+    def phi(t):
+        return [c[0] + c[1] * t + c[2] * t**2 + c[3] * t**3]
+
+    def antiderivative(t):
+        return c[0] * t + c[1] * t**2 / 2 + c[2] * t**3 / 3 + c[3] * t**4 / 4
+
+    work, magnitude, steps = steps_work(w, 60e-9, phi, n_per_step=1)
+    exact = 2000.0 / 40e-9 * (antiderivative(50e-9) - antiderivative(10e-9))
+    assert steps == 3 and work == pytest.approx(exact, rel=1e-13)
+    assert magnitude == pytest.approx(abs(exact), rel=1e-13)   # phi > 0 on the ramp
+
+
+def test_time_work_of_rf_on_a_quadratic_path():
+    """A sinusoid's rate times a map value quadratic in time, over 3.3 periods in steps of
+    period / 16 (the step bound): against the closed form by integration by parts,
+    ∫ w' p dt = [w p] - ∫ w p' dt with ∫ cos = sin / omega, ∫ t cos = t sin / omega + cos / omega^2,
+    to 1e-12 of amplitude x time."""
+    amp, f, ph = 500.0, 2e6, 0.7
+    om = 2 * math.pi * f
+    w = wave_arrays([Waveform(dc_V=30.0, sinusoids=(Sinusoid(amp, f, ph),))])
+    c0, c1, c2 = 0.2, 3e5, -2e11
+    t_end = 3.3 / f
+
+    def wave(t):
+        return amp * math.cos(om * t + ph)
+
+    def int_w(t):          # ∫ w dt
+        return amp * math.sin(om * t + ph) / om
+
+    def int_t_w(t):        # ∫ t w dt
+        return amp * (t * math.sin(om * t + ph) / om + math.cos(om * t + ph) / om**2)
+
+    def p(t):
+        return c0 + c1 * t + c2 * t * t
+
+    exact = (wave(t_end) * p(t_end) - wave(0.0) * p(0.0)
+             - (c1 * (int_w(t_end) - int_w(0.0)) + 2 * c2 * (int_t_w(t_end) - int_t_w(0.0))))
+    work, magnitude, steps = steps_work(w, t_end, lambda t: [p(t)])
+    assert steps == math.ceil(3.3 * 16)
+    assert abs(work - exact) < 1e-12 * amp * t_end * om * max(abs(p(0)), abs(p(t_end)))
+    assert magnitude > abs(work)
+
+
+def test_jump_work_is_the_jump_times_the_map():
+    """At a zero-rise switch V(x, t+) - V(x, t-) = sum_k jump_k phi_k(x); elsewhere zero."""
+    w = wave_arrays([Waveform(pulses=(Pulse(2000.0, 1e-6, low_V=-5.0),)),
+                     Waveform(pulses=(Pulse(-300.0, 1e-6, rise_s=1e-8),))])
+    phi = np.array([0.25, 0.5])
+    assert jump_work(w, 1e-6, phi) == 2005.0 * 0.25
+    assert jump_work(w, 1.01e-6, phi) == 0.0 and jump_work(w, 0.5e-6, phi) == 0.0
+
+
+def trap_run(t_end, qz=0.5):
+    """An ion (40Ar+) in the 1-D trap V(z, t) = w(t) z^2 / (2 L^2), w an RF sinusoid on a DC part
+    with a 40 V step at 4.25 periods and a 1-period ramp down by 30 V from 9 periods, traced with
+    scipy's DOP853 (relativistic momentum form) from corner to corner, the dV/dt work summed by
+    time_work on the dense output in steps of at most max_step_s and jump_work at the switch.
+    The RF amplitude is chosen by q_z = 2 q |kappa| V / (m Omega^2), kappa = 1 / L^2."""
+    from timecases import qz_from_curvature
+
+    m = 39.9618 * constants.atomic_mass - constants.m_e
+    q = constants.e
+    length, f = 5e-3, 1e6
+    amp = qz / qz_from_curvature(1.0 / length**2, 1.0, m, q, f)
+    wave = Waveform(dc_V=20.0, sinusoids=(Sinusoid(amp, f),),
+                    pulses=(Pulse(40.0, 4.25 / f), Pulse(-30.0, 9.0 / f, rise_s=1.0 / f)))
+    w = wave.arrays()
+
+    def phi(z):
+        return z * z / (2 * length**2)
+
+    def rhs(t, y, m_piece):
+        e_z = -value(w, 0, m_piece, t) * y[0] / length**2
+        gm = m * math.sqrt(1 + (y[1] / (m * C)) ** 2)
+        return [y[1] / gm, q * e_z]
+
+    y = np.array([1e-3, 0.0])
+    t = 0.0
+    work = magnitude = 0.0
+    v_start = value(w, 0, piece(w, 0.0), 0.0) * phi(y[0])
+    ke_start = kinetic_energy_J(0.0, 0.0, y[1], m)
+    for b in np.r_[w.corner[w.corner < t_end], t_end]:
+        m_piece = piece(w, t)
+        sol = solve_ivp(rhs, (t, b), y, method="DOP853", rtol=1e-12, atol=[1e-16, 1e-32],
+                        dense_output=True, args=(m_piece,))
+        n = max(1, math.ceil((b - t) / w.max_step_s))
+        for t0 in np.linspace(t, b, n + 1)[:-1]:
+            h = (b - t) / n
+            ph = np.array([[phi(sol.sol(t0 + th * h)[0])] for th in GAUSS_THETA])
+            dw, dm = time_work(w, m_piece, t0, h, ph)
+            work += dw
+            magnitude += dm
+        y, t = sol.y[:, -1], b
+        work += jump_work(w, t, np.array([phi(y[0])]))
+    v_now = value(w, 0, piece(w, t), t) * phi(y[0])
+    ke_now = kinetic_energy_J(0.0, 0.0, y[1], m)
+    return dict(ledger=time_ledger_J(ke_start, ke_now, q, v_start, v_now, work), work=work,
+                magnitude=magnitude, ke=(ke_start, ke_now), v=(v_start, v_now), q=q, peak=wave.peak_V)
+
+
+def test_ledger_in_time_closes_along_a_trapped_ion():
+    """The energy identity dKE = -q [V(x1, t1) - V(x0, t0)] + q ∫ dV/dt dt + q jump (the
+    work-energy theorem dKE/dt = q E.v with E = -grad V and dV/dt = dV/dt|_x + v.grad V along the
+    path; common practice) holds along an ion held 12 RF periods at q_z = 0.5 through a switch and a ramp, to
+    1e-10 of the energy scale, while the dV/dt term is of the order of the energy exchanged."""
+    r = trap_run(12e-6)
+    q_e = r["q"] / constants.e
+    scale = energy_scale_in_time_eV([r["ke"][0] / constants.e], r["q"], [r["peak"]],
+                                    [r["magnitude"]])[0]
+    assert scale == pytest.approx(q_e * r["magnitude"])          # the RF exchange sets the scale
+    assert abs(r["ledger"]) / constants.e < 1e-10 * scale
+    dke = (r["ke"][1] - r["ke"][0]) / constants.e
+    assert abs(q_e * r["work"]) > 0.1 * abs(dke) and abs(q_e * r["work"]) > 1e-3 * scale
+    # without the dV/dt term the static ledger would be off by the whole work
+    static = dke + q_e * (r["v"][1] - r["v"][0])
+    assert abs(static) > 1e6 * abs(r["ledger"]) / constants.e
