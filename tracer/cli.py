@@ -117,12 +117,12 @@ def _stage_progress(args):
 
 
 def _run_config(setup, args, out: Path, echo) -> int:
-    from tracer.pipeline import run, with_rays, write_run_outputs
+    from tracer.pipeline import run, with_grids, with_rays, write_run_outputs
     from tracer.report import format_summary
 
     if args.rays is not None and args.rays < 1:
         raise InputError(f"--rays: {args.rays} must be a positive number of rays")
-    setup = with_rays(setup, args.rays)
+    setup = with_grids(with_rays(setup, args.rays), args.grids)
     result = run(setup, cache_dir=_cache_dir(args), progress=_stage_progress(args))
     for summary in result.summary().values():
         echo(format_summary(summary))
@@ -285,11 +285,11 @@ def cmd_tune(args, echo) -> int:
 
 def cmd_optics(args, echo) -> int:
     from tracer.optics import OpticsError, paraxial
-    from tracer.pipeline import solve
+    from tracer.pipeline import optics_error_bars, solve, with_grids
     from tracer.plot import plot_optics
     from tracer.report import format_optics
 
-    setup = _load(args.config)
+    setup = with_grids(_load(args.config), args.grids)
     if setup.optics is None:
         raise InputError(f"{args.config}: no [optics] table (species, energy_eV, object_z_mm)")
     spec = setup.optics
@@ -298,7 +298,7 @@ def cmd_optics(args, echo) -> int:
         props = paraxial(maps.combine(), spec.species, spec.energy_eV, object_z_m=spec.object_z_m)
     except OpticsError as exc:
         raise InputError(f"optics: {exc}") from exc
-    echo(format_optics(props))
+    echo(format_optics(props, optics_error_bars(setup, props, cache_dir=_cache_dir(args))))
     out = _out_dir(args)
     out.mkdir(parents=True, exist_ok=True)
     echo(f"wrote {plot_optics(props, out / 'optics.png')}")
@@ -344,6 +344,10 @@ def build_parser() -> argparse.ArgumentParser:
             p.add_argument("--no-cache", action="store_true", help="solve again, cache nothing")
         if name in ("run", "demo"):
             p.add_argument("--rays", type=int, metavar="N", help="trace at most N rays per beam")
+        if name in ("run", "demo", "optics"):
+            p.add_argument("--grids", type=int, choices=(1, 2, 3), metavar="N",
+                           help="grid error bars: 1 none, 2 cells h and 2h, 3 a third grid to observe "
+                                "the order (default: the config's [grid_error] grids, else 2)")
         if name == "scan":
             p.add_argument("--workers", type=int, metavar="N",
                            help="local worker processes (default: the CPU count; 1: in this process)")

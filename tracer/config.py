@@ -36,6 +36,8 @@ Keys (defaults in brackets; "r" stands for "y" in a domain with y_mm)::
                  work_function_eV (thermionic), schottky [false], relaxation [0.3],
                  max_iterations [50], tolerance [1e-3], species ["e-"]
     [optics]     species, energy_eV, object_z_mm [at infinity]
+    [grid_error] grids 1|2|3 [2], third "coarse"|"fine" ["coarse"], safety [Roache's: 3, or 1.25
+                 with an order confirmed], rays [256], warn_fraction [0.01]
 """
 
 from __future__ import annotations
@@ -54,8 +56,9 @@ from dataclasses import dataclass
 from scipy import constants
 
 from tracer.geometry import shape_table
-from tracer.schema import (CROSSINGS, DIRECTIONS, Arc, Beam, ConfigError, Domain, Electrode, GunSpec, OpticsSpec,
-                           Plane, Polygon, Rect, ScanSpec, Setup, TraceOptions, TuneSpec)
+from tracer.schema import (CROSSINGS, DIRECTIONS, GRIDS, THIRD_GRIDS, Arc, Beam, ConfigError, Domain, Electrode,
+                           GridErrorSpec, GunSpec, OpticsSpec, Plane, Polygon, Rect, ScanSpec, Setup, TraceOptions,
+                           TuneSpec)
 from tracer.species import custom_species, species
 
 __all__ = ["Arc", "Beam", "ConfigError", "Domain", "Electrode", "GunSpec", "OpticsSpec", "Plane", "Polygon",
@@ -76,7 +79,7 @@ _NAME = re.compile(r"[A-Za-z0-9_][A-Za-z0-9_.+\-]*")
 _BARE_KEY = re.compile(r"[A-Za-z0-9_\-]+")
 _REQUIRED = object()
 
-_TOP = ("title", "domain", "electrode", "beam", "plane", "trace", "scan", "tune", "gun", "optics")
+_TOP = ("title", "domain", "electrode", "beam", "plane", "trace", "scan", "tune", "gun", "optics", "grid_error")
 
 
 # ---------------------------------------------------------------- entry points
@@ -382,6 +385,7 @@ def _setup(data, source):
         gun=top.get("gun", _gun, default=None, names=names),
         optics=top.get("optics", _optics, default=None),
         source=source,
+        grid_error=top.get("grid_error", _grid_error, default=GridErrorSpec()),
     )
 
 
@@ -697,6 +701,21 @@ def _trace(value, path):
         rtol=t.get("rtol", _fraction, default=defaults.rtol),
         ledger_threshold=t.get("ledger_threshold", _fraction, default=defaults.ledger_threshold),
         keep_paths=t.get("keep_paths", _integer, default=defaults.keep_paths),
+    )
+
+
+def _grid_error(value, path):
+    t = _Table(value, path, ("grids", "third", "safety", "rays", "warn_fraction"))
+    d = GridErrorSpec()
+    grids = t.get("grids", _integer, default=d.grids, low=1)
+    if grids not in GRIDS:
+        raise ConfigError(t.at("grids"), f"expected one of {', '.join(map(str, GRIDS))}, got {grids}")
+    return GridErrorSpec(
+        grids=grids,
+        third=t.get("third", _choice, default=d.third, choices=THIRD_GRIDS),
+        safety=t.get("safety", _number, default=d.safety, low=1.0),
+        rays=t.get("rays", _integer, default=d.rays, low=2),
+        warn_fraction=t.get("warn_fraction", _fraction, default=d.warn_fraction),
     )
 
 

@@ -47,6 +47,14 @@ def with_rays(setup, rays=None):
     return dataclasses.replace(setup, beams=beams)
 
 
+def with_grids(setup, grids=None):
+    """The setup with ``[grid_error] grids`` set to ``grids`` (1 none, 2 or 3 grids); the setup
+    itself when ``grids`` is None."""
+    if grids is None:
+        return setup
+    return dataclasses.replace(setup, grid_error=dataclasses.replace(setup.grid_error, grids=grids))
+
+
 def solve(setup, *, cache_dir=None, rtol: float = DEFAULT_RTOL, progress=None):
     """Solve the basis maps of a setup: one unit map per electrode.
 
@@ -98,26 +106,32 @@ class RunResult:
         The potential at the setup's voltages.
     beams : dict of str to tracer.beam.BeamRun
         By beam name, in the order of the config.
+    errors : tracer.errorbars.ErrorBars or None
+        The grid and Monte Carlo error bars of the figures (None with ``[grid_error] grids = 1``).
     """
 
     setup: object
     maps: object
     field: object
     beams: dict
+    errors: object = None
 
     def summary(self) -> dict:
-        """Each beam's :meth:`tracer.beam.BeamRun.summary`, by beam name."""
-        return {name: run.summary() for name, run in self.beams.items()}
+        """Each beam's :meth:`tracer.beam.BeamRun.summary`, by beam name, with its error bars
+        (:meth:`tracer.errorbars.ErrorBars.record`) under ``"uncertainty"`` when they were estimated."""
+        return {name: run.summary() | ({"uncertainty": self.errors.record(name)} if self.errors else {})
+                for name, run in self.beams.items()}
 
 
-def trace_beam(field, beam, setup, progress=None):
-    """Trace one beam of a setup with its ``[trace]`` options and planes."""
+def trace_beam(field, beam, setup, progress=None, starts=None):
+    """Trace one beam of a setup with its ``[trace]`` options and planes; given ``starts``
+    (:data:`tracer.sources.START_DTYPE`), those rays instead of the beam's, keeping no paths."""
     from tracer.beam import trace
 
     opts = setup.trace
     return trace(field, beam, planes=setup.planes, rtol=opts.rtol, max_time_s=opts.max_time_s,
-                 keep_paths=opts.keep_paths, ledger_threshold=opts.ledger_threshold,
-                 progress=progress)
+                 keep_paths=opts.keep_paths if starts is None else 0,
+                 ledger_threshold=opts.ledger_threshold, progress=progress, starts=starts)
 
 
 def run(setup, *, maps=None, voltages=None, cache_dir=None, progress=None) -> RunResult:
@@ -133,12 +147,16 @@ def run(setup, *, maps=None, voltages=None, cache_dir=None, progress=None) -> Ru
     cache_dir : str or os.PathLike, optional
         Passed to :func:`solve`.
     progress : callable, optional
-        ``progress(stage, done, total)``: stage is "solve" or a beam's name.
+        ``progress(stage, done, total)``: stage is "solve", a beam's name, or "<beam> on cell 2h"
+        (and the third grid) for the error bars.
 
     Returns
     -------
     RunResult
+        With the error bars of ``setup.grid_error`` (:mod:`tracer.errorbars`).
     """
+    from tracer import errorbars
+
     def stage(name):
         return None if progress is None else (lambda done, total: progress(name, done, total))
 
@@ -146,7 +164,45 @@ def run(setup, *, maps=None, voltages=None, cache_dir=None, progress=None) -> Ru
         maps = solve(setup, cache_dir=cache_dir, progress=stage("solve"))
     field = maps.combine(voltages)
     beams = {b.name: trace_beam(field, b, setup, progress=stage(b.name)) for b in setup.beams}
-    return RunResult(setup, maps, field, beams)
+    errors = errorbars.estimate(
+        setup, beams, voltages, solve=lambda other: solve(other, cache_dir=cache_dir),
+        trace=lambda f, b, starts, p: trace_beam(f, b, setup, progress=p, starts=starts), progress=progress)
+    return RunResult(setup, maps, field, beams, errors)
+
+
+def optics_error_bars(setup, props, *, cache_dir=None):
+    """The grid errors of lens properties: the same paraxial computation on the maps of the other
+    grids of ``setup.grid_error`` (:func:`tracer.errorbars.optics_bars`).
+
+    Parameters
+    ----------
+    setup : tracer.schema.Setup
+        With its ``[optics]`` table.
+    props : tracer.optics.LensProperties
+        The properties on the config's cell.
+    cache_dir : str or os.PathLike, optional
+        Passed to :func:`solve`.
+
+    Returns
+    -------
+    dict of str to tracer.gridcheck.GridError
+        Empty with ``grids = 1`` or for a mirror.
+    """
+    from tracer import errorbars
+    from tracer.optics import OpticsError, paraxial
+
+    factors = errorbars.cells(setup)
+    if not factors or props.mirror:
+        return {}
+    spec, others = setup.optics, []
+    for factor in factors:
+        field = solve(errorbars.with_cell(setup, factor), cache_dir=cache_dir).combine()
+        try:
+            others.append(paraxial(field, spec.species, spec.energy_eV, object_z_m=spec.object_z_m))
+        except OpticsError:
+            others.append(None)
+    return errorbars.optics_bars(props, others, third_coarser=setup.grid_error.third == "coarse",
+                                 safety=setup.grid_error.safety)
 
 
 def write_run_outputs(result: RunResult, out) -> list[Path]:

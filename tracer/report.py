@@ -105,11 +105,74 @@ def format_summary(summary: dict) -> str:
                  f"{s['ledger_suspects']} ray(s) above {s['ledger_threshold']:.0e}")
     if s["warning"]:
         parts.append(f"WARNING: {s['warning']}")
+    if "uncertainty" in s:
+        parts.append(format_error_bars(s))
     return "\n\n".join(parts)
 
 
-def format_optics(props) -> str:
-    """Lens properties (``tracer.optics.LensProperties``) as a table in millimetres."""
+_UNITS = (("_m_rad", "mm mrad", 1e6), ("_rad", "mrad", 1e3), ("_m", "mm", 1e3), ("_s", "ns", 1e9),
+          ("_eV", "eV", 1.0), ("_A", "A", 1.0))
+"""Display unit of a figure by the suffix of its name, and the factor from SI."""
+
+
+def _unit(name):
+    for suffix, unit, factor in _UNITS:
+        if name.endswith(suffix):
+            return name[:-len(suffix)], unit, factor
+    return name, "", 1.0
+
+
+def _digits(value, error):
+    """``value`` with the digits down to the leading digit of ``error`` (at least 4 significant)."""
+    shown = 4
+    if math.isfinite(error) and error > 0 and value != 0:
+        shown = max(shown, math.floor(math.log10(abs(value))) - math.floor(math.log10(error)) + 1)
+    return f"{value:.{min(shown, 15)}g}"
+
+
+def format_error_bars(summary: dict) -> str:
+    """The error bars of a beam summary's figures (its ``"uncertainty"``, :mod:`tracer.errorbars`):
+    one row per figure, value ± grid error ± Monte Carlo error, then a WARNING line per figure whose
+    grid error is too large or whose observed order is off.
+
+    Returns
+    -------
+    str
+    """
+    u = summary["uncertainty"]
+    cells = ", ".join(f"{c * 1e3:g}" for c in u["cells_m"])
+    rows = []
+    for section, label in (("planes", "plane"), ("landing", "on")):
+        for where, figs in u[section].items():
+            values = summary[section][where]
+            for name, bar in figs.items():
+                if not math.isfinite(values[name]):
+                    continue
+                short, unit, factor = _unit(name)
+                rows.append([f"{label} {where}", short, _digits(values[name] * factor, bar["grid"] * factor),
+                             bar["grid"] * factor, bar["monte_carlo"] * factor, unit, bar["observed_order"]])
+    head = (f"error bars: grid from cells {cells} mm (Roache's GCI, p = 2), {u['rays']} rays traced "
+            f"again on each, {u['seconds']:.2g} s; rays: batch means over 10 groups")
+    header = ["where", "figure", "value", "± grid", "± rays", "unit"]
+    if len(u["cells_m"]) > 2:
+        header.append("order")
+    else:
+        rows = [r[:-1] for r in rows]
+    parts = [format_table(header, rows, title=head)]
+    parts += [f"WARNING: {w}" for w in u["warnings"]]
+    return "\n".join(parts)
+
+
+def format_optics(props, errors=None) -> str:
+    """Lens properties (``tracer.optics.LensProperties``) as a table in millimetres.
+
+    Parameters
+    ----------
+    props : tracer.optics.LensProperties
+    errors : dict of str to tracer.gridcheck.GridError, optional
+        Grid errors by property name (:func:`tracer.pipeline.optics_error_bars`): a column
+        "± grid mm" and a WARNING line for each property flagged "refine cell_mm".
+    """
     head = f"{props.species} entering at {props.energy_eV:g} eV, leaving at {props.exit_energy_eV:.6g} eV"
     if props.mirror:
         return f"{head}\nthe particle turns back at z = {props.turning_z_m * 1e3:.6g} mm: a mirror"
@@ -124,7 +187,20 @@ def format_optics(props) -> str:
         rows += [["object z", props.object_z_m * 1e3], ["image z", props.image_z_m * 1e3],
                  ["Cs (image side, this object)", props.image_cs_m * 1e3],
                  ["Cc (image side, this object)", props.image_cc_m * 1e3]]
-    table = format_table(["quantity", "mm"], rows)
+    names = ["f_image_m", "f_object_m", "focus_image_z_m", "focus_object_z_m", "principal_image_z_m",
+             "principal_object_z_m", "cs_m", "cc_m", "object_z_m", "image_z_m", "image_cs_m", "image_cc_m"]
+    header = ["quantity", "mm"]
+    if errors:
+        header.append("± grid mm")
+        rows = [[label, _digits(value, errors[name].error * 1e3) if name in errors else value,
+                 errors[name].error * 1e3 if name in errors else math.nan]
+                for (label, value), name in zip(rows, names)]
+    table = format_table(header, rows)
     if math.isfinite(props.object_z_m):
         table += f"\nmagnification {props.magnification:.6g}"
+        if errors and "magnification" in errors:
+            table += f" ± {errors['magnification'].error:.2g} (grid)"
+    if errors:
+        table += "\n(grid: Roache's GCI from cells h and 2h, p = 2)"
+        table += "".join(f"\nWARNING: {name}: {e.flag}" for name, e in errors.items() if e.flag)
     return f"{head}\n{table}"

@@ -349,6 +349,41 @@ class OpticsSpec:
     object_z_m: float | None = None
 
 
+GRIDS = (1, 2, 3)
+"""The ``grids`` of ``[grid_error]``: 1 no estimate, 2 cells h and 2h, 3 a third grid as well."""
+
+THIRD_GRIDS = ("coarse", "fine")
+"""The ``third`` grid of ``[grid_error]``: cell 4h or h/2."""
+
+
+@dataclass(frozen=True)
+class GridErrorSpec:
+    """The grid error bars of a run's figures (:mod:`tracer.errorbars`).
+
+    Parameters
+    ----------
+    grids : int
+        1: none; 2: solve on cells h and 2h and trace the same rays through both (Richardson);
+        3: a third grid as well, to observe the order.
+    third : str
+        The third grid: ``"coarse"`` (cell 4h, cheap) or ``"fine"`` (cell h/2, four times the solve).
+    safety : float or None
+        The safety factor of the grid convergence index; None for Roache's (3 with two grids,
+        1.25 where a third grid confirms the order).
+    rays : int
+        Rays of each beam traced again through the other grids' maps (all of them when fewer).
+    warn_fraction : float
+        A figure whose grid error exceeds this fraction of itself (of its spread, for a mean,
+        when that is larger; of 1 for a fraction of rays) gets a warning.
+    """
+
+    grids: int = 2
+    third: str = "coarse"
+    safety: float | None = None
+    rays: int = 256
+    warn_fraction: float = 0.01
+
+
 @dataclass(frozen=True)
 class Setup:
     """Everything a config file describes.
@@ -366,6 +401,8 @@ class Setup:
         The optional sections.
     source : pathlib.Path or None
         The config file, for relative paths.
+    grid_error : GridErrorSpec
+        The grid error bars of the figures (``[grid_error]``).
     """
 
     title: str
@@ -379,6 +416,7 @@ class Setup:
     gun: GunSpec | None = None
     optics: OpticsSpec | None = None
     source: pathlib.Path | None = None
+    grid_error: GridErrorSpec = GridErrorSpec()
 
     def voltages(self) -> dict[str, float]:
         """Return the electrode voltages by name, in electrode order."""

@@ -8,6 +8,7 @@
 - :mod:`tracer.store.result_file`: the field and the traced beams (``result.h5``), read back as
   :class:`tracer.beam.BeamRun`.
 - :mod:`tracer.store.landings_csv`: one row per ray (``landings.csv``).
+- :mod:`tracer.store.uncertainty_table`: the error bars of a beam's figures in ``result.h5``.
 
 Importing the package or :mod:`tracer.store.atomic` loads neither h5py nor numpy.
 """

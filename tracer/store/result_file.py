@@ -30,6 +30,7 @@ from tracer.store.hdf5 import plain, read_array, read_fields, tracer_group, writ
 from tracer.store.openpmd import (CHARGE, CURRENT, DIMENSIONLESS, ELECTRIC_FIELD, ENERGY, LENGTH, MASS,
                                   MOMENTUM, PARTICLES_PATH, POTENTIAL, TIME, particle_patches,
                                   particle_record, read_component, text)
+from tracer.store.uncertainty_table import write_uncertainty
 
 RESULT_GROUP = "tracer/result"
 RESULT_FORMAT = "tracer-result-2"
@@ -129,6 +130,8 @@ def write_result(path, field, runs, *, setup=None, summaries=None, author=None) 
                                              of each plane count (direction, crossing)
         /tracer/result/paths/<k>/<i>         the kept path of ray i of the k-th beam
         /tracer/result/energy_scale_eV/<k>   the k-th beam's per-ray energy scale of the ledger
+        /tracer/result/uncertainty/<k>       the k-th beam's error bars, a row per figure, when
+                                             its summary has them (:mod:`tracer.store.uncertainty_table`)
 
     Each species has the standard records position, positionOffset, momentum, charge, mass and
     weighting (real particles per ray: the ray's current × 1 s / |q|, or 1 without a current), and
@@ -196,6 +199,8 @@ def write_result(path, field, runs, *, setup=None, summaries=None, author=None) 
             for i, p in enumerate(run.paths):
                 paths.create_dataset(str(i), data=p)
             group.create_dataset(f"energy_scale_eV/{k}", data=np.asarray(run.energy_scale_eV, np.float64))
+            if "uncertainty" in summaries.get(run.name, {}):
+                write_uncertainty(group, k, summaries[run.name])
             beams.append({"name": run.name, "species": [run.species.name, run.species.mass_kg,
                                                         run.species.charge_C],
                           "start": start, "final": final, "planes": planes,
