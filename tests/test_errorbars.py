@@ -332,7 +332,7 @@ def test_two_tube_lens_focal_length_is_covered(cell, grids):
     exact = {"f_image_m": -1 / dg * scale, "f_object_m": 1 / dgb * scale}
     setup = loads(TWO_TUBES.format(cell=cell, grids=grids))
     lens = paraxial(solve(setup).combine(), PROTON, 1000.0)
-    errors = optics_error_bars(setup, lens)
+    errors = optics_error_bars(setup, lens).errors
     for name, value in exact.items():
         true = abs(getattr(lens, name) - value)
         assert true <= errors[name].error <= 5 * true, name
@@ -351,3 +351,31 @@ def test_optics_command_shows_grid_errors(tmp_path, capsys):
     assert len(line.split()) == 6 and float(line.split()[-1]) > 0
     assert main(["optics", str(config), "--out", str(tmp_path), "--no-cache", "--quiet", "--grids", "1"]) == 0
     assert "± grid" not in capsys.readouterr().out
+
+
+def test_advice_for_flagged_and_large_errors():
+    """A flagged figure warns (with half the cell to try) only when its grids differ by more than the
+    fraction; a large two-grid error warns with the cell that fixes it; a small one not at all."""
+    from tracer.gridcheck import three_grids, two_grids
+
+    flagged = three_grids(1.0, 1.02, 1.03, third_coarser=True)           # order ~1: flagged
+    assert flagged.flag
+    assert "try cell_mm = 0.1 and check again" in errorbars.advice(flagged, 1.0, 0.0, 2e-4, 0.01)
+    assert errorbars.advice(flagged, 1.0, 0.0, 2e-4, 0.05) == ""          # within 5 %: no warning
+    assert "cell_mm = 0.14 would bring it under" in errorbars.advice(two_grids(1.0, 1.02), 1.0, 0.0, 2e-4, 0.01)
+    assert errorbars.advice(two_grids(1.0, 1.005), 1.0, 0.0, 2e-4, 0.01) == ""
+    assert errorbars.advice(two_grids(1e-16, 5e-16), 1e-16, 1e-12, 2e-4, 0.01) == ""   # round-off
+
+
+def test_lens_warning_names_the_property(tmp_path):
+    """On a coarse grid the two-tube lens's focal length is off by more than 0.1 %: the warning names
+    it and the cell that would bring it under."""
+    from tracer.optics import paraxial
+    from tracer.pipeline import optics_error_bars, solve
+
+    setup = loads(TWO_TUBES.format(cell=0.5, grids=2) + "warn_fraction = 0.001\n")
+    lens = paraxial(solve(setup).combine(), "p+", 1000.0)
+    bars = optics_error_bars(setup, lens)
+    assert bars.cells_m == pytest.approx((0.5e-3, 1e-3))
+    line = next(w for w in bars.warnings if w.startswith("f_image_m"))
+    assert "would bring it under (now 0.5)" in line

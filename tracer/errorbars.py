@@ -34,7 +34,9 @@ A figure whose grid error exceeds ``warn_fraction`` of its size gets a warning n
 and the cell that would bring it under (:func:`tracer.gridcheck.cell_for`).  The size is the figure
 itself; for a mean (centroid, energy, time of flight) the larger of it and its spread (the rms
 size, the energy or time spread); for the smallest landing radius or energy, the larger of it and
-the largest; for a fraction of rays, 1.  A grid error at round-off (``ROUND_OFF`` of the domain's
+the largest; for a fraction of rays, 1.  A figure a third grid flags ("refine cell_mm") warns
+when its three values differ by more than that fraction of its size, and the warning says to try
+half the cell.  A grid error at round-off (``ROUND_OFF`` of the domain's
 extent for lengths, of 1 rad for angles, of the mean energy or time for energies and times) warns
 of nothing: a divergence that is zero by symmetry is not a figure to refine.
 """
@@ -277,15 +279,45 @@ def warnings(beam, bars, fig, cell_m, fraction, extent_m=1.0):
     out = []
     for b in bars:
         key = (b.section, b.where, b.figure)
-        size, error = _size(key, fig), b.grid.error
-        what = f"beam {beam}, {b.label} = {b.value:.6g} ± {error:.2g} (grid)"
-        if b.grid.flag:
-            out.append(f"{what}: {b.grid.flag} (now {cell_m * 1e3:g})")
-        elif error > fraction * size and error > _round_off(key, fig, extent_m):
-            cell = gridcheck.cell_for(error, fraction * size, cell_m)
-            out.append(f"{what}: the grid error is {error / size:.2%} of its size, above {fraction:.2%}; "
-                       f"cell_mm = {cell * 1e3:.2g} would bring it under (now {cell_m * 1e3:g})")
+        why = advice(b.grid, _size(key, fig), _round_off(key, fig, extent_m), cell_m, fraction)
+        if why:
+            out.append(f"beam {beam}, {b.label} = {b.value:.6g} ± {b.grid.error:.2g} (grid): {why}")
     return tuple(out)
+
+
+def advice(grid, size, floor, cell_m, fraction):
+    """Why a figure's grid error calls for a finer cell, and which cell; "" when it does not.
+
+    Parameters
+    ----------
+    grid : tracer.gridcheck.GridError
+    size : float
+        What the error is weighed against (module notes).
+    floor : float
+        Errors up to this are round-off.
+    cell_m : float
+        The config's cell.
+    fraction : float
+        ``warn_fraction``.
+
+    Returns
+    -------
+    str
+        For a figure flagged by a third grid whose grids differ by more than ``fraction`` of its size:
+        the flag and half the cell to try; for a grid error above ``fraction`` of the size: the
+        cell that brings it under (:func:`tracer.gridcheck.cell_for`); else "".
+    """
+    limit = max(fraction * size, floor)
+    values = [v for v in (grid.value, grid.coarse, grid.third) if math.isfinite(v)]
+    spread = max(values) - min(values) if values else 0.0
+    now = f"now {cell_m * 1e3:g}"
+    if grid.flag and spread > limit:
+        return f"{grid.flag} ({now}); try cell_mm = {cell_m * 1e3 / 2:.2g} and check again"
+    if grid.error > limit:
+        cell = gridcheck.cell_for(grid.error, fraction * size, cell_m)
+        return (f"the grid error is {grid.error / size:.2%} of its size, above {fraction:.2%}; "
+                f"cell_mm = {cell * 1e3:.2g} would bring it under ({now})")
+    return ""
 
 
 def beam_bars(run, others, setup, rays):
@@ -388,6 +420,55 @@ def _start_rows(run, positions):
 LENS_FIGURES = ("f_image_m", "f_object_m", "focus_image_z_m", "focus_object_z_m", "principal_image_z_m",
                 "principal_object_z_m", "cs_m", "cc_m", "image_z_m", "magnification", "image_cs_m", "image_cc_m")
 """The lens properties (:class:`tracer.optics.LensProperties`) that get grid errors."""
+
+
+@dataclass(frozen=True)
+class LensBars:
+    """The grid errors of lens properties.
+
+    Attributes
+    ----------
+    errors : dict of str to tracer.gridcheck.GridError
+        By property name (:data:`LENS_FIGURES`).
+    cells_m : tuple of float
+        The cells of the grids.
+    warnings : tuple of str
+        From :func:`lens_warnings`.
+    """
+
+    errors: dict
+    cells_m: tuple
+    warnings: tuple
+
+
+_LENS_SIZE = {"cs_m": "cs_m", "cc_m": "cc_m", "image_cs_m": "image_cs_m", "image_cc_m": "image_cc_m",
+              "magnification": "magnification"}
+"""The size a lens property's grid error is weighed against: itself for aberrations and the
+magnification; the image-side focal length for focal lengths and positions along the axis."""
+
+
+def lens_warnings(props, errors, cell_m, fraction):
+    """The warning lines of lens properties' grid errors (as :func:`warnings` for a beam).
+
+    Parameters
+    ----------
+    props : tracer.optics.LensProperties
+    errors : dict of str to tracer.gridcheck.GridError
+        From :func:`optics_bars`.
+    cell_m, fraction : float
+        The config's cell and ``warn_fraction``.
+
+    Returns
+    -------
+    tuple of str
+    """
+    out = []
+    for name, grid in errors.items():
+        size = abs(getattr(props, _LENS_SIZE.get(name, "f_image_m")))
+        why = advice(grid, size, gridcheck.ROUND_OFF * size, cell_m, fraction)
+        if why:
+            out.append(f"{name} = {getattr(props, name):.6g} ± {grid.error:.2g} (grid): {why}")
+    return tuple(out)
 
 
 def optics_bars(props, others, third_coarser=True, safety=None):

@@ -185,15 +185,15 @@ def optics_error_bars(setup, props, *, cache_dir=None):
 
     Returns
     -------
-    dict of str to tracer.gridcheck.GridError
-        Empty with ``grids = 1`` or for a mirror.
+    tracer.errorbars.LensBars or None
+        None with ``grids = 1`` or for a mirror.
     """
     from tracer import errorbars
     from tracer.optics import OpticsError, paraxial
 
     factors = errorbars.cells(setup)
     if not factors or props.mirror:
-        return {}
+        return None
     spec, others = setup.optics, []
     for factor in factors:
         field = solve(errorbars.with_cell(setup, factor), cache_dir=cache_dir).combine()
@@ -201,8 +201,10 @@ def optics_error_bars(setup, props, *, cache_dir=None):
             others.append(paraxial(field, spec.species, spec.energy_eV, object_z_m=spec.object_z_m))
         except OpticsError:
             others.append(None)
-    return errorbars.optics_bars(props, others, third_coarser=setup.grid_error.third == "coarse",
-                                 safety=setup.grid_error.safety)
+    spec, h = setup.grid_error, setup.domain.cell_m
+    errors = errorbars.optics_bars(props, others, third_coarser=spec.third == "coarse", safety=spec.safety)
+    return errorbars.LensBars(errors, (h,) + tuple(h * f for f in factors),
+                              errorbars.lens_warnings(props, errors, h, spec.warn_fraction))
 
 
 def write_run_outputs(result: RunResult, out) -> list[Path]:

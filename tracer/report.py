@@ -39,7 +39,20 @@ def describe(setup) -> str:
                      f"from z = {b.start_z_m * 1e3:g} mm")
     for p in setup.planes:
         lines.append(f"plane {p.name}: z = {p.z_m * 1e3:g} mm" + (" (stops rays)" if p.stop else ""))
+    lines.append(_describe_grid_error(setup))
     return "\n".join(lines)
+
+
+def _describe_grid_error(setup):
+    """One line on the error bars a run will estimate (``[grid_error]``)."""
+    from tracer.errorbars import cells as factors
+
+    spec, cell_m = setup.grid_error, setup.domain.cell_m
+    if spec.grids < 2:
+        return "grid error: not estimated (grids = 1)"
+    cells = [cell_m] + [cell_m * f for f in factors(setup)]
+    return (f"grid error: cells {', '.join(f'{c * 1e3:g}' for c in cells)} mm, up to {spec.rays} rays "
+            f"a beam traced again, warning above {spec.warn_fraction:.2%}")
 
 
 def format_table(header: list[str], rows: list[list], title: str | None = None) -> str:
@@ -158,21 +171,23 @@ def format_error_bars(summary: dict) -> str:
         header.append("order")
     else:
         rows = [r[:-1] for r in rows]
-    parts = [format_table(header, rows, title=head)]
+    parts = [format_table(header, rows, title=head) if rows else
+             f"{head}\n(no figures: no plane was crossed and nothing landed)"]
     parts += [f"WARNING: {w}" for w in u["warnings"]]
     return "\n".join(parts)
 
 
-def format_optics(props, errors=None) -> str:
+def format_optics(props, bars=None) -> str:
     """Lens properties (``tracer.optics.LensProperties``) as a table in millimetres.
 
     Parameters
     ----------
     props : tracer.optics.LensProperties
-    errors : dict of str to tracer.gridcheck.GridError, optional
-        Grid errors by property name (:func:`tracer.pipeline.optics_error_bars`): a column
-        "± grid mm" and a WARNING line for each property flagged "refine cell_mm".
+    bars : tracer.errorbars.LensBars, optional
+        Their grid errors (:func:`tracer.pipeline.optics_error_bars`): a column "± grid mm", the
+        cells, and its WARNING lines.
     """
+    errors = bars.errors if bars is not None else {}
     head = f"{props.species} entering at {props.energy_eV:g} eV, leaving at {props.exit_energy_eV:.6g} eV"
     if props.mirror:
         return f"{head}\nthe particle turns back at z = {props.turning_z_m * 1e3:.6g} mm: a mirror"
@@ -200,7 +215,8 @@ def format_optics(props, errors=None) -> str:
         table += f"\nmagnification {props.magnification:.6g}"
         if errors and "magnification" in errors:
             table += f" ± {errors['magnification'].error:.2g} (grid)"
-    if errors:
-        table += "\n(grid: Roache's GCI from cells h and 2h, p = 2)"
-        table += "".join(f"\nWARNING: {name}: {e.flag}" for name, e in errors.items() if e.flag)
+    if bars is not None:
+        cells = ", ".join(f"{c * 1e3:g}" for c in bars.cells_m)
+        table += f"\n(grid: Roache's GCI from cells {cells} mm, p = 2)"
+        table += "".join(f"\nWARNING: {w}" for w in bars.warnings)
     return f"{head}\n{table}"
