@@ -55,3 +55,21 @@ def test_no_module_imports_another_that_imports_it_back():
                    for m in graph[start])
 
     assert sorted(name for name in graph if reaches(name, name, set())) == []
+
+
+def test_public_functions_are_annotated_with_types_that_resolve():
+    """Every parameter and the return of the public functions carries a type (py.typed ships them);
+    names imported only for type checkers resolve against the public classes."""
+    import inspect
+    import typing
+
+    schema = importlib.import_module("tracer.schema")
+    public = {name: getattr(tracer, name) for name in CLASSES} | {"Beam": schema.Beam, "Plane": schema.Plane}
+    for name in FUNCTIONS:
+        func = getattr(tracer, name)
+        hints = typing.get_type_hints(func, localns=public)
+        params = set(inspect.signature(func).parameters)
+        assert params - set(hints) == set(), (name, params - set(hints))
+        assert "return" in hints, name
+    assert typing.get_type_hints(tracer.run, localns=public)["return"] is tracer.RunResult
+    assert typing.get_type_hints(tracer.solve, localns=public)["return"] is tracer.BasisMaps

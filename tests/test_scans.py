@@ -17,7 +17,7 @@ from tracer.config import loads
 from tracer.pipeline import solve
 from tracer.measure import columns
 from tracer.journal import CSV_NAME, Rows, config_hash, read_h5
-from tracer.scans import scan, voltage_sets
+from tracer.scans import read_scan, scan, voltage_sets
 
 from test_trace import THREE_TUBE
 
@@ -142,6 +142,73 @@ def test_an_interrupted_scan_resumed_yields_every_set_once(setup_maps, serial, t
     table, index, digest = read_h5(tmp_path / "scan.h5")
     assert index.tolist() == list(range(6)) and table.tobytes() == serial.table.tobytes()
     assert digest == again.config_hash
+
+
+def test_a_resumed_scan_counts_only_the_sets_it_computes(setup_maps, serial, tmp_path):
+    """The progress of a resumed scan runs over the sets left, so its rate and time left are right;
+    read_scan gives the finished table back, bit for bit."""
+    setup, maps = setup_maps
+    with pytest.raises(KeyboardInterrupt):
+        scan(setup, maps, workers=1, out=tmp_path, progress=_interrupt_after(2))
+    kept = len(_csv_sets(tmp_path))
+    partial = read_scan(tmp_path)
+    assert partial.names == ("lens", "target") and partial.resumed == len(partial.table) == kept
+    assert partial.table.tobytes() == serial.table[_csv_sets(tmp_path)].tobytes()
+    calls = []
+    again = scan(setup, maps, workers=1, out=tmp_path, progress=lambda done, total: calls.append((done, total)))
+    left = 6 - kept
+    assert calls == [(k, left) for k in range(left + 1)]
+    whole = read_scan(tmp_path / CSV_NAME)
+    assert whole.table.tobytes() == again.table.tobytes() == serial.table.tobytes()
+    assert whole.config_hash == again.config_hash and whole.figures == serial.figures
+
+
+def test_read_scan_refuses_what_is_not_a_scan_table(tmp_path):
+    from tracer.store import StoreError
+
+    with pytest.raises(StoreError, match="cannot read"):
+        read_scan(tmp_path)
+    (tmp_path / "other.csv").write_text("a,b\n1,2\n")
+    with pytest.raises(StoreError, match="not a tracer scan table"):
+        read_scan(tmp_path / "other.csv")
+
+
+class _LosingCluster(concurrent.futures.Executor):
+    """Runs the first ``keep`` sets it is given and cancels the others, as a dask cluster does with
+    every set when the workers holding the scattered maps have died."""
+
+    def __init__(self, keep):
+        self.keep, self.given = keep, 0
+
+    def submit(self, fn, *args):
+        future = concurrent.futures.Future()
+        self.given += 1
+        if self.given <= self.keep:
+            future.set_running_or_notify_cancel()
+            future.set_result(fn(*args))
+        else:
+            future.cancel()
+        return future
+
+
+def test_a_cluster_that_loses_its_workers_stops_the_scan_in_one_line(serial, tmp_path, monkeypatch, capsys):
+    """Exit code 3 and one line saying what happened; the finished rows are kept and the same
+    command resumes."""
+    import contextlib
+
+    from tracer import executors
+    from tracer.cli import CLUSTER_LOST, main
+
+    monkeypatch.setattr(executors, "cluster_executor", lambda address: contextlib.nullcontext(_LosingCluster(2)))
+    config, out = _config_file(tmp_path), tmp_path / "out"
+    argv = ["scan", str(config), "--out", str(out), "--cache", str(tmp_path / "cache"), "--quiet"]
+    assert main(argv + ["--scheduler", "tcp://127.0.0.1:1"]) == CLUSTER_LOST == 3
+    err = capsys.readouterr().err.strip().splitlines()
+    assert err == [f"tracer: the cluster lost its workers; finished rows are kept, rerun to resume "
+                   f"({out / CSV_NAME})"]
+    assert len(_csv_sets(out)) == 2
+    assert main(argv + ["--workers", "1"]) == 0
+    assert read_scan(out).table.tobytes() == serial.table.tobytes()
 
 
 def test_a_line_cut_short_by_a_kill_is_dropped_on_resume(setup_maps, serial, tmp_path):

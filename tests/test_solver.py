@@ -372,7 +372,7 @@ def test_residual_history_and_failure():
     grid, table = _lens(0.25 * MM)
     calls = []
     sol = solve_unit_maps(grid, table, progress=lambda done, total: calls.append((done, total)))
-    assert calls == [(1, 3), (2, 3), (3, 3)]
+    assert calls == [(0, 3), (1, 3), (2, 3), (3, 3)]  # a start, then one call per finished map
     for h in sol.history:
         assert h[0] == 1.0 and h[-1] <= 1e-10
         assert np.all(np.diff(h) < 0)

@@ -130,16 +130,22 @@ def result(request, tmp_path_factory):
     return setup, field, runs, path
 
 
-def test_result_file_passes_the_openpmd_checker(result):
-    """The openPMD 1.1.0 checker of the openpmd-validator package reports no errors or warnings."""
-    *_, path = result
+def _checked(path):
+    """The openpmd-validator's report on a file, asserting it found nothing wrong."""
     run = subprocess.run([sys.executable, "-m", "openpmd_validator.check_h5", "-i", str(path)],
                          capture_output=True, text=True, timeout=120)
     assert run.returncode == 0, run.stdout + run.stderr
     assert "Result: 0 Errors and 0 Warnings." in run.stdout, run.stdout
-    assert "found 2 meshes" in run.stdout
+    return run.stdout
+
+
+def test_result_file_passes_the_openpmd_checker(result):
+    """The openPMD 1.1.0 checker of the openpmd-validator package reports no errors or warnings."""
+    *_, path = result
+    report = _checked(path)
+    assert "found 2 meshes" in report
     species = 2 * len(result[2]) + sum(len(r.planes) for r in result[2])
-    assert f"found {species} particle species" in run.stdout
+    assert f"found {species} particle species" in report
 
 
 def test_the_traces_exercise_the_layout(result):
@@ -385,3 +391,35 @@ def test_maps_and_other_csv_files_are_not_results(tmp_path):
     short.write_text(",".join(name for name, _ in LANDING_COLUMNS) + "\nb,0,landed\n")
     with pytest.raises(StoreError, match="short.csv: line 2"):
         read_landings_csv(short)
+
+
+@pytest.mark.parametrize("author", ["", "A. Researcher <a.researcher@example.org>"])
+def test_tracer_run_writes_files_the_checker_passes_with_an_author(tmp_path, monkeypatch, author):
+    """`tracer run` as a user types it (no test-only arguments): result.h5 carries an ``author`` (the
+    config's, else $TRACER_AUTHOR, else the login name), so the openPMD checker warns of nothing;
+    the status and electrode codes are explained in the file."""
+    from test_scans import lens_text
+
+    monkeypatch.setenv("TRACER_CACHE", str(tmp_path / "cache"))
+    monkeypatch.delenv("TRACER_AUTHOR", raising=False)
+    config = tmp_path / "lens.toml"
+    config.write_text((f"author = {author!r}\n" if author else "") + lens_text(count=20))
+    assert main(["run", str(config), "--out", str(tmp_path / "out"), "--quiet"]) == 0
+    path = tmp_path / "out" / "result.h5"
+    _checked(path)
+    with h5py.File(path, "r") as f:
+        written = f.attrs["author"].decode()
+        final = f["data/0/particles/protons_final"]
+        codes = json.loads(final["status"].attrs["codes"])
+        comment = final["status"].attrs["comment"].decode()
+    import getpass
+
+    assert written == (author or getpass.getuser())
+    assert codes["-1"] == "" and "landed" in codes.values() and "codes" in comment
+
+
+def test_author_from_the_environment(tmp_path, monkeypatch):
+    from tracer.store.openpmd import default_author
+
+    monkeypatch.setenv("TRACER_AUTHOR", "Lab 3 <lab3@example.org>")
+    assert default_author() == "Lab 3 <lab3@example.org>"

@@ -29,6 +29,9 @@ _PUBLIC = {
     "GunResult": "tracer.guns",
     "scan": "tracer.scans",
     "ScanResult": "tracer.scans",
+    "read_scan": "tracer.scans",
+    "read_result": "tracer.store.result_file",
+    "ResultFile": "tracer.store.result_file",
     "tune": "tracer.tuning",
     "TuneResult": "tracer.tuning",
 }

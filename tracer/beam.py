@@ -7,6 +7,7 @@ kernel of :mod:`tracer.motion`, and packs what comes back into a :class:`BeamRun
 from __future__ import annotations
 
 import math
+from collections.abc import Callable, Sequence
 from dataclasses import asdict, dataclass, field as dataclass_field
 
 import numba
@@ -14,6 +15,9 @@ import numpy as np
 from scipy import constants
 
 from tracer import ledger, measure, motion, sources
+from tracer.fieldmap import PotentialMap
+from tracer.schema import Beam, Plane
+from tracer.display import Shown, listing, number
 from tracer.interrupts import by_interrupt
 
 STATUS = {
@@ -77,8 +81,8 @@ def start_states(beam, field, drawn=None):
     return out
 
 
-@dataclass(frozen=True)
-class BeamRun:
+@dataclass(frozen=True, repr=False)
+class BeamRun(Shown):
     """The result of tracing one beam.
 
     Attributes
@@ -128,6 +132,13 @@ class BeamRun:
     crossings_lost: int = 0
     symmetry: str = "axial"
     crossing_rules: tuple = ()
+
+    def _facts(self):
+        status, counts = np.unique(self.records["status"], return_counts=True)
+        return {"name": repr(self.name), "species": self.species.name, "rays": str(len(self.records)),
+                "ended": listing(f"{n} {s}" for s, n in zip(status, counts)),
+                "planes": listing(self.planes), "paths kept": str(len(self.paths)),
+                "ledger worst": number(self.ledger.worst_eV, "eV")}
 
     def at_plane(self, name):
         """The rays where they crossed plane ``name``, one row per crossing (time order per ray).
@@ -193,10 +204,12 @@ class BeamRun:
         }
 
 
-def trace(field, beam, planes=(), rtol=1e-9, max_time_s=1e-4, *, keep_paths=0,
-          max_path_points=4096, ledger_threshold=ledger.DEFAULT_THRESHOLD, max_step_cells=1.0,
-          sample_cells=0.5, fine_cells=1 / 32, max_steps=10_000_000, max_crossings=16,
-          progress=None, starts=None):
+def trace(field: PotentialMap, beam: Beam, planes: Sequence[Plane] = (), rtol: float = 1e-9,
+          max_time_s: float = 1e-4, *, keep_paths: int = 0, max_path_points: int = 4096,
+          ledger_threshold: float = ledger.DEFAULT_THRESHOLD, max_step_cells: float = 1.0,
+          sample_cells: float = 0.5, fine_cells: float = 1 / 32, max_steps: int = 10_000_000,
+          max_crossings: int = 16, progress: Callable[[int, int], object] | None = None,
+          starts: np.ndarray | None = None) -> BeamRun:
     """Trace a beam through a potential map.
 
     Parameters

@@ -1,7 +1,8 @@
 """The command line: parsing arguments and printing, nothing else.
 
 Exit codes: 0 success, 2 bad input (one line on stderr, a traceback only with
-``--debug``), 1 an internal fault, 130 interrupted, 141 the reader of the output went away.
+``--debug``), 1 an internal fault, 3 a scan's cluster lost its workers (the finished rows are kept),
+130 interrupted, 141 the reader of the output went away.
 """
 
 from __future__ import annotations
@@ -222,10 +223,14 @@ def cmd_show(args, echo) -> int:
     return 0
 
 
+CLUSTER_LOST = 3
+"""Exit code of a scan whose cluster lost its workers (module notes)."""
+
+
 def cmd_scan(args, echo) -> int:
     import contextlib
 
-    from tracer.executors import ClusterError, cluster_executor
+    from tracer.executors import ClusterError, ClusterLost, cluster_executor
     from tracer.pipeline import solve
     from tracer.plot import plot_scan
     from tracer.scans import scan
@@ -243,6 +248,9 @@ def cmd_scan(args, echo) -> int:
                           progress=_progress(args, "scanning", unit="set"))
     except ClusterError as exc:
         raise InputError(f"--scheduler {exc}") from None
+    except ClusterLost as exc:
+        print(f"tracer: {exc} ({out / 'scan.csv'})", file=sys.stderr)
+        return CLUSTER_LOST
     except KeyboardInterrupt:
         print(f"tracer: the finished sets are kept in {out / 'scan.csv'}; run the same command "
               "again to continue", file=sys.stderr)
@@ -352,7 +360,7 @@ def build_parser() -> argparse.ArgumentParser:
             p.add_argument("--workers", type=int, metavar="N",
                            help="local worker processes (default: the CPU count; 1: in this process)")
             p.add_argument("--scheduler", metavar="ADDRESS",
-                           help="run the sets on a dask.distributed scheduler (pip install 'tracer[cluster]')")
+                           help="run the sets on a dask.distributed scheduler (the cluster extra: pip install 'dask[distributed]')")
     return parser
 
 

@@ -15,6 +15,8 @@ y = 0), ``y_mm`` when a planar domain gives ``y_mm = [lower, upper]``.
 Keys (defaults in brackets; "r" stands for "y" in a domain with y_mm)::
 
     title                               [""]
+    author                              [""; then $TRACER_AUTHOR, then the login name] the
+                                        openPMD ``author`` of the files a run writes
     [domain]     symmetry "axial"|"planar", z_mm [a, b], r_mm R or y_mm [a, b], cell_mm,
                  edges "ground"|"open" or {z_min, z_max, r_max | y_min, y_max} ["ground"]
     [[electrode]] name, voltage_V, and one or more of
@@ -79,13 +81,13 @@ _NAME = re.compile(r"[A-Za-z0-9_][A-Za-z0-9_.+\-]*")
 _BARE_KEY = re.compile(r"[A-Za-z0-9_\-]+")
 _REQUIRED = object()
 
-_TOP = ("title", "domain", "electrode", "beam", "plane", "trace", "scan", "tune", "gun", "optics", "grid_error")
+_TOP = ("title", "author", "domain", "electrode", "beam", "plane", "trace", "scan", "tune", "gun", "optics", "grid_error")
 
 
 # ---------------------------------------------------------------- entry points
 
 
-def load(path) -> Setup:
+def load(path: str | os.PathLike) -> Setup:
     """Read a setup from a TOML file.
 
     Parameters
@@ -112,7 +114,7 @@ def load(path) -> Setup:
     return loads(text, source=source)
 
 
-def loads(text: str, source=None) -> Setup:
+def loads(text: str, source: str | os.PathLike | None = None) -> Setup:
     """Read a setup from TOML text.
 
     Parameters
@@ -358,6 +360,7 @@ def _setup(data, source):
     top = _Table(data, "", _TOP, what="unknown top-level key")
     base = source.parent if source is not None else pathlib.Path.cwd()
     title = top.get("title", _string, default="")
+    author = top.get("author", _string, default="")
     domain = _domain(top.get("domain", _raw))
     if not top.has("electrode"):
         raise ConfigError("electrode", "missing: give at least one [[electrode]]")
@@ -375,6 +378,7 @@ def _setup(data, source):
     _unique(plane_names, "plane", "plane")
     return Setup(
         title=title,
+        author=author,
         domain=domain,
         electrodes=electrodes,
         beams=beams,

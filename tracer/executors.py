@@ -20,7 +20,7 @@ import os
 import signal
 import threading
 import time
-from concurrent.futures import ProcessPoolExecutor, as_completed
+from concurrent.futures import CancelledError, ProcessPoolExecutor, as_completed
 from dataclasses import dataclass
 
 import numpy as np
@@ -33,6 +33,11 @@ _WORKER = {}                     # the context of a pool worker, set once by its
 
 class ClusterError(Exception):
     """No executor at a scheduler's address: dask.distributed is missing or the scheduler does not answer."""
+
+
+class ClusterLost(Exception):
+    """The executor cancelled sets it had taken: a cluster whose workers (and the maps scattered to
+    them) are gone."""
 
 
 @contextlib.contextmanager
@@ -50,7 +55,8 @@ def cluster_executor(address):
     try:
         from distributed import Client
     except ImportError:
-        raise ClusterError("needs dask.distributed: pip install 'tracer[cluster]'") from None
+        raise ClusterError("needs dask.distributed (tracer-optics' cluster extra): "
+                           "pip install 'dask[distributed]'") from None
     try:
         client = Client(address, timeout="20s")
     except (OSError, TimeoutError, ValueError) as exc:
@@ -217,6 +223,13 @@ def run_sets(executor, context, workers, sets, todo, finish):
         The indices of the sets to run.
     finish : callable
         ``finish(index, figures, trace_s)`` for each set, in completion order, in this process.
+
+    Raises
+    ------
+    ClusterLost
+        When the executor cancels a set this function did not cancel (a dask cluster does when
+        every worker holding the scattered context has died); the finished sets were handed to
+        ``finish`` before.
     """
     own = executor is None
     if own:
@@ -227,7 +240,12 @@ def run_sets(executor, context, workers, sets, todo, finish):
         if own:
             futures = _while_workers_start(futures, context, sets, todo, finish)
         for future in as_completed(futures):
-            finish(*future.result())
+            try:
+                result = future.result()
+            except CancelledError:
+                raise ClusterLost("the cluster lost its workers; finished rows are kept, "
+                                  "rerun to resume") from None
+            finish(*result)
     finally:
         for future in futures:
             future.cancel()

@@ -37,6 +37,7 @@ from dataclasses import dataclass
 import numpy as np
 from numba import njit
 
+from tracer.display import Shown, grid_text, megabytes, voltage_text
 from tracer.geometry import electrode_at, shape_table
 from tracer.grid import Grid
 
@@ -433,8 +434,8 @@ def _evaluate(h, z0, r0, hz, hr, nz, nr, mirror, cell, kind, owner, start, count
             er[k] = -vr
 
 
-@dataclass(frozen=True, eq=False)
-class PotentialMap:
+@dataclass(frozen=True, eq=False, repr=False)
+class PotentialMap(Shown):
     """The potential of one voltage set, with its C1 interpolant.
 
     Attributes
@@ -455,6 +456,10 @@ class PotentialMap:
     names: tuple
     voltages: tuple
     hermite: np.ndarray
+
+    def _facts(self):
+        return {"grid": grid_text(self.grid), "voltages": voltage_text(self.names, self.voltages),
+                "data": megabytes(self.hermite)}
 
     def _evaluate(self, z, r):
         z, r = np.broadcast_arrays(np.asarray(z, dtype=np.float64), np.asarray(r, dtype=np.float64))
@@ -486,8 +491,8 @@ class PotentialMap:
         return ez, er
 
 
-@dataclass(frozen=True, eq=False)
-class BasisMaps:
+@dataclass(frozen=True, eq=False, repr=False)
+class BasisMaps(Shown):
     """One basis map per electrode (1 V on it, 0 V on the others), ready to combine.
 
     Attributes
@@ -517,6 +522,11 @@ class BasisMaps:
     hermite: np.ndarray
     history: tuple
     geometry_hash: str
+
+    def _facts(self):
+        return {"grid": grid_text(self.grid), "electrodes": str(len(self.names)),
+                "voltages": voltage_text(self.names, self.voltages),
+                "geometry_hash": self.geometry_hash[:12], "data": megabytes(self.unit, self.hermite)}
 
     @classmethod
     def build(cls, grid, table, raster, names, voltages, unit, history, geometry_hash) -> BasisMaps:

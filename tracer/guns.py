@@ -35,15 +35,19 @@ from __future__ import annotations
 
 import dataclasses
 import math
+import os
 import warnings
+from collections.abc import Callable
 from dataclasses import dataclass
 
 import numpy as np
 
 from tracer import emission
 from tracer.deposit import charge_density
-from tracer.fieldmap import edge_reflection, hermite_data
+from tracer.display import Shown, number, rays_png
+from tracer.fieldmap import BasisMaps, edge_reflection, hermite_data
 from tracer.geometry import electrode_at
+from tracer.schema import Setup
 from tracer.stats import radius
 
 EMIT_CELLS = 2.0
@@ -74,8 +78,8 @@ EMISSION_DTYPE = np.dtype([
 HISTORY_DTYPE = np.dtype([("current_A", np.float64), ("change", np.float64)])
 
 
-@dataclass(frozen=True, eq=False)
-class GunResult:
+@dataclass(frozen=True, eq=False, repr=False)
+class GunResult(Shown):
     """A converged (or not) self-consistent gun run.
 
     Attributes
@@ -122,6 +126,18 @@ class GunResult:
     crossover_z_m: float | None
     crossover_radius_m: float | None
     warning: str = ""
+
+    def _facts(self):
+        return {"current": number(self.current_A, "A"),
+                "perveance": number(self.perveance_A_per_V1p5, "A/V^1.5"),
+                "voltage": number(self.voltage_V, "V"), "iterations": str(self.iterations),
+                "converged": str(self.converged), "emission sites": str(len(self.emission)),
+                "crossover_z": number(self.crossover_z_m, "mm", 1e3),
+                "crossover_radius": number(self.crossover_radius_m, "mm", 1e3)} | (
+                {"warning": self.warning} if self.warning else {})
+
+    def _figure_png(self):
+        return None if self.run is None else rays_png(self.field, [self.run], title="gun")
 
     def paths_zr(self) -> list[np.ndarray]:
         """The rays' paths as (n, 2) arrays of (z, r) in metres (r is y in planar symmetry)."""
@@ -441,7 +457,8 @@ def crossover(run, current, symmetry, samples=400):
 # The iteration
 
 
-def gun(setup, *, maps=None, cache_dir=None, progress=None) -> GunResult:
+def gun(setup: Setup, *, maps: BasisMaps | None = None, cache_dir: str | os.PathLike | None = None,
+        progress: Callable[[int, int], object] | None = None) -> GunResult:
     """Run a gun self-consistently: emission, tracing, space charge, until the current settles.
 
     Parameters

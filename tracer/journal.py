@@ -146,17 +146,14 @@ class Rows:
                     self._line(i, v) for i, v in sorted(self.done.items())))
 
     def _parse(self, line):
-        fields = line.split(",")
-        if len(fields) != len(self.header) + 1:
+        row = _parse_line(line, len(self.header))
+        if row is None:
             return None
-        try:
-            index, values = int(fields[0]), np.array([float(f) for f in fields[1:]])
-        except ValueError:
-            return None
+        index, values = row
         k = self.sets.shape[1]
         if not 0 <= index < len(self.sets) or not np.array_equal(values[:k], self.sets[index]):
             return None
-        return index, values
+        return row
 
     def _line(self, index, values):
         return ",".join([str(index)] + [_number(v) for v in values]) + "\n"
@@ -171,13 +168,7 @@ class Rows:
 
     def table(self):
         """The finished rows in scan order, as a structured array, and their set indices."""
-        index = np.array(sorted(self.done), dtype=np.int64)
-        table = np.zeros(len(index), dtype=[(c, np.float64) for c in self.header])
-        if len(index):
-            values = np.array([self.done[i] for i in index])
-            for k, c in enumerate(self.header):
-                table[c] = values[:, k]
-        return table, index
+        return _as_table(self.header, self.done)
 
     def write_h5(self):
         """Rewrite ``scan.h5`` atomically with the finished rows."""
@@ -201,11 +192,62 @@ class Rows:
             self._handle = None
 
 
+def _parse_line(line, width):
+    """``(set index, values)`` of a table line with ``width`` values, or None when it is not one."""
+    fields = line.split(",")
+    if len(fields) != width + 1:
+        return None
+    try:
+        return int(fields[0]), np.array([float(f) for f in fields[1:]])
+    except ValueError:
+        return None
+
+
+def _as_table(header, done):
+    """Rows ``{set index: values}`` as a structured array in scan order, and their set indices."""
+    index = np.array(sorted(done), dtype=np.int64)
+    table = np.zeros(len(index), dtype=[(c, np.float64) for c in header])
+    if len(index):
+        values = np.array([done[i] for i in index])
+        for k, c in enumerate(header):
+            table[c] = values[:, k]
+    return table, index
+
+
 def _write_synced(path, text):
     with open(path, "w", encoding="utf-8", newline="") as handle:
         handle.write(text)
         handle.flush()
         os.fsync(handle.fileno())
+
+
+def read_csv(path):
+    """The finished rows of a ``scan.csv``, in scan order (a last line cut short is dropped).
+
+    Returns
+    -------
+    table : numpy structured array
+    index : int64[n]
+    digest : str
+
+    Raises
+    ------
+    tracer.store.StoreError
+        When the file is missing or not a scan table.
+    """
+    from tracer.store import StoreError
+
+    try:
+        lines = Path(path).read_text(encoding="utf-8").split("\n")
+    except (OSError, UnicodeDecodeError) as exc:
+        raise StoreError(f"{path}: cannot read the scan table ({exc})") from None
+    if len(lines) < 3 or not lines[0].startswith(_FIRST_LINE) or not lines[1].startswith("set,"):
+        raise StoreError(f"{path}: not a tracer scan table (its first line is not {_FIRST_LINE!r}...)")
+    header = lines[1].split(",")[1:]
+    # the text after the last newline may be half written; a bad line is skipped as on resuming
+    rows = [_parse_line(line, len(header)) for line in lines[2:-1]]
+    table, index = _as_table(header, dict(row for row in rows if row is not None))
+    return table, index, lines[0].removeprefix(_FIRST_LINE).strip()
 
 
 def read_h5(path):

@@ -77,6 +77,9 @@ from scipy import constants
 from scipy.optimize import brentq
 
 from tracer.axial import AxialPotential, axial_potential
+from tracer.display import Shown, number
+from tracer.fieldmap import PotentialMap
+from tracer.species import Species
 
 SUBSTEPS = 16   # Runge-Kutta steps a grid cell: a whole number of steps per knot interval
 
@@ -85,8 +88,8 @@ class OpticsError(ValueError):
     """The lens properties cannot be computed for this map, species or energy."""
 
 
-@dataclass(frozen=True, eq=False)
-class LensProperties:
+@dataclass(frozen=True, eq=False, repr=False)
+class LensProperties(Shown):
     """Paraxial properties and aberrations of a round lens for one species and energy.
 
     Lengths in metres, positions are z on the axis; energies in eV.  For an object
@@ -131,6 +134,16 @@ class LensProperties:
     ray_g: np.ndarray
     ray_gbar: np.ndarray
     ray_h: np.ndarray
+
+    def _facts(self):
+        if self.mirror:
+            return {"species": self.species, "energy": number(self.energy_eV, "eV"),
+                    "mirror": f"turns back at z = {number(self.turning_z_m, 'mm', 1e3)}"}
+        return {"species": self.species, "energy": number(self.energy_eV, "eV"),
+                "f_image": number(self.f_image_m, "mm", 1e3),
+                "focus_image_z": number(self.focus_image_z_m, "mm", 1e3),
+                "cs": number(self.cs_m, "mm", 1e3), "cc": number(self.cc_m, "mm", 1e3),
+                "image_z": number(self.image_z_m, "mm", 1e3), "magnification": number(self.magnification)}
 
     def summary(self) -> dict:
         """The scalar results as a dict (name -> value), in field order."""
@@ -296,8 +309,9 @@ def _turning_point(kin: _Kinetics, z: np.ndarray):
     return float(brentq(kin.phi, fine[i - 1], fine[i]))
 
 
-def paraxial(field, species, energy_eV: float, object_z_m: float | None = None, *,
-             z_range_m=None, knot_cells: int = 3) -> LensProperties:
+def paraxial(field: PotentialMap, species: str | Species, energy_eV: float,
+             object_z_m: float | None = None, *, z_range_m: tuple[float, float] | None = None,
+             knot_cells: int = 3) -> LensProperties:
     """Paraxial lens properties and aberration coefficients from a potential map.
 
     Parameters

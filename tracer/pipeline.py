@@ -8,11 +8,29 @@ from __future__ import annotations
 
 import dataclasses
 import os
+from collections.abc import Callable, Mapping
 from dataclasses import dataclass
 from pathlib import Path
+from typing import TYPE_CHECKING
+
+from tracer.display import Shown, rays_png, run_facts
+
+if TYPE_CHECKING:
+    from tracer.fieldmap import BasisMaps
+    from tracer.schema import Setup
 
 DEFAULT_RTOL = 1e-10
-CONFIGS = Path(__file__).resolve().parent.parent / "configs"
+
+
+def examples_folder() -> Path:
+    """The bundled example configs: ``tracer/examples`` in an installed wheel (built from the
+    top-level ``configs/``, their one copy), else ``configs/`` beside the package in a clone."""
+    package = Path(__file__).resolve().parent
+    installed = package / "examples"
+    return installed if installed.is_dir() else package.parent / "configs"
+
+
+CONFIGS = examples_folder()
 DEMO_CONFIG = CONFIGS / "einzel_argon.toml"
 
 
@@ -55,7 +73,8 @@ def with_grids(setup, grids=None):
     return dataclasses.replace(setup, grid_error=dataclasses.replace(setup.grid_error, grids=grids))
 
 
-def solve(setup, *, cache_dir=None, rtol: float = DEFAULT_RTOL, progress=None):
+def solve(setup: Setup, *, cache_dir: str | os.PathLike | None = None, rtol: float = DEFAULT_RTOL,
+          progress: Callable[..., object] | None = None) -> BasisMaps:
     """Solve the basis maps of a setup: one unit map per electrode.
 
     Parameters
@@ -94,8 +113,8 @@ def write_solve_outputs(setup, maps, out) -> list[Path]:
             plot_field(field, out / "equipotentials.png", title=setup.title)]
 
 
-@dataclass(frozen=True)
-class RunResult:
+@dataclass(frozen=True, repr=False)
+class RunResult(Shown):
     """Everything a config asks for: the maps, the combined field and each beam's run.
 
     Attributes
@@ -116,6 +135,13 @@ class RunResult:
     beams: dict
     errors: object = None
 
+    def _facts(self):
+        return run_facts(self.setup.title, self.field, self.beams.values()) | {
+            "error bars": "estimated" if self.errors else "none"}
+
+    def _figure_png(self):
+        return rays_png(self.field, list(self.beams.values()), title=self.setup.title)
+
     def summary(self) -> dict:
         """Each beam's :meth:`tracer.beam.BeamRun.summary`, by beam name, with its error bars
         (:meth:`tracer.errorbars.ErrorBars.record`) under ``"uncertainty"`` when they were estimated."""
@@ -134,7 +160,9 @@ def trace_beam(field, beam, setup, progress=None, starts=None):
                  ledger_threshold=opts.ledger_threshold, progress=progress, starts=starts)
 
 
-def run(setup, *, maps=None, voltages=None, cache_dir=None, progress=None) -> RunResult:
+def run(setup: Setup, *, maps: BasisMaps | None = None, voltages: Mapping[str, float] | None = None,
+        cache_dir: str | os.PathLike | None = None,
+        progress: Callable[[str, int, int], object] | None = None) -> RunResult:
     """Solve (or reuse) the basis maps, combine them and trace every beam of the setup.
 
     Parameters

@@ -23,15 +23,23 @@ from __future__ import annotations
 
 import csv
 import itertools
+import os
 import time
+from collections.abc import Callable
+from concurrent.futures import Executor
 from dataclasses import dataclass
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import numpy as np
 
+from tracer.display import Shown, listing, number
 from tracer.executors import Context, run_sets
-from tracer.journal import Rows, config_hash
-from tracer.schema import ConfigError
+from tracer.journal import CSV_NAME, Rows, config_hash, read_csv
+from tracer.schema import ConfigError, Setup
+
+if TYPE_CHECKING:
+    from tracer.fieldmap import BasisMaps
 
 
 def voltage_sets(setup):
@@ -77,8 +85,8 @@ def voltage_sets(setup):
     return names, sets
 
 
-@dataclass(frozen=True)
-class ScanResult:
+@dataclass(frozen=True, repr=False)
+class ScanResult(Shown):
     """The figures of every voltage set of a scan.
 
     Attributes
@@ -109,6 +117,11 @@ class ScanResult:
     trace_s: float
     files: tuple = ()
 
+    def _facts(self):
+        return {"sets": str(len(self.table)), "varied": listing(self.names),
+                "figures": listing(self.figures, limit=4), "resumed": str(self.resumed),
+                "elapsed": number(self.elapsed_s, "s"), "files": listing(f.name for f in self.files)}
+
     @property
     def figures(self) -> tuple:
         """The figure columns (every column after the voltages)."""
@@ -132,8 +145,10 @@ class ScanResult:
         return float(values[k]), {n: float(self.table[f"{n}_V"][k]) for n in self.names}
 
 
-def scan(setup, maps=None, executor=None, *, out=None, workers=None, progress=None,
-         cache_dir=None, h5_interval_s=30.0):
+def scan(setup: Setup, maps: BasisMaps | None = None, executor: Executor | None = None, *,
+         out: str | os.PathLike | None = None, workers: int | None = None,
+         progress: Callable[[int, int], object] | None = None,
+         cache_dir: str | os.PathLike | None = None, h5_interval_s: float = 30.0) -> ScanResult:
     """Trace every beam at every voltage set of the setup's ``[scan]`` and measure the figures.
 
     Parameters
@@ -153,7 +168,8 @@ def scan(setup, maps=None, executor=None, *, out=None, workers=None, progress=No
     workers : int, optional
         Processes of the default pool (default: the machine's CPU count).
     progress : callable, optional
-        ``progress(done, total)`` after each finished set (and once at the start).
+        ``progress(done, total)`` over the sets this call computes (sets resumed from ``out`` are
+        not counted, so a rate or time left is right), after each finished set and once at the start.
     cache_dir : str or os.PathLike, optional
         Cache of basis maps used when ``maps`` is None.
     h5_interval_s : float
@@ -193,11 +209,11 @@ def scan(setup, maps=None, executor=None, *, out=None, workers=None, progress=No
             rows.write_h5()
             last_h5 = time.monotonic()
         if progress:
-            progress(len(rows.done), len(sets))
+            progress(len(rows.done) - rows.resumed, len(todo))
 
     try:
         if progress:
-            progress(len(rows.done), len(sets))
+            progress(0, len(todo))
         if executor is None and workers == 1:
             for i in todo:
                 finish(i, *context.run(sets[i]))
@@ -209,3 +225,23 @@ def scan(setup, maps=None, executor=None, *, out=None, workers=None, progress=No
     table, _ = rows.table()
     files = () if out is None else (rows.csv, rows.h5)
     return ScanResult(table, names, digest, rows.resumed, time.perf_counter() - t_start, trace_s, files)
+
+
+def read_scan(path: str | os.PathLike) -> ScanResult:
+    """The table of an earlier scan, from its output folder or its ``scan.csv``.
+
+    Every finished row is read back bit for bit; the varied electrodes are the leading ``<name>_V``
+    columns.  ``resumed`` is the number of rows, and the times are 0 (they were not recorded).
+
+    Raises
+    ------
+    tracer.store.StoreError
+        When there is no readable scan table there.
+    """
+    path = Path(path)
+    csv_path = path / CSV_NAME if path.is_dir() else path
+    table, _, digest = read_csv(csv_path)
+    columns = table.dtype.names
+    k = next((i for i, c in enumerate(columns) if not c.endswith("_V")), len(columns))
+    names = tuple(c.removesuffix("_V") for c in columns[:k])
+    return ScanResult(table, names, digest, len(table), 0.0, 0.0, (csv_path,))

@@ -403,6 +403,9 @@ class Setup:
         The config file, for relative paths.
     grid_error : GridErrorSpec
         The grid error bars of the figures (``[grid_error]``).
+    author : str
+        Author and contact for the files a run writes (openPMD ``author``); "" leaves it to
+        :func:`tracer.store.openpmd.default_author`.
     """
 
     title: str
@@ -417,6 +420,7 @@ class Setup:
     optics: OpticsSpec | None = None
     source: pathlib.Path | None = None
     grid_error: GridErrorSpec = GridErrorSpec()
+    author: str = ""
 
     def voltages(self) -> dict[str, float]:
         """Return the electrode voltages by name, in electrode order."""

@@ -29,19 +29,25 @@ point.  Trials are deterministic, so a tune is reproducible.
 from __future__ import annotations
 
 import math
+import os
 from dataclasses import dataclass
+from typing import TYPE_CHECKING
 
 import numpy as np
 
+from tracer.display import Shown, number, voltage_text
 from tracer.executors import Context
-from tracer.schema import ConfigError, Plane
+from tracer.schema import ConfigError, Plane, Setup
+
+if TYPE_CHECKING:
+    from tracer.fieldmap import BasisMaps
 
 LOST_PENALTY = 10.0
 """Landing-energy goal: a ray that does not land counts as a miss of this many times the target."""
 
 
-@dataclass(frozen=True)
-class TuneResult:
+@dataclass(frozen=True, repr=False)
+class TuneResult(Shown):
     """The best voltages found for a goal.
 
     Attributes
@@ -70,6 +76,10 @@ class TuneResult:
     figure: str
     points: np.ndarray
     method: str
+
+    def _facts(self):
+        return {"goal": self.goal, "voltages": voltage_text(self.voltages, self.voltages.values()),
+                self.figure: number(self.value), "evaluations": str(self.evaluations), "method": self.method}
 
     @property
     def evaluations(self) -> int:
@@ -164,7 +174,8 @@ def _several(trials, seed, popsize, maxiter):
             "then bounded Nelder-Mead (scipy)")
 
 
-def tune(setup, maps=None, *, cache_dir=None, grid_points=11, popsize=8, maxiter=20):
+def tune(setup: Setup, maps: BasisMaps | None = None, *, cache_dir: str | os.PathLike | None = None,
+         grid_points: int = 11, popsize: int = 8, maxiter: int = 20) -> TuneResult:
     """Find the voltages of the setup's ``[tune]`` that best meet its goal.
 
     Parameters

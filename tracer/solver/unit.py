@@ -74,7 +74,8 @@ def solve_unit_maps(grid, table, *, rtol=1e-10, max_cycles=60, progress=None):
     max_cycles : int
         Most multigrid cycles per electrode.
     progress : callable, optional
-        Called as ``progress(done, total)`` after each unit map.
+        Called as ``progress(done, total)`` once at the start and as each unit map is finished
+        (in the order they finish, from the thread that solved it, one call at a time).
 
     Returns
     -------
@@ -91,6 +92,8 @@ def solve_unit_maps(grid, table, *, rtol=1e-10, max_cycles=60, progress=None):
     n = len(table.names)
     unit = np.zeros((n, grid.nz, grid.nr))
     local = threading.local()  # per thread: one right-hand side array and workspace, reused
+    finished = [0]
+    lock = threading.Lock()
 
     def one(k):
         if not hasattr(local, "b"):
@@ -102,13 +105,15 @@ def solve_unit_maps(grid, table, *, rtol=1e-10, max_cycles=60, progress=None):
         what = f"unit map of electrode {table.names[k]!r}"
         history = _solve(hierarchy, unit[k], local.b, rtol, max_cycles, what, local.work)
         relax.add_fixed(unit[k], values, raster.owner)
+        if progress is not None:
+            with lock:
+                finished[0] += 1
+                progress(finished[0], n)
         return history
 
-    history = []
-    for done, h in enumerate(_in_threads(one, range(n), min(n, get_num_threads())), start=1):
-        history.append(h)
-        if progress is not None:
-            progress(done, n)
+    if progress is not None:
+        progress(0, n)
+    history = list(_in_threads(one, range(n), min(n, get_num_threads())))
     return UnitSolution(unit=unit, raster=raster, history=tuple(history))
 
 

@@ -11,6 +11,8 @@ from __future__ import annotations
 
 import contextlib
 import datetime
+import getpass
+import os
 import re
 from collections.abc import Mapping
 
@@ -66,6 +68,17 @@ def iteration_path(iteration: int = 0) -> str:
 # The file
 
 
+def default_author() -> str:
+    """The ``author`` of a file when the config gives none: ``$TRACER_AUTHOR``, else the login
+    name (the standard recommends the attribute; its validator warns without it)."""
+    if os.environ.get("TRACER_AUTHOR"):
+        return os.environ["TRACER_AUTHOR"]
+    try:
+        return getpass.getuser()
+    except (OSError, KeyError):  # no login name (a container without a user entry)
+        return "unknown"
+
+
 @contextlib.contextmanager
 def openpmd_file(path, iteration: int = 0, author: str | None = None, particles: bool = False):
     """Create an openPMD 1.1.0 file atomically and yield ``(file, iteration_group)``.
@@ -77,7 +90,8 @@ def openpmd_file(path, iteration: int = 0, author: str | None = None, particles:
     iteration : int
         The single iteration written (group-based encoding).
     author : str, optional
-        The standard's recommended ``author`` attribute (author and contact).
+        The standard's recommended ``author`` attribute (author and contact); by default
+        :func:`default_author`.
     particles : bool
         Declare the particles path (``particles/``) and create its group in the iteration.
     """
@@ -92,8 +106,7 @@ def openpmd_file(path, iteration: int = 0, author: str | None = None, particles:
             f.attrs["particlesPath"] = text(PARTICLES_PATH)
         f.attrs["software"] = text("tracer")
         f.attrs["softwareVersion"] = text(__version__)
-        if author:
-            f.attrs["author"] = text(author)
+        f.attrs["author"] = text(author or default_author())
         f.attrs["date"] = text(datetime.datetime.now().astimezone().strftime("%Y-%m-%d %H:%M:%S %z"))
         it = f.create_group(iteration_path(iteration))
         it.attrs["time"] = 0.0

@@ -11,6 +11,7 @@ rebuilds the interpolant from it (equal to rounding).
 from __future__ import annotations
 
 import json
+import os
 from collections.abc import Mapping
 from dataclasses import dataclass
 from pathlib import Path
@@ -20,6 +21,7 @@ from scipy import constants
 
 from tracer import ledger
 from tracer.beam import STATUS, BeamRun
+from tracer.display import Shown, rays_png, run_facts
 from tracer.fieldmap import PotentialMap, edge_reflection, hermite_data
 from tracer.geometry import Raster, ShapeTable
 from tracer.grid import Grid
@@ -65,7 +67,10 @@ def _write_species(particles, name, rows, species, weighting, codes, attrs):
             lookup = {label: code for code, label in codes[field].items()}
             labels, index = np.unique(rows[field], return_inverse=True)
             values = np.array([lookup[v] for v in labels.tolist()], np.int64)[index.ravel()]
-            particle_record(group, record, values, n, attrs={"codes": json.dumps(codes[field])})
+            particle_record(group, record, values, n, attrs={
+                "codes": json.dumps(codes[field]),
+                "comment": text(f"the ray's {field} as an integer code; the attribute codes (JSON) "
+                                "maps each code to its name, -1 to none")})
         elif field != "plane":            # a crossing species is a single plane (attribute)
             particle_record(group, record, rows[field], n,
                             *_RECORD_UNITS.get(record, (DIMENSIONLESS, 1.0, 0.0, 0)))
@@ -152,7 +157,8 @@ def write_result(path, field, runs, *, setup=None, summaries=None, author=None) 
     summaries : mapping of beam name to dict, optional
         The summaries to store (JSON-serializable); default ``run.summary()`` of each run.
     author : str, optional
-        Author and contact, the openPMD ``author`` attribute.
+        Author and contact, the openPMD ``author`` attribute; default ``setup.author``, else
+        :func:`tracer.store.openpmd.default_author`.
 
     Returns
     -------
@@ -171,6 +177,7 @@ def write_result(path, field, runs, *, setup=None, summaries=None, author=None) 
         beam = openpmd.identifier(run.name)
         candidates += [f"{beam}_start", f"{beam}_final"] + [f"{beam}_at_{openpmd.identifier(p)}" for p in run.planes]
     species_names = iter(openpmd.unique_names(candidates))
+    author = author or (setup.author if setup else None)
     with openpmd.openpmd_file(path, author=author, particles=True) as (f, it):
         openpmd.write_mesh(it, "phi", field.potential(zz, rr), grid, POTENTIAL,
                            attrs={"comment": text("electrostatic potential at the grid nodes")})
@@ -238,10 +245,11 @@ def _with_row(rows, order):
     return out
 
 
-@dataclass(frozen=True)
-class ResultFile:
+@dataclass(frozen=True, repr=False)
+class ResultFile(Shown):
     """What ``read_result`` reads: the field, every beam as the BeamRun its trace returned, and
-    what the setup and the run's summaries were.
+    what the setup and the run's summaries were (``field``, ``beams`` and ``summary()`` as on the
+    :class:`tracer.pipeline.RunResult` of the run).
 
     Attributes
     ----------
@@ -280,6 +288,16 @@ class ResultFile:
         """The node grid of the meshes."""
         return self.field.grid
 
+    def summary(self) -> dict:
+        """Each beam's summary as the run stored it, by beam name (as ``RunResult.summary()``)."""
+        return self.summaries
+
+    def _facts(self):
+        return {"path": str(self.path)} | run_facts(self.title, self.field, self.beams.values())
+
+    def _figure_png(self):
+        return rays_png(self.field, list(self.beams.values()), title=self.title)
+
 
 def _read_beam(group, particles, k, about, symmetry) -> BeamRun:
     """The k-th beam of a result file, ``about`` its entry in the beams JSON."""
@@ -302,7 +320,7 @@ def _read_beam(group, particles, k, about, symmetry) -> BeamRun:
                    crossing_rules=tuple(CrossingRule(*r) for r in about.get("crossing_rules", ())))
 
 
-def read_result(path) -> ResultFile:
+def read_result(path: str | os.PathLike) -> ResultFile:
     """Read a result file written by ``write_result``: its beams as BeamRuns.
 
     Raises
