@@ -186,8 +186,9 @@ class _LosingCluster(concurrent.futures.Executor):
         if self.given <= self.keep:
             future.set_running_or_notify_cancel()
             future.set_result(fn(*args))
-        else:
+        else:  # cancelled and marked so, as an executor's worker marks the futures it drops
             future.cancel()
+            future.set_running_or_notify_cancel()
         return future
 
 

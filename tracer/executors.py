@@ -20,7 +20,7 @@ import os
 import signal
 import threading
 import time
-from concurrent.futures import CancelledError, ProcessPoolExecutor, as_completed
+from concurrent.futures import ProcessPoolExecutor, as_completed
 from dataclasses import dataclass
 
 import numpy as np
@@ -239,13 +239,17 @@ def run_sets(executor, context, workers, sets, todo, finish):
     try:
         if own:
             futures = _while_workers_start(futures, context, sets, todo, finish)
+        handed = set()
         for future in as_completed(futures):
-            try:
-                result = future.result()
-            except CancelledError:
+            if future.cancelled():
+                # keep every set already delivered, then stop: the others will not come
+                for f in futures:
+                    if f.done() and not f.cancelled() and f not in handed:
+                        finish(*f.result())
                 raise ClusterLost("the cluster lost its workers; finished rows are kept, "
-                                  "rerun to resume") from None
-            finish(*result)
+                                  "rerun to resume")
+            handed.add(future)
+            finish(*future.result())
     finally:
         for future in futures:
             future.cancel()
