@@ -166,7 +166,7 @@ def assert_same_run(a, b):
         x, y = getattr(a, key), getattr(b, key)
         assert x.dtype == y.dtype, key
         for name in x.dtype.names:
-            assert np.array_equal(x[name], y[name]), (key, name)
+            assert np.array_equal(x[name], y[name], equal_nan=x.dtype[name].kind == "f"), (key, name)
     assert len(b.paths) == len(a.paths)
     for p, q in zip(a.paths, b.paths):
         assert p.dtype == q.dtype and np.array_equal(p, q)
@@ -288,8 +288,10 @@ def test_landings_csv_round_trip(result, tmp_path):
         for column, values in (("x_mm", rec["x_m"] * 1e3), ("z_mm", rec["z_m"] * 1e3),
                                ("r_mm", np.hypot(rec["x_m"], rec["y_m"]) * 1e3),
                                ("t_ns", rec["time_s"] * 1e9), ("energy_eV", rec["energy_eV"]),
-                               ("ledger_eV", rec["ledger_eV"]), ("start_energy_eV", run.starts["energy_eV"])):
-            assert np.array_equal(rows[column], values), column          # 17 digits: exact
+                               ("ledger_eV", rec["ledger_eV"]), ("start_energy_eV", run.starts["energy_eV"]),
+                               ("incidence_deg", rec["incidence_deg"]),
+                               ("normal_energy_eV", rec["normal_energy_eV"])):
+            assert np.array_equal(rows[column], values, equal_nan=True), column   # 17 digits: exact
         u = np.stack([rows["ux"], rows["uy"], rows["uz"]])
         moving = np.hypot(np.hypot(rec["px"], rec["py"]), rec["pz"]) > 0
         assert np.allclose(np.linalg.norm(u, axis=0)[moving], 1.0, rtol=1e-14)
@@ -319,7 +321,8 @@ def test_landings_csv_cells_are_those_of_the_csv_module(result, tmp_path):
             floats = [rec["x_m"][k] * 1e3, rec["y_m"][k] * 1e3, rec["z_m"][k] * 1e3,
                       np.hypot(rec["x_m"][k], rec["y_m"][k]) * 1e3, rec["time_s"][k] * 1e9,
                       rec["energy_eV"][k], rec["px"][k] / p[k], rec["py"][k] / p[k], rec["pz"][k] / p[k],
-                      rec["ledger_eV"][k], r.starts["energy_eV"][rec["ray"][k]]]
+                      rec["ledger_eV"][k], r.starts["energy_eV"][rec["ray"][k]],
+                      rec["incidence_deg"][k], rec["normal_energy_eV"][k]]
             writer.writerow([r.name, int(rec["ray"][k]), rec["status"][k], rec["electrode"][k]]
                             + [format(float(v), ".17g") for v in floats])
     assert path.read_bytes() == expected.getvalue().encode()

@@ -16,6 +16,7 @@ from scipy import constants
 
 from tracer import ledger, measure, motion, sources
 from tracer.fieldmap import PotentialMap
+from tracer.geometry import surface_normals
 from tracer.schema import Beam, Plane
 from tracer.display import Shown, listing, number
 from tracer.interrupts import by_interrupt
@@ -97,7 +98,9 @@ class BeamRun(Shown):
         "stalled"), ``electrode`` (where it landed, else ""), ``time_s``, ``x_m``, ``y_m``, ``z_m``,
         ``px``, ``py``, ``pz`` (kg m/s), ``energy_eV`` (kinetic), ``ledger_eV`` (worst
         |ΔKE − qΔV| over the ray's steps), ``weight_A`` (the current it carries), ``steps``
-        (accepted steps), ``evaluations`` (field evaluations).
+        (accepted steps), ``evaluations`` (field evaluations), and for a landing
+        ``incidence_deg`` (from the surface normal) and ``normal_energy_eV`` (:func:`incidence`;
+        NaN for rays that did not land).
     crossings : numpy.ndarray
         Every plane crossing: the state fields plus ``plane`` (name) and ``crossing`` (0 for the
         ray's first crossing of that plane, 1 for the next, ...); ``ledger_eV`` is the ray's worst
@@ -302,7 +305,8 @@ def trace(field: PotentialMap, beam: Beam, planes: Sequence[Plane] = (), rtol: f
     starts["electrode"] = np.where(inside, electrode, "")
 
     dtype = state_dtype(field.names, [("weight_A", np.float64), ("steps", np.int64),
-                                      ("evaluations", np.int64)])
+                                      ("evaluations", np.int64), ("incidence_deg", np.float64),
+                                      ("normal_energy_eV", np.float64)])
     records = np.zeros(n, dtype=dtype)
     records["ray"] = starts["ray"]
     records["weight_A"] = starts["weight_A"]
@@ -312,6 +316,8 @@ def trace(field: PotentialMap, beam: Beam, planes: Sequence[Plane] = (), rtol: f
     _fill_state(records, final)
     records["steps"] = info[:, 4]
     records["evaluations"] = info[:, 6]
+    records["incidence_deg"], records["normal_energy_eV"] = incidence(
+        records, np.where(codes == motion.LANDED, info[:, 1], -1), field.table, grid, sp.mass_kg)
 
     n_cross = np.minimum(info[:, 2], max_crossings)
     ray_idx = np.repeat(np.arange(n), n_cross)
@@ -333,6 +339,55 @@ def trace(field: PotentialMap, beam: Beam, planes: Sequence[Plane] = (), rtol: f
                    ledger=report, energy_scale_eV=scale,
                    crossings_lost=int((info[:, 2] - n_cross).sum()), symmetry=grid.symmetry,
                    crossing_rules=rules)
+
+
+def incidence(rows, electrode, table, grid, mass):
+    """Angle of incidence (degrees from the surface normal) and normal energy (eV) of landings.
+
+    The normal is the outward normal of the landing electrode's surface nearest the landing point
+    (:func:`tracer.geometry.surface_normal`), turned about the axis (axial symmetry) or mirrored
+    with y (a mirrored planar map).  The normal energy is what the motion along the normal adds
+    to the kinetic energy, E(p) - E(p_t) with E(p) = sqrt((p c)^2 + (m c^2)^2) and p_t the
+    momentum along the surface: p_n^2 / 2m = E_kin cos^2 of the angle at low energy.
+
+    Parameters
+    ----------
+    rows : numpy.ndarray
+        States (``x_m``, ``y_m``, ``z_m``, ``px``, ``py``, ``pz``).
+    electrode : int array
+        The electrode each ray landed on; -1 for rays that did not land (NaN in both results).
+    table : tracer.geometry.ShapeTable
+    grid : tracer.grid.Grid
+    mass : float
+        Rest mass, kg.
+
+    Returns
+    -------
+    incidence_deg, normal_energy_eV : numpy.ndarray
+    """
+    x, y, z = rows["x_m"], rows["y_m"], rows["z_m"]
+    if grid.symmetry == "axial":
+        r = np.hypot(x, y)
+        nz, nr = surface_normals(z, r, electrode, True, *table.arrays())
+        with np.errstate(invalid="ignore", divide="ignore"):
+            n = np.stack([np.where(r > 0, nr * x / r, 0.0), np.where(r > 0, nr * y / r, 0.0), nz])
+    else:
+        side = np.where(grid.mirror & (y < 0.0), -1.0, 1.0)
+        nz, nr = surface_normals(z, side * y, electrode, bool(grid.mirror), *table.arrays())
+        n = np.stack([np.zeros(len(z)), side * nr, nz])
+    p = np.stack([rows["px"], rows["py"], rows["pz"]])
+    size = np.sqrt((p * p).sum(axis=0))
+    n_size = np.sqrt((n * n).sum(axis=0))
+    ok = (electrode >= 0) & (size > 0.0) & (n_size > 0.0)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        pn = -(p * n).sum(axis=0) / n_size
+        angle = np.where(ok, np.degrees(np.arccos(np.clip(pn / size, -1.0, 1.0))), np.nan)
+        pt = np.sqrt(np.maximum(size * size - pn * pn, 0.0))
+        mc = mass * constants.c
+        # E(p) - E(p_t) = p_n^2 c^2 / (E(p) + E(p_t)), free of cancellation
+        normal_eV = np.where(ok, pn * pn / (np.hypot(size, mc) + np.hypot(pt, mc))
+                             * constants.c / constants.e, np.nan)
+    return angle, normal_eV
 
 
 def _fill_state(rec, rows):

@@ -325,6 +325,93 @@ def first_hit(z, r, dz, dr, kind, owner, start, count, points, sector, bbox):
     return best, who
 
 
+@njit(cache=True, error_model="numpy")
+def _edge_normal(z, r, az, ar, bz, br, sign):
+    """Distance from (z, r) to segment a-b and its unit normal (rotated clockwise from a-b,
+    times ``sign``); distance inf for a segment of no length."""
+    ez = bz - az
+    er = br - ar
+    length2 = ez * ez + er * er
+    if length2 == 0.0:
+        return math.inf, 0.0, 0.0
+    t = min(1.0, max(0.0, ((z - az) * ez + (r - ar) * er) / length2))
+    length = math.sqrt(length2)
+    return math.hypot(z - az - t * ez, r - ar - t * er), sign * er / length, -sign * ez / length
+
+
+@njit(cache=True, error_model="numpy")
+def surface_normal(z, r, electrode, axis, kind, owner, start, count, points, sector, bbox):
+    """Outward unit normal (n_z, n_r) of the surface of an electrode nearest a point.
+
+    Parameters
+    ----------
+    z, r : float
+        A point on (or near) the electrode's surface, e.g. where a ray landed.
+    electrode : int
+        The electrode's index.
+    axis : bool
+        True when r = 0 is the axis or a mirror plane: boundary pieces lying on it are not
+        surfaces and are skipped.
+    kind, owner, start, count, points, sector, bbox
+        ``ShapeTable.arrays()``.
+
+    Returns
+    -------
+    (n_z, n_r) : float
+        Pointing out of the conductor; (0, 0) when the electrode has no surface.  Polygon edges
+        take their outward side from the polygon's orientation; a sector's arcs are radial, its
+        straight sides tangential.
+    """
+    best, nz, nr = math.inf, 0.0, 0.0
+    for j in range(kind.size):
+        if owner[j] != electrode:
+            continue
+        if kind[j] == POLYGON:
+            s, n = start[j], count[j]
+            area = 0.0
+            for i in range(n):
+                a, b = s + (i - 1) % n, s + i
+                area += points[a, 0] * points[b, 1] - points[b, 0] * points[a, 1]
+            sign = 1.0 if area >= 0.0 else -1.0
+            for i in range(n):
+                a, b = s + (i - 1) % n, s + i
+                if axis and points[a, 1] == 0.0 and points[b, 1] == 0.0:
+                    continue
+                d, ez, er = _edge_normal(z, r, points[a, 0], points[a, 1], points[b, 0],
+                                         points[b, 1], sign)
+                if d < best:
+                    best, nz, nr = d, ez, er
+            continue
+        cz, rho_in, rho_out, lo, hi = sector[j, 0], sector[j, 1], sector[j, 2], sector[j, 3], sector[j, 4]
+        rho = math.hypot(z - cz, r)
+        theta = math.atan2(r, z - cz)
+        if _in_angle(theta, lo, hi) and rho > 0.0:
+            for radius, sign in ((rho_out, 1.0), (rho_in, -1.0)):
+                if radius > 0.0 and abs(rho - radius) < best:
+                    best, nz, nr = abs(rho - radius), sign * (z - cz) / rho, sign * r / rho
+        if hi - lo < _TWO_PI - _ANGLE_TOL:
+            for a, sign in ((lo, -1.0), (hi, 1.0)):
+                c, s_ = math.cos(a), math.sin(a)
+                # the straight side from rho_in to rho_out at angle a; outward turns away from the sector
+                d = _edge_normal(z, r, cz + rho_in * c, rho_in * s_, cz + rho_out * c,
+                                 rho_out * s_, 1.0)[0]
+                if d < best:
+                    best, nz, nr = d, -sign * s_, sign * c
+    return nz, nr
+
+
+@njit(cache=True, error_model="numpy")
+def surface_normals(z, r, electrode, axis, kind, owner, start, count, points, sector, bbox):
+    """:func:`surface_normal` at many points (arrays); (0, 0) where ``electrode`` is -1."""
+    nz = np.zeros(z.size)
+    nr = np.zeros(z.size)
+    for k in range(z.size):
+        if electrode[k] >= 0:
+            nz[k], nr[k] = surface_normal(z[k], r[k], electrode[k], axis, kind, owner, start,
+                                          count, points, sector, bbox)
+    return nz, nr
+
+
 # ----------------------------------------------------------------------------------------------
 # building the table
 

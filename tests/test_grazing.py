@@ -1,0 +1,114 @@
+"""Tests of the events at the edges of motion: landings (their angle of incidence and normal
+energy), rays that touch metal with almost no normal energy, rays that turn a hair beyond (or short
+of) a detector plane, and detector planes at an angle.
+
+The retarding field is the exact uniform field between two plates (``test_trace.linear_map``: a
+bicubic patch reproduces a linear potential, and the map continues it inside the plates, as a
+solved map's interpolant continues into its conductors); the barrier and the turning points then
+follow from energy conservation alone (common practice), with the transverse momentum conserved.
+"""
+
+import math
+
+import numpy as np
+import pytest
+from scipy import constants
+from test_trace import GAP, PLATES, linear_map
+
+from tracer.beam import trace
+from tracer.config import loads
+from tracer.sources import START_DTYPE
+
+C = constants.c
+E = constants.e
+FRONT_V = -10.0     # the front plate (z >= GAP) retards electrons: a 10 eV barrier at z = GAP
+
+
+def retarding(cell_mm, extra=""):
+    """Electrons against a plate 10 V below the back plate; the field between them is uniform."""
+    text = PLATES.format(volts=FRONT_V, species="e-", energy=1.0, count=1, angle=0.0, extra=extra)
+    setup = loads(text.replace("cell_mm = 0.5", f"cell_mm = {cell_mm}").replace("r_mm = 5.0", "r_mm = 8.0"))
+    return linear_map(setup, FRONT_V), setup
+
+
+def momentum(ke_eV, mass):
+    """Relativistic momentum of kinetic energy ke (kg m/s)."""
+    ke = ke_eV * E
+    return math.sqrt(ke * (ke + 2.0 * mass * C * C)) / C
+
+
+def aimed(mass, z0, normal_eV, angle_deg, x0):
+    """Electrons from (x0, 0, z0) at angle_deg from +z (towards +x) whose kinetic energy in the
+    motion along z is ``normal_eV`` (one ray per value): the energy above the rest energy of the
+    transverse motion, so that where pz = 0 the kinetic energy is exactly the transverse one."""
+    n = len(normal_eV)
+    s = np.zeros(n, START_DTYPE)
+    s["ray"] = np.arange(n)
+    s["x_m"], s["z_m"] = x0, z0
+    a = math.radians(angle_deg)
+    for k, en in enumerate(normal_eV):
+        # pz = p cos a, px = p sin a; the energy with px alone is sqrt((px c)^2 + (mc^2)^2):
+        # solve E(p) - E(p sin a) = en for p by bisection on the monotone difference
+        mc2 = mass * C * C
+
+        def gap(p):
+            return (math.hypot(p * C, mc2) - math.hypot(p * math.sin(a) * C, mc2)) / E - en
+
+        lo, hi = 0.0, 10.0 * momentum(en / max(math.cos(a) ** 2, 1e-12), mass)
+        for _ in range(200):
+            mid = 0.5 * (lo + hi)
+            lo, hi = (mid, hi) if gap(mid) < 0.0 else (lo, mid)
+        p = 0.5 * (lo + hi)
+        s["px"][k], s["pz"][k] = p * math.sin(a), p * math.cos(a)
+        s["energy_eV"][k] = (math.hypot(p * C, mc2) - mc2) / E
+    return s
+
+
+def barrier_eV(z):
+    """Potential energy (eV) of an electron at z in the uniform field between the plates."""
+    return -FRONT_V * z / GAP
+
+
+@pytest.mark.parametrize("angle_deg", (30.0, 60.0))
+def test_landings_report_their_incidence_and_normal_energy(angle_deg):
+    """Electrons landing on a retarding plate: the landing's normal energy is what the barrier
+    left of the motion along z, and its angle of incidence that of the momentum (px conserved)
+    against the surface normal (energy conservation in a uniform field: common practice)."""
+    field, setup = retarding(0.2)
+    sp = setup.beams[0].species
+    z0 = GAP - 1.5e-3
+    deltas = np.logspace(-3.0, 1.0, 9)
+    s = aimed(sp.mass_kg, z0, barrier_eV(GAP) - barrier_eV(z0) + deltas, angle_deg, -3e-3)
+    rec = trace(field, setup.beams[0], starts=s).records
+    assert list(rec["electrode"]) == ["front"] * len(deltas)
+    assert np.allclose(rec["normal_energy_eV"], deltas, rtol=1e-6, atol=1e-9)
+    pz = np.array([math.sqrt(momentum(e, sp.mass_kg) ** 2 - px * px) for e, px in zip(rec["energy_eV"], s["px"])])
+    assert np.allclose(rec["incidence_deg"], np.degrees(np.arctan2(np.abs(s["px"]), pz)), rtol=1e-7)
+    left = trace(field, setup.beams[0], starts=aimed(sp.mass_kg, z0, [0.5], angle_deg, -3e-3)).records
+    assert left["status"][0] != "landed" or left["electrode"][0] == "back"
+    assert np.isnan(left["incidence_deg"][0]) == (left["status"][0] != "landed")
+
+
+def test_surface_normals_point_out_of_every_shape():
+    """Outward normals of a rect, a polygon given clockwise and an annular sector (its outer and
+    inner arcs radial, its straight sides tangential), at points on each face (analytic
+    geometry); axis pieces are not surfaces."""
+    from tracer.geometry import shape_table, surface_normal
+    from tracer.schema import Arc, Domain, Electrode, Polygon, Rect
+    domain = Domain("axial", (0.0, 0.1), (0.0, 0.05), 1e-3, ("ground", "ground", "axis", "ground"))
+    shapes = (Rect((0.01, 0.02), (0.0, 0.01)),
+              Polygon(((0.03, 0.01), (0.03, 0.02), (0.04, 0.02), (0.04, 0.01))),   # clockwise
+              Arc(0.07, (0.01, 0.02), (math.radians(30.0), math.radians(120.0))))
+    table = shape_table([Electrode(f"e{k}", 0.0, (s,)) for k, s in enumerate(shapes)], domain)
+    c30, s30 = math.cos(math.radians(30.0)), math.sin(math.radians(30.0))
+    c120, s120 = math.cos(math.radians(120.0)), math.sin(math.radians(120.0))
+    cases = [(0, 0.01, 0.005, (-1.0, 0.0)), (0, 0.02, 0.005, (1.0, 0.0)), (0, 0.015, 0.01, (0.0, 1.0)),
+             (0, 0.0151, 0.0, (1.0, 0.0)),       # on the axis, which is no surface: the face z = 0.02
+             (1, 0.03, 0.015, (-1.0, 0.0)), (1, 0.035, 0.02, (0.0, 1.0)), (1, 0.035, 0.01, (0.0, -1.0)),
+             (2, 0.07 + 0.02 * math.cos(1.2), 0.02 * math.sin(1.2), (math.cos(1.2), math.sin(1.2))),
+             (2, 0.07 + 0.01 * math.cos(1.2), 0.01 * math.sin(1.2), (-math.cos(1.2), -math.sin(1.2))),
+             (2, 0.07 + 0.015 * c30, 0.015 * s30, (s30, -c30)),
+             (2, 0.07 + 0.015 * c120, 0.015 * s120, (-s120, c120))]
+    for k, z, r, want in cases:
+        assert surface_normal(z, r, k, True, *table.arrays()) == pytest.approx(want, abs=1e-12), (k, z, r)
+    assert surface_normal(0.0151, 0.0, 0, False, *table.arrays()) == pytest.approx((0.0, -1.0))
