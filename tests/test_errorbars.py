@@ -379,3 +379,27 @@ def test_lens_warning_names_the_property(tmp_path):
     assert bars.cells_m == pytest.approx((0.5e-3, 1e-3))
     line = next(w for w in bars.warnings if w.startswith("f_image_m"))
     assert "would bring it under (now 0.5)" in line
+
+
+def test_scan_rows_with_grid_errors(tmp_path):
+    """``scan_rows = true``: every figure column has a ``<figure>_grid`` column, the landing energy's
+    at round-off in the uniform field (as in a run), equal to what a run at that voltage reports;
+    without it the table is as before."""
+    from tracer.scans import scan
+
+    text = UNIFORM.format(count=20, extra="[scan]\nplate = [-1000.0, -500.0, 2]\n")
+    plain = scan(loads(text), workers=1)
+    assert not any(name.endswith("_grid") for name in plain.table.dtype.names)
+    setup = loads(text + "[grid_error]\nscan_rows = true\nrays = 10\n")
+    result = scan(setup, workers=1, out=tmp_path)
+    figures = [n for n in result.table.dtype.names if n != "plate_V" and not n.endswith("_grid")]
+    assert [f"{n}_grid" for n in figures] == [n for n in result.table.dtype.names if n.endswith("_grid")]
+    assert np.all(result.table["landing_mean_eV_grid"] <= 1e-9 * result.table["landing_mean_eV"])
+    assert result.config_hash != plain.config_hash
+    one = run(dataclasses.replace(setup, grid_error=dataclasses.replace(setup.grid_error, rays=10)))
+    bar = next(f for f in one.errors.beams["p"].figures if f.where == "mid" and f.figure == "rms_radius_m")
+    row = result.table[result.table["plate_V"] == -1000.0][0]
+    assert row["spot_rms_m_grid"] == pytest.approx(bar.grid.error, rel=1e-9, abs=1e-15)
+    from tracer.plot import plot_scan
+
+    assert [p.name for p in plot_scan(result.table, result.names, tmp_path)] == ["scan.png", "scan_plate.png"]

@@ -39,7 +39,7 @@ Keys (defaults in brackets; "r" stands for "y" in a domain with y_mm)::
                  max_iterations [50], tolerance [1e-3], species ["e-"]
     [optics]     species, energy_eV, object_z_mm [at infinity]
     [grid_error] grids 1|2|3 [2], third "coarse"|"fine" ["coarse"], safety [Roache's: 3, or 1.25
-                 with an order confirmed], rays [256], warn_fraction [0.01]
+                 with an order confirmed], rays [256], warn_fraction [0.01], scan_rows [false]
 """
 
 from __future__ import annotations
@@ -709,7 +709,7 @@ def _trace(value, path):
 
 
 def _grid_error(value, path):
-    t = _Table(value, path, ("grids", "third", "safety", "rays", "warn_fraction"))
+    t = _Table(value, path, ("grids", "third", "safety", "rays", "warn_fraction", "scan_rows"))
     d = GridErrorSpec()
     grids = t.get("grids", _integer, default=d.grids, low=1)
     if grids not in GRIDS:
@@ -720,6 +720,7 @@ def _grid_error(value, path):
         safety=t.get("safety", _number, default=d.safety, low=1.0),
         rays=t.get("rays", _integer, default=d.rays, low=2),
         warn_fraction=t.get("warn_fraction", _fraction, default=d.warn_fraction),
+        scan_rows=t.get("scan_rows", _boolean, default=d.scan_rows),
     )
 
 

@@ -50,7 +50,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from tracer import gridcheck
+from tracer import gridcheck, ledger, measure
 from tracer.sources import START_DTYPE
 
 BATCHES = 10
@@ -188,15 +188,18 @@ def subset(run, positions):
     Returns
     -------
     tracer.beam.BeamRun
-        Without paths.
+        Without paths; its ledger report is that of these rays.
     """
     k = len(positions)
     starts, records = run.starts[positions].copy(), run.records[positions].copy()
     starts["ray"] = records["ray"] = np.arange(k)
     cross = run.crossings[np.isin(run.crossings["ray"], positions)].copy()
     cross["ray"] = np.searchsorted(positions, cross["ray"])
+    scale = np.asarray(run.energy_scale_eV)[positions]
+    report = ledger.ledger_report(records["ledger_eV"], scale, run.ledger.threshold,
+                                  traced=records["status"] != "inside")
     return dataclasses.replace(run, starts=starts, records=records, crossings=cross, paths=(),
-                               energy_scale_eV=np.asarray(run.energy_scale_eV)[positions])
+                               energy_scale_eV=scale, ledger=report)
 
 
 def figures(summary):
@@ -346,9 +349,9 @@ def beam_bars(run, others, setup, rays):
     for key, value in full.items():
         values = [fine.get(key, math.nan)] + [c.get(key, math.nan) for c in coarse]
         if len(values) == 2:
-            grid = gridcheck.two_grids(*values, **_safety(spec))
+            grid = gridcheck.two_grids(*values, **_safety_of(spec.safety))
         else:
-            grid = gridcheck.three_grids(*values, third_coarser=spec.third == "coarse", **_safety(spec))
+            grid = gridcheck.three_grids(*values, third_coarser=spec.third == "coarse", **_safety_of(spec.safety))
         bars.append(FigureBar(*key, value=value, grid=grid, monte_carlo=mc.get(key, math.nan)))
     return BeamBars(beam=run.name, rays=rays, figures=tuple(bars),
                     warnings=warnings(run.name, bars, full, setup.domain.cell_m, spec.warn_fraction,
@@ -359,8 +362,6 @@ def _extent(domain):
     return max(domain.z_m[1] - domain.z_m[0], domain.r_m[1] - domain.r_m[0])
 
 
-def _safety(spec):
-    return {} if spec.safety is None else {"safety": spec.safety}
 
 
 def estimate(setup, runs, voltages=None, *, solve, trace, progress=None):
@@ -405,6 +406,38 @@ def estimate(setup, runs, voltages=None, *, solve, trace, progress=None):
     h = setup.domain.cell_m
     return ErrorBars(cells_m=(h,) + tuple(h * f for f in factors), beams=bars,
                      seconds=time.perf_counter() - t0)
+
+
+def row_errors(run, trace_coarse, electrodes, rays, safety=None):
+    """The grid error of each figure of a scan row (:func:`tracer.measure.row`), two grids.
+
+    Parameters
+    ----------
+    run : tracer.beam.BeamRun
+        The beam traced at one voltage set on the config's cell.
+    trace_coarse : callable
+        ``trace_coarse(starts)`` -> the BeamRun of those start states through the 2h map at the
+        same voltages.
+    electrodes : sequence of str
+        All electrode names (as for :func:`tracer.measure.row`).
+    rays : int
+        Rays traced again (:func:`picked`).
+    safety : float, optional
+        The GCI's safety factor (default 3).
+
+    Returns
+    -------
+    tuple of float
+        In the order of the row.
+    """
+    positions = picked(len(run.records), rays)
+    fine = measure.row(subset(run, positions), electrodes)
+    coarse = measure.row(trace_coarse(_start_rows(run, positions)), electrodes)
+    return tuple(gridcheck.gci(f, c, **_safety_of(safety)) for f, c in zip(fine, coarse))
+
+
+def _safety_of(safety):
+    return {} if safety is None else {"safety": safety}
 
 
 def _start_rows(run, positions):
@@ -486,7 +519,7 @@ def optics_bars(props, others, third_coarser=True, safety=None):
     dict of str to tracer.gridcheck.GridError
         For each of :data:`LENS_FIGURES` that is finite on the config's cell.
     """
-    kw = {} if safety is None else {"safety": safety}
+    kw = _safety_of(safety)
     out = {}
     for name in LENS_FIGURES:
         value = getattr(props, name)

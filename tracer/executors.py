@@ -78,6 +78,11 @@ class Context:
         The varied electrodes, in the order of a voltage set's values.
     rtol, max_time_s : float
         Trace options.
+    coarse : tracer.fieldmap.BasisMaps or None
+        The maps on twice the cell: each figure then gets its grid error, a column
+        ``<figure>_grid`` after all the figures (:func:`tracer.errorbars.row_errors`).
+    rays, safety : int, float or None
+        Rays traced again through the coarse maps, and the GCI's safety factor (None: 3).
     """
 
     maps: object
@@ -86,17 +91,22 @@ class Context:
     names: tuple
     rtol: float
     max_time_s: float
+    coarse: object = None
+    rays: int = 256
+    safety: float | None = None
 
     @classmethod
-    def of(cls, setup, maps, names, planes=None, beams=None):
+    def of(cls, setup, maps, names, planes=None, beams=None, coarse=None):
         """The context of a setup (planes and beams default to the setup's)."""
         return cls(maps, tuple(setup.beams if beams is None else beams),
                    tuple(setup.planes if planes is None else planes), tuple(names),
-                   setup.trace.rtol, setup.trace.max_time_s)
+                   setup.trace.rtol, setup.trace.max_time_s, coarse, setup.grid_error.rays,
+                   setup.grid_error.safety)
 
     @property
     def columns(self):
-        return measure.columns([b.name for b in self.beams], [p.name for p in self.planes], self.maps.names)
+        figures = measure.columns([b.name for b in self.beams], [p.name for p in self.planes], self.maps.names)
+        return figures + (() if self.coarse is None else tuple(f"{c}_grid" for c in figures))
 
     def run(self, voltages):
         """Measure one voltage set.
@@ -109,15 +119,23 @@ class Context:
         """
         from tracer.beam import trace
 
-        field = self.maps.combine(dict(zip(self.names, (float(v) for v in voltages))))
-        figures, trace_s = [], 0.0
+        from tracer.errorbars import row_errors
+
+        voltages = dict(zip(self.names, (float(v) for v in voltages)))
+        field = self.maps.combine(voltages)
+        coarse = None if self.coarse is None else self.coarse.combine(voltages)
+        figures, errors, trace_s = [], [], 0.0
         for beam in self.beams:
             with _TRACE_LOCK:
                 t0 = time.perf_counter()
                 run = trace(field, beam, planes=self.planes, rtol=self.rtol, max_time_s=self.max_time_s)
+                if coarse is not None:
+                    errors += row_errors(run, lambda starts, b=beam: trace(
+                        coarse, b, planes=self.planes, rtol=self.rtol, max_time_s=self.max_time_s,
+                        starts=starts), self.maps.names, self.rays, self.safety)
                 trace_s += time.perf_counter() - t0
             figures += measure.row(run, self.maps.names)
-        return np.array(figures, dtype=np.float64), trace_s
+        return np.array(figures + errors, dtype=np.float64), trace_s
 
 
 def _exit_with_parent():

@@ -56,7 +56,8 @@ def config_hash(setup, names, sets) -> str:
 
     The geometry (``Setup.geometry_hash``), every electrode voltage, the beams (a rays file by its
     content), the planes, the trace options that change results (``rtol``, ``max_time_s``), the
-    varied electrodes, the voltage sets (exact floats), the table format and the tracer version.
+    varied electrodes, the voltage sets (exact floats), the table format and the tracer version;
+    with grid errors per row, their rays and safety factor.
     Title, paths, plots and the ``[tune]``, ``[gun]``, ``[optics]`` sections are left out.
     """
     payload = {
@@ -65,6 +66,9 @@ def config_hash(setup, names, sets) -> str:
         "rtol": setup.trace.rtol, "max_time_s": setup.trace.max_time_s, "names": list(names),
         "sets": np.ascontiguousarray(sets, dtype=np.float64).tobytes().hex(),
     }
+    spec = setup.grid_error
+    if spec.scan_rows and spec.grids > 1:            # grid error columns (absent: the hash as before)
+        payload["grid_error"] = [spec.rays, spec.safety]
     text = json.dumps(payload, sort_keys=True, separators=(",", ":"), allow_nan=False)
     return hashlib.sha256(text.encode()).hexdigest()
 

@@ -245,6 +245,9 @@ def _scan_panel(fig, ax, table, names, figure):
         x = table[f"{names[0]}_V"]
         order = np.argsort(x, kind="stable")
         ax.plot(x[order], v[order], marker=".", lw=1)
+        if f"{figure}_grid" in table.dtype.names:      # the grid error of each set, as a band
+            err = table[f"{figure}_grid"][order] * factor
+            ax.fill_between(x[order], v[order] - err, v[order] + err, alpha=0.3, lw=0, label="± grid")
         ax.set_xlabel(f"{names[0]} (V)")
         ax.set_ylabel(label, fontsize=8)
         return
@@ -264,7 +267,8 @@ def plot_scan(table, names, out, title=None) -> list[Path]:
 
     One PNG per group of columns that share a prefix (``scan.png`` for the unprefixed figures,
     ``scan_<prefix>.png`` for the others, see :mod:`tracer.measure`), one panel per figure; figures
-    that are NaN at every set are left out.
+    that are NaN at every set are left out.  A figure's grid error (its ``<figure>_grid`` column,
+    ``[grid_error] scan_rows``) is drawn as a band about its curve, not as a panel of its own.
 
     Parameters
     ----------
@@ -284,7 +288,7 @@ def plot_scan(table, names, out, title=None) -> list[Path]:
         return []
     groups = {}
     for figure in table.dtype.names[len(names):]:
-        if np.isfinite(table[figure]).any():
+        if np.isfinite(table[figure]).any() and not figure.endswith("_grid"):
             groups.setdefault(figure.rpartition(".")[0], []).append(figure)
     files = []
     for prefix, figures in groups.items():

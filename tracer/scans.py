@@ -9,7 +9,10 @@ bit for bit, whichever ran them.  Each finished row goes to the scan's journal
 
 The table's columns are the varied voltages, ``<electrode>_V``, then the figures of each beam
 (:func:`tracer.measure.columns`; the module notes of :mod:`tracer.measure` name them and say which
-crossings of a plane count).
+crossings of a plane count).  With ``[grid_error] scan_rows = true`` the maps are solved once more
+on twice the cell and every figure gets its grid error, a column ``<figure>_grid`` after the figures
+(two grids, Roache's GCI; :func:`tracer.errorbars.row_errors`): each set then traces
+``[grid_error] rays`` rays of each beam again through the coarse maps.
 
 Files (when ``out`` is given)
 -----------------------------
@@ -93,7 +96,8 @@ class ScanResult(Shown):
     ----------
     table : numpy structured array
         One row per voltage set, in scan order: ``<electrode>_V`` per varied electrode, then the
-        figures (:mod:`tracer.measure` names them).
+        figures (:mod:`tracer.measure` names them), then with ``[grid_error] scan_rows`` their
+        grid errors (``<figure>_grid``).
     names : tuple of str
         The varied electrodes.
     config_hash : str
@@ -193,7 +197,13 @@ def scan(setup: Setup, maps: BasisMaps | None = None, executor: Executor | None 
         maps = solve(setup, cache_dir=cache_dir)
     elif maps.geometry_hash != setup.geometry_hash():
         raise ValueError("the basis maps were solved for a different geometry than the setup's")
-    context = Context.of(setup, maps, names)
+    coarse = None
+    if setup.grid_error.scan_rows and setup.grid_error.grids > 1:
+        from tracer.errorbars import with_cell
+        from tracer.pipeline import solve
+
+        coarse = solve(with_cell(setup, 2.0), cache_dir=cache_dir)
+    context = Context.of(setup, maps, names, coarse=coarse)
     header = tuple(f"{n}_V" for n in names) + context.columns
     digest = config_hash(setup, names, sets)
     rows = Rows(None if out is None else Path(out), digest, header, sets)

@@ -375,6 +375,8 @@ class GridErrorSpec:
     warn_fraction : float
         A figure whose grid error exceeds this fraction of itself (of its spread, for a mean,
         when that is larger; of 1 for a fraction of rays) gets a warning.
+    scan_rows : bool
+        Whether ``tracer scan`` gives every figure of every row its grid error (two grids).
     """
 
     grids: int = 2
@@ -382,6 +384,7 @@ class GridErrorSpec:
     safety: float | None = None
     rays: int = 256
     warn_fraction: float = 0.01
+    scan_rows: bool = False
 
 
 @dataclass(frozen=True)
