@@ -9,6 +9,8 @@ from scipy.integrate import solve_ivp
 from scipy.integrate._ivp.rk import RK45
 
 from tracer import motion
+from tracer.motion import bundles, events, force, stepper, tableau, walls
+from tracer.motion.bundles import Nodes, shapes_of
 from tracer.beam import symmetry_code, trace
 from tracer.config import loads
 from tracer.fieldmap import PotentialMap, hermite_eval_many, patch_coefficients
@@ -79,51 +81,149 @@ def smooth_map(symmetry="axial", cell_mm=0.5):
 def test_tableau_matches_scipy_rk45():
     """The Dormand–Prince 5(4) coefficients (Dormand & Prince 1980) equal scipy's RK45 tableau
     (library: scipy.integrate.RK45, which implements the same pair)."""
-    assert np.allclose(motion.DP_C[:6], RK45.C, rtol=0, atol=1e-15)
-    assert np.allclose(motion.DP_A[:6, :5], RK45.A, rtol=0, atol=1e-15)
-    assert np.allclose(motion.DP_B[:6], RK45.B, rtol=0, atol=1e-15)
-    assert np.allclose(motion.DP_A[6], RK45.B, rtol=0, atol=1e-15)
+    assert np.allclose(tableau.DP_C[:6], RK45.C, rtol=0, atol=1e-15)
+    assert np.allclose(tableau.DP_A[:6, :5], RK45.A, rtol=0, atol=1e-15)
+    assert np.allclose(tableau.DP_B[:6], RK45.B, rtol=0, atol=1e-15)
+    assert np.allclose(tableau.DP_A[6], RK45.B, rtol=0, atol=1e-15)
     # scipy's E is (b_hat - b), ours is (b - b_hat)
-    assert np.allclose(motion.DP_E, -RK45.E, rtol=0, atol=1e-15)
+    assert np.allclose(tableau.DP_E, -RK45.E, rtol=0, atol=1e-15)
+
+
+def rooted_trees(order):
+    """All rooted trees with ``order`` nodes, each a sorted tuple of its root's subtrees."""
+    if order == 1:
+        return [()]
+    out = set()
+
+    def grow(rest, smallest, kids):
+        if rest == 0:
+            out.add(tuple(sorted(kids)))
+            return
+        for size in range(1, rest + 1):
+            for sub in rooted_trees(size):
+                if (size, sub) >= smallest:
+                    grow(rest - size, (size, sub), kids + [(size, sub)])
+
+    grow(order - 1, (0, ()), [])
+    return [tuple(sub for _, sub in kids) for kids in out]
+
+
+def tree_weight(a, tree):
+    """The stage vector of a tree: the product over its subtrees u of A (stage vector of u)."""
+    phi = np.ones(a.shape[0])
+    for sub in tree:
+        phi = phi * (a @ tree_weight(a, sub))
+    return phi
+
+
+def tree_density(tree):
+    """gamma(t) = |t| times the product of its subtrees' densities; returns (gamma, |t|)."""
+    gamma, size = 1, 1
+    for sub in tree:
+        g, n = tree_density(sub)
+        gamma, size = gamma * g, size + n
+    return gamma * size, size
 
 
 def test_tableau_order_conditions():
-    """Row sums equal the nodes, and the fifth-order weights satisfy the order conditions of the
-    bushy and tall trees up to order 5 (Butcher's conditions; Hairer, Norsett & Wanner 1993)."""
-    a, b, c = motion.DP_A, motion.DP_B, motion.DP_C
-    assert np.allclose(a.sum(axis=1), c[:, None].ravel(), atol=1e-14)
-    for k in range(1, 6):
-        assert b @ c ** (k - 1) == pytest.approx(1.0 / k, abs=1e-14)
-    assert b @ (np.pad(a, ((0, 0), (0, 1))) @ c) == pytest.approx(1 / 6, abs=1e-14)
-    # the embedded weights are fourth order: they satisfy up to k = 4 but differ from b
-    bh = motion.DP_B_HAT
-    for k in range(1, 5):
-        assert bh @ c ** (k - 1) == pytest.approx(1.0 / k, abs=1e-14)
-    assert np.abs(motion.DP_E).max() > 1e-3
+    """Row sums equal the nodes; the fifth-order weights satisfy b . Phi(t) = 1 / gamma(t) for every
+    rooted tree t of up to 5 nodes (17 conditions) and the embedded weights for every tree of up to
+    4 (8), but not all of order 5 (Butcher's order conditions; Hairer, Nørsett & Wanner 1993,
+    sec. II.2, theorem 2.13; the tree counts 1, 1, 2, 4, 9 are OEIS A000081)."""
+    a, b, c = tableau.DP_A, tableau.DP_B, tableau.DP_C
+    a7 = np.pad(a, ((0, 0), (0, 1)))
+    assert np.allclose(a7.sum(axis=1), c, atol=1e-14)
+    assert [len(rooted_trees(k)) for k in range(1, 6)] == [1, 1, 2, 4, 9]
+    missed = []
+    for order in range(1, 6):
+        for tree in rooted_trees(order):
+            gamma, size = tree_density(tree)
+            assert size == order
+            assert b @ tree_weight(a7, tree) == pytest.approx(1.0 / gamma, abs=1e-14), tree
+            hat = tableau.DP_B_HAT @ tree_weight(a7, tree)
+            if order <= 4:
+                assert hat == pytest.approx(1.0 / gamma, abs=1e-14), tree
+            elif abs(hat - 1.0 / gamma) > 1e-6:
+                missed.append(tree)
+    assert missed      # the embedded pair is of order 4, not 5
+    assert np.abs(tableau.DP_E).max() > 1e-3
+
+
+def test_step_size_controller():
+    """The controller of an embedded pair of order 4 (Hairer, Nørsett & Wanner 1993, sec. II.4:
+    h_new = h min(facmax, max(facmin, fac err^(-1/5))), from memory): a rejected step shrinks by
+    0.9 err^(-1/5) but never below a fifth; a small error grows the step at most fivefold, counted
+    from the earlier proposal when the step was shortened to reach a wall."""
+    propose = stepper.propose
+    h = 1e-9
+    assert propose(h, h, 32.0) == pytest.approx(h * 0.9 / 2.0, rel=1e-14)       # 32^-1/5 = 1/2
+    assert propose(h, h, 1e12) == pytest.approx(0.2 * h, rel=1e-14)
+    assert propose(h, h, np.nan) == pytest.approx(0.2 * h, rel=1e-14)       # a non-finite step
+    assert propose(h, h, np.inf) == pytest.approx(0.2 * h, rel=1e-14)
+    assert propose(h, 2 * h, 1.5) <= h                                          # never longer
+    assert propose(h, h, 1.0) == pytest.approx(0.9 * h, rel=1e-14)
+    assert propose(h, h, 1.0 / 32.0) == pytest.approx(1.8 * h, rel=1e-14)
+    assert propose(h, h, 0.0) == pytest.approx(5.0 * h, rel=1e-14)
+    assert propose(h, h, 1e-30) == pytest.approx(5.0 * h, rel=1e-14)
+    # a step shortened to a wall at a tenth of the proposal: the cap is five times the proposal
+    assert propose(0.1 * h, h, 0.0) == pytest.approx(5.0 * h, rel=1e-14)
+    assert propose(0.1 * h, h, 1.0) == pytest.approx(0.09 * h, rel=1e-14)
+
+
+def dense_of(poly):
+    """Dense-output coefficients rc (5 x 6) whose z row is the polynomial ``poly`` of theta
+    (numpy.polynomial coefficients, degree <= 4), the other rows zero."""
+    thetas = np.linspace(0.0, 1.0, 5)
+    u = 1.0 - thetas
+    basis = np.stack([np.ones(5), thetas, thetas * u, thetas**2 * u, thetas**2 * u**2], axis=1)
+    rc = np.zeros((5, 6))
+    rc[:, 2] = np.linalg.solve(basis, np.polynomial.polynomial.polyval(thetas, poly))
+    return rc
+
+
+def test_plane_crossing_on_a_known_cubic():
+    """The event bisection finds where a cubic z(theta) = z_p + s (theta - 0.3)(theta^2 + 1)
+    crosses the plane z = z_p (its one real root, 0.3; calculus), rising and falling, to 2^-48 of
+    the step, and reports no event before it."""
+    field, _ = smooth_map()
+    shapes = shapes_of(field.table)
+    buf = np.empty(6)
+    zp = 12e-3
+    for sign in (1.0, -1.0):
+        # (theta - 0.3)(theta^2 + 1) = theta^3 - 0.3 theta^2 + theta - 0.3
+        rc = dense_of(np.array([zp - sign * 0.3e-3, sign * 1e-3, -sign * 0.3e-3, sign * 1e-3]))
+        stepper.dense(rc, 0.3, buf)
+        assert buf[2] == pytest.approx(zp, abs=1e-18)
+        th = events.locate(rc, 0, 0.0, 1.0, events.EV_Z, zp, sign > 0, shapes, buf)
+        assert abs(th - 0.3) < 2.0**-47
+        stepper.dense(rc, th, buf)
+        assert events.is_event(events.EV_Z, zp, sign > 0, buf[2], 0.0, shapes)
+        stepper.dense(rc, th - 2.0**-40, buf)        # and not just before it
+        assert not events.is_event(events.EV_Z, zp, sign > 0, buf[2], 0.0, shapes)
 
 
 def lane_steps(rng, h, rtol=1e-9, atol_x=1e-12, atol_p=1e-30):
     """One lane_step of protons from random states in a random cell polynomial: the workspace
     after the step, the right-hand side f(s) -> (rate, V) it used, and the start states."""
     a = tuple(rng.normal(size=16))
-    grid = np.array([0.0, 0.0, 1e-3, 1e-3, 11.0, 11.0, 1e-2, 1e-2])
+    grid = Nodes(0.0, 0.0, 1e-3, 1e-3, 11, 11, 1e-2, 1e-2)
     mass, charge = constants.m_p, constants.e
     row = np.empty((1, 6))
 
     def f(s):
-        v = motion.rate(a, 2e-3, 1e-3, grid, 0, mass, charge, s, row, 0)
+        v = force.rate(a, 2e-3, 1e-3, grid, 0, mass, charge, s, row, 0)
         return row[0].copy(), v
 
-    states = np.empty((motion.LANES, 6))
-    states[:, :3] = [2e-3, 1e-3, 3e-3] + 1e-4 * rng.normal(size=(motion.LANES, 3))
-    states[:, 3:] = [1e-23, -2e-23, 5e-22] * (1.0 + 0.1 * rng.normal(size=(motion.LANES, 3)))
-    w = np.zeros((motion.W_ROWS, motion.LANES))
+    states = np.empty((bundles.LANES, 6))
+    states[:, :3] = [2e-3, 1e-3, 3e-3] + 1e-4 * rng.normal(size=(bundles.LANES, 3))
+    states[:, 3:] = [1e-23, -2e-23, 5e-22] * (1.0 + 0.1 * rng.normal(size=(bundles.LANES, 3)))
+    w = np.zeros((bundles.W_ROWS, bundles.LANES))
     for lane, s in enumerate(states):
-        w[motion.W_Y0:motion.W_Y0 + 6, lane] = s
-        w[motion.W_K:motion.W_K + 6, lane] = f(s)[0]
-        w[motion.W_PATCH:motion.W_PATCH + 16, lane] = a
-    w[motion.W_CZ], w[motion.W_CR], w[motion.W_H], w[motion.W_ATOL] = 2e-3, 1e-3, h, atol_p
-    motion.lane_step(w, grid, 0, mass, charge, rtol, atol_x)
+        w[bundles.W_Y0:bundles.W_Y0 + 6, lane] = s
+        w[bundles.W_K:bundles.W_K + 6, lane] = f(s)[0]
+        w[bundles.W_PATCH:bundles.W_PATCH + 16, lane] = a
+    w[bundles.W_CZ], w[bundles.W_CR], w[bundles.W_H], w[bundles.W_ATOL] = 2e-3, 1e-3, h, atol_p
+    stepper.lane_step(w, grid, 0, mass, charge, rtol, atol_x)
     return w, f, states
 
 
@@ -134,15 +234,15 @@ def test_dense_output_matches_scipy_interpolant():
     w, _, states = lane_steps(np.random.default_rng(3), h)
     out = np.empty(6)
     for lane, y0 in enumerate(states):
-        ks = w[motion.W_K:motion.W_K + 42, lane].reshape(7, 6)
-        rc = np.ascontiguousarray(w[motion.W_DENSE:motion.W_DENSE + 30, lane].reshape(5, 6))
+        ks = w[bundles.W_K:bundles.W_K + 42, lane].reshape(7, 6)
+        rc = np.ascontiguousarray(w[bundles.W_DENSE:bundles.W_DENSE + 30, lane].reshape(5, 6))
         assert np.array_equal(rc[0], y0)
         for theta in (0.0, 0.13, 0.5, 0.77, 1.0):
-            motion.dense(rc, theta, out)
+            stepper.dense(rc, theta, out)
             ref = y0 + h * (ks.T @ RK45.P) @ (theta ** np.arange(1, 5))
             assert np.allclose(out, ref, rtol=1e-13, atol=0)
-        motion.dense(rc, 1.0, out)
-        assert np.allclose(out, w[motion.W_Y1:motion.W_Y1 + 6, lane], rtol=1e-14, atol=0)
+        stepper.dense(rc, 1.0, out)
+        assert np.allclose(out, w[bundles.W_Y1:bundles.W_Y1 + 6, lane], rtol=1e-14, atol=0)
 
 
 def test_lane_step_is_the_tableau_applied_to_the_rate():
@@ -154,17 +254,17 @@ def test_lane_step_is_the_tableau_applied_to_the_rate():
     for lane, y0 in enumerate(states):
         ks = [f(y0)[0]]
         for st in range(1, 7):
-            ks.append(f(y0 + h * (motion.DP_A[st, :st] @ np.array(ks)))[0])
+            ks.append(f(y0 + h * (tableau.DP_A[st, :st] @ np.array(ks)))[0])
         ks = np.array(ks)
-        y1 = w[motion.W_Y1:motion.W_Y1 + 6, lane]
-        assert np.allclose(y1, y0 + h * (motion.DP_B @ ks), rtol=1e-14, atol=0)
-        assert np.allclose(w[motion.W_K:motion.W_K + 42, lane].reshape(7, 6), ks, rtol=1e-12,
+        y1 = w[bundles.W_Y1:bundles.W_Y1 + 6, lane]
+        assert np.allclose(y1, y0 + h * (tableau.DP_B @ ks), rtol=1e-14, atol=0)
+        assert np.allclose(w[bundles.W_K:bundles.W_K + 42, lane].reshape(7, 6), ks, rtol=1e-12,
                            atol=0)
-        assert w[motion.W_V1, lane] == f(y1)[1]
+        assert w[bundles.W_V1, lane] == f(y1)[1]
         scale = np.r_[np.full(3, atol_x), np.full(3, atol_p)] + rtol * np.maximum(abs(y0), abs(y1))
-        err = np.sqrt(np.mean((h * (motion.DP_E @ ks) / scale) ** 2))
-        assert w[motion.W_ERR, lane] == pytest.approx(err, rel=1e-10)
-    assert len({w[motion.W_Y1, lane] for lane in range(motion.LANES)}) == motion.LANES
+        err = np.sqrt(np.mean((h * (tableau.DP_E @ ks) / scale) ** 2))
+        assert w[bundles.W_ERR, lane] == pytest.approx(err, rel=1e-10)
+    assert len({w[bundles.W_Y1, lane] for lane in range(bundles.LANES)}) == bundles.LANES
 
 
 def test_wall_prediction_continues_the_dense_output_and_finds_the_crossing():
@@ -180,36 +280,36 @@ def test_wall_prediction_continues_the_dense_output_and_finds_the_crossing():
     rc[1] = hp * k0
     rc[2:, :3] = rng.normal(scale=1e-7, size=(3, 3))
     q = np.empty((3, 5))
-    motion.reach(rc, hp, y0, k0, constants.m_p, 2e-9, q)
+    walls.reach(rc, hp, y0, k0, constants.m_p, 2e-9, q)
     out = np.empty(6)
     for tau in (0.0, 0.7e-9, 2e-9, 5e-9):
-        motion.dense(rc, 1.0 + tau / hp, out)
-        pred = [motion.series(q, i, tau)[0] for i in range(3)]
+        stepper.dense(rc, 1.0 + tau / hp, out)
+        pred = [walls.series(q, i, tau)[0] for i in range(3)]
         assert np.allclose(pred, out[:3], rtol=1e-12, atol=1e-15)
-    grid = np.array([0.0, 0.0, 0.25e-3, 0.25e-3, 241.0, 33.0, 60e-3, 8e-3])
+    grid = Nodes(0.0, 0.0, 0.25e-3, 0.25e-3, 241, 33, 60e-3, 8e-3)
     tol = 2.5e-8
     box = np.empty(4)
     for h, crosses in ((2e-9, True), (0.5e-9, False)):
-        motion.cell_box(grid, 80, 4, box)
-        tau = motion.exit_time(q, y0, k0, 0, box, h, tol)
+        walls.cell_box(grid, 80, 4, box)
+        tau = walls.exit_time(q, y0, k0, 0, box, h, tol)
         if not crosses:
             assert tau == h          # the path stays inside the cell for the whole step
             continue
         assert 0.0 < tau < h
-        z = motion.series(q, 2, tau)[0]
+        z = walls.series(q, 2, tau)[0]
         assert abs(z - box[1]) < tol
         # the path is inside the cell before the crossing
-        zs = [motion.series(q, 2, t)[0] for t in np.linspace(0.0, tau, 20)[:-1]]
+        zs = [walls.series(q, 2, t)[0] for t in np.linspace(0.0, tau, 20)[:-1]]
         assert max(zs) < box[1]
     # a ray moving out across the cell's outer wall (r) before it reaches the next z wall
     y0 = np.array([1.2e-3, 0.1e-3, 20.01e-3, 0.0, 0.0, 0.0])
     k0 = np.array([2e5, 1e4, 5e4, 0.0, 0.0, 0.0])
-    motion.reach(rc, 0.0, y0, k0, constants.m_p, 1e-9, q)     # no last step: constant rate
-    motion.cell_box(grid, 80, 4, box)
-    tau = motion.exit_time(q, y0, k0, 0, box, 1e-9, tol)
-    x, y = motion.series(q, 0, tau)[0], motion.series(q, 1, tau)[0]
+    walls.reach(rc, 0.0, y0, k0, constants.m_p, 1e-9, q)     # no last step: constant rate
+    walls.cell_box(grid, 80, 4, box)
+    tau = walls.exit_time(q, y0, k0, 0, box, 1e-9, tol)
+    x, y = walls.series(q, 0, tau)[0], walls.series(q, 1, tau)[0]
     assert 0.0 < tau < 1e-9 and abs(np.hypot(x, y) - box[3]) < tol
-    assert motion.series(q, 2, tau)[0] < box[1]
+    assert walls.series(q, 2, tau)[0] < box[1]
 
 
 def equations(field, mass, charge, sym):
@@ -275,12 +375,10 @@ def test_mirrored_planar_rays_are_mirror_images():
 def test_quiet_cells_keep_the_event_search_near_surfaces_planes_and_edges():
     """Accepted steps skip the event search only in cells at least one cell away from any surface,
     plane and domain edge (steps end on cell walls, so they stay in their cell)."""
-    from tracer.motion import quiet_cells
-
     cell = np.full((12, 10), -1, dtype=np.int64)
     cell[5, 6] = -2                      # a surface passes through this cell
-    grid = np.array([0.0, 0.0, 1e-3, 1e-3, 13, 11, 12e-3, 10e-3])
-    quiet = quiet_cells(cell, grid, np.array([9.5e-3]))     # a plane inside cell 9
+    grid = Nodes(0.0, 0.0, 1e-3, 1e-3, 13, 11, 12e-3, 10e-3)
+    quiet = motion.quiet_cells(cell, grid, np.array([9.5e-3]))     # a plane inside cell 9
     assert not quiet[0].any() and not quiet[-1].any()
     assert not quiet[:, 0].any() and not quiet[:, -1].any()
     assert not quiet[4:7, 5:8].any()     # the cut cell and its eight neighbours
@@ -297,7 +395,7 @@ def test_field_of_a_cell_is_the_map_interpolant_in_3d(sym):
     rng = np.random.default_rng(3)
     hz, hr = 0.2e-3, 0.3e-3
     herm = rng.normal(size=(4, 6, 5)) * np.array([1.0, 1 / hz, 1 / hr, 1 / (hz * hr)])[:, None, None]
-    grid = np.array([0.0, 0.0, hz, hr, 6, 5, 5 * hz, 4 * hr])
+    grid = Nodes(0.0, 0.0, hz, hr, 6, 5, 5 * hz, 4 * hr)
     i, j = 2, 1
     a = patch_coefficients(herm, i, j, hz, hr)
     phi = rng.uniform(0.0, 2 * np.pi, 200)
@@ -306,7 +404,7 @@ def test_field_of_a_cell_is_the_map_interpolant_in_3d(sym):
     one_cell = np.ascontiguousarray(herm[:, i:i + 2, j:j + 2])
     for ph, rk, zk in zip(phi, rho, z):
         x, y = (rk * np.cos(ph), rk * np.sin(ph)) if sym == 0 else (0.0, rk if sym == 1 else -rk)
-        v, ex, ey, ez = motion.patch_field(a, i * hz, j * hr, grid, sym, x, y, zk)
+        v, ex, ey, ez = force.patch_field(a, i * hz, j * hr, grid, sym, x, y, zk)
         # the Hermite patch of a one-cell grid, which hermite_eval continues beyond it
         ref = hermite_eval_many(one_cell, i * hz, j * hr, hz, hr, 2, 2, False, np.array([zk]),
                                 np.array([rk]))

@@ -268,15 +268,14 @@ def trace(field: PotentialMap, beam: Beam, planes: Sequence[Plane] = (), rtol: f
     plane_z = np.array([p.z_m for p in planes], dtype=np.float64)
     plane_stop = np.array([bool(getattr(p, "stop", False)) for p in planes], dtype=np.bool_)
     keep = min(int(keep_paths), n)
-    paths_buf = np.zeros((keep, max(3, int(max_path_points)), 9))
-    grid_vec = np.array([grid.z0, grid.r0, grid.hz, grid.hr, grid.nz, grid.nr, grid.z1, grid.r1],
-                        dtype=np.float64)
+    paths_buf = np.zeros((keep, max(3, int(max_path_points)), motion.ROW_LEN))
+    nodes = motion.nodes_of(grid)
     bounds = np.array([grid.z0, grid.z1, grid.r0, grid.r1], dtype=np.float64)
     state = np.stack([starts[k] for k in ("x_m", "y_m", "z_m", "px", "py", "pz")], axis=1)
     herm = np.ascontiguousarray(field.hermite, dtype=np.float64)
-    geo = tuple(field.table.arrays())
+    shapes = motion.shapes_of(field.table)
     cell_map = np.ascontiguousarray(field.raster.cell)
-    quiet = motion.quiet_cells(cell_map, grid_vec, plane_z)
+    quiet = motion.quiet_cells(cell_map, nodes, plane_z)
     chunk = max(256, -(-n // 20))   # between chunks, progress is shown and Ctrl-C is seen
     parts = []
     for lo in range(0, max(n, 1), chunk):
@@ -284,7 +283,7 @@ def trace(field: PotentialMap, beam: Beam, planes: Sequence[Plane] = (), rtol: f
         group = max(motion.LANES, -(-(hi - lo) // (2 * numba.get_num_threads())))  # two per thread
         try:
             parts.append(motion.trace_rays(
-                np.ascontiguousarray(state[lo:hi]), herm, grid_vec, sym, bounds, cell_map, geo,
+                np.ascontiguousarray(state[lo:hi]), herm, nodes, sym, bounds, cell_map, shapes,
                 float(sp.mass_kg), float(sp.charge_C), float(max_time_s), float(rtol),
                 atol_p[lo:hi], max_step_cells * cell, sample_cells * cell, fine_cells * cell,
                 plane_z, plane_stop, int(max_steps), int(max_crossings),
@@ -298,8 +297,8 @@ def trace(field: PotentialMap, beam: Beam, planes: Sequence[Plane] = (), rtol: f
     final, info, cross_plane, cross_state = (np.concatenate([p[k] for p in parts]) for k in range(4))
 
     names = np.array(list(field.names) + [""])
-    electrode = names[info[:, 1]]          # index -1 picks ""
-    codes = info[:, 0]
+    electrode = names[info[:, motion.C_ELECTRODE]]          # index -1 picks ""
+    codes = info[:, motion.C_CODE]
     inside = codes == motion.INSIDE
     starts["status"] = np.where(inside, "inside", "")
     starts["electrode"] = np.where(inside, electrode, "")
@@ -314,12 +313,13 @@ def trace(field: PotentialMap, beam: Beam, planes: Sequence[Plane] = (), rtol: f
     records["electrode"] = np.where(codes == motion.LANDED, electrode, "")
     records["electrode"][inside] = electrode[inside]
     _fill_state(records, final)
-    records["steps"] = info[:, 4]
-    records["evaluations"] = info[:, 6]
+    records["steps"] = info[:, motion.C_STEPS]
+    records["evaluations"] = info[:, motion.C_EVALS]
     records["incidence_deg"], records["normal_energy_eV"] = incidence(
-        records, np.where(codes == motion.LANDED, info[:, 1], -1), field.table, grid, sp.mass_kg)
+        records, np.where(codes == motion.LANDED, info[:, motion.C_ELECTRODE], -1), field.table, grid,
+        sp.mass_kg)
 
-    n_cross = np.minimum(info[:, 2], max_crossings)
+    n_cross = np.minimum(info[:, motion.C_CROSSINGS], max_crossings)
     ray_idx = np.repeat(np.arange(n), n_cross)
     slot = np.concatenate([np.arange(k) for k in n_cross]) if n else np.zeros(0, dtype=int)
     plane_idx = cross_plane[ray_idx, slot]
@@ -332,12 +332,12 @@ def trace(field: PotentialMap, beam: Beam, planes: Sequence[Plane] = (), rtol: f
     crossings["plane"] = np.array([p.name for p in planes] + [""])[plane_idx]
     crossings["crossing"] = _occurrence(ray_idx, plane_idx, len(planes))
 
-    paths = tuple(_path_records(paths_buf[k, :info[k, 3]]) for k in range(keep))
+    paths = tuple(_path_records(paths_buf[k, :info[k, motion.C_PATH]]) for k in range(keep))
     report = ledger.ledger_report(records["ledger_eV"], scale, ledger_threshold, traced=~inside)
     return BeamRun(name=getattr(beam, "name", ""), species=sp, starts=starts, records=records,
                    crossings=crossings, paths=paths, planes=tuple(p.name for p in planes),
                    ledger=report, energy_scale_eV=scale,
-                   crossings_lost=int((info[:, 2] - n_cross).sum()), symmetry=grid.symmetry,
+                   crossings_lost=int((info[:, motion.C_CROSSINGS] - n_cross).sum()), symmetry=grid.symmetry,
                    crossing_rules=rules)
 
 
@@ -392,10 +392,11 @@ def incidence(rows, electrode, table, grid, mass):
 
 def _fill_state(rec, rows):
     """Copy kernel rows (t, x, y, z, px, py, pz, ke_J, ledger_J) into record fields."""
-    for k, name in enumerate(("time_s", "x_m", "y_m", "z_m", "px", "py", "pz")):
-        rec[name] = rows[:, k]
-    rec["energy_eV"] = rows[:, 7] / constants.e
-    rec["ledger_eV"] = rows[:, 8] / constants.e
+    rec["time_s"] = rows[:, motion.ROW_T]
+    for k, name in enumerate(("x_m", "y_m", "z_m", "px", "py", "pz")):
+        rec[name] = rows[:, motion.ROW_STATE + k]
+    rec["energy_eV"] = rows[:, motion.ROW_KE] / constants.e
+    rec["ledger_eV"] = rows[:, motion.ROW_LEDGER] / constants.e
 
 
 def _occurrence(ray, plane, n_planes):

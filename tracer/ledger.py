@@ -76,6 +76,13 @@ def kinetic_energy_J(px, py, pz, mass):
     return p2 / ((gamma + 1.0) * mass)
 
 
+@njit(cache=True)
+def residual_J(ke_start, ke_now, charge, v_start, v_now):
+    """The ledger ΔKE − qΔV = (KE_now − KE_start) + q (V_now − V_start) of a ray, joules (signed;
+    the kernel keeps its worst magnitude)."""
+    return (ke_now - ke_start) + charge * (v_now - v_start)
+
+
 def energy_scale_eV(start_energy_eV, charge_C, voltages):
     """Energy scale of each ray (eV): max(start KE, |q| max|V_electrode|, |q| · 1 V).
 
@@ -205,9 +212,9 @@ def time_ledger_J(ke_start, ke_now, charge, v_start, v_now, work_V):
     """The ledger ΔKE + q (V_now - V_start) - q W of a ray in fields that change in time, joules.
 
     ``work_V`` is W, the sum of :func:`time_work` and :func:`jump_work` over the ray's steps so
-    far; with W = 0 this is the static ledger ΔKE - qΔV.
+    far; with W = 0 this is the static ledger :func:`residual_J`.
     """
-    return (ke_now - ke_start) + charge * (v_now - v_start) - charge * work_V
+    return residual_J(ke_start, ke_now, charge, v_start, v_now) - charge * work_V
 
 
 def energy_scale_in_time_eV(start_energy_eV, charge_C, peaks_V, magnitude_V):

@@ -1,0 +1,32 @@
+"""The adaptive Runge–Kutta ray kernel and its event location (numba).
+
+Rays move by the relativistic equations of motion in momentum form,
+
+    dx/dt = p / (gamma m),     dp/dt = F(x, v, t),     gamma = sqrt(1 + (|p| / (m c))^2),
+
+in 3-D Cartesian coordinates (x, y, z), z along the axis; today F = q E(x) from a (z, r)
+potential map. The rooms of the kernel, each one idea:
+
+* :mod:`~tracer.motion.bundles` — the named tuples the kernels take (:class:`Nodes`,
+  :class:`Shapes`), the end codes, the state-row and count layouts, the lane workspace;
+* :mod:`~tracer.motion.tableau` — the Dormand–Prince 5(4) coefficients as data;
+* :mod:`~tracer.motion.symmetry` — axial, planar and mirrored planar maps seen from 3-D;
+* :mod:`~tracer.motion.force` — the one seam where the field and the force are evaluated;
+* :mod:`~tracer.motion.stepper` — one step in every lane, and the one step-size controller;
+* :mod:`~tracer.motion.events` — leaving the domain, landings and plane crossings on the dense
+  output;
+* :mod:`~tracer.motion.walls` — steps that end on cell walls, and the kink past a wall;
+* :mod:`~tracer.motion.lanes` — the lane loop and the parallel driver :func:`trace_rays`.
+"""
+
+from tracer.motion.bundles import (C_CODE, C_CROSSINGS, C_ELECTRODE, C_EVALS, C_PATH,
+                                   C_REJECTED, C_STEPS, INSIDE, LANDED, LANES, LEFT, PLANE,
+                                   ROW_KE, ROW_LEDGER, ROW_LEN, ROW_STATE, ROW_T, RUNNING, STALLED,
+                                   TIME, Nodes, Shapes, nodes_of, shapes_of)
+from tracer.motion.events import quiet_cells
+from tracer.motion.lanes import trace_rays
+from tracer.motion.symmetry import SYMMETRY_CODE
+
+__all__ = ["C_CODE", "C_CROSSINGS", "C_ELECTRODE", "C_EVALS", "C_PATH", "C_REJECTED", "C_STEPS",
+           "ROW_KE", "ROW_LEDGER", "ROW_LEN", "ROW_STATE", "ROW_T", "INSIDE", "LANDED", "LANES", "LEFT", "PLANE", "RUNNING", "STALLED", "SYMMETRY_CODE",
+           "TIME", "Nodes", "Shapes", "nodes_of", "quiet_cells", "shapes_of", "trace_rays"]

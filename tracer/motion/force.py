@@ -1,0 +1,141 @@
+"""The one place where the kernel evaluates the field: potential, force and the work rate.
+
+The field comes from a (z, r) potential map through the bicubic Hermite interpolant of
+:mod:`tracer.fieldmap`, each cell's patch in power form (``fieldmap.patch_coefficients``),
+computed once per cell for all of its steps, turned into a 3-D field by the map's symmetry
+(:mod:`tracer.motion.symmetry`).
+
+:func:`force` is the seam for new physics (DESIGN.md §11): it sees the time and the velocity, so
+a magnetic term q v x B and the time-dependent weights of several maps (the ∂V/∂t work rate it
+returns, :func:`tracer.ledger.time_work`) go there, without touching the stepper or the events.
+Today the field is static: the force is qE and the work rate 0.
+"""
+
+import math
+
+from numba import njit
+from scipy import constants
+
+from tracer.fieldmap import cell_index, patch_coefficients, patch_eval
+from tracer.motion.symmetry import map_r
+
+C_LIGHT = constants.c
+
+
+@njit(cache=True, error_model="numpy", inline="always")
+def gamma_mass(mass, px, py, pz):
+    """gamma m of a momentum (the velocity is p / (gamma m))."""
+    mc = mass * C_LIGHT
+    return mass * math.sqrt(1.0 + (px * px + py * py + pz * pz) / (mc * mc))
+
+
+@njit(cache=True, error_model="numpy", inline="always")
+def inverse_gamma_mass(mass, px, py, pz):
+    """1 / (gamma m) of a momentum (see :func:`gamma_mass`)."""
+    return 1.0 / gamma_mass(mass, px, py, pz)
+
+
+@njit(cache=True, error_model="numpy", inline="always")
+def speed(s, mass):
+    """Speed of a state (x, y, z, px, py, pz), m/s."""
+    p = math.sqrt(s[3] * s[3] + s[4] * s[4] + s[5] * s[5])
+    return p / (mass * math.sqrt(1.0 + (p / (mass * C_LIGHT)) ** 2))
+
+
+@njit(cache=True, error_model="numpy", inline="always")
+def cell_of(nodes, sym, x, y, z):
+    """Indices (i, j) of the interpolation cell holding a 3-D point (clamped onto the grid)."""
+    i = cell_index(z, nodes.z0, nodes.hz, nodes.nz)
+    j = cell_index(map_r(sym, x, y), nodes.r0, nodes.hr, nodes.nr)
+    return i, j
+
+
+@njit(cache=True, error_model="numpy", inline="always")
+def patch_field(a, pz, pr, nodes, sym, x, y, z):
+    """Potential and field at a 3-D point from the bicubic polynomial of one interpolation cell.
+
+    Parameters
+    ----------
+    a : tuple of 16 float
+        The cell's ``tracer.fieldmap.patch_coefficients``; the polynomial is continued beyond its
+        walls.
+    pz, pr : float
+        The cell's first corner (z, r).
+    nodes : Nodes
+        The map's node grid.
+    sym : int
+        0 axial, 1 planar, 2 mirrored planar.
+    x, y, z : float
+        The point, metres.
+
+    Returns
+    -------
+    (V, Ex, Ey, Ez) : tuple of float
+        Volts and V/m. Points outside the nodes are clamped onto it.
+    """
+    z0, r0, z1, r1 = nodes.z0, nodes.r0, nodes.z1, nodes.r1
+    iz, ir = 1.0 / nodes.hz, 1.0 / nodes.hr
+    r = map_r(sym, x, y)
+    # selects rather than min, max and branches: loops over lanes stay SIMD
+    zc = z0 if z0 > z else z
+    zc = z1 if z1 < zc else zc
+    rc = r0 if r0 > r else r
+    rc = r1 if r1 < rc else rc
+    v, vu, vw = patch_eval(a, (zc - pz) * iz, (rc - pr) * ir)
+    dvdr = vw * ir
+    ez = -vu * iz
+    f = -dvdr / (r if r > 0.0 else 1.0)
+    f = f if r > 0.0 else 0.0
+    ey = dvdr if y < 0.0 else (0.0 if y == 0.0 else -dvdr)
+    ey = f * y if sym == 0 else (ey if sym == 2 else -dvdr)
+    return v, (f * x if sym == 0 else 0.0), ey, ez
+
+
+@njit(cache=True, error_model="numpy", inline="always")
+def force(a, pz, pr, nodes, sym, t, x, y, z, vx, vy, vz, charge):
+    """The force on a charge at a 3-D point in the field of one cell (see :func:`patch_field`).
+
+    Parameters
+    ----------
+    a, pz, pr, nodes, sym
+        The cell's polynomial and first corner, the node grid and the symmetry code.
+    t : float
+        The time, seconds.
+    x, y, z, vx, vy, vz : float
+        Position (metres) and velocity (m/s).
+    charge : float
+        Coulomb.
+
+    Returns
+    -------
+    (Fx, Fy, Fz, V, work_rate) : tuple of float
+        Newtons, the potential in volts, and the explicit ∂V/∂t at the point (V/s; 0 in a static
+        field).
+    """
+    v, ex, ey, ez = patch_field(a, pz, pr, nodes, sym, x, y, z)
+    return charge * ex, charge * ey, charge * ez, v, 0.0
+
+
+@njit(cache=True, error_model="numpy", inline="always")
+def field_at(herm, nodes, sym, x, y, z):
+    """Potential and field of the interpolant at a 3-D point (see :func:`patch_field`)."""
+    i, j = cell_of(nodes, sym, x, y, z)
+    return patch_field(patch_coefficients(herm, i, j, nodes.hz, nodes.hr), nodes.z0 + i * nodes.hz,
+                       nodes.r0 + j * nodes.hr, nodes, sym, x, y, z)
+
+
+@njit(cache=True, error_model="numpy", inline="always")
+def rate(a, pz, pr, nodes, sym, mass, charge, s, ks, row):
+    """Right-hand side of the equations of motion in the field of one cell (see
+    :func:`patch_field`) at state s (x, y, z, px, py, pz) at the start, t = 0: d(state)/dt into
+    ks[row]; returns the potential at s."""
+    igm = inverse_gamma_mass(mass, s[3], s[4], s[5])
+    ks[row, 0] = s[3] * igm
+    ks[row, 1] = s[4] * igm
+    ks[row, 2] = s[5] * igm
+    fx, fy, fz, v, _ = force(a, pz, pr, nodes, sym, 0.0, s[0], s[1], s[2], ks[row, 0], ks[row, 1],
+                             ks[row, 2], charge)
+    ks[row, 3] = fx
+    ks[row, 4] = fy
+    ks[row, 5] = fz
+    return v

@@ -1,0 +1,170 @@
+"""One Runge–Kutta step in every lane, and the one step-size controller.
+
+The integrator is the embedded Dormand–Prince 5(4) pair (:mod:`tracer.motion.tableau`) with local
+extrapolation, FSAL, and the continuous extension of Shampine (1986) in the form of Hairer, Nørsett
+& Wanner (1993, sec. II.6). The error of each step is the RMS over the six components of the
+embedded estimate, each scaled by ``atol + rtol * max(|y_old|, |y_new|)``, with ``atol`` = rtol x
+cell for positions and rtol x the ray's momentum scale for momenta.
+
+Lanes. One thread steps ``LANES`` rays side by side in a workspace (``W_*`` rows of
+:mod:`tracer.motion.bundles`, one column a lane): :func:`lane_step` takes all the steps at once
+with the loops over lanes innermost, so they compile to SIMD instructions.
+
+The step-size controller (:func:`propose`) is the usual one for an embedded pair of order 4
+(Hairer, Nørsett & Wanner 1993, sec. II.4): h_new = h min(FAC_MAX, max(FAC_MIN,
+SAFETY err^(-1/5))), and never longer than h after a rejected step.
+"""
+
+import math
+
+import numpy as np
+from numba import njit
+
+from tracer.motion.bundles import (LANES, W_DENSE, W_ERR, W_ATOL, W_H, W_K, W_NEXT, W_PATCH,
+                                   W_RATE, W_T, W_V1, W_VN, W_Y0, W_Y1)
+from tracer.motion.force import force, gamma_mass, inverse_gamma_mass
+from tracer.motion.tableau import DP_A, DP_C, DP_D, DP_E
+
+SAFETY, FAC_MIN, FAC_MAX = 0.9, 0.2, 5.0
+
+
+@njit(cache=True, error_model="numpy", inline="always")
+def dense(rc, theta, out):
+    """Evaluate the continuous extension of the last step at theta in [0, 1] into out."""
+    u = 1.0 - theta
+    for i in range(6):
+        out[i] = rc[0, i] + theta * (rc[1, i] + u * (rc[2, i] + theta * (rc[3, i] + u * rc[4, i])))
+
+
+@njit(cache=True, error_model="numpy", inline="always")
+def lane_rate(w, l, t, nodes, sym, mass, charge, patch, v_row):
+    """The rate at lane l's point ``W_Y1`` at time t in the cell polynomial of rows
+    patch..patch+17 (16 coefficients, then the first corner) into ``W_RATE``, the potential into
+    row v_row (the force from :func:`tracer.motion.force.force`)."""
+    igm = inverse_gamma_mass(mass, w[W_Y1 + 3, l], w[W_Y1 + 4, l], w[W_Y1 + 5, l])
+    for i in range(3):
+        w[W_RATE + i, l] = w[W_Y1 + 3 + i, l] * igm
+    a = (w[patch, l], w[patch + 1, l], w[patch + 2, l], w[patch + 3, l], w[patch + 4, l],
+         w[patch + 5, l], w[patch + 6, l], w[patch + 7, l], w[patch + 8, l], w[patch + 9, l],
+         w[patch + 10, l], w[patch + 11, l], w[patch + 12, l], w[patch + 13, l],
+         w[patch + 14, l], w[patch + 15, l])
+    fx, fy, fz, v, _ = force(a, w[patch + 16, l], w[patch + 17, l], nodes, sym, t, w[W_Y1, l],
+                             w[W_Y1 + 1, l], w[W_Y1 + 2, l], w[W_RATE, l], w[W_RATE + 1, l],
+                             w[W_RATE + 2, l], charge)
+    w[W_RATE + 3, l] = fx
+    w[W_RATE + 4, l] = fy
+    w[W_RATE + 5, l] = fz
+    w[v_row, l] = v
+
+
+@njit(cache=True, error_model="numpy", inline="always")
+def lane_stage(w, st, nodes, sym, mass, charge):
+    """Stage st of the step in every lane: the stage point into ``W_Y1``, its rate into row
+    ``W_K + 6 st`` and its potential into ``W_V1`` (see :func:`lane_rate`).
+
+    The sums run over all six earlier rows (the tableau's zeros add exact zeros), so the loops inside
+    the loop over lanes have constant lengths and unroll, and that loop, writing only fixed rows,
+    compiles to SIMD instructions over the lanes.
+    """
+    for l in range(LANES):
+        h = w[W_H, l]
+        for i in range(6):
+            acc = 0.0
+            for j in range(6):   # DP_A[st, j] is 0 for j >= st: adding 0 k_j (finite) is exact
+                acc += DP_A[st, j] * w[W_K + 6 * j + i, l]
+            w[W_Y1 + i, l] = w[W_Y0 + i, l] + h * acc
+        lane_rate(w, l, w[W_T, l] + DP_C[st] * h, nodes, sym, mass, charge, W_PATCH, W_V1)
+    for i in range(6):
+        for l in range(LANES):
+            w[W_K + 6 * st + i, l] = w[W_RATE + i, l]
+
+
+@njit(cache=True, error_model="numpy", inline="always")
+def lane_step(w, nodes, sym, mass, charge, rtol, atol_x):
+    """One Dormand–Prince 5(4) step in every lane of a workspace (rows ``W_*``, one column a lane).
+
+    Each lane steps from its state y0 (``W_Y0``) at time ``W_T`` with first stage rate ``W_K`` over
+    its length ``W_H``, all stages in its cell's polynomial (``W_PATCH`` at corner ``W_CZ``,
+    ``W_CR``; see :func:`tracer.motion.force.patch_field`). Writes the other six stage rates (the last, at the end state, is the
+    next step's first), the fifth-order end state into ``W_Y1`` and its potential into ``W_V1``,
+    the scaled error norm (RMS over the six components of the embedded estimate, each scaled by
+    atol + rtol max(|y0|, |y1|); ``atol_x`` for positions, ``W_ATOL`` for momenta) into ``W_ERR``
+    and the continuous extension (Hairer et al. 1993) into ``W_DENSE``.
+
+    Each loop over lanes holds only loops of constant length and branches the compiler turns into
+    selects, so it compiles to SIMD instructions over the lanes (when w is a workspace allocated
+    by the caller it is inlined into, whose shape the compiler then knows; ``W_RATE`` is scratch).
+    """
+    for st in range(1, 7):
+        lane_stage(w, st, nodes, sym, mass, charge)
+    for l in range(LANES):
+        h = w[W_H, l]
+        acc2 = 0.0
+        for i in range(6):
+            e = 0.0
+            d = 0.0
+            for j in range(7):
+                e += DP_E[j] * w[W_K + 6 * j + i, l]
+                d += DP_D[j] * w[W_K + 6 * j + i, l]
+            y0, y1 = w[W_Y0 + i, l], w[W_Y1 + i, l]
+            a0, a1 = abs(y0), abs(y1)
+            e *= h / ((atol_x if i < 3 else w[W_ATOL, l]) + rtol * (a1 if a1 > a0 else a0))
+            acc2 += e * e
+            dy = y1 - y0
+            r2 = h * w[W_K + i, l] - dy
+            w[W_DENSE + i, l] = y0
+            w[W_DENSE + 6 + i, l] = dy
+            w[W_DENSE + 12 + i, l] = r2
+            w[W_DENSE + 18 + i, l] = dy - h * w[W_K + 36 + i, l] - r2
+            w[W_DENSE + 24 + i, l] = h * d
+        w[W_ERR, l] = math.sqrt(acc2 / 6.0)
+
+
+@njit(cache=True, error_model="numpy", inline="always")
+def lane_next_rates(w, nodes, sym, mass, charge):
+    """The rates at the end states ``W_Y1`` of all lanes in the cells they are about to enter
+    (``W_NEXT``) into ``W_RATE``, the potentials into ``W_VN``: one SIMD loop over the lanes."""
+    for l in range(LANES):
+        lane_rate(w, l, w[W_T, l] + w[W_H, l], nodes, sym, mass, charge, W_NEXT, W_VN)
+
+
+@njit(cache=True, error_model="numpy", inline="always")
+def put_patch(w, l, row, a, pz, pr):
+    """Write a cell's polynomial (16 coefficients) and first corner into rows row..row+17 of lane l
+    of a workspace."""
+    for m in range(16):
+        w[row + m, l] = a[m]
+    w[row + 16, l] = pz
+    w[row + 17, l] = pr
+
+
+@njit(cache=True, error_model="numpy", inline="always")
+def step_cap(s, k, mass, length):
+    """Longest time step that moves a ray at most ``length`` metres (constant-acceleration estimate)."""
+    v = math.sqrt(k[0] * k[0] + k[1] * k[1] + k[2] * k[2])
+    f = math.sqrt(k[3] * k[3] + k[4] * k[4] + k[5] * k[5])
+    a = f / gamma_mass(mass, s[3], s[4], s[5])
+    den = v + math.sqrt(v * v + 2.0 * a * length)
+    if den <= 0.0:
+        return np.inf
+    return 2.0 * length / den
+
+
+@njit(cache=True, error_model="numpy", inline="always")
+def propose(h, h_err, enorm):
+    """The next step's length after a step of length h with scaled error norm ``enorm``.
+
+    A rejected step (``enorm`` > 1 or not finite) shrinks by SAFETY enorm^(-1/5), at least to
+    FAC_MIN h. After an accepted step the proposal grows by at most FAC_MAX, counted from the
+    earlier proposal ``h_err`` when the step was shortened below it (to reach a cell wall or a
+    time limit): a step shortened to a wall does not shrink the next one.
+    """
+    if not enorm <= 1.0:
+        fac = FAC_MIN if not enorm < 1e300 else max(FAC_MIN, SAFETY * enorm ** -0.2)
+        return h * min(1.0, fac)
+    base = max(h, h_err) if h < h_err else h
+    cap = FAC_MAX * base
+    x = SAFETY * h / cap       # an error below x^5 proposes more than the cap
+    if enorm < x * x * x * x * x:
+        return cap
+    return min(h * max(FAC_MIN, SAFETY * max(enorm, 1e-10) ** -0.2), cap)
