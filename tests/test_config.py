@@ -467,6 +467,36 @@ ERRORS = [
     (put(["tune", "goal"], {"landing_energy_eV": -5.0}), "tune.goal.landing_energy_eV", "got -5.0"),
     (put(["beam", 0, "rays_csv"], "no_such_rays.csv"), "beam[0].rays_csv", "no such file 'no_such_rays.csv'"),
     (put(["scan"], {"csv": "no_such_sets.csv"}), "scan.csv", "no such file 'no_such_sets.csv'"),
+    # waveforms on electrodes and start times: the key as written, with its unit
+    (put(["electrode", 1, "pulse"], [{"high_V": 1.0, "delay_ns": 5.0, "rise_ns": -5}]),
+     "electrode[1].pulse[0].rise_ns", "must be >= 0, got -5"),
+    (put(["electrode", 1, "pulse"], [{"high_V": 1.0}]), "electrode[1].pulse[0].delay_ns", "missing"),
+    (put(["electrode", 1, "pulse"], [{"delay_ns": 1.0}]), "electrode[1].pulse[0].high_V", "missing"),
+    (put(["electrode", 1, "pulse"], [{"high_V": 1.0, "delay_ns": 5.0, "delay_us": 1.0}]),
+     "electrode[1].pulse[0].delay_us", "give delay_ns or delay_us, not both"),
+    (put(["electrode", 1, "pulse"], [{"high_V": 1.0, "delay_us": 1.0, "count": 3}]),
+     "electrode[1].pulse[0].width_ns", "needs a finite width"),
+    (put(["electrode", 1, "pulse"], [{"high_V": 1.0, "delay_us": 1.0, "count": 3, "width_us": 1.0,
+                                      "period_us": 0.5}]),
+     "electrode[1].pulse[0].period_us", "shorter than rise + width + fall"),
+    (put(["electrode", 1, "pulse"], [{"high_V": 1.0, "delay_us": 1.0, "period_us": 0.0}]),
+     "electrode[1].pulse[0].period_us", "must be > 0, got 0.0"),
+    (put(["electrode", 1, "pulse"], [{"high_V": 1.0, "delay_us": 1.0, "rise": 1.0}]),
+     "electrode[1].pulse[0].rise", "unknown key 'rise'; did you mean"),
+    (put(["electrode", 1, "pulse"], {"high_V": 1.0, "delay_us": 1.0}),
+     "electrode[1].pulse", "expected an array of tables [[electrode.pulse]]"),
+    (put(["electrode", 1, "sine"], [{"amplitude_V": 1.0, "frequency_MHz": 0}]),
+     "electrode[1].sine[0].frequency_MHz", "must be > 0, got 0"),
+    (put(["electrode", 1, "sine"], [{"amplitude_V": 1.0}]), "electrode[1].sine[0].frequency_MHz", "missing"),
+    (put(["electrode", 1, "sine"], [{"amplitude_V": math.nan, "frequency_kHz": 5.0}]),
+     "electrode[1].sine[0].amplitude_V", "must be finite, got nan"),
+    (put(["electrode", 1, "sine"], [{"amplitude_V": 1.0, "frequency_MHz": 1.0, "phase": 1.0}]),
+     "electrode[1].sine[0].phase", "did you mean 'phase_deg'?"),
+    (put(["electrode", 1, "table"], {"file": "no_such_wave.csv"}),
+     "electrode[1].table.file", "no such file 'no_such_wave.csv'"),
+    (put(["beam", 0, "start_spread_ns"], -1.0), "beam[0].start_spread_ns", "must be >= 0, got -1.0"),
+    (put(["beam", 0, "start_times"], "gauss"), "beam[0].start_times", "did you mean 'gaussian'?"),
+    (put(["beam", 0, "start_time_us"], "1"), "beam[0].start_time_us", "expected a number, got '1'"),
 ]
 
 
@@ -478,6 +508,55 @@ def test_errors_name_the_key_path_and_the_bad_value(mutate, key, fragment):
     assert error.key == key
     assert fragment in error.message
     assert str(error) == f"{key}: {error.message}"
+
+
+def test_waveform_keys_in_si(tmp_path):
+    """Pulses, sines and a table on electrodes and start times of a beam, read into SI: times
+    divided (250 ns is the double nearest 2.5e-7 s), frequencies multiplied, phases in radians;
+    voltage_V is the DC part and may be left out beside a waveform."""
+    (tmp_path / "gate.csv").write_text("# illustrative\ntime_ns,voltage_V\n0,0\n12,180\n30,200\n")
+    document = base()
+    document["electrode"][1]["pulse"] = [{"high_V": 2000.0, "low_V": -5.0, "delay_ns": 250.0, "rise_ns": 2.0,
+                                          "width_us": 1.0, "fall_ns": 3.0, "period_us": 5.0, "count": 4}]
+    document["electrode"][1]["sine"] = [{"amplitude_V": 450.0, "frequency_MHz": 1.5, "phase_deg": 90.0},
+                                        {"amplitude_V": -3.0, "frequency_kHz": 20.0}]
+    del document["electrode"][2]["voltage_V"]
+    document["electrode"][2]["table"] = {"file": "gate.csv"}
+    document["beam"][0] |= {"start_time_us": 1.5, "start_spread_ns": 4.0, "start_times": "gaussian"}
+    setup = loads(dumps(document), source=tmp_path / "setup.toml")
+    focus, exit_ = setup.electrodes[1], setup.electrodes[2]
+    assert focus.voltage_V == 800.0 and focus.waveform.dc_V == 800.0
+    (pulse,) = focus.waveform.pulses
+    assert (pulse.high_V, pulse.low_V, pulse.count) == (2000.0, -5.0, 4)
+    assert (pulse.delay_s, pulse.rise_s, pulse.width_s, pulse.fall_s, pulse.period_s) == (
+        2.5e-7, 2e-9, 1e-6, 3e-9, 5e-6)
+    assert [(s.amplitude_V, s.frequency_Hz) for s in focus.waveform.sinusoids] == [(450.0, 1.5e6), (-3.0, 2e4)]
+    assert focus.waveform.sinusoids[0].phase_rad == pytest.approx(math.pi / 2, rel=1e-15)
+    assert exit_.voltage_V == 0.0 and exit_.waveform.table.time_s == (0.0, 1.2e-8, 3e-8)
+    assert exit_.waveform.table.voltage_V == (0.0, 180.0, 200.0)
+    assert setup.electrodes[0].waveform is None and setup.electrodes[0].drive == 0.0
+    assert setup.drives()["focus"] is focus.waveform and setup.in_time
+    beam = setup.beams[0]
+    assert (beam.start_time_s, beam.start_spread_s, beam.start_times) == (1.5e-6, 4e-9, "gaussian")
+
+
+def test_a_static_setup_is_not_in_time():
+    """No waveform parts, or parts that do not vary (zero amplitude), leave the setup static."""
+    setup = check(base())
+    assert not setup.in_time and setup.beams[0].start_time_s == 0.0
+    document = base()
+    document["electrode"][1]["sine"] = [{"amplitude_V": 0.0, "frequency_MHz": 1.0}]
+    assert not check(document).in_time
+
+
+def test_a_bad_wave_table_names_the_file_and_line(tmp_path):
+    (tmp_path / "gate.csv").write_text("time_ns,voltage_V\n0,0\n12,x\n")
+    document = base()
+    document["electrode"][1]["table"] = {"file": "gate.csv"}
+    with pytest.raises(ConfigError) as caught:
+        loads(dumps(document), source=tmp_path / "setup.toml")
+    assert caught.value.key == "electrode[1].table.file"
+    assert "'gate.csv': line 3" in caught.value.message and "not two finite numbers" in caught.value.message
 
 
 def test_mass_u_without_charge_e():

@@ -254,3 +254,31 @@ def test_bad_csv_names_line_and_column(tmp_path, text, where):
     with pytest.raises(ValueError) as err:
         read_rays_csv(path)
     assert where in str(err.value) and str(path) in str(err.value)
+
+
+# ------------------------------------------------------------------ start times
+
+def test_start_times_uniform_and_gaussian():
+    """A uniform spread w: times within [t0 - w/2, t0 + w/2], variance w^2/12 (standard error
+    about 0.3 % at N); a Gaussian spread w is the FWHM: sigma = w / (2 sqrt(2 ln 2)) (the normal
+    distribution's FWHM, scipy.stats.norm). Without a spread every ray starts at t0."""
+    t0, w = 2e-6, 40e-9
+    assert np.all(start_states(beam(count=10, start_time_s=t0))["time_s"] == t0)
+    u = start_states(beam(start_time_s=t0, start_spread_s=w))["time_s"]
+    assert u.min() >= t0 - w / 2 and u.max() <= t0 + w / 2
+    assert u.mean() == pytest.approx(t0, abs=4 * w / math.sqrt(12 * N))
+    assert u.var() == pytest.approx(w * w / 12, rel=0.01)
+    g = start_states(beam(start_time_s=t0, start_spread_s=w, start_times="gaussian"))["time_s"]
+    sigma = w / (2 * math.sqrt(2 * math.log(2)))
+    assert g.std() == pytest.approx(sigma, rel=0.01)
+    assert sps.kstest((g - t0) / sigma, "norm").pvalue > 1e-3
+
+
+def test_a_start_spread_leaves_the_rest_of_the_rays_alone():
+    """The start times are drawn last: positions, directions and energies are those without them."""
+    b = beam(count=300, radius_m=1e-3, half_angle_rad=0.1, energy_spread_eV=1.0)
+    a = start_states(b)
+    s = start_states(dataclasses.replace(b, start_spread_s=1e-8))
+    for name in ("x_m", "y_m", "z_m", "px", "py", "pz", "energy_eV"):
+        assert np.array_equal(a[name], s[name])
+    assert np.ptp(s["time_s"]) > 0.0

@@ -71,13 +71,13 @@ def start_states(beam, field, drawn=None):
     Returns
     -------
     numpy.ndarray
-        Structured array of :func:`state_dtype` with ``time_s`` = 0, ``ledger_eV`` = 0 and the
+        Structured array of :func:`state_dtype` with the start time ``time_s``, ``ledger_eV`` = 0 and the
         current each ray carries, ``weight_A`` (0 when the beam gives no current).
     """
     if drawn is None:
         drawn = sources.start_states(beam, symmetry=field.grid.symmetry)
     out = np.zeros(len(drawn), dtype=state_dtype(field.names, [("weight_A", np.float64)]))
-    for name in ("ray", "x_m", "y_m", "z_m", "px", "py", "pz", "energy_eV", "weight_A"):
+    for name in ("ray", "time_s", "x_m", "y_m", "z_m", "px", "py", "pz", "energy_eV", "weight_A"):
         out[name] = drawn[name]
     return out
 

@@ -21,12 +21,18 @@ Keys (defaults in brackets; "r" stands for "y" in a domain with y_mm)::
                  edges "ground"|"open" or {z_min, z_max, r_max | y_min, y_max} ["ground"]
     [[electrode]] name, voltage_V, and one or more of
                  [[electrode.rect]] z_mm, r_mm;  [[electrode.polygon]] points_mm [[z, r], ...];
-                 [[electrode.arc]] center_z_mm, radii_mm, angles_deg (polar angle from +z, 0..180)
+                 [[electrode.arc]] center_z_mm, radii_mm, angles_deg (polar angle from +z, 0..180);
+                 a voltage that changes in time (docs/time-dependent-voltages.md): voltage_V [0] is
+                 the DC part of [[electrode.pulse]] high_V, low_V [0], delay_ns|us, rise_ns|us [0],
+                 width_ns|us [on for ever], fall_ns|us [0], period_ns|us, count [1];
+                 [[electrode.sine]] amplitude_V, frequency_MHz|kHz, phase_deg [0];
+                 [electrode.table] file (columns time_ns|time_us|time_s, voltage_V)
     [[beam]]     name, species (or mass_u + charge_e), energy_eV, start_z_mm, energy_spread_eV [0],
                  temperature_K, count [100], seed [0], start_r_mm [0], radius_mm [0],
                  profile "uniform"|"gaussian", half_angle_deg [0; 90 for cosine] (0..90),
                  angles "uniform"|"gaussian"|"cosine", current_A;
-                 or rays_csv (a file of start rays) in place of the distribution keys
+                 or rays_csv (a file of start rays) in place of the distribution keys;
+                 start_time_ns|us [0], start_spread_ns|us [0], start_times "uniform"|"gaussian" (FWHM)
     [[plane]]    name, z_mm, stop [false], direction "any"|"forward"|"backward" ["any"],
                  crossing "first"|"last"|"all"|N (from 1) ["first"]
     [trace]      max_time_us or max_time_ns [100 us], rtol [1e-9], ledger_threshold [1e-6],
@@ -58,10 +64,11 @@ from dataclasses import dataclass
 from scipy import constants
 
 from tracer.geometry import shape_table
-from tracer.schema import (CROSSINGS, DIRECTIONS, GRIDS, THIRD_GRIDS, Arc, Beam, ConfigError, Domain, Electrode,
+from tracer.schema import (CROSSINGS, DIRECTIONS, GRIDS, START_TIMES, THIRD_GRIDS, Arc, Beam, ConfigError, Domain, Electrode,
                            GridErrorSpec, GunSpec, OpticsSpec, Plane, Polygon, Rect, ScanSpec, Setup, TraceOptions,
                            TuneSpec)
 from tracer.species import custom_species, species
+from tracer.waveforms import Pulse, Sinusoid, Waveform, WaveformError, read_table
 
 __all__ = ["Arc", "Beam", "ConfigError", "Domain", "Electrode", "GunSpec", "OpticsSpec", "Plane", "Polygon",
            "Rect", "ScanSpec", "Setup", "TraceOptions", "TuneSpec", "load", "loads"]
@@ -364,7 +371,8 @@ def _setup(data, source):
     domain = _domain(top.get("domain", _raw))
     if not top.has("electrode"):
         raise ConfigError("electrode", "missing: give at least one [[electrode]]")
-    electrodes = tuple(_electrode(v, p, domain) for v, p in _tables(top.data["electrode"], "electrode", "electrode"))
+    electrodes = tuple(_electrode(v, p, domain, base)
+                       for v, p in _tables(top.data["electrode"], "electrode", "electrode"))
     if not electrodes:
         raise ConfigError("electrode", "empty: give at least one [[electrode]]")
     names = tuple(e.name for e in electrodes)
@@ -490,12 +498,14 @@ def _check_memory(domain, n_electrodes):
         )
 
 
-def _electrode(value, path, domain):
-    t = _Table(value, path, ("name", "voltage_V", "rect", "polygon", "arc"))
+def _electrode(value, path, domain, base):
+    t = _Table(value, path, ("name", "voltage_V", "rect", "polygon", "arc") + _WAVE_PARTS)
     name = t.get("name", _name)
     if name == "csv":
         raise ConfigError(t.at("name"), "'csv' is reserved (it is the [scan] key for a file of voltage sets)")
-    voltage = t.get("voltage_V", _number)
+    in_time = any(t.has(part) for part in _WAVE_PARTS)
+    voltage = t.get("voltage_V", _number, default=0.0 if in_time else _REQUIRED)
+    waveform = _waveform(t, voltage, base) if in_time else None
     side = _side(domain)
     shapes = []
     for kind, read in (("rect", _rect), ("polygon", _polygon), ("arc", _arc)):
@@ -506,7 +516,90 @@ def _electrode(value, path, domain):
     if not shapes:
         tables = "[[electrode.rect]], [[electrode.polygon]] or [[electrode.arc]]"
         raise ConfigError(path, f"electrode {name!r} has no shapes; give {tables}")
-    return Electrode(name, voltage, tuple(shapes))
+    return Electrode(name, voltage, tuple(shapes), waveform)
+
+
+# ---------------------------------------------------------------- waveforms
+
+_WAVE_PARTS = ("pulse", "sine", "table")
+# unit -> (multiply, divide) to SI; dividing by 1e9 rounds 250 ns to the nearest double of 2.5e-7 s
+_TIME_KEYS = {"ns": (1, round(1 / constants.nano)), "us": (1, round(1 / constants.micro))}
+_FREQUENCY_KEYS = {"MHz": (round(constants.mega), 1), "kHz": (round(constants.kilo), 1)}
+
+
+def _in_units(t, stem, units, default=_REQUIRED, **bounds):
+    """A quantity given as one of ``stem_<unit>`` (e.g. delay_ns or delay_us), in SI; the default
+    when none is given."""
+    given = [u for u in units if t.has(f"{stem}_{u}")]
+    if len(given) > 1:
+        raise ConfigError(t.at(f"{stem}_{given[1]}"), f"give {stem}_{given[0]} or {stem}_{given[1]}, not both")
+    if not given:
+        if default is _REQUIRED:
+            raise ConfigError(t.at(f"{stem}_{next(iter(units))}"), "missing (required)")
+        return default
+    multiply, divide = units[given[0]]
+    return t.get(f"{stem}_{given[0]}", _number, **bounds) * multiply / divide
+
+
+def _unit_key(t, name):
+    """The config key of a waveform field (``rise_s`` -> ``rise_ns`` or ``rise_us``, as given)."""
+    for suffix, units in (("_s", _TIME_KEYS), ("_Hz", _FREQUENCY_KEYS)):
+        if name.endswith(suffix):
+            stem = name.removesuffix(suffix)
+            keys = [f"{stem}_{u}" for u in units]
+            return t.at(next((k for k in keys if t.has(k)), keys[0]))
+    return t.at("phase_deg" if name == "phase_rad" else name)
+
+
+def _part(t, make, **values):
+    """A waveform part made from SI values; its own checks turned into a ConfigError on its key."""
+    try:
+        return make(**values)
+    except WaveformError as error:
+        raise ConfigError(_unit_key(t, error.field), error.message) from None
+
+
+def _pulse(value, path):
+    stems = ("delay", "rise", "width", "fall", "period")
+    t = _Table(value, path, ("high_V", "low_V", "count") + tuple(f"{s}_{u}" for s in stems for u in _TIME_KEYS))
+    return _part(t, Pulse,
+                 high_V=t.get("high_V", _number), low_V=t.get("low_V", _number, default=0.0),
+                 delay_s=_in_units(t, "delay", _TIME_KEYS),
+                 rise_s=_in_units(t, "rise", _TIME_KEYS, default=0.0, low=0.0),
+                 width_s=_in_units(t, "width", _TIME_KEYS, default=math.inf, low=0.0),
+                 fall_s=_in_units(t, "fall", _TIME_KEYS, default=0.0, low=0.0),
+                 period_s=_in_units(t, "period", _TIME_KEYS, default=math.inf, low=0.0, low_open=True),
+                 count=t.get("count", _integer, default=1, low=1))
+
+
+def _sine(value, path):
+    t = _Table(value, path, ("amplitude_V", "phase_deg") + tuple(f"frequency_{u}" for u in _FREQUENCY_KEYS))
+    return _part(t, Sinusoid, amplitude_V=t.get("amplitude_V", _number),
+                 frequency_Hz=_in_units(t, "frequency", _FREQUENCY_KEYS, low=0.0, low_open=True),
+                 phase_rad=t.get("phase_deg", _number, default=0.0) * _DEG)
+
+
+def _table(value, path, base):
+    t = _Table(value, path, ("file",))
+    file = t.get("file", _file, base=base)
+    try:
+        return read_table(file)
+    except WaveformError as error:
+        raise ConfigError(t.at("file"), error.message.replace(str(file), repr(file.name))) from None
+    except (OSError, UnicodeDecodeError) as error:
+        raise ConfigError(t.at("file"), f"cannot read {file.name!r}: {error}") from None
+
+
+def _waveform(t, voltage, base):
+    """The waveform of an electrode table: its DC part ``voltage`` and its pulse, sine and table parts."""
+    pulses = tuple(_pulse(v, p) for v, p in _tables(t.data.get("pulse", []), t.at("pulse"), "electrode.pulse"))
+    sines = tuple(_sine(v, p) for v, p in _tables(t.data.get("sine", []), t.at("sine"), "electrode.sine"))
+    table = t.get("table", _table, default=None, base=base)
+    try:
+        return Waveform(voltage, sines, pulses, table)
+    except WaveformError as error:
+        key = {"pulses": "pulse", "sinusoids": "sine", "table": "table"}.get(error.field.split("[")[0], "voltage_V")
+        raise ConfigError(t.at(key), error.message) from None
 
 
 def _rect(value, path, side):
@@ -598,19 +691,24 @@ def _beam(value, path, domain, base):
     start_r = f"start_{side.letter}_mm"
     distribution = ("energy_eV", "energy_spread_eV", "temperature_K", "count", "start_z_mm", start_r,
                     "radius_mm", "profile", "half_angle_deg", "angles")
-    keys = ("name", "species", "mass_u", "charge_e", "seed", "current_A", "rays_csv") + distribution
+    timing = tuple(f"{stem}_{u}" for stem in ("start_time", "start_spread") for u in _TIME_KEYS)
+    keys = ("name", "species", "mass_u", "charge_e", "seed", "current_A", "rays_csv", "start_times") \
+        + timing + distribution
     t = _Table(value, path, keys, hints=side.hint("start_{}_mm"))
     name = t.get("name", _name)
     kind = _species_of(t)
     seed = t.get("seed", _integer, default=0)
     current = t.get("current_A", _positive, default=None)
+    when = {"start_time_s": _in_units(t, "start_time", _TIME_KEYS, default=0.0),
+            "start_spread_s": _in_units(t, "start_spread", _TIME_KEYS, default=0.0, low=0.0),
+            "start_times": t.get("start_times", _choice, default="uniform", choices=START_TIMES)}
     if t.has("rays_csv"):
         rays_csv = t.get("rays_csv", _file, base=base)
         for key in distribution:
             if t.has(key):
                 raise ConfigError(t.at(key), f"not used with rays_csv (the start rays come from {rays_csv.name!r})")
         _check_rays_csv(rays_csv, t.at("rays_csv"), current)
-        return Beam(name, kind, None, None, count=None, seed=seed, current_A=current, rays_csv=rays_csv)
+        return Beam(name, kind, None, None, count=None, seed=seed, current_A=current, rays_csv=rays_csv, **when)
     angles = t.get("angles", _choice, default="uniform", choices=("uniform", "gaussian", "cosine"))
     beam = Beam(
         name,
@@ -628,6 +726,7 @@ def _beam(value, path, domain, base):
                              low=0.0, high=90.0) * _DEG,
         angles=angles,
         current_A=current,
+        **when,
     )
     _check_start(beam, t, domain, side.letter)
     return beam

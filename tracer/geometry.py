@@ -503,7 +503,7 @@ def _check_overlaps(table, electrodes, keys, bb, cell):
     for a in range(table.kind.size):
         for b in range(a + 1, table.kind.size):
             ea, eb = electrodes[table.owner[a]], electrodes[table.owner[b]]
-            if table.owner[a] == table.owner[b] or ea.voltage_V == eb.voltage_V:
+            if table.owner[a] == table.owner[b] or ea.drive == eb.drive:
                 continue
             zlo, zhi = max(bb[a, 0], bb[b, 0]), min(bb[a, 1], bb[b, 1])
             rlo, rhi = max(bb[a, 2], bb[b, 2]), min(bb[a, 3], bb[b, 3])
@@ -514,9 +514,14 @@ def _check_overlaps(table, electrodes, keys, bb, cell):
             if _overlap(a, b, zlo, zhi, rlo, rhi, nz, nr, *arrays):
                 raise ConfigError(
                     keys[b],
-                    f"overlaps {keys[a]} of electrode {ea.name!r} ({ea.voltage_V:g} V) while "
-                    f"electrode {eb.name!r} is at {eb.voltage_V:g} V",
+                    f"overlaps {keys[a]} of electrode {ea.name!r} ({_carries(ea)}) while "
+                    f"electrode {eb.name!r} is at {_carries(eb)}",
                 )
+
+
+def _carries(electrode):
+    """What an electrode carries, in words: its voltage, and whether a waveform rides on it."""
+    return f"{electrode.voltage_V:g} V" + ("" if electrode.waveform is None else " with a waveform")
 
 
 def shape_table(electrodes, domain):

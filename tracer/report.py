@@ -34,6 +34,8 @@ def describe(setup) -> str:
     for e in setup.electrodes:
         kinds = ", ".join(type(s).__name__.lower() for s in e.shapes)
         lines.append(f"  {e.name:<16s} {e.voltage_V:>10.1f} V   {kinds}")
+        if e.waveform is not None:
+            lines.append(f"  {'':<16s} + {e.waveform.describe()}")
     for b in setup.beams:
         lines.append(f"beam {b.name}: {b.count} x {b.species.describe()}; at {b.energy_eV:g} eV, "
                      f"from z = {b.start_z_m * 1e3:g} mm")

@@ -14,6 +14,7 @@ import pathlib
 from dataclasses import dataclass, field
 
 from tracer.species import Species, species
+from tracer.waveforms import Waveform
 
 
 class ConfigError(ValueError):
@@ -97,14 +98,23 @@ class Electrode:
     name : str
         Unique name.
     voltage_V : float
-        Voltage in volts.
+        Voltage in volts; with a waveform, its constant (DC) part.
     shapes : tuple of Rect, Polygon or Arc
         Its shapes: the rects, then the polygons, then the arcs, each in file order.
+    waveform : tracer.waveforms.Waveform or None
+        The voltage as a function of time (its ``dc_V`` is ``voltage_V``); None for a constant
+        voltage.
     """
 
     name: str
     voltage_V: float
     shapes: tuple[Rect | Polygon | Arc, ...]
+    waveform: Waveform | None = None
+
+    @property
+    def drive(self) -> float | Waveform:
+        """What the electrode carries: its waveform, or its constant voltage."""
+        return self.voltage_V if self.waveform is None else self.waveform
 
 
 @dataclass(frozen=True)
@@ -174,6 +184,14 @@ class Beam:
         Beam current, amperes.
     rays_csv : pathlib.Path or None
         A file of start rays (resolved against the config file's folder).
+    start_time_s : float
+        When the rays start on the trace's clock (the clock of the waveforms), seconds; with a
+        spread, the middle of it.
+    start_spread_s : float
+        Full width of the start times, seconds (0: all at ``start_time_s``).
+    start_times : str
+        ``"uniform"`` over the spread, or ``"gaussian"`` with the spread as its full width at half
+        maximum (a pulse's profile).
     """
 
     name: str
@@ -191,7 +209,13 @@ class Beam:
     angles: str = "uniform"
     current_A: float | None = None
     rays_csv: pathlib.Path | None = None
+    start_time_s: float = 0.0
+    start_spread_s: float = 0.0
+    start_times: str = "uniform"
 
+
+START_TIMES = ("uniform", "gaussian")
+"""How a beam's start times spread: uniform over the spread, or Gaussian with it as the FWHM."""
 
 DIRECTIONS = ("any", "forward", "backward")
 """The ``direction`` of a plane: the crossings its figures count (any, towards +z, towards -z)."""
@@ -426,8 +450,18 @@ class Setup:
     author: str = ""
 
     def voltages(self) -> dict[str, float]:
-        """Return the electrode voltages by name, in electrode order."""
+        """Return the electrode voltages by name, in electrode order (the DC part of a waveform)."""
         return {e.name: e.voltage_V for e in self.electrodes}
+
+    def drives(self) -> dict[str, float | Waveform]:
+        """Return what each electrode carries by name: its waveform, or its constant voltage."""
+        return {e.name: e.drive for e in self.electrodes}
+
+    @property
+    def in_time(self) -> bool:
+        """True when an electrode's voltage changes in time."""
+        return any(e.waveform is not None and e.waveform.split()[1] is not None
+                   for e in self.electrodes)
 
     def geometry_hash(self) -> str:
         """Return the sha256 hex digest of the domain, electrode names and shapes (not voltages)."""

@@ -65,6 +65,16 @@ The kinetic energy at the start is the sum of
 
 Momenta follow from the kinetic energy relativistically,
 p c = sqrt(K^2 + 2 K m c^2).
+
+Start times
+-----------
+Rays start at ``start_time`` on the trace's clock (the clock of the electrode
+waveforms), or spread about it over ``start_spread``: ``"uniform"`` over
+[start_time - spread/2, start_time + spread/2], or ``"gaussian"`` with the
+spread as its full width at half maximum (sigma = FWHM / (2 sqrt(2 ln 2)), the
+profile of a short ionising pulse).  The times are drawn after everything
+else, so a spread leaves the rays' positions, directions and energies as they
+are without it.
 """
 
 from __future__ import annotations
@@ -77,6 +87,8 @@ import numpy as np
 from scipy import constants
 from scipy.special import ndtr, ndtri
 
+from tracer.schema import START_TIMES
+
 SYMMETRIES = ("axial", "planar")
 PROFILES = ("uniform", "gaussian")
 ANGLES = ("uniform", "gaussian", "cosine")
@@ -87,9 +99,11 @@ START_DTYPE = np.dtype([
     ("px", np.float64), ("py", np.float64), ("pz", np.float64),
     ("energy_eV", np.float64),
     ("weight_A", np.float64),
+    ("time_s", np.float64),
 ])
 """The start state of a ray: position (m), momentum (kg m/s), kinetic energy
-(eV) and the current the ray carries (A)."""
+(eV), the current the ray carries (A) and its start time on the trace's
+clock (s)."""
 
 USER_RAY_DTYPE = np.dtype([
     ("x_m", np.float64), ("y_m", np.float64), ("z_m", np.float64),
@@ -150,6 +164,7 @@ def start_states(beam, *, symmetry="axial"):
     """
     if symmetry not in SYMMETRIES:
         raise ValueError(f"symmetry must be one of {SYMMETRIES}, not {symmetry!r}")
+    rng = np.random.default_rng(beam.seed)
     if beam.rays_csv is not None:
         rays = read_rays_csv(beam.rays_csv)
         position = (rays["x_m"], rays["y_m"], rays["z_m"])
@@ -157,14 +172,27 @@ def start_states(beam, *, symmetry="axial"):
         energy = rays["energy_eV"]
         weight = _user_weights(rays["weight_A"], beam.current_A)
     else:
-        rng = np.random.default_rng(beam.seed)
         n = int(beam.count)
         x, y = _positions(rng, n, beam.profile, beam.radius_m, beam.start_r_m, symmetry)
         position = (x, y, np.full(n, float(beam.start_z_m)))
         direction = _directions(rng, n, beam.angles, beam.half_angle_rad, symmetry)
         energy = _energies(rng, n, beam.energy_eV, beam.energy_spread_eV, beam.temperature_K)
         weight = np.full(n, 0.0 if beam.current_A is None else beam.current_A / max(n, 1))
-    return rays_from(position, direction, energy, weight, beam.species.mass_kg)
+    out = rays_from(position, direction, energy, weight, beam.species.mass_kg)
+    out["time_s"] = start_times(rng, len(out), beam.start_time_s, beam.start_spread_s, beam.start_times)
+    return out
+
+
+def start_times(rng, n, start_s, spread_s, law="uniform"):
+    """Start times of n rays (module notes): ``start_s`` for all when ``spread_s`` is 0, else
+    spread about it, ``"uniform"`` over the spread or ``"gaussian"`` with it as the FWHM."""
+    if law not in START_TIMES:
+        raise ValueError(f"start_times must be one of {START_TIMES}, not {law!r}")
+    if spread_s == 0.0:
+        return np.full(n, float(start_s))
+    if law == "uniform":
+        return start_s + spread_s * (rng.random(n) - 0.5)
+    return start_s + spread_s / (2.0 * math.sqrt(2.0 * math.log(2.0))) * rng.standard_normal(n)
 
 
 def rays_from(position, direction, energy_eV, weight_A, mass_kg):

@@ -62,8 +62,9 @@ STEPS_PER_PERIOD = 16
 MAX_CORNERS = 1_000_000
 """Refuse a waveform with more corners than this (repeated pulses, long tables)."""
 
-TIME_UNITS = {"time_s": 1.0, "time_us": constants.micro, "time_ns": constants.nano}
-"""Time columns of a table file and their scale to seconds."""
+TIME_UNITS = {"time_s": 1, "time_us": round(1 / constants.micro), "time_ns": round(1 / constants.nano)}
+"""Time columns of a table file and their units per second (times are divided by it, so 12 ns
+reads as the double nearest 1.2e-8 s)."""
 
 
 class WaveformError(ValueError):
@@ -386,6 +387,17 @@ class Waveform:
         linear = float(np.abs(k[:, 1:]).max()) if k.size else 0.0
         return abs(self.dc_V) + sum(abs(s.amplitude_V) for s in self.sinusoids) + linear
 
+    def describe(self) -> str:
+        """The parts beside the DC part in a few words, e.g. ``"sine 450 V at 1 MHz; pulse to
+        2000 V at 250 ns"`` ("" without parts)."""
+        words = [f"sine {s.amplitude_V:g} V at {s.frequency_Hz / 1e6:g} MHz" for s in self.sinusoids]
+        words += [f"pulse {p.low_V:g} -> {p.high_V:g} V at {p.delay_s * 1e9:g} ns"
+                  + (f" x {p.count}" if p.count > 1 else "") for p in self.pulses]
+        if self.table is not None:
+            words.append(f"table of {len(self.table.time_s)} points"
+                         + (f" ({Path(self.table.source).name})" if self.table.source else ""))
+        return "; ".join(words)
+
     def arrays(self) -> WaveArrays:
         """This waveform alone as kernel arrays (K = 1)."""
         return wave_arrays([self])
@@ -455,7 +467,7 @@ def read_table(path) -> Table:
         raise WaveformError("table", head.strip(),
                             f"{path}: line {number}: the header must be a time column ("
                             + ", ".join(TIME_UNITS) + f") and voltage_V, got {head.strip()!r}")
-    scale = TIME_UNITS[names[0]]
+    per_s = TIME_UNITS[names[0]]
     times, volts = [], []
     for number, line in lines[1:]:
         fields = next(csv.reader([line]))
@@ -469,7 +481,7 @@ def read_table(path) -> Table:
         if not (math.isfinite(t) and math.isfinite(v)):
             raise WaveformError("table", line.strip(),
                                 f"{path}: line {number}: {line.strip()!r} is not two finite numbers")
-        times.append(t * scale)
+        times.append(t / per_s)
         volts.append(v)
     return Table(tuple(times), tuple(volts), source=str(path))
 
