@@ -15,6 +15,8 @@ import numpy as np
 from scipy import constants
 
 from tracer import ledger, measure, motion, sources
+from tracer.groups import GroupedMaps
+from tracer.motion.drive import Drive, static_drive
 from tracer.fieldmap import PotentialMap
 from tracer.geometry import surface_normals
 from tracer.schema import Beam, Plane
@@ -121,6 +123,10 @@ class BeamRun(Shown):
     crossing_rules : tuple of tracer.measure.CrossingRule
         Which crossings of each plane count for its figures (:mod:`tracer.measure`), in the order
         of ``planes``; planes beyond the tuple follow the default rule (each ray's first crossing).
+    work_eV : numpy.ndarray or None
+        With voltages that change in time, each ray's energy from them, q (∫∂V/∂t dt + jumps), eV:
+        the ledger's second term, ΔKE = −qΔV + work_eV (:mod:`tracer.ledger`); None in a static
+        field.
     """
 
     name: str
@@ -135,6 +141,7 @@ class BeamRun(Shown):
     crossings_lost: int = 0
     symmetry: str = "axial"
     crossing_rules: tuple = ()
+    work_eV: np.ndarray | None = dataclass_field(default=None, repr=False)
 
     def _facts(self):
         status, counts = np.unique(self.records["status"], return_counts=True)
@@ -207,7 +214,7 @@ class BeamRun(Shown):
         }
 
 
-def trace(field: PotentialMap, beam: Beam, planes: Sequence[Plane] = (), rtol: float = 1e-9,
+def trace(field: PotentialMap | GroupedMaps, beam: Beam, planes: Sequence[Plane] = (), rtol: float = 1e-9,
           max_time_s: float = 1e-4, *, keep_paths: int = 0, max_path_points: int = 4096,
           ledger_threshold: float = ledger.DEFAULT_THRESHOLD, max_step_cells: float = 1.0,
           sample_cells: float = 0.5, fine_cells: float = 1 / 32, max_steps: int = 10_000_000,
@@ -217,7 +224,11 @@ def trace(field: PotentialMap, beam: Beam, planes: Sequence[Plane] = (), rtol: f
 
     Parameters
     ----------
-    field : tracer.fieldmap.PotentialMap
+    field : tracer.fieldmap.PotentialMap or tracer.groups.GroupedMaps
+        The field; grouped maps (:func:`tracer.groups.group_maps`) for voltages that change in
+        time: rays then start at their start times (``time_s`` of the starts), every time is on
+        the waveforms' clock, a ray flies for at most ``max_time_s`` from its start, and
+        ``BeamRun.work_eV`` holds the energy each ray took from the changing voltages.
     beam : tracer.config.Beam
         The source (species, energies, positions, directions, count, seed).
     planes : sequence of tracer.config.Plane
@@ -260,7 +271,15 @@ def trace(field: PotentialMap, beam: Beam, planes: Sequence[Plane] = (), rtol: f
     sp = beam.species
     starts = start_states(beam, field, starts)
     n = len(starts)
-    scale = ledger.energy_scale_eV(starts["energy_eV"], sp.charge_C, field.voltages)
+    in_time = isinstance(field, GroupedMaps) and field.in_time
+    if isinstance(field, GroupedMaps):
+        herm, volts = field.static, field.peaks_V()
+        drive = Drive(field.arrays, np.ascontiguousarray(field.driven))
+    else:
+        herm, volts = field.hermite, field.voltages
+        drive = static_drive(herm)
+    herm = np.ascontiguousarray(herm, dtype=np.float64)
+    scale = ledger.energy_scale_eV(starts["energy_eV"], sp.charge_C, volts)
     atol_p = rtol * sources.momentum(scale, sp.mass_kg)
     cell = min(grid.hz, grid.hr)
     planes = tuple(planes)
@@ -272,7 +291,6 @@ def trace(field: PotentialMap, beam: Beam, planes: Sequence[Plane] = (), rtol: f
     nodes = motion.nodes_of(grid)
     bounds = np.array([grid.z0, grid.z1, grid.r0, grid.r1], dtype=np.float64)
     state = np.stack([starts[k] for k in ("x_m", "y_m", "z_m", "px", "py", "pz")], axis=1)
-    herm = np.ascontiguousarray(field.hermite, dtype=np.float64)
     shapes = motion.shapes_of(field.table)
     cell_map = np.ascontiguousarray(field.raster.cell)
     quiet = motion.quiet_cells(cell_map, nodes, plane_z)
@@ -283,7 +301,8 @@ def trace(field: PotentialMap, beam: Beam, planes: Sequence[Plane] = (), rtol: f
         group = max(motion.LANES, -(-(hi - lo) // (2 * numba.get_num_threads())))  # two per thread
         try:
             parts.append(motion.trace_rays(
-                np.ascontiguousarray(state[lo:hi]), herm, nodes, sym, bounds, cell_map, shapes,
+                np.ascontiguousarray(state[lo:hi]), np.ascontiguousarray(starts["time_s"][lo:hi]),
+                herm, drive.waves, drive.driven, nodes, sym, bounds, cell_map, shapes,
                 float(sp.mass_kg), float(sp.charge_C), float(max_time_s), float(rtol),
                 atol_p[lo:hi], max_step_cells * cell, sample_cells * cell, fine_cells * cell,
                 plane_z, plane_stop, int(max_steps), int(max_crossings),
@@ -294,7 +313,10 @@ def trace(field: PotentialMap, beam: Beam, planes: Sequence[Plane] = (), rtol: f
             raise
         if progress is not None:
             progress(hi, n)
-    final, info, cross_plane, cross_state = (np.concatenate([p[k] for p in parts]) for k in range(4))
+    final, info, cross_plane, cross_state, spent = (np.concatenate([p[k] for p in parts])
+                                                    for k in range(5))
+    if in_time:
+        scale = ledger.energy_scale_in_time_eV(starts["energy_eV"], sp.charge_C, volts, spent[:, 1])
 
     names = np.array(list(field.names) + [""])
     electrode = names[info[:, motion.C_ELECTRODE]]          # index -1 picks ""
@@ -338,7 +360,8 @@ def trace(field: PotentialMap, beam: Beam, planes: Sequence[Plane] = (), rtol: f
                    crossings=crossings, paths=paths, planes=tuple(p.name for p in planes),
                    ledger=report, energy_scale_eV=scale,
                    crossings_lost=int((info[:, motion.C_CROSSINGS] - n_cross).sum()), symmetry=grid.symmetry,
-                   crossing_rules=rules)
+                   crossing_rules=rules,
+                   work_eV=spent[:, 0] * sp.charge_C / constants.e if in_time else None)
 
 
 def incidence(rows, electrode, table, grid, mass):

@@ -59,6 +59,37 @@ class GroupedMaps:
     driven: np.ndarray
     arrays: WaveArrays
 
+    @property
+    def grid(self):
+        """The node grid of the maps."""
+        return self.basis.grid
+
+    @property
+    def table(self):
+        """The electrode shapes of the maps."""
+        return self.basis.table
+
+    @property
+    def raster(self):
+        """The rasterized geometry of the maps."""
+        return self.basis.raster
+
+    @property
+    def names(self) -> tuple:
+        """The electrode names, in the order of the maps."""
+        return self.basis.names
+
+    @property
+    def in_time(self) -> bool:
+        """True when some electrode's voltage changes in time (K > 0)."""
+        return len(self.waveforms) > 0
+
+    def peaks_V(self) -> tuple:
+        """A bound on each electrode's |voltage| over all times: |c_i| + the peak of its varying
+        part (the voltages of the ledger's energy scale)."""
+        peaks = [w.peak_V for w in self.waveforms] + [0.0]   # group -1 reads the 0.0
+        return tuple(abs(c) + peaks[k] for c, k in zip(self.offsets, self.group))
+
     def weights(self, t: float) -> np.ndarray:
         """w_k(t) of every group (at a corner, the value just after), volts."""
         m = piece(self.arrays, t)

@@ -19,21 +19,24 @@ import numpy as np
 from numba import njit, prange
 
 from tracer.fieldmap import patch_coefficients
-from tracer.ledger import kinetic_energy_J, residual_J
+from tracer.ledger import GAUSS_POINTS, GAUSS_THETA, kinetic_energy_J, residual_J
 from tracer.motion.bundles import (C_CODE, C_CROSSINGS, C_ELECTRODE, C_EVALS, C_PATH,
                                    C_REJECTED, C_STEPS, COUNTS, INSIDE, LANDED, LANES, LEFT,
                                    PLANE, ROW_LEN, RUNNING, STALLED, TIME, W_ATOL, W_ERR, W_H, W_K,
                                    W_NEXT, W_PATCH, W_ROWS, W_T, W_V1, W_VN, W_Y0, W_Y1, W_DENSE,
                                    W_RATE, put_row)
+from tracer.motion.drive import (D_CELL, D_NEXT, Drive, drive_workspace, group_potentials, load_cell,
+                                 potential_at, step_work, weigh)
 from tracer.motion.events import (EV_R, EV_Z, electrode_of, find_landing, locate, outside,
                                   touches_surface)
 from tracer.motion.force import field_at, rate, speed
-from tracer.motion.stepper import (dense, lane_next_rates, lane_step, propose, put_patch,
-                                   step_cap)
+from tracer.motion.stepper import (dense, lane_next_rates, lane_rate, lane_step, propose,
+                                   put_patch, step_cap)
 from tracer.motion.symmetry import map_r
 from tracer.motion.walls import (KINK_FRACTION, SNAP, STRETCH, cell_ahead, cell_box, cell_of,
                                  excursion, exit_time, hold, kink_error, reach, wall_theta,
                                  wall_time)
+from tracer.waveforms import jump_at, piece
 
 
 @njit(cache=True, error_model="numpy")
@@ -46,9 +49,34 @@ def thin_path(path, n):
 
 
 @njit(cache=True, error_model="numpy")
-def trace_lanes(lo, hi, starts, herm, nodes, sym, bounds, cell, shapes, mass, charge, t_max, rtol,
-                atol_p, max_step, sample, fine, planes, stops, max_steps, final, info,
-                cross_plane, cross_state, paths, quiet):
+def work_along(rc, theta, h, t0, m, drive, nodes, sym, points, phi, buf):
+    """The dV/dt work (volts) and its magnitude along the first fraction theta of a step of
+    length h from t0 on waveform piece m, from its dense output rc
+    (:func:`tracer.motion.drive.step_work`)."""
+    for i in range(GAUSS_POINTS):
+        dense(rc, theta * GAUSS_THETA[i], buf)
+        for c in range(3):
+            points[i, c] = buf[c]
+    return step_work(drive, m, t0, theta * h, points, nodes, sym, phi)
+
+
+@njit(cache=True, error_model="numpy")
+def first_rate(w, l, y, t, dw, waves, m, nodes, sym, mass, charge, k):
+    """The rate at state y at time t in lane l's cell, its polynomial weighed on waveform piece m
+    (:mod:`tracer.motion.drive`), into k[0]; returns the potential there."""
+    weigh(dw, D_CELL, l, waves, m, t, w, W_PATCH)
+    for i in range(6):
+        w[W_Y1 + i, l] = y[i]
+    lane_rate(w, l, t, nodes, sym, mass, charge, W_PATCH, W_V1)
+    for i in range(6):
+        k[0, i] = w[W_RATE + i, l]
+    return w[W_V1, l]
+
+
+@njit(cache=True, error_model="numpy")
+def trace_lanes(lo, hi, starts, t_start, herm, drive, nodes, sym, bounds, cell, shapes, mass,
+                charge, t_max, rtol, atol_p, max_step, sample, fine, planes, stops, max_steps,
+                final, info, cross_plane, cross_state, paths, quiet, spent):
     """Trace rays lo..hi-1 of ``starts`` on one thread, ``LANES`` at a time.
 
     Every lane holds one ray; each round, every lane chooses its step, :func:`lane_step` takes all
@@ -63,8 +91,25 @@ def trace_lanes(lo, hi, starts, herm, nodes, sym, bounds, cell, shapes, mass, ch
     other point is dropped and the spacing doubles, so it always spans the whole ray (its last row
     is kept for the end point). In the cells marked by ``quiet``
     (:func:`tracer.motion.events.quiet_cells`) accepted steps skip the event search.
+
+    Voltages in time (``drive`` with K > 0 groups, :mod:`tracer.motion.drive`): ray r starts at
+    ``t_start[r]`` and flies for at most ``t_max``; its steps end on waveform corners (where a
+    jump adds its work) and are at most ``drive.waves.max_step_s`` long; the ledger subtracts the
+    dV/dt work (:func:`tracer.ledger.time_ledger_J`), whose sum and magnitude over the ray go to
+    ``spent[r]`` (volts). With K = 0 none of this runs and the trace is the static one.
     """
     w = np.zeros((W_ROWS, LANES))
+    waves = drive.waves
+    nk = drive.driven.shape[0]
+    timed = nk > 0
+    dw = drive_workspace(drive)
+    pieces = np.zeros(LANES, dtype=np.int64)   # the waveform piece of each lane's step
+    work = np.zeros(LANES)        # the dV/dt and jump work so far, volts
+    spread = np.zeros(LANES)      # its magnitude, volts
+    t_stop = np.zeros(LANES)      # when the ray's time is up
+    phi = np.zeros((GAUSS_POINTS, nk))
+    points = np.zeros((GAUSS_POINTS, 3))
+    at_x = np.zeros(nk)
     ray = np.full(LANES, -1)
     code = np.full(LANES, RUNNING)
     electrode = np.full(LANES, -1)
@@ -120,13 +165,19 @@ def trace_lanes(lo, hi, starts, herm, nodes, sym, bounds, cell, shapes, mass, ch
                 ci[l] = i
                 cj[l] = j
                 patch = patch_coefficients(herm, ci[l], cj[l], hz, hr)
-                v_start[l] = rate(patch, z0 + ci[l] * hz, r0 + cj[l] * hr, nodes, sym, mass,
-                                  charge, y0[l], k_new, 0)
+                put_patch(w, l, W_PATCH, patch, z0 + ci[l] * hz, r0 + cj[l] * hr)
+                if timed:
+                    pieces[l] = piece(waves, t_start[r])
+                    load_cell(dw, D_CELL, l, patch, drive, ci[l], cj[l], hz, hr)
+                    v_start[l] = first_rate(w, l, y0[l], t_start[r], dw, waves, pieces[l], nodes,
+                                            sym, mass, charge, k_new)
+                else:
+                    v_start[l] = rate(patch, z0 + ci[l] * hz, r0 + cj[l] * hr, nodes, sym, mass,
+                                      charge, y0[l], k_new, 0)
                 for i in range(6):
                     k0[l, i] = k_new[0, i]
                     w[W_Y0 + i, l] = y0[l, i]
                     w[W_K + i, l] = k_new[0, i]
-                put_patch(w, l, W_PATCH, patch, z0 + ci[l] * hz, r0 + cj[l] * hr)
                 w[W_ATOL, l] = atol_p[r]
                 ke_start[l] = kinetic_energy_J(y0[l, 3], y0[l, 4], y0[l, 5], mass)
                 evals[l] = 1
@@ -135,8 +186,11 @@ def trace_lanes(lo, hi, starts, herm, nodes, sym, bounds, cell, shapes, mass, ch
                 n_cross[l] = 0
                 n_path[l] = 0
                 stride[l] = 1
-                t[l] = 0.0
-                w[W_T, l] = 0.0
+                t[l] = t_start[r]
+                w[W_T, l] = t_start[r]
+                t_stop[l] = t_start[r] + t_max
+                work[l] = 0.0
+                spread[l] = 0.0
                 hp[l] = 0.0
                 h_cut[l] = 0.0
                 worst[l] = 0.0
@@ -152,7 +206,7 @@ def trace_lanes(lo, hi, starts, herm, nodes, sym, bounds, cell, shapes, mass, ch
                         code[l] = INSIDE
                         electrode[l] = k_in
                     elif r < paths.shape[0]:
-                        put_row(paths[r], 0, 0.0, y0[l], ke_start[l], 0.0)
+                        put_row(paths[r], 0, t[l], y0[l], ke_start[l], 0.0)
                         n_path[l] = 1
             if ray[l] >= 0:
                 active += 1
@@ -168,10 +222,14 @@ def trace_lanes(lo, hi, starts, herm, nodes, sym, bounds, cell, shapes, mass, ch
                 continue
             cut[l] = h_cut[l] > 0.0
             if cut[l]:
-                h = min(h_cut[l], t_max - t[l])
+                h = min(h_cut[l], t_stop[l] - t[l])
                 h_cut[l] = 0.0
             else:
-                h = min(h_err[l], step_cap(y0[l], k0[l], mass, max_step), t_max - t[l])
+                h = min(h_err[l], step_cap(y0[l], k0[l], mass, max_step), t_stop[l] - t[l])
+                if timed:   # end on the next waveform corner; resolve the RF period
+                    m = pieces[l]
+                    t_corner = waves.corner[m] if m < waves.corner.size else np.inf
+                    h = min(h, waves.max_step_s, t_corner - t[l])
                 cell_box(nodes, ci[l], cj[l], box)
                 reach(rc[l], hp[l], y0[l], k0[l], mass, STRETCH * h, ahead)
                 h_wall = exit_time(ahead, y0[l], k0[l], sym, box, STRETCH * h, 0.1 * snap)
@@ -182,7 +240,7 @@ def trace_lanes(lo, hi, starts, herm, nodes, sym, bounds, cell, shapes, mass, ch
                 continue
             w[W_H, l] = h
 
-        lane_step(w, nodes, sym, mass, charge, rtol, atol_x)
+        lane_step(w, nodes, sym, mass, charge, rtol, atol_x, dw, waves, pieces)
 
         # each lane checks its step: error, then the cell it ends in and the one it is entering
         for l in range(LANES):
@@ -224,8 +282,10 @@ def trace_lanes(lo, hi, starts, herm, nodes, sym, bounds, cell, shapes, mass, ch
                     th = wall_theta(rt[l], sym, box, 1.0, shapes, buf)
                 else:
                     need[l] = True
-                    put_patch(w, l, W_NEXT, patch_coefficients(herm, ni, nj, hz, hr),
-                              z0 + ni * hz, r0 + nj * hr)
+                    patch = patch_coefficients(herm, ni, nj, hz, hr)
+                    put_patch(w, l, W_NEXT, patch, z0 + ni * hz, r0 + nj * hr)
+                    if timed:
+                        load_cell(dw, D_NEXT, l, patch, drive, ni, nj, hz, hr)
             theta[l] = th
             past_cell[l] = past
             end_cell[l, 0] = i1
@@ -234,7 +294,7 @@ def trace_lanes(lo, hi, starts, herm, nodes, sym, bounds, cell, shapes, mass, ch
             end_cell[l, 3] = nj
 
         # the rates in the cells the steps are entering, all lanes at once
-        lane_next_rates(w, nodes, sym, mass, charge)
+        lane_next_rates(w, nodes, sym, mass, charge, dw, waves, pieces)
 
         # each lane enters the next cell, or cuts its step back to the wall, or goes on
         for l in range(LANES):
@@ -322,9 +382,18 @@ def trace_lanes(lo, hi, starts, herm, nodes, sym, bounds, cell, shapes, mass, ch
                                 dense(rcl, th, buf)
                                 cross_plane[r, nc] = q
                                 ke = kinetic_energy_J(buf[3], buf[4], buf[5], mass)
-                                vq = field_at(herm, nodes, sym, buf[0], buf[1], buf[2])[0]
-                                worst[l] = max(worst[l], abs(residual_J(ke_start[l], ke, charge,
-                                                                        v_start[l], vq)))
+                                if timed:
+                                    vq = potential_at(herm, drive, pieces[l], t[l] + th * h, nodes,
+                                                      sym, buf[0], buf[1], buf[2])
+                                    wq = work[l] + work_along(rcl, th, h, t[l], pieces[l], drive,
+                                                              nodes, sym, points, phi, buf)[0]
+                                    dense(rcl, th, buf)
+                                    res = residual_J(ke_start[l], ke, charge, v_start[l], vq) \
+                                        - charge * wq
+                                else:
+                                    vq = field_at(herm, nodes, sym, buf[0], buf[1], buf[2])[0]
+                                    res = residual_J(ke_start[l], ke, charge, v_start[l], vq)
+                                worst[l] = max(worst[l], abs(res))
                                 put_row(cross_state[r], nc, t[l] + th * h, buf, ke, worst[l])
                             n_cross[l] += 1
                 if code[l] != RUNNING:
@@ -338,15 +407,38 @@ def trace_lanes(lo, hi, starts, herm, nodes, sym, bounds, cell, shapes, mass, ch
                 if past:
                     if enter and i1 == ni and j1 == nj:
                         v1 = v_next
+                    elif timed:
+                        v1 = potential_at(herm, drive, pieces[l], t_new, nodes, sym, y1[l, 0],
+                                          y1[l, 1], y1[l, 2])
+                        evals[l] += 1
                     else:
                         v1 = field_at(herm, nodes, sym, y1[l, 0], y1[l, 1], y1[l, 2])[0]
                         evals[l] += 1
                 ke1 = kinetic_energy_J(y1[l, 3], y1[l, 4], y1[l, 5], mass)
                 res = residual_J(ke_start[l], ke1, charge, v_start[l], v1)
+                corner = False
+                if timed:
+                    dwk, mag = work_along(rcl, 1.0, h, t[l], pieces[l], drive, nodes, sym, points,
+                                          phi, buf)
+                    work[l] += dwk
+                    spread[l] += mag
+                    res -= charge * work[l]
+                    m = pieces[l]
+                    if m < waves.corner.size and t_new >= waves.corner[m]:
+                        # the step ends on a corner: a jump's work, the next piece
+                        corner = True
+                        t_new = waves.corner[m]
+                        group_potentials(drive, nodes, sym, y1[l, 0], y1[l, 1], y1[l, 2], at_x)
+                        jump = 0.0
+                        for k in range(nk):
+                            jump += jump_at(waves, k, t_new) * at_x[k]
+                        work[l] += jump
+                        spread[l] += abs(jump)
+                        pieces[l] = piece(waves, t_new)
                 worst[l] = max(worst[l], abs(res))
-                if t_new >= t_max:
+                if t_new >= t_stop[l]:
                     code[l] = TIME
-                    t_new = t_max
+                    t_new = t_stop[l]
                 t[l] = t_new
                 w[W_T, l] = t_new
                 for i in range(6):
@@ -359,6 +451,15 @@ def trace_lanes(lo, hi, starts, herm, nodes, sym, bounds, cell, shapes, mass, ch
                     cj[l] = nj
                     for m in range(18):
                         w[W_PATCH + m, l] = w[W_NEXT + m, l]
+                    if timed:
+                        dw[D_CELL, :, :, l] = dw[D_NEXT, :, :, l]
+                if corner:   # the first rate of the next step on the new piece
+                    first_rate(w, l, y0[l], t_new, dw, waves, pieces[l], nodes, sym, mass, charge,
+                               k_new)
+                    evals[l] += 1
+                    for i in range(6):
+                        k0[l, i] = k_new[0, i]
+                        w[W_K + i, l] = k_new[0, i]
                 if n_path_cap > 0 and steps[l] % stride[l] == 0:
                     if n_path[l] == n_path_cap - 1:
                         n_path[l] = thin_path(paths[r], n_path[l])
@@ -368,13 +469,23 @@ def trace_lanes(lo, hi, starts, herm, nodes, sym, bounds, cell, shapes, mass, ch
                         n_path[l] += 1
                 h_err[l] = propose(h, h_err[l], enorm)
             else:
+                if timed:
+                    dwk, mag = work_along(rcl, t_end, h, t[l], pieces[l], drive, nodes, sym,
+                                          points, phi, buf)
+                    work[l] += dwk
+                    spread[l] += mag
                 dense(rcl, t_end, buf)
                 for i in range(6):
                     y0[l, i] = buf[i]
                 t[l] = t[l] + t_end * h
                 ke1 = kinetic_energy_J(y0[l, 3], y0[l, 4], y0[l, 5], mass)
-                v1 = field_at(herm, nodes, sym, y0[l, 0], y0[l, 1], y0[l, 2])[0]
-                res = residual_J(ke_start[l], ke1, charge, v_start[l], v1)
+                if timed:
+                    v1 = potential_at(herm, drive, pieces[l], t[l], nodes, sym, y0[l, 0], y0[l, 1],
+                                      y0[l, 2])
+                    res = residual_J(ke_start[l], ke1, charge, v_start[l], v1) - charge * work[l]
+                else:
+                    v1 = field_at(herm, nodes, sym, y0[l, 0], y0[l, 1], y0[l, 2])[0]
+                    res = residual_J(ke_start[l], ke1, charge, v_start[l], v1)
                 worst[l] = max(worst[l], abs(res))
                 if n_path_cap > 0:
                     put_row(paths[r], n_path[l], t[l], y0[l], ke1, res)
@@ -394,12 +505,15 @@ def trace_lanes(lo, hi, starts, herm, nodes, sym, bounds, cell, shapes, mass, ch
             info[r, C_STEPS] = steps[l]
             info[r, C_REJECTED] = rejected[l]
             info[r, C_EVALS] = evals[l]
+            spent[r, 0] = work[l]
+            spent[r, 1] = spread[l]
             ray[l] = -1
 
 
 @njit(cache=True, parallel=True, error_model="numpy")
-def trace_rays(starts, herm, nodes, sym, bounds, cell, shapes, mass, charge, t_max, rtol, atol_p,
-               max_step, sample, fine, planes, stops, max_steps, max_cross, paths, quiet, group):
+def trace_rays(starts, t_start, herm, waves, driven, nodes, sym, bounds, cell, shapes, mass, charge,
+               t_max, rtol, atol_p, max_step, sample, fine, planes, stops, max_steps, max_cross,
+               paths, quiet, group):
     """Trace many rays in parallel (numba prange over groups of rays, each traced by
     :func:`trace_lanes`, whose docstring gives the layouts).
 
@@ -407,8 +521,14 @@ def trace_rays(starts, herm, nodes, sym, bounds, cell, shapes, mass, charge, t_m
     ----------
     starts : float64[n, 6]
         Start states (x, y, z, px, py, pz), SI.
+    t_start : float64[n]
+        Start times, seconds (each ray flies for at most ``t_max`` from its start).
     herm : float64[4, nz, nr]
-        The map's Hermite node data (:class:`tracer.fieldmap.PotentialMap`).
+        The map's Hermite node data (:class:`tracer.fieldmap.PotentialMap`); with voltages in
+        time, that of the static map.
+    waves, driven : tracer.waveforms.WaveArrays, float64[K, 4, nz, nr]
+        The waveforms and group maps (:class:`tracer.motion.drive.Drive`; K = 0 for a static
+        field), apart: numba's parallel loop takes no tuple of tuples.
     nodes : Nodes
         Its node grid.
     sym : int
@@ -432,15 +552,19 @@ def trace_rays(starts, herm, nodes, sym, bounds, cell, shapes, mass, charge, t_m
     -------
     final : float64[n, ROW_LEN] (state rows); info : int64[n, COUNTS] (``C_*`` columns: code,
     electrode, crossings, path points, steps, rejected steps, field evaluations); cross_plane :
-    int64[n, max_cross]; cross_state : float64[n, max_cross, ROW_LEN]
+    int64[n, max_cross]; cross_state : float64[n, max_cross, ROW_LEN]; spent : float64[n, 2]
+    (the dV/dt and jump work W of each ray and its magnitude, volts; zeros in a static field)
     """
     n = starts.shape[0]
     final = np.zeros((n, ROW_LEN))
     info = np.zeros((n, COUNTS), dtype=np.int64)
     cross_plane = np.full((n, max_cross), -1, dtype=np.int64)
     cross_state = np.zeros((n, max_cross, ROW_LEN))
+    spent = np.zeros((n, 2))
     for g in prange(-(-n // group)):
-        trace_lanes(g * group, min(n, (g + 1) * group), starts, herm, nodes, sym, bounds, cell,
-                    shapes, mass, charge, t_max, rtol, atol_p, max_step, sample, fine, planes, stops,
-                    max_steps, final, info, cross_plane, cross_state, paths, quiet)
-    return final, info, cross_plane, cross_state
+        trace_lanes(g * group, min(n, (g + 1) * group), starts, t_start, herm,
+                    Drive(waves, driven), nodes, sym,
+                    bounds, cell, shapes, mass, charge, t_max, rtol, atol_p, max_step, sample, fine,
+                    planes, stops, max_steps, final, info, cross_plane, cross_state, paths, quiet,
+                    spent)
+    return final, info, cross_plane, cross_state, spent

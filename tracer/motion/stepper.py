@@ -22,6 +22,7 @@ from numba import njit
 
 from tracer.motion.bundles import (LANES, W_DENSE, W_ERR, W_ATOL, W_H, W_K, W_NEXT, W_PATCH,
                                    W_RATE, W_T, W_V1, W_VN, W_Y0, W_Y1)
+from tracer.motion.drive import D_CELL, D_NEXT, weigh_lanes
 from tracer.motion.force import force, gamma_mass, inverse_gamma_mass
 from tracer.motion.tableau import DP_A, DP_C, DP_D, DP_E
 
@@ -80,7 +81,7 @@ def lane_stage(w, st, nodes, sym, mass, charge):
 
 
 @njit(cache=True, error_model="numpy", inline="always")
-def lane_step(w, nodes, sym, mass, charge, rtol, atol_x):
+def lane_step(w, nodes, sym, mass, charge, rtol, atol_x, dw, waves, pieces):
     """One Dormand–Prince 5(4) step in every lane of a workspace (rows ``W_*``, one column a lane).
 
     Each lane steps from its state y0 (``W_Y0``) at time ``W_T`` with first stage rate ``W_K`` over
@@ -91,11 +92,18 @@ def lane_step(w, nodes, sym, mass, charge, rtol, atol_x):
     atol + rtol max(|y0|, |y1|); ``atol_x`` for positions, ``W_ATOL`` for momenta) into ``W_ERR``
     and the continuous extension (Hairer et al. 1993) into ``W_DENSE``.
 
+    Voltages in time: with a drive workspace dw of K > 0 groups (:mod:`tracer.motion.drive`), the
+    cell polynomial of each stage is first weighed at the stage's time on the waveform piece
+    ``pieces[l]``; with K = 0 the stages read ``W_PATCH`` as it is.
+
     Each loop over lanes holds only loops of constant length and branches the compiler turns into
     selects, so it compiles to SIMD instructions over the lanes (when w is a workspace allocated
     by the caller it is inlined into, whose shape the compiler then knows; ``W_RATE`` is scratch).
     """
+    timed = dw.shape[1] > 1
     for st in range(1, 7):
+        if timed:
+            weigh_lanes(dw, D_CELL, w, W_PATCH, waves, pieces, DP_C[st])
         lane_stage(w, st, nodes, sym, mass, charge)
     for l in range(LANES):
         h = w[W_H, l]
@@ -121,9 +129,12 @@ def lane_step(w, nodes, sym, mass, charge, rtol, atol_x):
 
 
 @njit(cache=True, error_model="numpy", inline="always")
-def lane_next_rates(w, nodes, sym, mass, charge):
+def lane_next_rates(w, nodes, sym, mass, charge, dw, waves, pieces):
     """The rates at the end states ``W_Y1`` of all lanes in the cells they are about to enter
-    (``W_NEXT``) into ``W_RATE``, the potentials into ``W_VN``: one SIMD loop over the lanes."""
+    (``W_NEXT``, weighed at the step's end as in :func:`lane_step`) into ``W_RATE``, the potentials
+    into ``W_VN``: one SIMD loop over the lanes."""
+    if dw.shape[1] > 1:
+        weigh_lanes(dw, D_NEXT, w, W_NEXT, waves, pieces, 1.0)
     for l in range(LANES):
         lane_rate(w, l, w[W_T, l] + w[W_H, l], nodes, sym, mass, charge, W_NEXT, W_VN)
 

@@ -1,0 +1,194 @@
+"""Tracing through voltages that change in time, against the world outside: a uniform field
+switched on (closed form), the quadrupole ion trap's stability edge and secular frequency (the
+Mathieu equation), time-lag focusing of a two-stage source (Wiley & McLaren 1955); and the energy
+ledger in time on all of them. The reference solutions are in tests/timecases.py."""
+
+import math
+
+import numpy as np
+import pytest
+
+from test_trace import GAP, PLATES, Z_START
+from timecases import SwitchedField, beta_monodromy, qz_from_curvature, stability_edge_q
+from tracer.beam import trace
+from tracer.config import loads
+from tracer.fieldmap import BasisMaps
+from tracer.geometry import rasterize, shape_table
+from tracer.grid import Grid
+from tracer.groups import group_maps
+from tracer.waveforms import Pulse, Sinusoid, Waveform
+
+
+
+def plate_basis(setup):
+    """The exact unit maps of the two plates, 1 - z / GAP (back) and z / GAP (front), as Hermite
+    data (a bicubic patch reproduces a linear function exactly)."""
+    grid = Grid.from_domain(setup.domain)
+    table = shape_table(setup.electrodes, setup.domain)
+    unit = np.zeros((2, 4, grid.nz, grid.nr))
+    unit[1, 0] = (grid.z / GAP)[:, None]
+    unit[1, 1] = 1.0 / GAP
+    unit[0, 0] = 1.0 - unit[1, 0]
+    unit[0, 1] = -unit[1, 1]
+    return BasisMaps(grid, table, rasterize(table, grid), ("back", "front"), (0.0, 0.0), None, unit,
+                     (), "")
+
+
+@pytest.mark.parametrize("species_name, volts, switch_s, ramp_s", [
+    ("40Ar+", -1000.0, 50e-9, 0.0),        # a step: the jump term carries -qE z0
+    ("40Ar+", -1000.0, 50e-9, 200e-9),     # a ramp: the dV/dt term
+    ("e-", 100e3, 1e-9, 0.0),              # relativistic electrons, a step
+    ("e-", 100e3, 1e-9, 0.05e-9),          # and a ramp shorter than the flight
+])
+def test_uniform_field_switched_on(species_name, volts, switch_s, ramp_s):
+    """Charges at rest until a uniform field is switched on (the front plate pulsed from 0 to
+    ``volts``) land when, where and with the energy of the closed form (tests/timecases.py:
+    impulse p = q ∫E dt, hyperbolic motion for a step, the hypergeometric series over a ramp); the
+    ledger's terms are those of the closed form: the jump -q E z0 of a step, q ∫ dV/dt dt of a
+    ramp (scipy's quad), and it closes to the static tolerance."""
+    setup = loads(PLATES.format(volts=0.0, species=species_name, energy=0.0, count=3, angle=0.0,
+                                extra=""))
+    beam, z0 = setup.beams[0], Z_START
+    sp = beam.species
+    drive = {"front": Waveform(pulses=(Pulse(volts, switch_s, rise_s=ramp_s),))}
+    grouped = group_maps(plate_basis(setup), drive)
+    ref = SwitchedField(-volts / GAP, switch_s, ramp_s, sp.mass_kg, sp.charge_C)
+    t_land = ref.time_at(GAP - z0)
+    run = trace(grouped, beam, rtol=1e-10, max_time_s=10 * t_land)
+    rec = run.records
+    assert (rec["status"] == "landed").all() and (rec["electrode"] == "front").all()
+    gained = ref.energy_eV(t_land)
+    assert rec["time_s"] == pytest.approx(np.full(3, t_land), rel=1e-9)
+    assert rec["energy_eV"] == pytest.approx(np.full(3, gained), rel=1e-9)
+    potential, work, jump = ref.ledger_terms_eV(z0, t_land)
+    assert run.work_eV == pytest.approx(np.full(3, work + jump), rel=1e-9, abs=1e-9 * abs(gained))
+    assert potential + work + jump == pytest.approx(gained, rel=1e-9)
+    assert abs(run.work_eV).min() > 0.05 * abs(gained)        # the time term is no small part
+    assert run.ledger.suspects == 0 and run.ledger.worst_relative < 1e-8
+
+
+# --------------------------------------------------------------------------------------------
+# The quadrupole ion trap
+
+R0, Z0 = 10e-3, 10e-3 / math.sqrt(2.0)     # ring radius and end-cap distance, r0^2 = 2 z0^2
+RF_HZ = 1e6
+
+
+def trap_toml():
+    """A quadrupole ion trap of our own proportions: a hyperbolic ring r^2 - 2 z^2 = r0^2 and two
+    hyperbolic end caps 2 z^2 - r^2 = 2 z0^2 (Paul 1990), cut off inside a grounded box."""
+    zs = np.linspace(-6.0, 6.0, 25)
+    ring = [[z, math.sqrt(100.0 + 2 * z * z)] for z in zs] + [[6.0, 15.0], [-6.0, 15.0]]
+    rs = np.linspace(0.0, 9.0, 19)
+    cap = [[math.sqrt(50.0 + r * r / 2), r] for r in rs] + [[15.0, 9.0], [15.0, 0.0]]
+
+    def points(p):
+        return "[" + ", ".join(f"[{z:.6f}, {r:.6f}]" for z, r in p) + "]"
+
+    return f"""
+title = "quadrupole ion trap (illustrative)"
+[domain]
+symmetry = "axial"
+z_mm = [-16.0, 16.0]
+r_mm = 16.0
+cell_mm = 0.2
+[[electrode]]
+name = "ring"
+voltage_V = 0.0
+[[electrode.polygon]]
+points_mm = {points(ring)}
+[[electrode]]
+name = "cap_a"
+voltage_V = 0.0
+[[electrode.polygon]]
+points_mm = {points(cap)}
+[[electrode]]
+name = "cap_b"
+voltage_V = 0.0
+[[electrode.polygon]]
+points_mm = {points([[-z, r] for z, r in cap])}
+[[beam]]
+name = "ion"
+species = "40Ar+"
+energy_eV = 0.0
+count = 1
+start_z_mm = 0.3
+[[plane]]
+name = "centre"
+z_mm = 0.0
+"""
+
+
+@pytest.fixture(scope="module")
+def trap(tmp_path_factory):
+    """The trap's setup, its solved basis maps and the curvature kappa = d2phi/dz2 of the ring's
+    unit map at the centre, from an even polynomial fitted to the interpolant over |z| <= 1 mm."""
+    from tracer.fieldmap import solve_basis
+
+    setup = loads(trap_toml())
+    maps = solve_basis(setup, rtol=1e-12)
+    z = np.linspace(-1e-3, 1e-3, 81)
+    phi = maps.combine({"ring": 1.0, "cap_a": 0.0, "cap_b": 0.0}).potential(z, np.zeros_like(z))
+    c = np.polynomial.polynomial.polyfit(z * z, phi, 3)
+    return setup, maps, 2.0 * c[1]
+
+
+def trap_run(trap, q_z, periods, **options):
+    """Trace the trap's ion for ``periods`` RF periods with the ring driven at the amplitude that
+    gives q_z = 2 q |kappa| V / (m Omega^2) (tests/timecases.py, qz_from_curvature)."""
+    setup, maps, kappa = trap
+    beam = setup.beams[0]
+    sp = beam.species
+    omega = 2 * math.pi * RF_HZ
+    volts = q_z * sp.mass_kg * omega**2 / (2 * abs(sp.charge_C * kappa))
+    assert qz_from_curvature(kappa, volts, sp.mass_kg, sp.charge_C, RF_HZ) == pytest.approx(q_z)
+    rf = Waveform(sinusoids=(Sinusoid(volts, RF_HZ),))
+    grouped = group_maps(maps, {"ring": rf, "cap_a": 0.0, "cap_b": 0.0})
+    return trace(grouped, beam, planes=setup.planes, rtol=1e-10, max_time_s=periods / RF_HZ,
+                 **options), volts
+
+
+def test_trap_curvature_near_the_ideal(trap):
+    """The solved trap's curvature is near the ideal -4 / (r0^2 + 2 z0^2) of hyperbolic electrodes
+    (Paul 1990): the cut-off electrodes and the box change it by a few per cent at most."""
+    assert trap[2] == pytest.approx(-4.0 / (R0**2 + 2 * Z0**2), rel=0.05)
+
+
+@pytest.mark.parametrize("factor, held", [(0.99, True), (1.005, False)])
+def test_trap_stability_edge(trap, factor, held):
+    """At a = 0 the axial motion turns unstable at q_z = 0.908 (the Mathieu characteristic value
+    b_1(q) = 0 by scipy.special.mathieu_b; McLachlan 1947, Paul 1990): at 0.99 of it the ion is held
+    for 1000 RF periods, at 1.005 of it it is lost within about 100 (its amplitude grows by the
+    Floquet multiplier, 1.22 a period). The ledger closes with the RF's work the whole energy."""
+    q_edge = stability_edge_q()
+    assert q_edge == pytest.approx(0.908, abs=5e-4)
+    run, volts = trap_run(trap, factor * q_edge, 1000 if held else 100)
+    (rec,) = run.records
+    if held:
+        assert rec["status"] == "time" and rec["time_s"] == pytest.approx(1000 / RF_HZ, rel=1e-12)
+        assert abs(rec["z_m"]) < Z0 and rec["steps"] < 200 * 1000
+    else:
+        assert rec["status"] == "landed" and rec["electrode"] in ("cap_a", "cap_b")
+        assert rec["time_s"] < 100 / RF_HZ
+    assert run.ledger.suspects == 0
+    assert run.ledger.worst_eV < 1e-6 * abs(run.energy_scale_eV[0])
+    # the RF exchanges far more energy with the ion than the ledger's worst residual
+    assert run.energy_scale_eV[0] > 1e6 * run.ledger.worst_eV
+
+
+@pytest.mark.parametrize("q_z", [0.3, 0.6])
+def test_trap_secular_frequency(trap, q_z):
+    """The secular frequency beta_z Omega / 2 of a small axial oscillation matches the exact
+    characteristic exponent beta_z of the Mathieu equation (from its monodromy matrix, tied to
+    scipy.special's characteristic values in tests/test_timecases.py) to 1e-3, where Dehmelt's
+    q / sqrt(2) (1967) is off by 2 % at 0.3 and more at 0.6. Measured from the ion's crossings of
+    the centre plane: a straight line through their times has the half secular period as slope."""
+    run, _ = trap_run(trap, q_z, 600, max_crossings=1000)
+    times = run.at_plane("centre")["time_s"]
+    assert len(times) > 100
+    slope = np.polyfit(np.arange(len(times)), times, 1)[0]
+    beta = 1.0 / (RF_HZ * slope)
+    exact = beta_monodromy(0.0, q_z)
+    assert beta == pytest.approx(exact, rel=1e-3)
+    assert abs(q_z / math.sqrt(2) - exact) > 1.5e-2 * exact
+    assert run.ledger.suspects == 0

@@ -1,0 +1,109 @@
+"""The field of electrodes whose voltages change in time, as the kernel sees it.
+
+With its electrodes grouped by waveform (:mod:`tracer.groups`) the potential is
+
+    V(x, t) = V_static(x) + sum_k w_k(t) M_k(x),
+
+one static map and K group maps on the same nodes. The interpolant is linear in the node data,
+so a cell's polynomial at time t is the static polynomial plus the group polynomials weighted by
+w_k(t). Per lane, the kernel keeps the 1 + K polynomials of the cell it is in and of the cell it is
+entering in a *drive workspace* (:func:`drive_workspace`), and before each Runge–Kutta stage writes
+their sum at the stage's time into the rows the force reads (:func:`weigh_lanes`): the force sees
+one ordinary cell polynomial, and each group costs one more sum of 16 coefficients per stage.
+
+Waveform pieces. A step never straddles a waveform corner (:mod:`tracer.waveforms`): each lane
+keeps the piece its step lies on, and every stage of the step weighs on that piece's straight
+line, continued to the step's end, so the last stage of a step that ends on a corner sees the
+waveform from the left.
+
+:class:`Drive` carries the waveforms and the group maps into the kernel; a static field is a
+Drive with K = 0, for which none of this runs.
+"""
+
+from collections import namedtuple
+
+import numpy as np
+from numba import njit
+
+from tracer.fieldmap import patch_coefficients
+from tracer.ledger import GAUSS_POINTS, time_work
+from tracer.motion.bundles import LANES, W_H, W_T
+from tracer.motion.force import field_at
+from tracer.waveforms import value, wave_arrays
+
+Drive = namedtuple("Drive", ["waves", "driven"])
+"""The time-dependent part of a field: ``waves`` (:class:`tracer.waveforms.WaveArrays` of the K
+groups) and ``driven`` (float64[K, 4, nz, nr], the Hermite node data of each group map M_k)."""
+
+D_CELL, D_NEXT = 0, 1
+"""The two slots of a drive workspace: the cell a lane is in, and the cell it is entering."""
+
+
+def static_drive(herm):
+    """The Drive of a static field on the nodes of Hermite data ``herm`` (K = 0)."""
+    return Drive(wave_arrays(()), np.zeros((0,) + herm.shape))
+
+
+@njit(cache=True, error_model="numpy")
+def drive_workspace(drive):
+    """A drive workspace: float64[2, 1 + K, 16, LANES], slot (:data:`D_CELL`, :data:`D_NEXT`), map
+    (0 static, 1 + k group k), coefficient, lane."""
+    return np.zeros((2, 1 + drive.driven.shape[0], 16, LANES))
+
+
+@njit(cache=True, error_model="numpy", inline="always")
+def load_cell(dw, slot, l, a, drive, i, j, hz, hr):
+    """Put the static polynomial ``a`` of cell (i, j) and the group polynomials of that cell into
+    slot ``slot`` of lane l."""
+    for m in range(16):
+        dw[slot, 0, m, l] = a[m]
+    for k in range(drive.driven.shape[0]):
+        b = patch_coefficients(drive.driven[k], i, j, hz, hr)
+        for m in range(16):
+            dw[slot, 1 + k, m, l] = b[m]
+
+
+@njit(cache=True, error_model="numpy", inline="always")
+def weigh(dw, slot, l, waves, m, t, w, row):
+    """Write the polynomial of slot ``slot`` of lane l at time t on waveform piece m (static plus
+    weighted groups) into rows row..row+15 of lane l of the workspace w."""
+    nk = dw.shape[1] - 1
+    for c in range(16):
+        w[row + c, l] = dw[slot, 0, c, l]
+    for k in range(nk):
+        wk = value(waves, k, m, t)
+        for c in range(16):
+            w[row + c, l] += wk * dw[slot, 1 + k, c, l]
+
+
+@njit(cache=True, error_model="numpy", inline="always")
+def weigh_lanes(dw, slot, w, row, waves, pieces, frac):
+    """:func:`weigh` in every lane at the time ``W_T + frac * W_H`` of its step."""
+    for l in range(LANES):
+        weigh(dw, slot, l, waves, pieces[l], w[W_T, l] + frac * w[W_H, l], w, row)
+
+
+@njit(cache=True, error_model="numpy", inline="always")
+def group_potentials(drive, nodes, sym, x, y, z, out):
+    """The group maps M_k at a 3-D point into out[k], volts per volt of waveform."""
+    for k in range(drive.driven.shape[0]):
+        out[k] = field_at(drive.driven[k], nodes, sym, x, y, z)[0]
+
+
+@njit(cache=True, error_model="numpy")
+def potential_at(herm, drive, m, t, nodes, sym, x, y, z):
+    """V(x, t) on waveform piece m: the static map plus the weighted group maps, volts."""
+    v = field_at(herm, nodes, sym, x, y, z)[0]
+    for k in range(drive.driven.shape[0]):
+        v += value(drive.waves, k, m, t) * field_at(drive.driven[k], nodes, sym, x, y, z)[0]
+    return v
+
+
+@njit(cache=True, error_model="numpy")
+def step_work(drive, m, t0, h, points, nodes, sym, phi):
+    """The dV/dt work over [t0, t0 + h] on piece m (:func:`tracer.ledger.time_work`), the path's
+    points at the Gauss nodes ``t0 + GAUSS_THETA[i] h`` given as ``points[i] = (x, y, z)``;
+    ``phi`` is float64[GAUSS_POINTS, K] scratch. Returns (work, magnitude) in volts."""
+    for i in range(GAUSS_POINTS):
+        group_potentials(drive, nodes, sym, points[i, 0], points[i, 1], points[i, 2], phi[i])
+    return time_work(drive.waves, m, t0, h, phi)
