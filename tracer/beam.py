@@ -127,6 +127,9 @@ class BeamRun(Shown):
         With voltages that change in time, each ray's energy from them, q (∫∂V/∂t dt + jumps), eV:
         the ledger's second term, ΔKE = −qΔV + work_eV (:mod:`tracer.ledger`); None in a static
         field.
+    time_zero_s : float
+        The clock time the planes' resolving power counts flight times from (the extraction
+        pulse; :class:`tracer.measure.PlaneStats`).
     """
 
     name: str
@@ -142,6 +145,7 @@ class BeamRun(Shown):
     symmetry: str = "axial"
     crossing_rules: tuple = ()
     work_eV: np.ndarray | None = dataclass_field(default=None, repr=False)
+    time_zero_s: float = 0.0
 
     def _facts(self):
         status, counts = np.unique(self.records["status"], return_counts=True)
@@ -180,8 +184,10 @@ class BeamRun(Shown):
             dict over the crossings that count, plus ``counted``, the label of the plane's
             :class:`tracer.measure.CrossingRule`}; ``landing`` {electrode:
             :class:`tracer.measure.LandingStats` fields as a dict}; ``ledger_worst_eV``,
-            ``ledger_worst_relative``, ``ledger_threshold``, ``ledger_suspects``; ``warning`` (a
-            one-line warning, or "").
+            ``ledger_worst_relative``, ``ledger_threshold``, ``ledger_suspects``; with voltages
+            that change in time also the ledger's two terms, ΔKE = −qΔV + q W: the largest
+            |qΔV| (``ledger_potential_eV``) and the largest |q W| (``ledger_time_work_eV``,
+            W = ∫∂V/∂t dt + jumps) over the traced rays; ``warning`` (a one-line warning, or "").
         """
         rec = self.records
         n = len(rec)
@@ -211,15 +217,25 @@ class BeamRun(Shown):
             "ledger_threshold": self.ledger.threshold,
             "ledger_suspects": self.ledger.suspects,
             "warning": "; ".join(warnings),
-        }
+        } | self._time_terms()
+
+    def _time_terms(self):
+        """The ledger's terms with voltages in time (see :meth:`summary`); {} in a static field."""
+        if self.work_eV is None:
+            return {}
+        traced = self.records["status"] != "inside"
+        gained = self.records["energy_eV"] - self.starts["energy_eV"]
+        return {"ledger_potential_eV": float(np.abs(gained - self.work_eV)[traced].max(initial=0.0)),
+                "ledger_time_work_eV": float(np.abs(self.work_eV)[traced].max(initial=0.0))}
 
 
-def trace(field: PotentialMap | GroupedMaps, beam: Beam, planes: Sequence[Plane] = (), rtol: float = 1e-9,
+def trace(field: PotentialMap | GroupedMaps, beam: Beam, planes: Sequence[Plane] = (),
+          rtol: float = 1e-9,
           max_time_s: float = 1e-4, *, keep_paths: int = 0, max_path_points: int = 4096,
           ledger_threshold: float = ledger.DEFAULT_THRESHOLD, max_step_cells: float = 1.0,
           sample_cells: float = 0.5, fine_cells: float = 1 / 32, max_steps: int = 10_000_000,
           max_crossings: int = 16, progress: Callable[[int, int], object] | None = None,
-          starts: np.ndarray | None = None) -> BeamRun:
+          starts: np.ndarray | None = None, time_zero_s: float = 0.0) -> BeamRun:
     """Trace a beam through a potential map.
 
     Parameters
@@ -259,6 +275,8 @@ def trace(field: PotentialMap | GroupedMaps, beam: Beam, planes: Sequence[Plane]
     starts : numpy.ndarray, optional
         Start states (:data:`tracer.sources.START_DTYPE`) to trace instead of drawing the beam's;
         the beam then gives only its name and species.
+    time_zero_s : float
+        The clock time the planes' resolving power counts flight times from (the extraction pulse).
 
     Returns
     -------
@@ -361,7 +379,8 @@ def trace(field: PotentialMap | GroupedMaps, beam: Beam, planes: Sequence[Plane]
                    ledger=report, energy_scale_eV=scale,
                    crossings_lost=int((info[:, motion.C_CROSSINGS] - n_cross).sum()), symmetry=grid.symmetry,
                    crossing_rules=rules,
-                   work_eV=spent[:, 0] * sp.charge_C / constants.e if in_time else None)
+                   work_eV=spent[:, 0] * sp.charge_C / constants.e if in_time else None,
+                   time_zero_s=float(time_zero_s))
 
 
 def incidence(rows, electrode, table, grid, mass):

@@ -35,8 +35,9 @@ Keys (defaults in brackets; "r" stands for "y" in a domain with y_mm)::
                  start_time_ns|us [0], start_spread_ns|us [0], start_times "uniform"|"gaussian" (FWHM)
     [[plane]]    name, z_mm, stop [false], direction "any"|"forward"|"backward" ["any"],
                  crossing "first"|"last"|"all"|N (from 1) ["first"]
-    [trace]      max_time_us or max_time_ns [100 us], rtol [1e-9], ledger_threshold [1e-6],
-                 keep_paths [50]
+    [trace]      max_time_us or max_time_ns [100 us] (each ray's, from its start), rtol [1e-9],
+                 ledger_threshold [1e-6], keep_paths [50], time_zero_ns|us [the earliest pulse's
+                 start, else 0] (flight times of the resolving power count from it)
     [scan]       <electrode> = [from_V, to_V, count], ...;  or csv = "sets.csv" (<electrode>_V columns)
     [tune]       vary = {<electrode> = [lo_V, hi_V], ...}, goal = "smallest_spot" | "most_transmitted"
                  | {landing_energy_eV = E} | {focus_z_mm = z}, at (a plane), seed [0]
@@ -791,7 +792,8 @@ def _crossing(value, path):
 
 
 def _trace(value, path):
-    t = _Table(value, path, ("max_time_us", "max_time_ns", "rtol", "ledger_threshold", "keep_paths"))
+    t = _Table(value, path, ("max_time_us", "max_time_ns", "rtol", "ledger_threshold", "keep_paths")
+               + tuple(f"time_zero_{u}" for u in _TIME_KEYS))
     if t.has("max_time_us") and t.has("max_time_ns"):
         raise ConfigError(t.at("max_time_ns"), "give max_time_us or max_time_ns, not both")
     defaults = TraceOptions()
@@ -804,6 +806,7 @@ def _trace(value, path):
         rtol=t.get("rtol", _fraction, default=defaults.rtol),
         ledger_threshold=t.get("ledger_threshold", _fraction, default=defaults.ledger_threshold),
         keep_paths=t.get("keep_paths", _integer, default=defaults.keep_paths),
+        time_zero_s=_in_units(t, "time_zero", _TIME_KEYS, default=None),
     )
 
 

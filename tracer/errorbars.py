@@ -364,7 +364,7 @@ def _extent(domain):
 
 
 
-def estimate(setup, runs, voltages=None, *, solve, trace, progress=None):
+def estimate(setup, runs, *, field, trace, progress=None):
     """The error bars of a run: solve the other grids, trace the picked rays, compare.
 
     Parameters
@@ -373,10 +373,9 @@ def estimate(setup, runs, voltages=None, *, solve, trace, progress=None):
         Its ``grid_error`` says how (``grids`` >= 2).
     runs : dict of str to tracer.beam.BeamRun
         Each beam traced on the config's cell, by name.
-    voltages : mapping, optional
-        The run's voltages (default the setup's).
-    solve : callable
-        ``solve(setup)`` -> BasisMaps (the pipeline's solve with its cache).
+    field : callable
+        ``field(setup)`` -> the field the run's beams are traced through on that setup's grid (the
+        pipeline's solve with its cache, at the run's voltages: :func:`tracer.pipeline.traced_field`).
     trace : callable
         ``trace(field, beam, starts, progress)`` -> BeamRun (the pipeline's trace of a beam with
         given start states).
@@ -395,12 +394,12 @@ def estimate(setup, runs, voltages=None, *, solve, trace, progress=None):
     beams = {b.name: b for b in setup.beams}
     traced = {name: [] for name in runs}
     for factor in factors:
-        field = solve(with_cell(setup, factor)).combine(voltages)
+        other = field(with_cell(setup, factor))
         for name, run in runs.items():
             starts = _start_rows(run, picked(len(run.records), setup.grid_error.rays))
             stage = None if progress is None else (
                 lambda done, total, s=f"{name} on cell {factor:g}h": progress(s, done, total))
-            traced[name].append(trace(field, beams[name], starts, stage))
+            traced[name].append(trace(other, beams[name], starts, stage))
     bars = {name: beam_bars(run, traced[name], setup, len(traced[name][0].records))
             for name, run in runs.items()}
     h = setup.domain.cell_m

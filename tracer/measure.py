@@ -184,7 +184,16 @@ class PlaneStats:
     energy_mean_eV, energy_std_eV : float
         Kinetic energy mean and standard deviation.
     time_mean_s, time_std_s : float
-        Time of flight to the plane, mean and standard deviation.
+        Time of flight to the plane, mean and standard deviation (the time on the trace's clock;
+        rays that start at t = 0 make it the flight time).
+    time_fwhm_s : float
+        Width of the arrival times: the span of their central 76.1 % (erf(sqrt(ln 2)), the share
+        within the full width at half maximum of a normal distribution, so it is the FWHM for a
+        Gaussian peak, and unmoved by a few stragglers); NaN for fewer than two rows.
+    resolving_power : float
+        Mass-resolving power of a time-of-flight analyser at this plane, t / (2 Δt_FWHM), with t
+        the mean arrival time counted from ``time_zero_s`` (the extraction pulse; common
+        practice, m / Δm = t / (2 Δt) since t ∝ sqrt(m)).
     current_A : float
         The current of the rays counted, each ray once (NaN when the rays carry none).
     """
@@ -208,10 +217,16 @@ class PlaneStats:
     energy_std_eV: float
     time_mean_s: float
     time_std_s: float
+    time_fwhm_s: float
+    resolving_power: float
     current_A: float
 
 
-def plane_stats(rows, species, records):
+FWHM_SHARE = math.erf(math.sqrt(math.log(2.0)))
+"""Share of a normal distribution within its full width at half maximum (0.761)."""
+
+
+def plane_stats(rows, species, records, time_zero_s=0.0):
     """The figures of the given crossing rows.
 
     Parameters
@@ -224,6 +239,8 @@ def plane_stats(rows, species, records):
     records : numpy.ndarray
         The rays started (``BeamRun.records``): the denominator of ``fraction``, and their
         ``weight_A`` (when the field is there and sums above 0) the current.
+    time_zero_s : float
+        The clock time the resolving power counts flight times from (the extraction pulse).
 
     Returns
     -------
@@ -236,6 +253,9 @@ def plane_stats(rows, species, records):
     ex, ey = rms_emittance(x, xs), rms_emittance(y, ys)
     n = len(records)
     weights = records["weight_A"] if "weight_A" in records.dtype.names else np.zeros(n)
+    t = rows["time_s"]
+    fwhm = (float(np.diff(np.quantile(t, [0.5 - FWHM_SHARE / 2, 0.5 + FWHM_SHARE / 2]))[0])
+            if len(t) > 1 else math.nan)
     return PlaneStats(
         count=len(rows),
         fraction=len(np.unique(rows["ray"])) / n if n else math.nan,
@@ -256,6 +276,8 @@ def plane_stats(rows, species, records):
         energy_std_eV=std(rows["energy_eV"]),
         time_mean_s=mean(rows["time_s"]),
         time_std_s=std(rows["time_s"]),
+        time_fwhm_s=fwhm,
+        resolving_power=(mean(t) - time_zero_s) / (2.0 * fwhm) if fwhm > 0.0 else math.nan,
         current_A=(float(weights[np.isin(records["ray"], rows["ray"])].sum())
                    if weights.sum() > 0 else math.nan),
     )
@@ -272,7 +294,7 @@ def plane_figures(run, plane):
     -------
     PlaneStats
     """
-    return plane_stats(counted(run, plane), run.species, run.records)
+    return plane_stats(counted(run, plane), run.species, run.records, run.time_zero_s)
 
 
 # --------------------------------------------------------------------------------------------

@@ -122,11 +122,14 @@ class RunResult(Shown):
     setup : tracer.config.Setup
     maps : tracer.fieldmap.BasisMaps
     field : tracer.fieldmap.PotentialMap
-        The potential at the setup's voltages.
+        The potential at the setup's voltages (at t = 0 when they change in time).
     beams : dict of str to tracer.beam.BeamRun
         By beam name, in the order of the config.
     errors : tracer.errorbars.ErrorBars or None
         The grid and Monte Carlo error bars of the figures (None with ``[grid_error] grids = 1``).
+    grouped : tracer.groups.GroupedMaps or None
+        With voltages that change in time, the maps the beams were traced through (``field`` is
+        then the potential at t = 0); None when every voltage is constant.
     """
 
     setup: object
@@ -134,6 +137,7 @@ class RunResult(Shown):
     field: object
     beams: dict
     errors: object = None
+    grouped: object = None
 
     def _facts(self):
         return run_facts(self.setup.title, self.field, self.beams.values()) | {
@@ -149,6 +153,22 @@ class RunResult(Shown):
                 for name, run in self.beams.items()}
 
 
+def traced_field(setup, maps, voltages=None):
+    """The field a setup's beams are traced through: the maps combined at the voltages, or, when
+    electrode voltages change in time, grouped by waveform (:func:`tracer.groups.group_maps`).
+    A voltage given for an electrode with a waveform replaces its DC part."""
+    if not setup.in_time:
+        return maps.combine(voltages)
+    from tracer.groups import group_maps
+    from tracer.waveforms import Waveform
+
+    drives = setup.drives()
+    for name, volts in (voltages or {}).items():
+        drive = drives.get(name)
+        drives[name] = dataclasses.replace(drive, dc_V=float(volts)) if isinstance(drive, Waveform) else volts
+    return group_maps(maps, drives)
+
+
 def trace_beam(field, beam, setup, progress=None, starts=None):
     """Trace one beam of a setup with its ``[trace]`` options and planes; given ``starts``
     (:data:`tracer.sources.START_DTYPE`), those rays instead of the beam's, keeping no paths."""
@@ -157,7 +177,8 @@ def trace_beam(field, beam, setup, progress=None, starts=None):
     opts = setup.trace
     return trace(field, beam, planes=setup.planes, rtol=opts.rtol, max_time_s=opts.max_time_s,
                  keep_paths=opts.keep_paths if starts is None else 0,
-                 ledger_threshold=opts.ledger_threshold, progress=progress, starts=starts)
+                 ledger_threshold=opts.ledger_threshold, progress=progress, starts=starts,
+                 time_zero_s=setup.time_zero_s)
 
 
 def run(setup: Setup, *, maps: BasisMaps | None = None, voltages: Mapping[str, float] | None = None,
@@ -190,12 +211,13 @@ def run(setup: Setup, *, maps: BasisMaps | None = None, voltages: Mapping[str, f
 
     if maps is None:
         maps = solve(setup, cache_dir=cache_dir, progress=stage("solve"))
-    field = maps.combine(voltages)
-    beams = {b.name: trace_beam(field, b, setup, progress=stage(b.name)) for b in setup.beams}
+    traced = traced_field(setup, maps, voltages)
+    beams = {b.name: trace_beam(traced, b, setup, progress=stage(b.name)) for b in setup.beams}
     errors = errorbars.estimate(
-        setup, beams, voltages, solve=lambda other: solve(other, cache_dir=cache_dir),
+        setup, beams, field=lambda other: traced_field(other, solve(other, cache_dir=cache_dir), voltages),
         trace=lambda f, b, starts, p: trace_beam(f, b, setup, progress=p, starts=starts), progress=progress)
-    return RunResult(setup, maps, field, beams, errors)
+    field = traced.at(0.0) if setup.in_time else traced
+    return RunResult(setup, maps, field, beams, errors, traced if setup.in_time else None)
 
 
 def optics_error_bars(setup, props, *, cache_dir=None):

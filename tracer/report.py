@@ -115,9 +115,23 @@ def format_summary(summary: dict) -> str:
             ["plane", "fraction", "current A", "x0 mm", "y0 mm", "rms r mm", "rms x' mrad", "emit x mm mrad",
              "norm emit", "E mean eV", "E std eV", "tof ns", "tof std ns"], rows,
             title="crossed planes"))
-    parts.append(f"energy ledger: worst |dKE - q dV| = {s['ledger_worst_eV']:.3g} eV "
-                 f"({s['ledger_worst_relative']:.2g} of the energy scale); "
-                 f"{s['ledger_suspects']} ray(s) above {s['ledger_threshold']:.0e}")
+        timed = {name: d for name, d in s["planes"].items() if "resolving_power" in d}
+        if timed:
+            parts.append(format_table(
+                ["plane", "arrival mean ns", "FWHM ns", "t / (2 FWHM)"],
+                [[_plane(name, d), d["time_mean_s"] * 1e9, d["time_fwhm_s"] * 1e9, d["resolving_power"]]
+                 for name, d in timed.items()],
+                title="arrival times (resolving power counted from the extraction pulse)"))
+    if "ledger_time_work_eV" in s:
+        parts.append(f"energy ledger in time: dKE = -q dV + q W (W = integral of dV/dt + jumps); "
+                     f"|q dV| up to {s['ledger_potential_eV']:.4g} eV, |q W| up to "
+                     f"{s['ledger_time_work_eV']:.4g} eV; worst |dKE + q dV - q W| = "
+                     f"{s['ledger_worst_eV']:.3g} eV ({s['ledger_worst_relative']:.2g} of the energy "
+                     f"scale); {s['ledger_suspects']} ray(s) above {s['ledger_threshold']:.0e}")
+    else:
+        parts.append(f"energy ledger: worst |dKE - q dV| = {s['ledger_worst_eV']:.3g} eV "
+                     f"({s['ledger_worst_relative']:.2g} of the energy scale); "
+                     f"{s['ledger_suspects']} ray(s) above {s['ledger_threshold']:.0e}")
     if s["warning"]:
         parts.append(f"WARNING: {s['warning']}")
     if "uncertainty" in s:

@@ -264,12 +264,16 @@ class TraceOptions:
         Relative energy-ledger error above which a ray is flagged.
     keep_paths : int
         Number of rays whose path points are kept for plots.
+    time_zero_s : float or None
+        The clock time flight times count from for the resolving power (the extraction pulse);
+        None: the start of the earliest pulse on any electrode, else 0 (:meth:`Setup.time_zero_s`).
     """
 
     max_time_s: float = 1e-4
     rtol: float = 1e-9
     ledger_threshold: float = 1e-6
     keep_paths: int = 50
+    time_zero_s: float | None = None
 
 
 @dataclass(frozen=True)
@@ -456,6 +460,16 @@ class Setup:
     def drives(self) -> dict[str, float | Waveform]:
         """Return what each electrode carries by name: its waveform, or its constant voltage."""
         return {e.name: e.drive for e in self.electrodes}
+
+    @property
+    def time_zero_s(self) -> float:
+        """The clock time flight times count from for the resolving power: ``[trace]
+        time_zero``, else the start of the earliest pulse on any electrode (the extraction pulse),
+        else 0."""
+        if self.trace.time_zero_s is not None:
+            return self.trace.time_zero_s
+        return min((p.delay_s for e in self.electrodes if e.waveform is not None
+                    for p in e.waveform.pulses), default=0.0)
 
     @property
     def in_time(self) -> bool:
