@@ -28,7 +28,7 @@ from numba import njit
 from tracer.fieldmap import patch_coefficients
 from tracer.ledger import GAUSS_POINTS, time_work
 from tracer.motion.bundles import LANES, W_H, W_T
-from tracer.motion.force import field_at
+from tracer.motion.force import field_at, patch_field
 from tracer.waveforms import value, wave_arrays
 
 Drive = namedtuple("Drive", ["waves", "driven"])
@@ -99,11 +99,28 @@ def potential_at(herm, drive, m, t, nodes, sym, x, y, z):
     return v
 
 
+@njit(cache=True, error_model="numpy", inline="always")
+def cell_group_potential(dw, l, k, pz, pr, nodes, sym, x, y, z):
+    """Group map M_k at a 3-D point from the polynomial of lane l's cell (first corner pz, pr),
+    continued beyond its walls as the force's is, volts per volt."""
+    a = (dw[D_CELL, 1 + k, 0, l], dw[D_CELL, 1 + k, 1, l], dw[D_CELL, 1 + k, 2, l],
+         dw[D_CELL, 1 + k, 3, l], dw[D_CELL, 1 + k, 4, l], dw[D_CELL, 1 + k, 5, l],
+         dw[D_CELL, 1 + k, 6, l], dw[D_CELL, 1 + k, 7, l], dw[D_CELL, 1 + k, 8, l],
+         dw[D_CELL, 1 + k, 9, l], dw[D_CELL, 1 + k, 10, l], dw[D_CELL, 1 + k, 11, l],
+         dw[D_CELL, 1 + k, 12, l], dw[D_CELL, 1 + k, 13, l], dw[D_CELL, 1 + k, 14, l],
+         dw[D_CELL, 1 + k, 15, l])
+    return patch_field(a, pz, pr, nodes, sym, x, y, z)[0]
+
+
 @njit(cache=True, error_model="numpy")
-def step_work(drive, m, t0, h, points, nodes, sym, phi):
-    """The dV/dt work over [t0, t0 + h] on piece m (:func:`tracer.ledger.time_work`), the path's
-    points at the Gauss nodes ``t0 + GAUSS_THETA[i] h`` given as ``points[i] = (x, y, z)``;
-    ``phi`` is float64[GAUSS_POINTS, K] scratch. Returns (work, magnitude) in volts."""
+def step_work(waves, dw, l, pz, pr, m, t0, h, points, nodes, sym, phi):
+    """The dV/dt work over [t0, t0 + h] on piece m (:func:`tracer.ledger.time_work`) of lane l,
+    the group maps taken from the polynomials of its cell (first corner pz, pr) that its step's
+    force came from, the path's points at the Gauss nodes ``t0 + GAUSS_THETA[i] h`` given as
+    ``points[i] = (x, y, z)``; ``phi`` is float64[GAUSS_POINTS, K] scratch. Returns (work,
+    magnitude) in volts."""
     for i in range(GAUSS_POINTS):
-        group_potentials(drive, nodes, sym, points[i, 0], points[i, 1], points[i, 2], phi[i])
-    return time_work(drive.waves, m, t0, h, phi)
+        for k in range(phi.shape[1]):
+            phi[i, k] = cell_group_potential(dw, l, k, pz, pr, nodes, sym, points[i, 0],
+                                             points[i, 1], points[i, 2])
+    return time_work(waves, m, t0, h, phi)

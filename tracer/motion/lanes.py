@@ -49,15 +49,16 @@ def thin_path(path, n):
 
 
 @njit(cache=True, error_model="numpy")
-def work_along(rc, theta, h, t0, m, drive, nodes, sym, points, phi, buf):
-    """The dV/dt work (volts) and its magnitude along the first fraction theta of a step of
-    length h from t0 on waveform piece m, from its dense output rc
+def work_along(w, dw, l, rc, theta, h, t0, m, waves, nodes, sym, points, phi, buf):
+    """The dV/dt work (volts) and its magnitude along the first fraction theta of lane l's step of
+    length h from t0 on waveform piece m, from its dense output rc, in the lane's cell
     (:func:`tracer.motion.drive.step_work`)."""
     for i in range(GAUSS_POINTS):
         dense(rc, theta * GAUSS_THETA[i], buf)
         for c in range(3):
             points[i, c] = buf[c]
-    return step_work(drive, m, t0, theta * h, points, nodes, sym, phi)
+    return step_work(waves, dw, l, w[W_PATCH + 16, l], w[W_PATCH + 17, l], m, t0, theta * h,
+                     points, nodes, sym, phi)
 
 
 @njit(cache=True, error_model="numpy")
@@ -385,8 +386,9 @@ def trace_lanes(lo, hi, starts, t_start, herm, drive, nodes, sym, bounds, cell, 
                                 if timed:
                                     vq = potential_at(herm, drive, pieces[l], t[l] + th * h, nodes,
                                                       sym, buf[0], buf[1], buf[2])
-                                    wq = work[l] + work_along(rcl, th, h, t[l], pieces[l], drive,
-                                                              nodes, sym, points, phi, buf)[0]
+                                    wq = work[l] + work_along(w, dw, l, rcl, th, h, t[l], pieces[l],
+                                                              waves, nodes, sym, points, phi,
+                                                              buf)[0]
                                     dense(rcl, th, buf)
                                     res = residual_J(ke_start[l], ke, charge, v_start[l], vq) \
                                         - charge * wq
@@ -418,8 +420,8 @@ def trace_lanes(lo, hi, starts, t_start, herm, drive, nodes, sym, bounds, cell, 
                 res = residual_J(ke_start[l], ke1, charge, v_start[l], v1)
                 corner = False
                 if timed:
-                    dwk, mag = work_along(rcl, 1.0, h, t[l], pieces[l], drive, nodes, sym, points,
-                                          phi, buf)
+                    dwk, mag = work_along(w, dw, l, rcl, 1.0, h, t[l], pieces[l], waves, nodes,
+                                          sym, points, phi, buf)
                     work[l] += dwk
                     spread[l] += mag
                     res -= charge * work[l]
@@ -470,8 +472,8 @@ def trace_lanes(lo, hi, starts, t_start, herm, drive, nodes, sym, bounds, cell, 
                 h_err[l] = propose(h, h_err[l], enorm)
             else:
                 if timed:
-                    dwk, mag = work_along(rcl, t_end, h, t[l], pieces[l], drive, nodes, sym,
-                                          points, phi, buf)
+                    dwk, mag = work_along(w, dw, l, rcl, t_end, h, t[l], pieces[l], waves, nodes,
+                                          sym, points, phi, buf)
                     work[l] += dwk
                     spread[l] += mag
                 dense(rcl, t_end, buf)
