@@ -274,7 +274,8 @@ def write_run_outputs(result: RunResult, out) -> list[Path]:
     out.mkdir(parents=True, exist_ok=True)
     setup = result.setup
     runs = list(result.beams.values())
-    (first_name, first), *others = plot.figure_jobs(result.field, runs, title=setup.title)
+    (first_name, first), *others = plot.figure_jobs(result.field, runs, title=setup.title,
+                                                    grouped=result.grouped)
 
     def draw_others():
         """The names of the pictures drawn (a picture with nothing to show is not drawn)."""

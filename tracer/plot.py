@@ -15,7 +15,7 @@ from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.collections import LineCollection
 from matplotlib.figure import Figure
 
-from tracer.measure import counted
+from tracer.measure import counted, plane_figures
 from tracer.stats import radius
 from tracer.store.atomic import atomic_path
 
@@ -188,11 +188,55 @@ def plot_phase_space(run, plane, path, symmetry="axial") -> Path | None:
     return save(fig, path)
 
 
-def figure_jobs(field, runs, title=None) -> list:
+def plot_waveforms(grouped, runs, path, points=20_001) -> Path | None:
+    """The voltage of every electrode whose voltage changes, over the time the rays were traced
+    (from the first start to the last end), one line each; waveform corners are sampled exactly.
+
+    ``grouped`` is a :class:`tracer.groups.GroupedMaps`."""
+    driven = [i for i, k in enumerate(grouped.group) if k >= 0]
+    if not driven or not runs:
+        return None
+    t0 = min(float(run.starts["time_s"].min(initial=np.inf)) for run in runs)
+    t1 = max(float(run.records["time_s"].max(initial=-np.inf)) for run in runs)
+    if not t1 > t0:
+        return None
+    corners = grouped.arrays.corner
+    times = np.union1d(np.linspace(t0, t1, points), corners[(corners >= t0) & (corners <= t1)])
+    volts = np.array([grouped.voltages(t) for t in times])
+    fig = new_figure((7, 3.5))
+    ax = fig.subplots()
+    for i in driven:
+        ax.plot(times * 1e6, volts[:, i], lw=1.0, label=grouped.names[i])
+    ax.set_xlabel("time (us)")
+    ax.set_ylabel("voltage (V)")
+    ax.set_title("electrode voltages over the traced time", fontsize=10)
+    ax.legend(fontsize=8)
+    return save(fig, path)
+
+
+def plot_arrival_times(run, plane, path) -> Path | None:
+    """Histogram of the arrival times at a plane (the crossings that count for its figures), with
+    the width Δt_FWHM and the resolving power t / (2 Δt_FWHM) of :class:`tracer.measure.PlaneStats`."""
+    rows = counted(run, plane)
+    if len(rows) < 2:
+        return None
+    stats = plane_figures(run, plane)
+    fig = new_figure((6, 3.5))
+    ax = fig.subplots()
+    ax.hist(rows["time_s"] * 1e9, bins=min(80, max(10, len(rows) // 10)), histtype="step", lw=1.2)
+    ax.set_xlabel("arrival time (ns)")
+    ax.set_ylabel("rays")
+    ax.set_title(f"beam {run.name} at plane {plane}: FWHM {stats.time_fwhm_s * 1e9:.4g} ns, "
+                 f"t / (2 FWHM) = {stats.resolving_power:.4g}", fontsize=10)
+    return save(fig, path)
+
+
+def figure_jobs(field, runs, title=None, grouped=None) -> list:
     """The pictures of a run, each as ``(file name, draw)``: ``draw(path)`` writes the picture and
     returns the path (or None when it has nothing to show).  Rays over the equipotentials come
     first (the only picture that evaluates the potential map), then landing energies, landing
-    positions and phase space at each plane.
+    positions and phase space at each plane; with voltages that change in time (``grouped``, a
+    :class:`tracer.groups.GroupedMaps`) also the waveforms and the arrival times at each plane.
 
     ``runs`` are BeamRuns or beams read back from a result file (``name``, ``records``,
     ``crossings``, ``paths``, ``planes``)."""
@@ -204,6 +248,11 @@ def figure_jobs(field, runs, title=None) -> list:
     jobs += [(f"phase_{run.name}_{plane}.png",
               lambda path, run=run, plane=plane: plot_phase_space(run, plane, path, sym))
              for run in runs for plane in run.planes]
+    if grouped is not None:
+        jobs.append(("waveforms.png", lambda path: plot_waveforms(grouped, runs, path)))
+        jobs += [(f"arrival_{run.name}_{plane}.png",
+                  lambda path, run=run, plane=plane: plot_arrival_times(run, plane, path))
+                 for run in runs for plane in run.planes]
     return jobs
 
 
