@@ -74,8 +74,8 @@ def _caution(voltages, echo) -> None:
 
 
 def _volts(setup):
-    """The setup's electrode voltages."""
-    return [e.voltage_V for e in setup.electrodes]
+    """The setup's electrode voltages (a bound on each waveform's magnitude, ``Waveform.peak_V``)."""
+    return [e.voltage_V if e.waveform is None else e.waveform.peak_V for e in setup.electrodes]
 
 
 def cmd_check(args, echo) -> int:

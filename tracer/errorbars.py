@@ -199,7 +199,8 @@ def subset(run, positions):
     report = ledger.ledger_report(records["ledger_eV"], scale, run.ledger.threshold,
                                   traced=records["status"] != "inside")
     return dataclasses.replace(run, starts=starts, records=records, crossings=cross, paths=(),
-                               energy_scale_eV=scale, ledger=report)
+                               energy_scale_eV=scale, ledger=report,
+                               work_eV=None if run.work_eV is None else run.work_eV[positions])
 
 
 def figures(summary):
