@@ -83,6 +83,12 @@ class Context:
         ``<figure>_grid`` after all the figures (:func:`tracer.errorbars.row_errors`).
     rays, safety : int, float or None
         Rays traced again through the coarse maps, and the GCI's safety factor (None: 3).
+    drives : dict or None
+        With voltages that change in time, what each electrode carries (``Setup.drives``): a set's
+        voltages then set the constant voltages and the waveforms' DC parts, and the beams are
+        traced through the maps grouped by waveform; None when every voltage is constant.
+    time_zero_s : float
+        The clock time flight times count from for the resolving power (``Setup.time_zero_s``).
     """
 
     maps: object
@@ -94,6 +100,8 @@ class Context:
     coarse: object = None
     rays: int = 256
     safety: float | None = None
+    drives: dict | None = None
+    time_zero_s: float = 0.0
 
     @classmethod
     def of(cls, setup, maps, names, planes=None, beams=None, coarse=None):
@@ -101,12 +109,22 @@ class Context:
         return cls(maps, tuple(setup.beams if beams is None else beams),
                    tuple(setup.planes if planes is None else planes), tuple(names),
                    setup.trace.rtol, setup.trace.max_time_s, coarse, setup.grid_error.rays,
-                   setup.grid_error.safety)
+                   setup.grid_error.safety, setup.drives() if setup.in_time else None,
+                   setup.time_zero_s)
 
     @property
     def columns(self):
         figures = measure.columns([b.name for b in self.beams], [p.name for p in self.planes], self.maps.names)
         return figures + (() if self.coarse is None else tuple(f"{c}_grid" for c in figures))
+
+    def field_of(self, maps, volts):
+        """The field of one voltage set through ``maps``: combined, or grouped by waveform when
+        voltages change in time (a voltage then sets a waveform's DC part)."""
+        if self.drives is None:
+            return maps.combine(volts)
+        from tracer.groups import group_maps, with_voltages
+
+        return group_maps(maps, with_voltages(self.drives, volts))
 
     def run(self, voltages):
         """Measure one voltage set.
@@ -121,18 +139,20 @@ class Context:
 
         from tracer.errorbars import row_errors
 
-        voltages = dict(zip(self.names, (float(v) for v in voltages)))
-        field = self.maps.combine(voltages)
-        coarse = None if self.coarse is None else self.coarse.combine(voltages)
+        volts = dict(zip(self.names, (float(v) for v in voltages)))
+        field = self.field_of(self.maps, volts)
+        coarse = None if self.coarse is None else self.field_of(self.coarse, volts)
         figures, errors, trace_s = [], [], 0.0
         for beam in self.beams:
             with _TRACE_LOCK:
                 t0 = time.perf_counter()
-                run = trace(field, beam, planes=self.planes, rtol=self.rtol, max_time_s=self.max_time_s)
+                run = trace(field, beam, planes=self.planes, rtol=self.rtol, max_time_s=self.max_time_s,
+                            time_zero_s=self.time_zero_s)
                 if coarse is not None:
                     errors += row_errors(run, lambda starts, b=beam: trace(
                         coarse, b, planes=self.planes, rtol=self.rtol, max_time_s=self.max_time_s,
-                        starts=starts), self.maps.names, self.rays, self.safety)
+                        starts=starts, time_zero_s=self.time_zero_s), self.maps.names, self.rays,
+                        self.safety)
                 trace_s += time.perf_counter() - t0
             figures += measure.row(run, self.maps.names)
         return np.array(figures + errors, dtype=np.float64), trace_s

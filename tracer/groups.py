@@ -17,7 +17,7 @@ from __future__ import annotations
 
 import numbers
 from collections.abc import Mapping
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import numpy as np
 
@@ -106,6 +106,16 @@ class GroupedMaps:
         hermite = self.static + np.tensordot(w, self.driven, axes=1) if w.size else self.static
         b = self.basis
         return PotentialMap(b.grid, b.table, b.raster, b.names, self.voltages(t), hermite)
+
+
+def with_voltages(drives: Mapping[str, float | Waveform], voltages: Mapping[str, float] | None) -> dict:
+    """The drives with the given voltages set: a number replaces a constant voltage and the DC
+    part (``dc_V``) of a waveform, whose other parts stay."""
+    out = dict(drives)
+    for name, volts in (voltages or {}).items():
+        drive = out.get(name)
+        out[name] = replace(drive, dc_V=float(volts)) if isinstance(drive, Waveform) else volts
+    return out
 
 
 def group_maps(basis, drive: Mapping[str, float | Waveform] | None = None) -> GroupedMaps:

@@ -33,7 +33,8 @@ First one column ``<electrode>_V`` per varied electrode (:mod:`tracer.scans`), t
 * at each plane (the crossings that count): ``transmission`` (the plane's ``fraction``),
   ``spot_rms_m`` (rms radius about the centroid), ``centroid_x_m``, ``centroid_y_m``,
   ``divergence_x_rad``, ``divergence_y_rad`` (rms slopes px/pz, py/pz), ``energy_mean_eV``,
-  ``energy_std_eV``, ``tof_mean_s``, ``tof_std_s`` (time of flight);
+  ``energy_std_eV``, ``tof_mean_s``, ``tof_std_s`` (time of flight), ``tof_fwhm_s`` and
+  ``resolving_power`` (the arrival times' width and t / (2 Δt_FWHM), :class:`PlaneStats`);
 * on each electrode: ``landed`` (fraction of the rays that landed on it), ``landing_mean_eV``,
   ``landing_std_eV``;
 * for the whole beam: ``landed``, ``landing_mean_eV``, ``landing_std_eV`` (all landed rays),
@@ -412,7 +413,8 @@ def loss_reasons(records):
 PLANE_COLUMNS = {"transmission": "fraction", "spot_rms_m": "rms_radius_m", "centroid_x_m": "centroid_x_m",
                  "centroid_y_m": "centroid_y_m", "divergence_x_rad": "rms_divergence_x_rad",
                  "divergence_y_rad": "rms_divergence_y_rad", "energy_mean_eV": "energy_mean_eV",
-                 "energy_std_eV": "energy_std_eV", "tof_mean_s": "time_mean_s", "tof_std_s": "time_std_s"}
+                 "energy_std_eV": "energy_std_eV", "tof_mean_s": "time_mean_s", "tof_std_s": "time_std_s",
+                 "tof_fwhm_s": "time_fwhm_s", "resolving_power": "resolving_power"}
 """Scan column of each plane figure: the :class:`PlaneStats` field it is."""
 
 LANDING_COLUMNS = {"landed": "fraction", "landing_mean_eV": "energy_mean_eV", "landing_std_eV": "energy_std_eV"}

@@ -159,14 +159,9 @@ def traced_field(setup, maps, voltages=None):
     A voltage given for an electrode with a waveform replaces its DC part."""
     if not setup.in_time:
         return maps.combine(voltages)
-    from tracer.groups import group_maps
-    from tracer.waveforms import Waveform
+    from tracer.groups import group_maps, with_voltages
 
-    drives = setup.drives()
-    for name, volts in (voltages or {}).items():
-        drive = drives.get(name)
-        drives[name] = dataclasses.replace(drive, dc_V=float(volts)) if isinstance(drive, Waveform) else volts
-    return group_maps(maps, drives)
+    return group_maps(maps, with_voltages(setup.drives(), voltages))
 
 
 def trace_beam(field, beam, setup, progress=None, starts=None):
