@@ -497,6 +497,7 @@ ERRORS = [
     (put(["beam", 0, "start_spread_ns"], -1.0), "beam[0].start_spread_ns", "must be >= 0, got -1.0"),
     (put(["beam", 0, "start_times"], "gauss"), "beam[0].start_times", "did you mean 'gaussian'?"),
     (put(["beam", 0, "start_time_us"], "1"), "beam[0].start_time_us", "expected a number, got '1'"),
+    (put(["trace", "time_zero_ns"], math.inf), "trace.time_zero_ns", "must be finite, got inf"),
 ]
 
 
@@ -538,12 +539,15 @@ def test_waveform_keys_in_si(tmp_path):
     assert setup.drives()["focus"] is focus.waveform and setup.in_time
     beam = setup.beams[0]
     assert (beam.start_time_s, beam.start_spread_s, beam.start_times) == (1.5e-6, 4e-9, "gaussian")
+    assert setup.time_zero_s == 2.5e-7                 # the earliest pulse's start
+    document["trace"]["time_zero_ns"] = 100.0
+    assert loads(dumps(document), source=tmp_path / "setup.toml").time_zero_s == 1e-7
 
 
 def test_a_static_setup_is_not_in_time():
     """No waveform parts, or parts that do not vary (zero amplitude), leave the setup static."""
     setup = check(base())
-    assert not setup.in_time and setup.beams[0].start_time_s == 0.0
+    assert not setup.in_time and setup.beams[0].start_time_s == 0.0 and setup.time_zero_s == 0.0
     document = base()
     document["electrode"][1]["sine"] = [{"amplitude_V": 0.0, "frequency_MHz": 1.0}]
     assert not check(document).in_time
