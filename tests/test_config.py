@@ -498,6 +498,23 @@ ERRORS = [
     (put(["beam", 0, "start_times"], "gauss"), "beam[0].start_times", "did you mean 'gaussian'?"),
     (put(["beam", 0, "start_time_us"], "1"), "beam[0].start_time_us", "expected a number, got '1'"),
     (put(["trace", "time_zero_ns"], math.inf), "trace.time_zero_ns", "must be finite, got inf"),
+    # scans over waveform parameters
+    (put(["scan"], {"focus.pulse[0].delay_ns": [1.0, 2.0, 2]}), "scan.\"focus.pulse[0].delay_ns\"",
+     "electrode 'focus' has 0 pulse part(s), no [0]"),
+    (put(["scan"], {"nosuch.sine[0].phase_deg": [1.0, 2.0, 2]}), "scan.\"nosuch.sine[0].phase_deg\"",
+     "no electrode named 'nosuch'"),
+    (put(["scan"], {"focus.sine[0].phase": [1.0, 2.0, 2]}), "scan.\"focus.sine[0].phase\"",
+     "neither an electrode nor a waveform parameter"),
+]
+
+PULSED_FOCUS = [{"high_V": 5.0, "delay_ns": 10.0, "rise_ns": 2.0}]
+ERRORS += [
+    (lambda d: (put(["electrode", 1, "pulse"], PULSED_FOCUS)(d),
+                put(["scan"], {"focus.pulse[0].rise_ns": [-1.0, 2.0, 2]})(d)),
+     "scan.\"focus.pulse[0].rise_ns\"", "-1: must be >= 0"),
+    (lambda d: (put(["electrode", 1, "pulse"], PULSED_FOCUS)(d),
+                put(["scan"], {"focus.pulse[0].rise_ns": [3.0, 2.0, 2]})(d)),
+     "scan.\"focus.pulse[0].rise_ns\"", "from 3.0 exceeds to 2.0"),
 ]
 
 

@@ -388,3 +388,22 @@ def test_a_scan_of_a_setup_in_time_traces_through_its_waveforms():
     direct = tracer.run(setup, maps=maps, voltages={"back": -50.0}).beams["ions"].summary()
     assert lowered["landing_mean_eV"] == direct["landing"]["front"]["energy_mean_eV"]
     assert lowered["landing_mean_eV"] != at_setup["landing_mean_eV"]
+
+
+def test_a_scan_over_a_pulse_delay():
+    """A scan over a waveform parameter (the pulse's delay, in the unit of its key): the set at the
+    config's delay gives the run's figures; a later pulse makes the ions, drifting slowly before
+    it, arrive later by about the same time; the resolving power counts from each set's pulse."""
+    import tracer
+
+    setup = loads(PULSED + '[scan]\n"back.pulse[0].delay_ns" = [100.0, 150.0, 2]\n')
+    maps = tracer.solve(setup)
+    result = tracer.scan(setup, maps=maps, workers=1)
+    table = result.table
+    assert result.names == ("back.pulse[0].delay_ns",)
+    first, later = (table[table["back.pulse[0].delay_ns"] == d][0] for d in (100.0, 150.0))
+    figures = tracer.run(setup, maps=maps).beams["ions"].summary()["planes"]["middle"]
+    assert first["tof_mean_s"] == figures["time_mean_s"]
+    assert later["tof_mean_s"] - first["tof_mean_s"] == pytest.approx(50e-9, rel=0.05)
+    for row, zero in ((first, 100e-9), (later, 150e-9)):
+        assert row["resolving_power"] == pytest.approx((row["tof_mean_s"] - zero) / (2 * row["tof_fwhm_s"]))

@@ -234,6 +234,7 @@ def cmd_scan(args, echo) -> int:
     from tracer.pipeline import solve
     from tracer.plot import plot_scan
     from tracer.scans import scan
+    from tracer.schema import scan_column, scan_unit
 
     setup = _load(args.config)
     if setup.scan is None:
@@ -261,11 +262,12 @@ def cmd_scan(args, echo) -> int:
     for figure in (f for f in result.figures if f.rpartition(".")[2] == "spot_rms_m"):
         best = result.smallest(figure)
         if best is not None:
-            at = ", ".join(f"{n} = {v:g} V" for n, v in best[1].items())
+            at = ", ".join(f"{n} = {v:g} {scan_unit(n)}" for n, v in best[1].items())
             echo(f"  smallest {figure}: {best[0] * 1e3:.4g} mm at {at}")
     for f in result.files + tuple(plot_scan(table, result.names, out, title=setup.title)):
         echo(f"wrote {f}")
-    _caution(_volts(setup) + [v for n in result.names for v in table[f"{n}_V"]], echo)
+    _caution(_volts(setup) + [v for n in result.names if scan_unit(n) == "V" for v in table[scan_column(n)]],
+             echo)
     return 0
 
 

@@ -38,7 +38,9 @@ Keys (defaults in brackets; "r" stands for "y" in a domain with y_mm)::
     [trace]      max_time_us or max_time_ns [100 us] (each ray's, from its start), rtol [1e-9],
                  ledger_threshold [1e-6], keep_paths [50], time_zero_ns|us [the earliest pulse's
                  start, else 0] (flight times of the resolving power count from it)
-    [scan]       <electrode> = [from_V, to_V, count], ...;  or csv = "sets.csv" (<electrode>_V columns)
+    [scan]       <electrode> = [from_V, to_V, count], "<electrode>.pulse[i].<key>" = [from, to, count]
+                 (a waveform parameter in its key's unit; also .sine[i]), ...;  or csv = "sets.csv"
+                 (<electrode>_V columns)
     [tune]       vary = {<electrode> = [lo_V, hi_V], ...}, goal = "smallest_spot" | "most_transmitted"
                  | {landing_energy_eV = E} | {focus_z_mm = z}, at (a plane), seed [0]
     [gun]        cathode, emission "space_charge"|"thermionic", rays [200], temperature_K and
@@ -52,6 +54,7 @@ Keys (defaults in brackets; "r" stands for "y" in a domain with y_mm)::
 from __future__ import annotations
 
 import csv
+import dataclasses
 import datetime
 import difflib
 import json
@@ -393,7 +396,7 @@ def _setup(data, source):
         beams=beams,
         planes=planes,
         trace=top.get("trace", _trace, default=TraceOptions()),
-        scan=top.get("scan", _scan, default=None, names=names, base=base),
+        scan=top.get("scan", _scan, default=None, names=names, base=base, electrodes=electrodes),
         tune=top.get("tune", _tune, default=None, names=names, planes=plane_names, domain=domain),
         gun=top.get("gun", _gun, default=None, names=names),
         optics=top.get("optics", _optics, default=None),
@@ -826,8 +829,9 @@ def _grid_error(value, path):
     )
 
 
-def _scan(value, path, names, base):
-    t = _Table(value, path, names + ("csv",), what="no electrode named")
+def _scan(value, path, names, base, electrodes):
+    parameters = tuple(k for k in value if "[" in k) if isinstance(value, dict) else ()
+    t = _Table(value, path, names + ("csv",) + parameters, what="no electrode named")
     if t.has("csv"):
         if len(t.data) > 1:
             other = next(k for k in t.data if k != "csv")
@@ -837,7 +841,62 @@ def _scan(value, path, names, base):
         return ScanSpec((), file)
     if not t.data:
         raise ConfigError(path, "empty: give ranges such as focus = [800.0, 1600.0, 41], or csv = 'sets.csv'")
+    for key in parameters:
+        at = t.at(key)
+        for end in _scan_range(t.data[key], at, key)[1:3]:
+            with_parameter(dict(zip(names, (e.drive for e in electrodes))), waveform_parameter(key, at), end, at)
     return ScanSpec(tuple(_scan_range(t.data[name], t.at(name), name) for name in t.data))
+
+
+_PARAMETER = re.compile(r"(?P<electrode>.+)\.(?P<part>pulse|sine)\[(?P<index>\d+)\]\.(?P<key>\w+)")
+_PARAMETER_KEYS = {
+    "pulse": {"high_V": ("high_V", (1, 1)), "low_V": ("low_V", (1, 1))}
+    | {f"{stem}_{u}": (f"{stem}_s", _TIME_KEYS[u]) for stem in ("delay", "rise", "width", "fall", "period")
+       for u in _TIME_KEYS},
+    "sine": {"amplitude_V": ("amplitude_V", (1, 1)), "phase_deg": ("phase_rad", (_DEG, 1))}
+    | {f"frequency_{u}": ("frequency_Hz", _FREQUENCY_KEYS[u]) for u in _FREQUENCY_KEYS},
+}
+
+
+def waveform_parameter(name, path="scan"):
+    """A waveform parameter named by its path, e.g. ``"repeller.pulse[0].delay_ns"``, as
+    ``(electrode, parts, index, field, multiply, divide)``: the Waveform attribute of the parts
+    ("pulses", "sinusoids"), the part's SI field, and value_SI = value * multiply / divide.
+
+    Raises
+    ------
+    ConfigError
+        Keyed ``path``, for a path that names no parameter."""
+    match = _PARAMETER.fullmatch(name)
+    keys = _PARAMETER_KEYS.get(match["part"]) if match else None
+    if not keys or match["key"] not in keys:
+        choices = ", ".join(f"{p}: {', '.join(k)}" for p, k in _PARAMETER_KEYS.items())
+        raise ConfigError(path, f"{name!r} is neither an electrode nor a waveform parameter "
+                                f"'<electrode>.pulse[i].<key>' or '<electrode>.sine[i].<key>' ({choices})")
+    field, (multiply, divide) = keys[match["key"]]
+    parts = "pulses" if match["part"] == "pulse" else "sinusoids"
+    return match["electrode"], parts, int(match["index"]), field, multiply, divide
+
+
+def with_parameter(drives, parameter, value, path="scan"):
+    """The drives with one waveform parameter (:func:`waveform_parameter`) set to ``value`` (in
+    its key's unit), the electrode's waveform otherwise as it was.
+
+    Raises
+    ------
+    ConfigError
+        Keyed ``path``, for an electrode without that part, or a value the part refuses."""
+    electrode, parts, index, field, multiply, divide = parameter
+    drive = drives.get(electrode)
+    have = getattr(drive, parts, ())
+    if index >= len(have):
+        raise ConfigError(path, f"electrode {electrode!r} has {len(have)} {parts[:-1]} part(s), "
+                                f"no [{index}]" if electrode in drives else f"no electrode named {electrode!r}")
+    try:
+        part = dataclasses.replace(have[index], **{field: value * multiply / divide})
+    except WaveformError as error:
+        raise ConfigError(path, f"{value:g}: {error.message}") from None
+    return drives | {electrode: dataclasses.replace(drive, **{parts: have[:index] + (part,) + have[index + 1:]})}
 
 
 def _scan_range(value, path, name):

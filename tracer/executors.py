@@ -21,7 +21,7 @@ import signal
 import threading
 import time
 from concurrent.futures import ProcessPoolExecutor, as_completed
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import numpy as np
 
@@ -85,10 +85,14 @@ class Context:
         Rays traced again through the coarse maps, and the GCI's safety factor (None: 3).
     drives : dict or None
         With voltages that change in time, what each electrode carries (``Setup.drives``): a set's
-        voltages then set the constant voltages and the waveforms' DC parts, and the beams are
-        traced through the maps grouped by waveform; None when every voltage is constant.
-    time_zero_s : float
-        The clock time flight times count from for the resolving power (``Setup.time_zero_s``).
+        voltages then set the constant voltages and the waveforms' DC parts, its waveform
+        parameters (``parameters``) the waveforms' parts, and the beams are traced through the
+        maps grouped by waveform; None when every voltage is constant.
+    time_zero_s : float or None
+        The clock time flight times count from for the resolving power (``[trace] time_zero``);
+        None: each set's earliest pulse (:func:`tracer.waveforms.first_pulse_s`).
+    parameters : dict
+        The varied waveform parameters by name (:func:`tracer.config.waveform_parameter`).
     """
 
     maps: object
@@ -101,30 +105,48 @@ class Context:
     rays: int = 256
     safety: float | None = None
     drives: dict | None = None
-    time_zero_s: float = 0.0
+    time_zero_s: float | None = None
+    parameters: dict = field(default_factory=dict)
 
     @classmethod
     def of(cls, setup, maps, names, planes=None, beams=None, coarse=None):
         """The context of a setup (planes and beams default to the setup's)."""
+        from tracer.config import waveform_parameter
+
+        parameters = {n: waveform_parameter(n) for n in names if "[" in n}
         return cls(maps, tuple(setup.beams if beams is None else beams),
                    tuple(setup.planes if planes is None else planes), tuple(names),
                    setup.trace.rtol, setup.trace.max_time_s, coarse, setup.grid_error.rays,
-                   setup.grid_error.safety, setup.drives() if setup.in_time else None,
-                   setup.time_zero_s)
+                   setup.grid_error.safety, setup.drives() if setup.in_time or parameters else None,
+                   setup.trace.time_zero_s, parameters)
 
     @property
     def columns(self):
         figures = measure.columns([b.name for b in self.beams], [p.name for p in self.planes], self.maps.names)
         return figures + (() if self.coarse is None else tuple(f"{c}_grid" for c in figures))
 
-    def field_of(self, maps, volts):
-        """The field of one voltage set through ``maps``: combined, or grouped by waveform when
-        voltages change in time (a voltage then sets a waveform's DC part)."""
+    def drives_of(self, values):
+        """What each electrode carries at one set of ``values`` (by varied name): the voltages set
+        constant voltages and waveforms' DC parts, the parameters the waveforms' parts; {} when
+        every voltage is constant."""
         if self.drives is None:
-            return maps.combine(volts)
-        from tracer.groups import group_maps, with_voltages
+            return {}
+        from tracer.config import with_parameter
+        from tracer.groups import with_voltages
 
-        return group_maps(maps, with_voltages(self.drives, volts))
+        drives = with_voltages(self.drives, {n: v for n, v in values.items() if n not in self.parameters})
+        for name, parameter in self.parameters.items():
+            drives = with_parameter(drives, parameter, values[name])
+        return drives
+
+    def field_of(self, maps, drives, values):
+        """The field of one set through ``maps``: combined at the ``values``, or grouped by
+        waveform with the set's ``drives`` (:meth:`drives_of`) when voltages change in time."""
+        if not drives:
+            return maps.combine(values)
+        from tracer.groups import group_maps
+
+        return group_maps(maps, drives)
 
     def run(self, voltages):
         """Measure one voltage set.
@@ -136,23 +158,24 @@ class Context:
             Seconds spent inside ``tracer.beam.trace``.
         """
         from tracer.beam import trace
-
         from tracer.errorbars import row_errors
+        from tracer.waveforms import first_pulse_s
 
-        volts = dict(zip(self.names, (float(v) for v in voltages)))
-        field = self.field_of(self.maps, volts)
-        coarse = None if self.coarse is None else self.field_of(self.coarse, volts)
+        values = dict(zip(self.names, (float(v) for v in voltages)))
+        drives = self.drives_of(values)
+        field = self.field_of(self.maps, drives, values)
+        coarse = None if self.coarse is None else self.field_of(self.coarse, drives, values)
+        time_zero = first_pulse_s(drives.values()) if self.time_zero_s is None else self.time_zero_s
         figures, errors, trace_s = [], [], 0.0
         for beam in self.beams:
             with _TRACE_LOCK:
                 t0 = time.perf_counter()
                 run = trace(field, beam, planes=self.planes, rtol=self.rtol, max_time_s=self.max_time_s,
-                            time_zero_s=self.time_zero_s)
+                            time_zero_s=time_zero)
                 if coarse is not None:
                     errors += row_errors(run, lambda starts, b=beam: trace(
                         coarse, b, planes=self.planes, rtol=self.rtol, max_time_s=self.max_time_s,
-                        starts=starts, time_zero_s=self.time_zero_s), self.maps.names, self.rays,
-                        self.safety)
+                        starts=starts, time_zero_s=time_zero), self.maps.names, self.rays, self.safety)
                 trace_s += time.perf_counter() - t0
             figures += measure.row(run, self.maps.names)
         return np.array(figures + errors, dtype=np.float64), trace_s

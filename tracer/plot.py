@@ -16,6 +16,7 @@ from matplotlib.collections import LineCollection
 from matplotlib.figure import Figure
 
 from tracer.measure import counted, plane_figures
+from tracer.schema import scan_column, scan_unit
 from tracer.stats import radius
 from tracer.store.atomic import atomic_path
 
@@ -291,24 +292,24 @@ def _scan_panel(fig, ax, table, names, figure):
     factor, label = _scaled(figure)
     v = table[figure] * factor
     if len(names) == 1:
-        x = table[f"{names[0]}_V"]
+        x = table[scan_column(names[0])]
         order = np.argsort(x, kind="stable")
         ax.plot(x[order], v[order], marker=".", lw=1)
         if f"{figure}_grid" in table.dtype.names:      # the grid error of each set, as a band
             err = table[f"{figure}_grid"][order] * factor
             ax.fill_between(x[order], v[order] - err, v[order] + err, alpha=0.3, lw=0, label="± grid")
-        ax.set_xlabel(f"{names[0]} (V)")
+        ax.set_xlabel(f"{names[0]} ({scan_unit(names[0])})")
         ax.set_ylabel(label, fontsize=8)
         return
-    x, y = table[f"{names[0]}_V"], table[f"{names[1]}_V"]
+    x, y = table[scan_column(names[0])], table[scan_column(names[1])]
     grid = _grid_of(x, y, v)
     if grid is None:
         art = ax.scatter(x, y, c=v, s=16, cmap="viridis")
     else:
         art = ax.pcolormesh(grid[0], grid[1], grid[2].T, shading="nearest", cmap="viridis")
     fig.colorbar(art, ax=ax, label=label)
-    ax.set_xlabel(f"{names[0]} (V)")
-    ax.set_ylabel(f"{names[1]} (V)")
+    ax.set_xlabel(f"{names[0]} ({scan_unit(names[0])})")
+    ax.set_ylabel(f"{names[1]} ({scan_unit(names[1])})")
 
 
 def plot_scan(table, names, out, title=None) -> list[Path]:

@@ -39,7 +39,7 @@ import numpy as np
 from tracer.display import Shown, listing, number
 from tracer.executors import Context, run_sets
 from tracer.journal import CSV_NAME, Rows, config_hash, read_csv
-from tracer.schema import ConfigError, Setup
+from tracer.schema import ConfigError, Setup, scan_column
 
 if TYPE_CHECKING:
     from tracer.fieldmap import BasisMaps
@@ -146,7 +146,7 @@ class ScanResult(Shown):
         if not np.isfinite(values).any():
             return None
         k = int(np.nanargmin(values))
-        return float(values[k]), {n: float(self.table[f"{n}_V"][k]) for n in self.names}
+        return float(values[k]), {n: float(self.table[scan_column(n)][k]) for n in self.names}
 
 
 def scan(setup: Setup, maps: BasisMaps | None = None, executor: Executor | None = None, *,
@@ -204,7 +204,7 @@ def scan(setup: Setup, maps: BasisMaps | None = None, executor: Executor | None 
 
         coarse = solve(with_cell(setup, 2.0), cache_dir=cache_dir)
     context = Context.of(setup, maps, names, coarse=coarse)
-    header = tuple(f"{n}_V" for n in names) + context.columns
+    header = tuple(scan_column(n) for n in names) + context.columns
     digest = config_hash(setup, names, sets)
     rows = Rows(None if out is None else Path(out), digest, header, sets)
     todo = [i for i in range(len(sets)) if i not in rows.done]
@@ -240,8 +240,8 @@ def scan(setup: Setup, maps: BasisMaps | None = None, executor: Executor | None 
 def read_scan(path: str | os.PathLike) -> ScanResult:
     """The table of an earlier scan, from its output folder or its ``scan.csv``.
 
-    Every finished row is read back bit for bit; the varied electrodes are the leading ``<name>_V``
-    columns.  ``resumed`` is the number of rows, and the times are 0 (they were not recorded).
+    Every finished row is read back bit for bit; the varied names are the leading ``<name>_V``
+    (voltages) and ``<electrode>.<part>[i].<key>`` (waveform parameters) columns.  ``resumed`` is the number of rows, and the times are 0 (they were not recorded).
 
     Raises
     ------
@@ -252,6 +252,6 @@ def read_scan(path: str | os.PathLike) -> ScanResult:
     csv_path = path / CSV_NAME if path.is_dir() else path
     table, _, digest = read_csv(csv_path)
     columns = table.dtype.names
-    k = next((i for i, c in enumerate(columns) if not c.endswith("_V")), len(columns))
-    names = tuple(c.removesuffix("_V") for c in columns[:k])
+    k = next((i for i, c in enumerate(columns) if not (c.endswith("_V") or "[" in c)), len(columns))
+    names = tuple(c if "[" in c else c.removesuffix("_V") for c in columns[:k])
     return ScanResult(table, names, digest, len(table), 0.0, 0.0, (csv_path,))

@@ -14,7 +14,7 @@ import pathlib
 from dataclasses import dataclass, field
 
 from tracer.species import Species, species
-from tracer.waveforms import Waveform
+from tracer.waveforms import Waveform, first_pulse_s
 
 
 class ConfigError(ValueError):
@@ -276,6 +276,17 @@ class TraceOptions:
     time_zero_s: float | None = None
 
 
+def scan_column(name: str) -> str:
+    """The scan-table column of a varied name: ``<electrode>_V`` for an electrode's voltage, the
+    path itself for a waveform parameter (``"repeller.pulse[0].delay_ns"``: it ends in its unit)."""
+    return name if "[" in name else f"{name}_V"
+
+
+def scan_unit(name: str) -> str:
+    """The unit of a varied name: ``V`` for a voltage, the suffix of a waveform parameter's key."""
+    return name.rsplit("_", 1)[1] if "[" in name else "V"
+
+
 @dataclass(frozen=True)
 class ScanSpec:
     """A batch of voltage sets.
@@ -283,7 +294,9 @@ class ScanSpec:
     Parameters
     ----------
     ranges : tuple of (str, float, float, int)
-        (electrode name, from_V, to_V, count); the scan is the product of the ranges.
+        (name, from, to, count); the scan is the product of the ranges. The name is an electrode's
+        (its voltage, volts) or a waveform parameter's path ``"<electrode>.pulse[i].<key>"`` or
+        ``"<electrode>.sine[i].<key>"``, in the unit of its key (:func:`scan_column`).
     csv : pathlib.Path or None
         Instead of ranges, a CSV file whose header names ``<electrode>_V`` columns and
         whose rows are the voltage sets.
@@ -468,8 +481,7 @@ class Setup:
         else 0."""
         if self.trace.time_zero_s is not None:
             return self.trace.time_zero_s
-        return min((p.delay_s for e in self.electrodes if e.waveform is not None
-                    for p in e.waveform.pulses), default=0.0)
+        return first_pulse_s(self.drives().values())
 
     @property
     def in_time(self) -> bool:

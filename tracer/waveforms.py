@@ -411,6 +411,12 @@ class Waveform:
         return sample(self.arrays(), 0, np.asarray(t, dtype=float).ravel())[1].reshape(np.shape(t))
 
 
+def first_pulse_s(drives) -> float:
+    """The start of the earliest pulse among ``drives`` (Waveforms; constant voltages are skipped),
+    seconds; 0 when there is no pulse (the time zero of flight times: the extraction pulse)."""
+    return min((p.delay_s for d in drives if isinstance(d, Waveform) for p in d.pulses), default=0.0)
+
+
 def _check(obj, at):
     """Validate a description; store the normalised numbers (floats) back into the frozen object."""
     for name, value in obj._validate(at).items():
