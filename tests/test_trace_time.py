@@ -407,3 +407,23 @@ def test_a_scan_over_a_pulse_delay():
     assert later["tof_mean_s"] - first["tof_mean_s"] == pytest.approx(50e-9, rel=0.05)
     for row, zero in ((first, 100e-9), (later, 150e-9)):
         assert row["resolving_power"] == pytest.approx((row["tof_mean_s"] - zero) / (2 * row["tof_fwhm_s"]))
+
+
+def test_a_tune_over_a_pulse_level():
+    """[tune] varies a waveform parameter as it varies a voltage: the pulse level that lands the
+    ions at 300 eV, checked by a run at the level found."""
+    import dataclasses
+
+    import tracer
+
+    setup = loads(PULSED + '[tune]\nvary = { "back.pulse[0].high_V" = [300.0, 600.0] }\n'
+                           'goal = { landing_energy_eV = 300.0 }\n')
+    maps = tracer.solve(setup)
+    result = tracer.tune(setup, maps=maps)
+    level = result.voltages["back.pulse[0].high_V"]
+    assert 300.0 < level < 600.0 and "back.pulse[0].high_V" in result.points.dtype.names
+    back = setup.electrodes[0]
+    pulse = dataclasses.replace(back.waveform.pulses[0], high_V=level)
+    tuned = dataclasses.replace(back, waveform=dataclasses.replace(back.waveform, pulses=(pulse,)))
+    run = tracer.run(dataclasses.replace(setup, electrodes=(tuned,) + setup.electrodes[1:]), maps=maps)
+    assert run.beams["ions"].summary()["landing"]["front"]["energy_mean_eV"] == pytest.approx(300.0, rel=1e-3)

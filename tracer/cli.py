@@ -274,6 +274,7 @@ def cmd_scan(args, echo) -> int:
 def cmd_tune(args, echo) -> int:
     from tracer.pipeline import solve
     from tracer.plot import plot_tune
+    from tracer.schema import scan_unit
     from tracer.tuning import tune
 
     setup = _load(args.config)
@@ -286,10 +287,10 @@ def cmd_tune(args, echo) -> int:
     echo(f"{setup.title}\n  goal {result.goal}{where}: {result.figure} = {result.value:.6g} "
          f"after {result.evaluations} voltage sets ({result.method})")
     for name, volts in result.voltages.items():
-        echo(f"  {name:<16s} {volts:12.4f} V")
+        echo(f"  {name:<16s} {volts:12.4f} {scan_unit(name)}")
     out.mkdir(parents=True, exist_ok=True)
     echo(f"wrote {plot_tune(result, out / 'tune.png')}")
-    _caution(_volts(setup) + list(result.voltages.values()), echo)
+    _caution(_volts(setup) + [v for n, v in result.voltages.items() if scan_unit(n) == "V"], echo)
     return 0
 
 

@@ -41,7 +41,7 @@ Keys (defaults in brackets; "r" stands for "y" in a domain with y_mm)::
     [scan]       <electrode> = [from_V, to_V, count], "<electrode>.pulse[i].<key>" = [from, to, count]
                  (a waveform parameter in its key's unit; also .sine[i]), ...;  or csv = "sets.csv"
                  (<electrode>_V columns)
-    [tune]       vary = {<electrode> = [lo_V, hi_V], ...}, goal = "smallest_spot" | "most_transmitted"
+    [tune]       vary = {<electrode> = [lo_V, hi_V], "<electrode>.pulse[i].<key>" = [lo, hi], ...}, goal = "smallest_spot" | "most_transmitted"
                  | {landing_energy_eV = E} | {focus_z_mm = z}, at (a plane), seed [0]
     [gun]        cathode, emission "space_charge"|"thermionic", rays [200], temperature_K and
                  work_function_eV (thermionic), schottky [false], relaxation [0.3],
@@ -397,7 +397,8 @@ def _setup(data, source):
         planes=planes,
         trace=top.get("trace", _trace, default=TraceOptions()),
         scan=top.get("scan", _scan, default=None, names=names, base=base, electrodes=electrodes),
-        tune=top.get("tune", _tune, default=None, names=names, planes=plane_names, domain=domain),
+        tune=top.get("tune", _tune, default=None, names=names, planes=plane_names, domain=domain,
+                     electrodes=electrodes),
         gun=top.get("gun", _gun, default=None, names=names),
         optics=top.get("optics", _optics, default=None),
         source=source,
@@ -841,11 +842,19 @@ def _scan(value, path, names, base, electrodes):
         return ScanSpec((), file)
     if not t.data:
         raise ConfigError(path, "empty: give ranges such as focus = [800.0, 1600.0, 41], or csv = 'sets.csv'")
-    for key in parameters:
-        at = t.at(key)
-        for end in _scan_range(t.data[key], at, key)[1:3]:
-            with_parameter(dict(zip(names, (e.drive for e in electrodes))), waveform_parameter(key, at), end, at)
-    return ScanSpec(tuple(_scan_range(t.data[name], t.at(name), name) for name in t.data))
+    ranges = tuple(_scan_range(t.data[name], t.at(name), name) for name in t.data)
+    _check_parameters(t, parameters, ranges, names, electrodes)
+    return ScanSpec(ranges)
+
+
+def _check_parameters(t, parameters, ranges, names, electrodes):
+    """Refuse a waveform parameter of table t that names none, or whose range (name, from, to,
+    ...) has an end its part refuses."""
+    drives = dict(zip(names, (e.drive for e in electrodes)))
+    for name, lo, hi, *_ in ranges:
+        if name in parameters:
+            for end in (lo, hi):
+                with_parameter(drives, waveform_parameter(name, t.at(name)), end, t.at(name))
 
 
 _PARAMETER = re.compile(r"(?P<electrode>.+)\.(?P<part>pulse|sine)\[(?P<index>\d+)\]\.(?P<key>\w+)")
@@ -932,12 +941,15 @@ _GOALS = ("smallest_spot", "most_transmitted", "landing_energy", "focus")
 _GOAL_KEYS = {"landing_energy": "landing_energy_eV", "focus": "focus_z_mm"}   # goals that take a value
 
 
-def _tune(value, path, names, planes, domain):
+def _tune(value, path, names, planes, domain, electrodes):
     t = _Table(value, path, ("vary", "goal", "at", "seed"))
-    vary = _Table(t.get("vary", _raw), t.at("vary"), names, what="no electrode named")
+    given = t.get("vary", _raw)
+    parameters = tuple(k for k in given if "[" in k) if isinstance(given, dict) else ()
+    vary = _Table(given, t.at("vary"), names + parameters, what="no electrode named")
     if not vary.data:
         raise ConfigError(vary.path, "empty: name the electrodes to vary, e.g. vary = { focus = [800.0, 1600.0] }")
     ranges = tuple((name, *vary.get(name, _range, words=("lo", "hi"))) for name in vary.data)
+    _check_parameters(vary, parameters, ranges, names, electrodes)
     goal, goal_value = t.get("goal", _goal, domain=domain)
     at = t.get("at", _string, default=None)
     if at is not None and at not in planes:

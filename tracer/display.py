@@ -63,8 +63,11 @@ def grid_text(g) -> str:
 
 
 def voltage_text(names_, volts) -> str:
-    """Electrode voltages as ``name V``, abbreviated past six electrodes."""
-    return listing(f"{n} {number(v, 'V')}" for n, v in zip(names_, volts))
+    """Electrode voltages as ``name V`` (a waveform parameter in its own unit,
+    :func:`tracer.schema.scan_unit`), abbreviated past six electrodes."""
+    from tracer.schema import scan_unit
+
+    return listing(f"{n} {number(v, scan_unit(n))}" for n, v in zip(names_, volts))
 
 
 def megabytes(*arrays) -> str:

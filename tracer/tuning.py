@@ -37,7 +37,7 @@ import numpy as np
 
 from tracer.display import Shown, number, voltage_text
 from tracer.executors import Context
-from tracer.schema import ConfigError, Plane, Setup
+from tracer.schema import ConfigError, Plane, Setup, scan_column
 
 if TYPE_CHECKING:
     from tracer.fieldmap import BasisMaps
@@ -144,7 +144,7 @@ class _Trials:
         return self.seen[key][1]
 
     def points(self):
-        dtype = [(f"{n}_V", np.float64) for n in self.names] + [("value", np.float64),
+        dtype = [(scan_column(n), np.float64) for n in self.names] + [("value", np.float64),
                                                                  ("objective", np.float64)]
         return np.array([(*k, *r) for k, r in self.seen.items()], dtype=dtype)
 
@@ -219,6 +219,6 @@ def tune(setup: Setup, maps: BasisMaps | None = None, *, cache_dir: str | os.Pat
         method = _several(trials, spec.seed, int(popsize), int(maxiter))
     points = trials.points()
     k = int(np.argmin(points["objective"]))
-    voltages = {n: float(points[f"{n}_V"][k]) for n in trials.names}
+    voltages = {n: float(points[scan_column(n)][k]) for n in trials.names}
     return TuneResult(voltages, float(points["value"][k]), float(points["objective"][k]), spec.goal,
                       trials.figure, points, method)
