@@ -427,3 +427,20 @@ def test_a_tune_over_a_pulse_level():
     tuned = dataclasses.replace(back, waveform=dataclasses.replace(back.waveform, pulses=(pulse,)))
     run = tracer.run(dataclasses.replace(setup, electrodes=(tuned,) + setup.electrodes[1:]), maps=maps)
     assert run.beams["ions"].summary()["landing"]["front"]["energy_mean_eV"] == pytest.approx(300.0, rel=1e-3)
+
+
+def test_a_run_in_time_reads_back_from_its_result_file(tmp_path):
+    """result.h5 keeps each ray's work and the time zero: the ledger's terms and the resolving
+    power read back are the run's."""
+    import tracer
+    from tracer.pipeline import write_run_outputs
+
+    result = tracer.run(loads(PULSED))
+    write_run_outputs(result, tmp_path)
+    back = tracer.read_result(tmp_path / "result.h5").beams["ions"]
+    run = result.beams["ions"]
+    assert np.array_equal(back.work_eV, run.work_eV) and back.time_zero_s == run.time_zero_s
+    for key in ("ledger_time_work_eV", "ledger_potential_eV", "ledger_worst_eV"):
+        assert back.summary()[key] == run.summary()[key]
+    assert back.summary()["planes"]["middle"]["resolving_power"] == \
+        run.summary()["planes"]["middle"]["resolving_power"]

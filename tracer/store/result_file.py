@@ -135,6 +135,8 @@ def write_result(path, field, runs, *, setup=None, summaries=None, author=None) 
                                              of each plane count (direction, crossing)
         /tracer/result/paths/<k>/<i>         the kept path of ray i of the k-th beam
         /tracer/result/energy_scale_eV/<k>   the k-th beam's per-ray energy scale of the ledger
+        /tracer/result/work_eV/<k>           with voltages in time, the k-th beam's per-ray energy
+                                             from them, q (∫∂V/∂t dt + jumps) (``BeamRun.work_eV``)
         /tracer/result/uncertainty/<k>       the k-th beam's error bars, a row per figure, when
                                              its summary has them (:mod:`tracer.store.uncertainty_table`)
 
@@ -206,6 +208,8 @@ def write_result(path, field, runs, *, setup=None, summaries=None, author=None) 
             for i, p in enumerate(run.paths):
                 paths.create_dataset(str(i), data=p)
             group.create_dataset(f"energy_scale_eV/{k}", data=np.asarray(run.energy_scale_eV, np.float64))
+            if run.work_eV is not None:
+                group.create_dataset(f"work_eV/{k}", data=np.asarray(run.work_eV, np.float64))
             if "uncertainty" in summaries.get(run.name, {}):
                 write_uncertainty(group, k, summaries[run.name])
             beams.append({"name": run.name, "species": [run.species.name, run.species.mass_kg,
@@ -214,7 +218,8 @@ def write_result(path, field, runs, *, setup=None, summaries=None, author=None) 
                           "dtypes": {key: _dtype_names(getattr(run, key))
                                      for key in ("starts", "records", "crossings")},
                           "ledger_threshold": run.ledger.threshold, "crossings_lost": run.crossings_lost,
-                          "crossing_rules": [[r.direction, r.crossing] for r in run.crossing_rules]})
+                          "crossing_rules": [[r.direction, r.crossing] for r in run.crossing_rules],
+                          "time_zero_s": run.time_zero_s})
         group.attrs["format"] = RESULT_FORMAT
         group.attrs["names"] = json.dumps(list(field.names))
         group.attrs["voltages"] = np.asarray(field.voltages, dtype=np.float64)
@@ -317,7 +322,9 @@ def _read_beam(group, particles, k, about, symmetry) -> BeamRun:
                    paths=tuple(read_array(paths[str(i)]) for i in range(len(paths))),
                    planes=tuple(about["planes"]), ledger=report, energy_scale_eV=scale,
                    crossings_lost=int(about["crossings_lost"]), symmetry=symmetry,
-                   crossing_rules=tuple(CrossingRule(*r) for r in about.get("crossing_rules", ())))
+                   crossing_rules=tuple(CrossingRule(*r) for r in about.get("crossing_rules", ())),
+                   work_eV=read_array(group[f"work_eV/{k}"]) if f"work_eV/{k}" in group else None,
+                   time_zero_s=float(about.get("time_zero_s", 0.0)))
 
 
 def read_result(path: str | os.PathLike) -> ResultFile:
