@@ -70,6 +70,22 @@ def test_uniform_field_switched_on(species_name, volts, switch_s, ramp_s):
     assert run.ledger.suspects == 0 and run.ledger.worst_relative < 1e-8
 
 
+def test_an_rf_period_takes_a_bounded_number_of_steps_without_field():
+    """Where the field is all but nil the integrator would take one long step; with an RF
+    waveform each period still takes STEPS_PER_PERIOD steps (the step bound of
+    tracer.waveforms), no more: ions at rest for 10 periods of 1 MHz take 160 steps (161 when the
+    sum of the steps falls short of the end by a rounding error)."""
+    from tracer.waveforms import STEPS_PER_PERIOD
+
+    setup = loads(PLATES.format(volts=0.0, species="40Ar+", energy=0.0, count=3, angle=0.0, extra=""))
+    weak = {"front": Waveform(sinusoids=(Sinusoid(1e-9, 1e6),))}
+    run = trace(group_maps(plate_basis(setup), weak), setup.beams[0], max_time_s=10e-6)
+    assert (run.records["status"] == "time").all()
+    steps = run.records["steps"]      # and one more when rounding leaves a sliver before the end
+    assert (steps >= 10 * STEPS_PER_PERIOD).all() and (steps <= 10 * STEPS_PER_PERIOD + 1).all()
+    assert run.ledger.suspects == 0
+
+
 # --------------------------------------------------------------------------------------------
 # The quadrupole ion trap
 
