@@ -15,6 +15,16 @@ the larger of its start kinetic energy and the largest energy any electrode volt
 (the last term only keeps the scale positive when everything is at 0 V). The default threshold is
 1e-6.
 
+What the ledger proves, and what it does not
+--------------------------------------------
+The ledger checks the integration against the interpolated map: V and the force both come from
+the same C1 interpolant (E = -grad V exactly), so a small residual says the Runge–Kutta steps
+followed the equations of motion *in that map*. It cannot see the map's own error, the difference
+between the interpolated potential and the true solution of Laplace's (or Poisson's) equation for
+the electrodes, which is a discretisation error of the grid. That error is what grid refinement
+measures: solve again with a finer (or coarser) ``cell_mm`` and compare, as the grid error bars of
+:mod:`tracer.errorbars` do.
+
 Voltages that change in time
 ----------------------------
 With electrode voltages w_k(t) (:mod:`tracer.waveforms`) the potential is
