@@ -1,6 +1,6 @@
 """Tests of the events at the edges of motion: landings (their angle of incidence and normal
 energy), rays that touch metal with almost no normal energy, rays that turn a hair beyond (or short
-of) a detector plane, and detector planes at an angle.
+of) a detector plane.
 
 The retarding field is the exact uniform field between two plates (``test_trace.linear_map``: a
 bicubic patch reproduces a linear potential, and the map continues it inside the plates, as a
@@ -69,6 +69,32 @@ def barrier_eV(z):
     return -FRONT_V * z / GAP
 
 
+DELTAS = np.logspace(-6.0, 0.0, 13)      # 1 µeV .. 1 eV
+CELLS_MM = (0.5, 0.2, 0.1, 0.05)
+
+
+@pytest.mark.parametrize("cell_mm", CELLS_MM)
+@pytest.mark.parametrize("angle_deg", (0.0, 30.0, 60.0))
+def test_a_ray_that_touches_the_plate_lands_on_it(cell_mm, angle_deg):
+    """Electrons reaching a retarding plate with 1 µeV..1 eV of normal energy to spare all land on
+    it, with the energy the barrier leaves them; 1 µeV..1 eV short of it, none does (energy
+    conservation in a uniform field: common practice).  Their turning points inside the metal's
+    continued field lie as little as 2e-6 of a cell beyond the surface (1 µeV against 1 kV/m)."""
+    field, setup = retarding(cell_mm)
+    sp = setup.beams[0].species
+    z0 = GAP - 1.5e-3
+    above = aimed(sp.mass_kg, z0, barrier_eV(GAP) - barrier_eV(z0) + DELTAS, angle_deg, -3e-3)
+    below = aimed(sp.mass_kg, z0, barrier_eV(GAP) - barrier_eV(z0) - DELTAS, angle_deg, -3e-3)
+    rec = trace(field, setup.beams[0], starts=above).records
+    assert list(rec["electrode"]) == ["front"] * len(DELTAS), rec["status"]
+    assert np.allclose(rec["z_m"], GAP, rtol=0.0, atol=1e-6 * setup.domain.cell_m)
+    assert np.allclose(rec["energy_eV"], above["energy_eV"] - (barrier_eV(GAP) - barrier_eV(z0)),
+                       rtol=1e-9, atol=1e-9)
+    rec = trace(field, setup.beams[0], starts=below).records
+    assert not (rec["electrode"] == "front").any(), rec["z_m"][rec["electrode"] == "front"]
+    assert set(rec["status"]) <= {"landed", "left"}
+
+
 @pytest.mark.parametrize("angle_deg", (30.0, 60.0))
 def test_landings_report_their_incidence_and_normal_energy(angle_deg):
     """Electrons landing on a retarding plate: the landing's normal energy is what the barrier
@@ -87,6 +113,33 @@ def test_landings_report_their_incidence_and_normal_energy(angle_deg):
     left = trace(field, setup.beams[0], starts=aimed(sp.mass_kg, z0, [0.5], angle_deg, -3e-3)).records
     assert left["status"][0] != "landed" or left["electrode"][0] == "back"
     assert np.isnan(left["incidence_deg"][0]) == (left["status"][0] != "landed")
+
+
+APEX_CELLS = np.logspace(-9.0, -1.0, 9)   # apex this many cells beyond (or short of) the plane
+PLANE_Z = 5e-3
+
+
+@pytest.mark.parametrize("cell_mm", (0.5, 0.1))
+@pytest.mark.parametrize("angle_deg", (0.0, 45.0))
+def test_an_apex_a_hair_beyond_a_plane_crosses_it_twice(cell_mm, angle_deg):
+    """Electrons turning 1e-9..1e-1 cell beyond a plane z = 5 mm cross it exactly twice (in, then
+    back); turning as far short of it, never.  The turning point is where the motion along z has
+    spent its energy (energy conservation, transverse momentum conserved: common practice)."""
+    field, setup = retarding(cell_mm, extra='[[plane]]\nname = "p"\nz_mm = 5.0')
+    sp = setup.beams[0].species
+    cell = setup.domain.cell_m
+    z0 = PLANE_Z - 1e-3
+    for sign in (1.0, -1.0):
+        apex = PLANE_Z + sign * APEX_CELLS * cell
+        s = aimed(sp.mass_kg, z0, barrier_eV(apex) - barrier_eV(z0), angle_deg, -2.0e-3)
+        run = trace(field, setup.beams[0], planes=setup.planes, starts=s)
+        count = np.bincount(run.at_plane("p")["ray"], minlength=len(s))
+        assert list(count) == [2 if sign > 0 else 0] * len(s), (sign, count)
+        if sign > 0:
+            rows = run.at_plane("p")
+            assert np.allclose(rows["z_m"], PLANE_Z, rtol=0.0, atol=1e-9 * cell)
+            assert (rows["pz"][rows["crossing"] == 0] >= 0).all()
+            assert (rows["pz"][rows["crossing"] == 1] <= 0).all()
 
 
 def test_surface_normals_point_out_of_every_shape():
@@ -112,3 +165,4 @@ def test_surface_normals_point_out_of_every_shape():
     for k, z, r, want in cases:
         assert surface_normal(z, r, k, True, *table.arrays()) == pytest.approx(want, abs=1e-12), (k, z, r)
     assert surface_normal(0.0151, 0.0, 0, False, *table.arrays()) == pytest.approx((0.0, -1.0))
+

@@ -194,12 +194,12 @@ def test_plane_crossing_on_a_known_cubic():
         rc = dense_of(np.array([zp - sign * 0.3e-3, sign * 1e-3, -sign * 0.3e-3, sign * 1e-3]))
         stepper.dense(rc, 0.3, buf)
         assert buf[2] == pytest.approx(zp, abs=1e-18)
-        th = events.locate(rc, 0, 0.0, 1.0, events.EV_Z, zp, sign > 0, shapes, buf)
+        th = events.locate(rc, 0, 0.0, 1.0, events.EV_LINE, events.z_line(zp), sign > 0, shapes, buf)
         assert abs(th - 0.3) < 2.0**-47
         stepper.dense(rc, th, buf)
-        assert events.is_event(events.EV_Z, zp, sign > 0, buf[2], 0.0, shapes)
+        assert events.is_event(events.EV_LINE, events.z_line(zp), sign > 0, buf[2], 0.0, shapes)
         stepper.dense(rc, th - 2.0**-40, buf)        # and not just before it
-        assert not events.is_event(events.EV_Z, zp, sign > 0, buf[2], 0.0, shapes)
+        assert not events.is_event(events.EV_LINE, events.z_line(zp), sign > 0, buf[2], 0.0, shapes)
 
 
 def lane_steps(rng, h, rtol=1e-9, atol_x=1e-12, atol_p=1e-30):
@@ -380,7 +380,7 @@ def test_quiet_cells_keep_the_event_search_near_surfaces_planes_and_edges():
     cell = np.full((12, 10), -1, dtype=np.int64)
     cell[5, 6] = -2                      # a surface passes through this cell
     grid = Nodes(0.0, 0.0, 1e-3, 1e-3, 13, 11, 12e-3, 10e-3)
-    quiet = motion.quiet_cells(cell, grid, np.array([9.5e-3]))     # a plane inside cell 9
+    quiet = motion.quiet_cells(cell, grid, np.array([[1.0, 0.0, 9.5e-3]]))   # a plane z = 9.5 mm in cell 9
     assert not quiet[0].any() and not quiet[-1].any()
     assert not quiet[:, 0].any() and not quiet[:, -1].any()
     assert not quiet[4:7, 5:8].any()     # the cut cell and its eight neighbours

@@ -302,7 +302,7 @@ def trace(field: PotentialMap | GroupedMaps, beam: Beam, planes: Sequence[Plane]
     cell = min(grid.hz, grid.hr)
     planes = tuple(planes)
     rules = tuple(measure.CrossingRule.of(p) for p in planes)   # a bad rule is refused before any work
-    plane_z = np.array([p.z_m for p in planes], dtype=np.float64)
+    plane_lines = np.array([(1.0, 0.0, p.z_m) for p in planes], dtype=np.float64).reshape(-1, 3)
     plane_stop = np.array([bool(getattr(p, "stop", False)) for p in planes], dtype=np.bool_)
     keep = min(int(keep_paths), n)
     paths_buf = np.zeros((keep, max(3, int(max_path_points)), motion.ROW_LEN))
@@ -311,7 +311,7 @@ def trace(field: PotentialMap | GroupedMaps, beam: Beam, planes: Sequence[Plane]
     state = np.stack([starts[k] for k in ("x_m", "y_m", "z_m", "px", "py", "pz")], axis=1)
     shapes = motion.shapes_of(field.table)
     cell_map = np.ascontiguousarray(field.raster.cell)
-    quiet = motion.quiet_cells(cell_map, nodes, plane_z)
+    quiet = motion.quiet_cells(cell_map, nodes, plane_lines)
     chunk = max(256, -(-n // 20))   # between chunks, progress is shown and Ctrl-C is seen
     parts = []
     for lo in range(0, max(n, 1), chunk):
@@ -323,7 +323,7 @@ def trace(field: PotentialMap | GroupedMaps, beam: Beam, planes: Sequence[Plane]
                 herm, drive.waves, drive.driven, nodes, sym, bounds, cell_map, shapes,
                 float(sp.mass_kg), float(sp.charge_C), float(max_time_s), float(rtol),
                 atol_p[lo:hi], max_step_cells * cell, sample_cells * cell, fine_cells * cell,
-                plane_z, plane_stop, int(max_steps), int(max_crossings),
+                plane_lines, plane_stop, int(max_steps), int(max_crossings),
                 paths_buf[lo:min(hi, keep)], quiet, group))
         except SystemError as exc:   # numba's parallel kernel hands a Ctrl-C back wrapped
             if by_interrupt(exc):

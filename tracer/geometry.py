@@ -325,6 +325,43 @@ def first_hit(z, r, dz, dr, kind, owner, start, count, points, sector, bbox):
     return best, who
 
 
+@njit(cache=True, error_model="numpy", inline="always")
+def _boxes_meet(zlo, zhi, rlo, rhi, az, ar, bz, br):
+    """True when the box (zlo..zhi, rlo..rhi) meets the bounding box of segment a-b."""
+    return not (max(az, bz) < zlo or min(az, bz) > zhi or max(ar, br) < rlo or min(ar, br) > rhi)
+
+
+@njit(cache=True, error_model="numpy")
+def near_boundary(zlo, zhi, rlo, rhi, kind, owner, start, count, points, sector, bbox):
+    """Whether a shape boundary may pass through a box of the (z, r) plane (never False when one
+    does): a polygon edge whose bounding box meets it, a sector arc whose radius lies between the
+    box's nearest and farthest distances from the centre, or a sector side as an edge."""
+    for j in range(kind.size):
+        if zhi < bbox[j, 0] or zlo > bbox[j, 1] or rhi < bbox[j, 2] or rlo > bbox[j, 3]:
+            continue
+        if kind[j] == POLYGON:
+            s, n = start[j], count[j]
+            for i in range(n):
+                a, b = s + (i - 1) % n, s + i
+                if _boxes_meet(zlo, zhi, rlo, rhi, points[a, 0], points[a, 1], points[b, 0], points[b, 1]):
+                    return True
+            continue
+        cz, rho_in, rho_out, lo, hi = sector[j, 0], sector[j, 1], sector[j, 2], sector[j, 3], sector[j, 4]
+        near_z = min(max(cz, zlo), zhi) - cz
+        near_r = min(max(0.0, rlo), rhi)
+        far_z = max(abs(zlo - cz), abs(zhi - cz))
+        far_r = max(abs(rlo), abs(rhi))
+        d_lo, d_hi = math.hypot(near_z, near_r), math.hypot(far_z, far_r)
+        if d_lo <= rho_out <= d_hi or (rho_in > 0.0 and d_lo <= rho_in <= d_hi):
+            return True
+        if hi - lo < _TWO_PI - _ANGLE_TOL:
+            for a in (lo, hi):
+                c, s_ = math.cos(a), math.sin(a)
+                if _boxes_meet(zlo, zhi, rlo, rhi, cz + rho_in * c, rho_in * s_, cz + rho_out * c, rho_out * s_):
+                    return True
+    return False
+
+
 @njit(cache=True, error_model="numpy")
 def _edge_normal(z, r, az, ar, bz, br, sign):
     """Distance from (z, r) to segment a-b and its unit normal (rotated clockwise from a-b,

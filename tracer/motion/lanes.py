@@ -27,8 +27,9 @@ from tracer.motion.bundles import (C_CODE, C_CROSSINGS, C_ELECTRODE, C_EVALS, C_
                                    W_RATE, put_row)
 from tracer.motion.drive import (D_CELL, D_NEXT, Drive, drive_workspace, group_potentials, load_cell,
                                  potential_at, step_work, weigh)
-from tracer.motion.events import (EV_R, EV_Z, electrode_of, find_landing, locate, outside,
-                                  touches_surface)
+from tracer.motion.events import (EV_LINE, MAX_HALVINGS, TOUCH, bend, bow, electrode_of,
+                                  find_landing, locate, outside, past_line, plane_crossings,
+                                  r_line, touches_surface, z_line)
 from tracer.motion.force import field_at, rate, speed
 from tracer.motion.stepper import (dense, lane_next_rates, lane_rate, lane_step, propose,
                                    put_patch, step_cap)
@@ -145,9 +146,12 @@ def trace_lanes(lo, hi, starts, t_start, herm, drive, nodes, sym, bounds, cell, 
     dt = np.zeros(LANES)          # time between the step's end and the wall it is passing
     ahead = np.empty((3, 5))      # the predicted path of the next step (reach)
     buf = np.empty(6)
+    hits = np.empty(2)            # plane crossings on a piece (plane_crossings)
+    stack = np.empty((MAX_HALVINGS + 2, 8))   # pieces being halved (events.touch)
     pa = np.empty(2)
     box = np.empty(4)
     atol_x = rtol * min(nodes.hz, nodes.hr)
+    touch_tol = TOUCH * min(nodes.hz, nodes.hr)
     snap = SNAP * min(nodes.hz, nodes.hr)
     max_cross = cross_plane.shape[1]
     z0, r0, hz, hr = nodes.z0, nodes.r0, nodes.hz, nodes.hr
@@ -338,6 +342,7 @@ def trace_lanes(lo, hi, starts, t_start, herm, drive, nodes, sym, bounds, cell, 
                 n_sub = max(1, int(math.ceil(max(speed(y0[l], mass), speed(y1[l], mass)) * h
                                              / sample)))
             rcl = rc[l]
+            curve = bend(rcl) if n_sub > 0 else 0.0
             ta = 0.0
             za, ra = y0[l, 2], map_r(sym, y0[l, 0], y0[l, 1])
             xa, ya_ = y0[l, 0], y0[l, 1]
@@ -351,28 +356,37 @@ def trace_lanes(lo, hi, starts, t_start, herm, drive, nodes, sym, bounds, cell, 
                 # leaving the domain
                 if outside(bounds, sym, zb, rb):
                     if zb > bounds[1]:
-                        t_end = min(t_end, locate(rcl, sym, ta, tb, EV_Z, bounds[1], True, shapes, buf))
+                        t_end = min(t_end, locate(rcl, sym, ta, tb, EV_LINE, z_line(bounds[1]), True,
+                                                  shapes, buf))
                     if zb < bounds[0]:
-                        t_end = min(t_end, locate(rcl, sym, ta, tb, EV_Z, bounds[0], False, shapes, buf))
+                        t_end = min(t_end, locate(rcl, sym, ta, tb, EV_LINE, z_line(bounds[0]), False,
+                                                  shapes, buf))
                     if rb > bounds[3]:
-                        t_end = min(t_end, locate(rcl, sym, ta, tb, EV_R, bounds[3], True, shapes, buf))
+                        t_end = min(t_end, locate(rcl, sym, ta, tb, EV_LINE, r_line(bounds[3]), True,
+                                                  shapes, buf))
                     if sym == 1 and rb < bounds[2]:
-                        t_end = min(t_end, locate(rcl, sym, ta, tb, EV_R, bounds[2], False, shapes, buf))
+                        t_end = min(t_end, locate(rcl, sym, ta, tb, EV_LINE, r_line(bounds[2]), False,
+                                                  shapes, buf))
                     code[l] = LEFT
                 # landing on an electrode
-                if touches_surface(cell, nodes, za, ra, zb, rb, 0.5 * chord if sym == 0 else 0.0):
+                pad = 0.5 * chord if sym == 0 else 0.0
+                bulge = bow(curve, 1.0 / n_sub)
+                if touches_surface(cell, nodes, za, ra, zb, rb, pad, bulge):
                     pa[0] = za
                     pa[1] = ra
-                    th, k = find_landing(rcl, sym, ta, min(tb, t_end), pa, chord, fine, shapes, buf)
+                    th, k = find_landing(rcl, sym, ta, min(tb, t_end), pa, chord, fine, curve,
+                                         touch_tol, shapes, stack, buf)
                     if th < t_end:
                         t_end = th
                         code[l] = LANDED
                         electrode[l] = k
                 # detector planes
                 for q in range(planes.shape[0]):
-                    zp = planes[q]
-                    if (za >= zp) != (zb >= zp):
-                        th = locate(rcl, sym, ta, tb, EV_Z, zp, zb >= zp, shapes, buf)
+                    line = (planes[q, 0], planes[q, 1], planes[q, 2])
+                    n_hits = plane_crossings(rcl, sym, ta, tb, line, past_line(line, za, ra),
+                                             past_line(line, zb, rb), bulge + pad, hits, shapes, buf)
+                    for e in range(n_hits):
+                        th = hits[e]
                         if th <= t_end:
                             if stops[q]:
                                 t_end = th
@@ -545,6 +559,11 @@ def trace_rays(starts, t_start, herm, waves, driven, nodes, sym, bounds, cell, s
         Absolute momentum tolerance of each ray.
     paths : float64[k, m, ROW_LEN]
         Path buffers of the first k rays (k may be 0).
+    planes : float64[k, 3]
+        Detector planes as lines (n_z, n_r, d) of the map plane, n_z z + n_r r = d with a unit
+        normal (:meth:`tracer.schema.Plane.line`).
+    stops : bool[k]
+        Whether each plane ends the rays that cross it.
     quiet : bool[nz - 1, nr - 1]
         :func:`tracer.motion.events.quiet_cells` of the cell map and planes.
     group : int

@@ -23,7 +23,7 @@ import math
 import numpy as np
 from numba import njit
 
-from tracer.motion.events import EV_R, EV_Z, locate
+from tracer.motion.events import EV_LINE, locate, r_line, z_line
 from tracer.motion.force import cell_of, gamma_mass
 from tracer.motion.stepper import dense
 from tracer.motion.symmetry import closest_to_axis, map_r, r_rate
@@ -268,11 +268,11 @@ def wall_theta(rc, sym, box, hi, shapes, buf):
     z, r = buf[2], map_r(sym, buf[0], buf[1])
     th = hi
     if z > box[1]:
-        th = min(th, locate(rc, sym, 0.0, hi, EV_Z, box[1], True, shapes, buf))
+        th = min(th, locate(rc, sym, 0.0, hi, EV_LINE, z_line(box[1]), True, shapes, buf))
     elif z < box[0]:
-        th = min(th, locate(rc, sym, 0.0, hi, EV_Z, box[0], False, shapes, buf))
+        th = min(th, locate(rc, sym, 0.0, hi, EV_LINE, z_line(box[0]), False, shapes, buf))
     if r > box[3]:
-        th = min(th, locate(rc, sym, 0.0, hi, EV_R, box[3], True, shapes, buf))
+        th = min(th, locate(rc, sym, 0.0, hi, EV_LINE, r_line(box[3]), True, shapes, buf))
     elif r < box[2]:
-        th = min(th, locate(rc, sym, 0.0, hi, EV_R, box[2], False, shapes, buf))
+        th = min(th, locate(rc, sym, 0.0, hi, EV_LINE, r_line(box[2]), False, shapes, buf))
     return th
