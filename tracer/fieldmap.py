@@ -411,6 +411,34 @@ def basis_hermite(grid, raster, unit) -> np.ndarray:
 # Potential maps
 
 
+def named_settings(names, defaults, given: Mapping[str, object] | None, what: str) -> dict:
+    """Every source's setting: the ``given`` one where named, else its default.
+
+    The fields are linear in their sources (electrode voltages, coil currents), so a map for any
+    setting is the weighted sum of unit maps; this is the one place the weights are looked up.
+
+    Parameters
+    ----------
+    names, defaults : sequence
+        The sources' names and default settings, in the same order.
+    given : mapping of name to setting, optional
+    what : str
+        What a source is called in the error ("electrode", "coil").
+
+    Raises
+    ------
+    ValueError
+        For a name that is not one of ``names``.
+    """
+    out = dict(zip(names, defaults))
+    for name, value in (given or {}).items():
+        if name not in out:
+            raise ValueError(f"unknown {what} {name!r}; the {what}s are "
+                             + (", ".join(repr(n) for n in names) or "none"))
+        out[name] = value
+    return out
+
+
 @njit(cache=True, error_model="numpy")
 def _evaluate(h, z0, r0, hz, hr, nz, nr, mirror, cell, kind, owner, start, count, points, sector,
               bbox, volts, z, r, v, ez, er):
@@ -542,13 +570,7 @@ class BasisMaps(Shown):
         ValueError
             For a name that is not an electrode of these maps.
         """
-        out = dict(zip(self.names, self.voltages))
-        for name, value in (given or {}).items():
-            if name not in out:
-                raise ValueError(f"unknown electrode {name!r}; the electrodes are "
-                                 + ", ".join(repr(n) for n in self.names))
-            out[name] = value
-        return out
+        return named_settings(self.names, self.voltages, given, "electrode")
 
     def combine(self, voltages: Mapping[str, float] | None = None) -> PotentialMap:
         """The potential map of a voltage set.
