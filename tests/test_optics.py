@@ -601,3 +601,90 @@ def test_real_rays_cs_cc_match_the_integrals(solved, traced):
     cc = -(r[7] - r[6]) / 2.0 * p.exit_energy_eV / (-heights[6] / p.f_image_m)
     assert p.cs_m == pytest.approx(cs, rel=0.15)
     assert p.cc_m == pytest.approx(cc, rel=0.15)
+
+
+# ---------------------------------------------------------------- magnetic lenses
+
+
+def field_free(half, cell):
+    """A stand-in map at 0 V everywhere from -half to half."""
+    grid = SimpleNamespace(z0=-half, z1=half, hz=cell, r0=0.0, r1=R, symmetry="axial")
+    return SimpleNamespace(potential=lambda z, r: np.zeros(np.broadcast(z, r).shape), grid=grid)
+
+
+def glaser_cut_ray(k2, a, cut):
+    """Glaser's exact ray through his bell-shaped field cut at |z| = cut (Glaser 1941).
+
+    With z = a cot(phi) and r = y / sin(phi) the paraxial equation of the turning frame becomes
+    y'' + w^2 y = 0, w^2 = 1 + k^2.  The ray parallel to the axis at r = 1 where the field starts
+    (phi_1 = pi - arctan(a/cut)) is y = sin(phi_1) cos(w (phi - phi_1)) + cos(phi_1)/w
+    sin(w (phi - phi_1)); returns its height and slope dr/dz = -(y' sin(phi) - y cos(phi)) / a
+    where the field ends (phi_2 = arctan(a/cut)).
+    """
+    w = math.sqrt(1 + k2)
+    p1, p2 = math.pi - math.atan(a / cut), math.atan(a / cut)
+    y = math.sin(p1) * math.cos(w * (p2 - p1)) + math.cos(p1) / w * math.sin(w * (p2 - p1))
+    dy = -w * math.sin(p1) * math.sin(w * (p2 - p1)) + math.cos(p1) * math.cos(w * (p2 - p1))
+    return y / math.sin(p2), -(dy * math.sin(p2) - y * math.cos(p2)) / a
+
+
+@pytest.mark.parametrize("energy, k2", [(10e3, 0.5), (100e3, 1.2), (2e3, 0.05)])
+def test_glaser_bell_lens_focal_length_and_rotation(energy, k2):
+    """Glaser's bell-shaped field (Glaser 1941): with k^2 = e B0^2 a^2 / (8 m V*), w^2 = 1 + k^2,
+    the asymptotic focal length f = -a w / sin(pi w), the focus at z_F = a w cot(pi w) from the
+    centre, both sides alike, and the rotation k (2 arctan(L/a)) over -L..L (k pi for L -> inf);
+    V* = V (1 + eV/(2 m c^2)) (scipy.constants).  The field is cut at L = 60 a: the focal length and
+    focus are checked against Glaser's exact ray through the cut field (glaser_cut_ray) to 1e-6,
+    and that ray's own values against the uncut lens's within 3 (a/L)^2 and a/L."""
+    from tracer.magnetics.profile import AxialProfile
+
+    a, cut = 0.004, 0.24
+    e, m = constants.e, constants.m_e
+    v_star = energy * (1.0 + energy * e / (2 * m * constants.c ** 2))
+    b0 = math.sqrt(k2 * 8 * m * v_star / e) / a
+    bell = AxialProfile.glaser("lens", b0, a, 0.0)
+    props = paraxial(field_free(cut, a / 10), "e-", energy, magnetic=bell)
+    r, slope = glaser_cut_ray(k2, a, cut)
+    f_cut, z_cut = -1.0 / slope, cut - r / slope
+    w = math.sqrt(1 + k2)
+    f = -a * w / math.sin(math.pi * w)
+    assert f_cut == pytest.approx(f, rel=3 * (a / cut) ** 2)
+    assert z_cut == pytest.approx(a * w / math.tan(math.pi * w), abs=f * a / cut)
+    assert props.f_image_m == pytest.approx(f_cut, rel=1e-6)
+    assert props.f_object_m == pytest.approx(f_cut, rel=1e-6)
+    assert props.focus_image_z_m == pytest.approx(z_cut, abs=1e-6 * f)
+    assert props.focus_object_z_m == pytest.approx(-z_cut, abs=1e-6 * f)
+    # electrons (q < 0) in B_z > 0 turn the image right-handed about +z
+    assert props.rotation_rad == pytest.approx(math.sqrt(k2) * 2 * math.atan(cut / a), rel=1e-7)
+    assert math.isnan(props.cs_m) and math.isnan(props.cc_m)
+
+
+@pytest.mark.parametrize("current", [0.5, 1.0])
+def test_weak_solenoid_against_busch_thin_lens(current):
+    """A weak coil's focal length against Busch's thin-lens formula 1/f = (q / (8 m V*)) int B^2 dz
+    and its rotation against (q / (8 m V*))^(1/2) int B dz (Busch 1926), to the lens's length over
+    f (the length taken as twice the rms width of B^2); B from the coil's unit field on a grid
+    (tracer.magnetics)."""
+    from tracer.grid import Grid
+    from tracer.magnetics.coil import Coil
+    from tracer.magnetics.units import MagneticUnits
+
+    coil = Coil("sol", (-0.01, 0.01), (0.015, 0.02), 100, current)
+    cell = 0.001
+    grid = Grid("axial", True, -0.2, 0.0, cell, cell, 401, 31, ("ground",) * 4)
+    field = MagneticUnits.build(grid, (coil,)).combine()
+    energy = 5e3
+    e, m = constants.e, constants.m_e
+    v_star = energy * (1.0 + energy * e / (2 * m * constants.c ** 2))
+    z = np.linspace(-0.2, 0.2, 4001)
+    b = field.on_axis(z)
+    inv_f = e / (8 * m * v_star) * np.trapezoid(b * b, z)
+    length = 2 * math.sqrt(np.trapezoid(b * b * z * z, z) / np.trapezoid(b * b, z))
+    props = paraxial(field_free(0.2, cell), "e-", energy, magnetic=field)
+    assert length * inv_f < 0.05                       # a weak lens: f far beyond its length
+    assert props.f_image_m == pytest.approx(1.0 / inv_f, rel=length * inv_f)
+    assert props.f_object_m == pytest.approx(1.0 / inv_f, rel=length * inv_f)
+    # the focus of a thin lens lies f beyond its middle
+    assert props.focus_image_z_m == pytest.approx(1.0 / inv_f, rel=length * inv_f)
+    assert props.rotation_rad == pytest.approx(math.sqrt(e / (8 * m * v_star)) * np.trapezoid(b, z),
+                                               rel=1e-6)

@@ -1,4 +1,4 @@
-"""Paraxial optics of round electrostatic lenses: cardinal elements, Cs and Cc.
+"""Paraxial optics of round electrostatic and magnetic lenses: cardinal elements, Cs and Cc.
 
 Method
 ------
@@ -13,7 +13,15 @@ Phi* = Phi (1 + eps Phi), and gamma = 1 + 2 eps Phi.
 
     r'' + gamma Phi' / (2 Phi*) r' + gamma Phi'' / (4 Phi*) r = 0
 
-integrated by the classical Runge-Kutta method, 16 steps a grid cell, aligned
+and with an axial magnetic field B(z) (``magnetic``), in the frame that turns with the
+ray about the axis (Busch 1926; Hawkes & Kasper 1989)::
+
+    r'' + gamma Phi' / (2 Phi*) r' + (gamma Phi'' / (4 Phi*) + q B^2 / (8 m Phi*)) r = 0,
+    theta' = -q B / (2 p) = -sign(q) sqrt(|q| / (8 m Phi*)) B,
+
+p = sqrt(2 m |q| Phi*) the momentum; theta is the rotation of that frame about +z (right-handed),
+so that ``rotation_rad``, its total over the axis used, is the image rotation (the Larmor angle).
+The paraxial equation is integrated by the classical Runge-Kutta method, 16 steps a grid cell, aligned
 with the polynomial pieces of the axial potential (:mod:`tracer.axial`) so that
 every step sees one smooth polynomial.  The fundamental rays are g, parallel to
 the axis at z_min (g = 1, g' = 0), and gbar, parallel at z_max, integrated
@@ -60,6 +68,14 @@ axial object point (u = g for an object at infinity) and u'_i its image slope:
   follows from differentiating the paraxial equation above with respect to the
   energy.
 
+*Magnetic lenses.*  With a magnetic field the aberration integrals above miss
+its terms, so ``cs_m``, ``cc_m``, ``image_cs_m`` and ``image_cc_m`` are NaN: they are not
+computed for magnetic or combined lenses.  The focal lengths are the asymptotic ones; for
+Glaser's bell-shaped field (Glaser 1941), k^2 = q B0^2 a^2 / (8 m Phi*) and w^2 = 1 + k^2,
+they are f = -a w / sin(pi w) with the focus at z_F = a w cot(pi w) from the centre, and the
+total rotation is k pi (checked in tests/test_optics.py); Glaser's objective focal length
+a / sin(pi / w) is another quantity and is not what ``f_image_m`` holds.
+
 *Mirrors.*  If Phi falls to zero on the axis the particle turns back: the result
 comes with ``mirror = True``, ``turning_z_m`` where Phi = 0, and NaN for every
 lens quantity and ray.  No exception is raised, so that voltage scans can run
@@ -99,6 +115,9 @@ class LensProperties(Shown):
     none was given): ``image_z_m``, ``magnification``, ``image_cs_m``,
     ``image_cc_m`` (image side).  See the module docstring for the conventions.
 
+    ``rotation_rad`` is the rotation of the paraxial image about +z over the axis used (0
+    without a magnetic field; see the module docstring).
+
     ``mirror`` is True when the particle turns back on the axis (at
     ``turning_z_m``); the lens quantities and rays are then NaN.  ``energy_eV`` is
     the entrance energy asked for, ``exit_energy_eV`` the kinetic energy at the end
@@ -134,6 +153,7 @@ class LensProperties(Shown):
     ray_g: np.ndarray
     ray_gbar: np.ndarray
     ray_h: np.ndarray
+    rotation_rad: float = 0.0
 
     def _facts(self):
         if self.mirror:
@@ -143,6 +163,7 @@ class LensProperties(Shown):
                 "f_image": number(self.f_image_m, "mm", 1e3),
                 "focus_image_z": number(self.focus_image_z_m, "mm", 1e3),
                 "cs": number(self.cs_m, "mm", 1e3), "cc": number(self.cc_m, "mm", 1e3),
+                "rotation": number(math.degrees(self.rotation_rad), "deg"),
                 "image_z": number(self.image_z_m, "mm", 1e3), "magnification": number(self.magnification)}
 
     def summary(self) -> dict:
@@ -160,6 +181,15 @@ class _Kinetics:
     v0: float       # the map's potential on the axis at its z_min end (V)
     sign: float     # sign of the charge
     eps: float      # |q| / (2 m c^2) (1/V)
+    q_over_m: float = 0.0       # |q| / m (C/kg)
+    magnetic: object = None     # the axial magnetic field: on_axis(z) -> B (T), or None
+
+    def magnetic_term(self, z) -> np.ndarray:
+        """q B^2 / (8 m) at z (V/m^2), zeros without a magnetic field."""
+        z = np.asarray(z, dtype=float)
+        if self.magnetic is None:
+            return np.zeros(z.shape)
+        return self.q_over_m / 8.0 * self.magnetic.on_axis(z.ravel()).reshape(z.shape) ** 2
 
     def phi(self, z):
         """The accelerating potential Phi at z (V)."""
@@ -207,20 +237,20 @@ def _quartic_weight(phi, d1, d2, eps):
 
 
 @njit(cache=True)
-def _slope(z, y, n, z0, width, taylor, phi0, v0, sign, eps, out):
+def _slope(z, y, n, z0, width, taylor, phi0, v0, sign, eps, mag, out):
     """d/dz of the state of n rays: heights, slopes, Cs and Cc integrands (module docstring).
 
     The Cs integrand is M4 = sqrt(Phi*) [-r'^4/8 - gamma Phi'' r^2 r'^2 / (16 Phi*)
     + r^4 (gamma Phi'''' / (128 Phi*) + eps Phi''^2 / (32 Phi*) - gamma^2 Phi''^2 / (128 Phi*^2))]
     with its Phi'''' term A r^4 Phi'''' replaced by (A r^4)'' Phi'' (two integrations by
-    parts), r'' taken from the paraxial equation.
+    parts), r'' taken from the paraxial equation.  ``mag`` is q B^2 / (8 m) at z (V/m^2).
     """
     phi, d1, d2 = _phi_at(z, z0, width, taylor, phi0, v0, sign)
     ps = phi * (1.0 + eps * phi)
     gam = 1.0 + 2.0 * eps * phi
     root = math.sqrt(ps)
     a = gam * d1 / (2.0 * ps)
-    b = gam * d2 / (4.0 * ps)
+    b = gam * d2 / (4.0 * ps) + mag / ps
     a0, a1, a2 = _quartic_weight(phi, d1, d2, eps)
     quartic = eps * d2 * d2 / (32.0 * ps) - gam * gam * d2 * d2 / (128.0 * ps * ps)
     chrom = (1.0 + 2.0 * eps * ps) / (ps * root)
@@ -237,12 +267,13 @@ def _slope(z, y, n, z0, width, taylor, phi0, v0, sign, eps, out):
 
 
 @njit(cache=True)
-def paraxial_rays(points, y0, n, z0, width, taylor, phi0, v0, sign, eps):
+def paraxial_rays(points, y0, n, z0, width, taylor, phi0, v0, sign, eps, mag):
     """Classical 4th-order Runge-Kutta through the given z points; the state at every point.
 
     The state of n rays holds 4 n values: heights, slopes, Cs integrals, Cc
     integrals.  One step between consecutive points; the points may decrease
-    (backward integration).
+    (backward integration).  ``mag[j]`` holds q B^2 / (8 m) at the start, middle
+    and end of step j.
     """
     m = points.size
     out = np.empty((m, y0.size))
@@ -255,13 +286,18 @@ def paraxial_rays(points, y0, n, z0, width, taylor, phi0, v0, sign, eps):
     for j in range(m - 1):
         za = points[j]
         h = points[j + 1] - za
-        _slope(za, y, n, z0, width, taylor, phi0, v0, sign, eps, k1)
-        _slope(za + 0.5 * h, y + 0.5 * h * k1, n, z0, width, taylor, phi0, v0, sign, eps, k2)
-        _slope(za + 0.5 * h, y + 0.5 * h * k2, n, z0, width, taylor, phi0, v0, sign, eps, k3)
-        _slope(za + h, y + h * k3, n, z0, width, taylor, phi0, v0, sign, eps, k4)
+        _slope(za, y, n, z0, width, taylor, phi0, v0, sign, eps, mag[j, 0], k1)
+        _slope(za + 0.5 * h, y + 0.5 * h * k1, n, z0, width, taylor, phi0, v0, sign, eps, mag[j, 1], k2)
+        _slope(za + 0.5 * h, y + 0.5 * h * k2, n, z0, width, taylor, phi0, v0, sign, eps, mag[j, 1], k3)
+        _slope(za + h, y + h * k3, n, z0, width, taylor, phi0, v0, sign, eps, mag[j, 2], k4)
         y = y + (h / 6.0) * (k1 + 2.0 * k2 + 2.0 * k3 + k4)
         out[j + 1] = y
     return out
+
+
+def _step_points(points: np.ndarray) -> np.ndarray:
+    """The start, middle and end of every step between consecutive points, as rows."""
+    return np.column_stack([points[:-1], 0.5 * (points[:-1] + points[1:]), points[1:]])
 
 
 def _rays(kin: _Kinetics, points: np.ndarray, r0, p0) -> np.ndarray:
@@ -269,7 +305,18 @@ def _rays(kin: _Kinetics, points: np.ndarray, r0, p0) -> np.ndarray:
     n = len(r0)
     y0 = np.concatenate([r0, p0, np.zeros(2 * n)]).astype(float)
     z0, width, taylor = kin.axial.pieces()
-    return paraxial_rays(points, y0, n, z0, width, taylor, kin.phi0, kin.v0, kin.sign, kin.eps)
+    return paraxial_rays(points, y0, n, z0, width, taylor, kin.phi0, kin.v0, kin.sign, kin.eps,
+                         kin.magnetic_term(_step_points(points)))
+
+
+def _rotation(kin: _Kinetics, points: np.ndarray) -> float:
+    """The total rotation -integral q B / (2 p) dz over the points (Simpson on each step)."""
+    if kin.magnetic is None:
+        return 0.0
+    steps = _step_points(points)
+    rate = (-kin.sign * np.sqrt(kin.q_over_m / 8.0 / kin.star(kin.phi(steps)))
+            * kin.magnetic.on_axis(steps.ravel()).reshape(steps.shape))
+    return float(np.sum(np.diff(points) / 6.0 * (rate[:, 0] + 4.0 * rate[:, 1] + rate[:, 2])))
 
 
 def _image_side(kin: _Kinetics, z1: float, end, k: int, n: int, front_m: float = 0.0):
@@ -311,7 +358,7 @@ def _turning_point(kin: _Kinetics, z: np.ndarray):
 
 def paraxial(field: PotentialMap, species: str | Species, energy_eV: float,
              object_z_m: float | None = None, *, z_range_m: tuple[float, float] | None = None,
-             knot_cells: int = 3) -> LensProperties:
+             knot_cells: int = 3, magnetic=None) -> LensProperties:
     """Paraxial lens properties and aberration coefficients from a potential map.
 
     Parameters
@@ -336,6 +383,11 @@ def paraxial(field: PotentialMap, species: str | Species, energy_eV: float,
         ends are taken as field-free.
     knot_cells : int
         Knot spacing of the axial-potential fit, in cells (see :mod:`tracer.axial`).
+    magnetic : object, optional
+        An axial magnetic field: any object with ``on_axis(z) -> B_z`` (tesla at an array of
+        z), such as a :class:`tracer.magnetics.profile.AxialProfile` or a
+        :class:`tracer.magnetics.units.MagneticMap`.  Adds its focusing and the image
+        rotation; Cs and Cc are then NaN (not computed for magnetic lenses).
 
     Returns
     -------
@@ -368,7 +420,8 @@ def paraxial(field: PotentialMap, species: str | Species, energy_eV: float,
     q = abs(sp.charge_C)
     kin = _Kinetics(axial=ax, phi0=energy_eV * constants.e / q, v0=v_ref,
                     sign=math.copysign(1.0, sp.charge_C),
-                    eps=q / (2.0 * sp.mass_kg * constants.c ** 2))
+                    eps=q / (2.0 * sp.mass_kg * constants.c ** 2), q_over_m=q / sp.mass_kg,
+                    magnetic=magnetic)
     nan = math.nan
     nan_ray = np.full_like(z, nan)
     common = dict(object_z_m=nan if object_z_m is None else float(object_z_m),
@@ -380,7 +433,7 @@ def paraxial(field: PotentialMap, species: str | Species, energy_eV: float,
         return LensProperties(nan, nan, nan, nan, nan, nan, nan, nan, image_z_m=nan,
                               magnification=nan, image_cs_m=nan, image_cc_m=nan, mirror=True,
                               turning_z_m=turn, ray_g=nan_ray, ray_gbar=nan_ray.copy(),
-                              ray_h=nan_ray.copy(), **common)
+                              ray_h=nan_ray.copy(), rotation_rad=nan, **common)
     points = np.linspace(z0, z1, SUBSTEPS * (len(z) - 1) + 1)
     fwd = _rays(kin, points, np.array([1.0]), np.array([0.0]))
     z_fi, cs, cc = _image_side(kin, z1, fwd[-1], 0, 1)
@@ -400,8 +453,11 @@ def paraxial(field: PotentialMap, species: str | Species, energy_eV: float,
         image = dict(image_z_m=z_img, magnification=float(end[1] + end[3] * (z_img - z1)),
                      image_cs_m=i_cs, image_cc_m=i_cc,
                      ray_h=np.interp(z, obj_points, obj[:, 0], left=nan))
+    if magnetic is not None:
+        cs = cc = nan
+        image.update(image_cs_m=nan, image_cc_m=nan)
     return LensProperties(
         f_image_m=f_i, f_object_m=f_o, focus_image_z_m=z_fi, focus_object_z_m=z_fo,
         principal_image_z_m=z_fi - f_i, principal_object_z_m=z_fo + f_o, cs_m=cs, cc_m=cc,
         mirror=False, turning_z_m=nan, ray_g=fwd[::SUBSTEPS, 0], ray_gbar=bwd[::SUBSTEPS, 0],
-        **image, **common)
+        rotation_rad=_rotation(kin, points), **image, **common)

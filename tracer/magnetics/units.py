@@ -115,6 +115,10 @@ class MagneticMap:
         """(B_z, B_r) in tesla at points: the curl of the interpolated A_theta."""
         return self.evaluate(z, r)[1:]
 
+    def on_axis(self, z) -> np.ndarray:
+        """B_z on the axis (T) at z: the field paraxial optics uses."""
+        return self.evaluate(z, 0.0)[1]
+
 
 @dataclass(frozen=True, eq=False)
 class MagneticUnits:
