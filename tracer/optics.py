@@ -163,7 +163,7 @@ class LensProperties(Shown):
                 "f_image": number(self.f_image_m, "mm", 1e3),
                 "focus_image_z": number(self.focus_image_z_m, "mm", 1e3),
                 "cs": number(self.cs_m, "mm", 1e3), "cc": number(self.cc_m, "mm", 1e3),
-                "rotation": number(math.degrees(self.rotation_rad), "deg"),
+                **({"rotation": number(math.degrees(self.rotation_rad), "deg")} if self.rotation_rad else {}),
                 "image_z": number(self.image_z_m, "mm", 1e3), "magnification": number(self.magnification)}
 
     def summary(self) -> dict:
