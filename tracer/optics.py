@@ -86,6 +86,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass, fields
+from typing import Protocol
 
 import numpy as np
 from numba import njit
@@ -98,6 +99,13 @@ from tracer.fieldmap import PotentialMap
 from tracer.species import Species
 
 SUBSTEPS = 16   # Runge-Kutta steps a grid cell: a whole number of steps per knot interval
+
+
+class AxialField(Protocol):
+    """A magnetic field on the axis, as paraxial optics uses it."""
+
+    def on_axis(self, z: np.ndarray) -> np.ndarray:
+        """B_z on the axis (T) at an array of z (m)."""
 
 
 class OpticsError(ValueError):
@@ -358,7 +366,7 @@ def _turning_point(kin: _Kinetics, z: np.ndarray):
 
 def paraxial(field: PotentialMap, species: str | Species, energy_eV: float,
              object_z_m: float | None = None, *, z_range_m: tuple[float, float] | None = None,
-             knot_cells: int = 3, magnetic=None) -> LensProperties:
+             knot_cells: int = 3, magnetic: AxialField | None = None) -> LensProperties:
     """Paraxial lens properties and aberration coefficients from a potential map.
 
     Parameters
