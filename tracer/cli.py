@@ -317,6 +317,14 @@ def cmd_optics(args, echo) -> int:
     return 0
 
 
+def cmd_warmup(args, echo) -> int:
+    from tracer.warmup import warmup
+
+    echo("compiling every kernel into numba's cache (once per install)")
+    warmup(echo)
+    return 0
+
+
 COMMANDS = {
     "check": (cmd_check, "validate a config and describe it"),
     "solve": (cmd_solve, "solve the basis maps and draw the equipotentials"),
@@ -327,7 +335,11 @@ COMMANDS = {
     "tune": (cmd_tune, "find the voltages of [tune] that best meet its goal"),
     "optics": (cmd_optics, "paraxial lens properties and aberrations on the axis"),
     "gun": (cmd_gun, "iterate a gun's emission with its space charge until the current settles"),
+    "warmup": (cmd_warmup, "compile the kernels ahead, for an install script or a cluster image"),
 }
+
+# Commands that compile no kernel before they finish (no first-compile notice).
+NO_KERNELS = ("check", "show", "warmup")
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -339,7 +351,7 @@ def build_parser() -> argparse.ArgumentParser:
         p = sub.add_parser(name, help=help_text, description=help_text)
         if name == "show":
             p.add_argument("config", metavar="RESULT", help="a result.h5 file written by tracer run")
-        elif name != "demo":
+        elif name not in ("demo", "warmup"):
             p.add_argument("config", metavar="CONFIG", help="the setup, a TOML file")
         p.add_argument("--debug", action="store_true", help="show tracebacks")
         p.add_argument("--quiet", action="store_true", help="no progress output")
@@ -347,9 +359,9 @@ def build_parser() -> argparse.ArgumentParser:
             p.add_argument("--out", metavar="DIR", help="a fresh output folder (default: tracer-demo/, or the next free tracer-demo-N/)")
         elif name == "show":
             p.add_argument("--out", metavar="DIR", help="folder for the pictures (default: beside RESULT)")
-        elif name != "check":
+        elif name not in ("check", "warmup"):
             p.add_argument("--out", metavar="DIR", help="output folder (default CONFIG-stem.out/)")
-        if name not in ("check", "show"):
+        if name not in ("check", "show", "warmup"):
             p.add_argument("--cache", metavar="DIR", default=None,
                            help="folder of cached basis maps (default $TRACER_CACHE or ~/.cache/tracer)")
             p.add_argument("--no-cache", action="store_true", help="solve again, cache nothing")
@@ -380,6 +392,12 @@ def main(argv: list[str] | None = None) -> int:
     func = COMMANDS[args.command][0]
     echo = print
     try:
+        if args.command not in NO_KERNELS and not args.quiet:
+            from tracer.warmup import notice
+
+            line = notice()
+            if line:
+                print(line, file=sys.stderr, flush=True)
         code = func(args, echo)
         sys.stdout.flush()  # a closed pipe shows here, not at the interpreter's exit
         return code

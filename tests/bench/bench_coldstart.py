@@ -1,0 +1,78 @@
+"""Benchmark of the first run (run as a script: python tests/bench/bench_coldstart.py).
+
+Runs ``tracer demo`` in a fresh process with numba's cache pointed at an empty folder
+(NUMBA_CACHE_DIR), so every kernel compiles, then again from that cache (warm), each with a fresh
+map cache so both solve the same maps.  Prints both wall times, their ratio against the goal of a
+cold first demo under 30 s, and each kernel's compile time in the cold run (exclusive of the
+kernels it compiled inside it; numba's "numba:compile" events).
+"""
+
+import os
+import subprocess
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+ROOT = Path(__file__).resolve().parents[2]
+GOAL_S = 30.0
+
+PROFILE = """
+import collections, json, sys, time
+from numba.core import event
+stack, total, inner = [], collections.Counter(), collections.Counter()
+
+class Compiles(event.Listener):
+    def on_start(self, ev):
+        name = ev.data["dispatcher"].py_func.__qualname__ if "dispatcher" in ev.data else "?"
+        stack.append((name, time.perf_counter()))
+
+    def on_end(self, ev):
+        name, t = stack.pop()
+        dt = time.perf_counter() - t
+        total[name] += dt
+        if stack:
+            inner[stack[-1][0]] += dt
+
+event.register("numba:compile", Compiles())
+from tracer.cli import main
+code = main(sys.argv[1:])
+print("KERNELS " + json.dumps({k: total[k] - inner[k] for k in total}))
+sys.exit(code)
+"""
+
+
+def demo(numba_cache, work, label):
+    """Wall time of ``tracer demo`` with this numba cache, and the compile times it reports."""
+    env = dict(os.environ, NUMBA_CACHE_DIR=str(numba_cache), PYTHONPATH=str(ROOT))
+    out = Path(work) / f"demo-{label}"
+    args = [sys.executable, "-c", PROFILE, "demo", "--quiet", "--out", str(out),
+            "--cache", str(Path(work) / f"maps-{label}")]
+    t0 = time.perf_counter()
+    done = subprocess.run(args, env=env, capture_output=True, text=True, check=True)
+    wall = time.perf_counter() - t0
+    import json
+
+    line = [s for s in done.stdout.splitlines() if s.startswith("KERNELS ")][-1]
+    return wall, json.loads(line[len("KERNELS "):])
+
+
+def main():
+    with tempfile.TemporaryDirectory() as work:
+        cache = Path(work) / "numba"
+        cache.mkdir()
+        cold, kernels = demo(cache, work, "cold")
+        warm, again = demo(cache, work, "warm")
+    print("tracer demo from a fresh numba cache (NUMBA_CACHE_DIR empty), then from that cache")
+    print(f"  cold {cold:6.1f} s   warm {warm:6.1f} s   cold/warm {cold / warm:5.1f}")
+    print(f"  cold first run against the {GOAL_S:.0f} s goal: ratio {cold / GOAL_S:.2f}"
+          f" -> {'met' if cold <= GOAL_S else 'not met'}")
+    print(f"  kernels loaded (or compiled) in the warm run: {len(again)}, {sum(again.values()):.1f} s")
+    print("  first compile of each kernel (exclusive seconds, largest first):")
+    for name, seconds in sorted(kernels.items(), key=lambda kv: -kv[1])[:15]:
+        print(f"    {seconds:6.1f}  {name}")
+    print(f"    {sum(kernels.values()):6.1f}  all {len(kernels)} kernels")
+
+
+if __name__ == "__main__":
+    main()
