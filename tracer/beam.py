@@ -14,7 +14,7 @@ import numba
 import numpy as np
 from scipy import constants
 
-from tracer import ledger, measure, motion, sources
+from tracer import endings, ledger, measure, motion, sources
 from tracer.groups import GroupedMaps
 from tracer.motion.drive import Drive, static_drive
 from tracer.fieldmap import PotentialMap
@@ -22,6 +22,7 @@ from tracer.geometry import surface_normals
 from tracer.schema import Beam, Plane
 from tracer.display import Shown, listing, number
 from tracer.interrupts import by_interrupt
+from tracer.stats import radius
 
 STATUS = {
     motion.LANDED: "landed",      # hit an electrode; the state is at its surface
@@ -130,6 +131,16 @@ class BeamRun(Shown):
     time_zero_s : float
         The clock time the planes' resolving power counts flight times from (the extraction
         pulse; :class:`tracer.measure.PlaneStats`).
+    bounds_m : tuple of float
+        The domain (z_min, z_max, transverse_min, transverse_max) in metres, and ``mirror`` whether
+        the transverse minimum is the axis or a mirror plane: where rays that left went
+        (:mod:`tracer.endings`); empty when unknown.
+    mirror : bool
+    start_potential_V : numpy.ndarray
+        The potential at each ray's start point, which ``energy_eV`` is measured from (empty when
+        unknown).
+    electrode_voltages : dict of str to float
+        The electrodes' voltages of the map traced, for the landing energies the start implies.
     """
 
     name: str
@@ -144,6 +155,10 @@ class BeamRun(Shown):
     crossings_lost: int = 0
     symmetry: str = "axial"
     crossing_rules: tuple = ()
+    bounds_m: tuple = ()
+    mirror: bool = False
+    start_potential_V: np.ndarray = dataclass_field(default_factory=lambda: np.zeros(0), repr=False)
+    electrode_voltages: dict = dataclass_field(default_factory=dict)
     work_eV: np.ndarray | None = dataclass_field(default=None, repr=False)
     time_zero_s: float = 0.0
 
@@ -173,21 +188,25 @@ class BeamRun(Shown):
 
     def summary(self):
         """The beam's figures (:mod:`tracer.measure`): what landed where, what crossed each plane,
-        what was lost, the ledger.
+        what was lost and where it went, the energy reference of the start, the ledger.
 
         Returns
         -------
         dict
-            ``beam``, ``species``, ``rays``, ``current_A`` (the beam's current, or NaN);
+            ``beam``, ``species``, ``species_note`` (its resolved mass, charge and whether the mass
+            is of one isotope), ``rays``, ``current_A`` (the beam's current, or NaN), ``symmetry``;
             ``status`` {status: count} for every status; ``transmission`` {plane: fraction of the
             rays counted at it}; ``planes`` {plane: :class:`tracer.measure.PlaneStats` fields as a
             dict over the crossings that count, plus ``counted``, the label of the plane's
             :class:`tracer.measure.CrossingRule`}; ``landing`` {electrode:
-            :class:`tracer.measure.LandingStats` fields as a dict}; ``ledger_worst_eV``,
-            ``ledger_worst_relative``, ``ledger_threshold``, ``ledger_suspects``; with voltages
-            that change in time also the ledger's two terms, ΔKE = −qΔV + q W: the largest
+            :class:`tracer.measure.LandingStats` fields as a dict, plus ``energy_expected_eV``, the
+            mean landing energy the start's energy reference implies}; ``left`` {edge: where and
+            with what energy rays left, :func:`tracer.endings.left_summary`};
+            ``energy_reference`` (:func:`tracer.endings.energy_reference`); ``ledger_worst_eV``,
+            ``ledger_worst_relative``, ``ledger_threshold``, ``ledger_suspects``; with voltages that change in time also the ledger's two terms, ΔKE = −qΔV + q W: the largest
             |qΔV| (``ledger_potential_eV``) and the largest |q W| (``ledger_time_work_eV``,
-            W = ∫∂V/∂t dt + jumps) over the traced rays; ``warning`` (a one-line warning, or "").
+            W = ∫∂V/∂t dt + jumps) over the traced rays; ``warnings`` (one
+            line each) and ``warning`` (the same, joined by "; ", or "").
         """
         rec = self.records
         n = len(rec)
@@ -196,26 +215,32 @@ class BeamRun(Shown):
         planes = {p: asdict(measure.plane_figures(self, p)) | {"counted": self.crossing_rule(p).label}
                   for p in self.planes}
         weights = rec["weight_A"] if current > 0 else np.full(n, math.nan)
-        landing = {name: asdict(ls) for name, ls in
-                   measure.landings(rec, weight_A=weights, symmetry=self.symmetry).items()}
-        warnings = [w for w in (self.ledger.warning,) if w]
-        if status["stalled"]:
-            warnings.append(f"{status['stalled']} ray(s) stalled (step size underflow or max_steps)")
+        landing = {name: asdict(ls) | {"energy_expected_eV": endings.expected_landing_eV(
+                       self.starts, self.start_potential_V, self.species.charge_e,
+                       self.electrode_voltages.get(name, math.nan),
+                       rec["ray"][(rec["status"] == "landed") & (rec["electrode"] == name)])}
+                   for name, ls in measure.landings(rec, weight_A=weights, symmetry=self.symmetry).items()}
+        warnings = endings.status_warnings(rec) + [w for w in (self.ledger.warning,) if w]
         if self.crossings_lost:
             warnings.append(f"{self.crossings_lost} plane crossing(s) not recorded (raise max_crossings)")
         return {
             "beam": self.name,
             "species": self.species.name,
+            "species_note": self.species.describe(),
             "rays": n,
             "current_A": current if current > 0 else math.nan,
+            "symmetry": self.symmetry,
             "status": status,
             "transmission": {p: planes[p]["fraction"] for p in self.planes},
             "planes": planes,
             "landing": landing,
+            "left": endings.left_summary(rec, self.bounds_m, self.symmetry, self.mirror),
+            "energy_reference": endings.energy_reference(self.starts, self.start_potential_V),
             "ledger_worst_eV": self.ledger.worst_eV,
             "ledger_worst_relative": self.ledger.worst_relative,
             "ledger_threshold": self.ledger.threshold,
             "ledger_suspects": self.ledger.suspects,
+            "warnings": warnings,
             "warning": "; ".join(warnings),
         } | self._time_terms()
 
@@ -380,7 +405,7 @@ def trace(field: PotentialMap | GroupedMaps, beam: Beam, planes: Sequence[Plane]
                    crossings_lost=int((info[:, motion.C_CROSSINGS] - n_cross).sum()), symmetry=grid.symmetry,
                    crossing_rules=rules,
                    work_eV=spent[:, 0] * sp.charge_C / constants.e if in_time else None,
-                   time_zero_s=float(time_zero_s))
+                   time_zero_s=float(time_zero_s), **run_context(field, starts))
 
 
 def incidence(rows, electrode, table, grid, mass):
@@ -430,6 +455,26 @@ def incidence(rows, electrode, table, grid, mass):
         normal_eV = np.where(ok, pn * pn / (np.hypot(size, mc) + np.hypot(pt, mc))
                              * constants.c / constants.e, np.nan)
     return angle, normal_eV
+
+
+def run_context(field, starts):
+    """What a :class:`BeamRun` knows of the map it was traced through: the domain's bounds, the
+    potential at each start point (at its start time when voltages change in time) and the
+    electrodes' voltages (keyword arguments of BeamRun).  With voltages in time there are no
+    fixed voltages, so no landing energy is implied (``electrode_voltages`` is empty)."""
+    g = field.grid
+    r = radius(starts, g.symmetry)
+    if isinstance(field, GroupedMaps):
+        potential = np.zeros(len(starts))
+        for t in np.unique(starts["time_s"]):
+            at = starts["time_s"] == t
+            potential[at] = field.at(float(t)).potential(starts["z_m"][at], r[at])
+        voltages = {} if field.in_time else dict(zip(field.names, field.voltages(0.0)))
+    else:
+        potential = field.potential(starts["z_m"], r)
+        voltages = dict(zip(field.names, map(float, field.voltages)))
+    return {"bounds_m": (g.z0, g.z1, g.r0, g.r1), "mirror": bool(g.mirror),
+            "start_potential_V": np.asarray(potential, dtype=np.float64), "electrode_voltages": voltages}
 
 
 def _fill_state(rec, rows):

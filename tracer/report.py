@@ -84,37 +84,88 @@ def _plane(name, figures):
     return f"{name} ({figures['counted']})" if "counted" in figures else name
 
 
+def _transverse(summary):
+    """The plane figures that matter in the summary's symmetry: (label, field, factor) triples.
+
+    Axial: the spot about the centroid, the x-x' slopes and emittance (x and y alike by symmetry);
+    planar: the y quantities (nothing varies along x)."""
+    if summary.get("symmetry") == "planar":
+        return [("y0 mm", "centroid_y_m", 1e3), ("rms y mm", "rms_y_m", 1e3),
+                ("rms y' mrad", "rms_divergence_y_rad", 1e3),
+                ("rms emit y mm mrad", "emittance_y_m_rad", 1e6),
+                ("norm rms emit y mm mrad", "norm_emittance_y_m_rad", 1e6)]
+    return [("x0 mm", "centroid_x_m", 1e3), ("y0 mm", "centroid_y_m", 1e3), ("rms r mm", "rms_radius_m", 1e3),
+            ("rms x' mrad", "rms_divergence_x_rad", 1e3), ("rms emit x mm mrad", "emittance_x_m_rad", 1e6),
+            ("norm rms emit x mm mrad", "norm_emittance_x_m_rad", 1e6)]
+
+
+def _energy_reference(s):
+    """The line that says where ``energy_eV`` is measured from ("" for summaries stored before)."""
+    ref = s.get("energy_reference") or {}
+    if not ref:
+        return ""
+    spread = ref["start_potential_max_V"] - ref["start_potential_min_V"]
+    at = f"{ref['start_potential_V']:.6g} V" + (f" (from {ref['start_potential_min_V']:.6g} to "
+                                               f"{ref['start_potential_max_V']:.6g} V)" if spread > 0 else "")
+    return (f"energy reference: the start energy ({ref['start_energy_eV']:.6g} eV mean) is the kinetic "
+            f"energy at the start point, where the potential is {at}; a ray arriving at a surface at "
+            "V lands with E0 + q (V0 - V) (column 'E expect eV')")
+
+
+def _left(s):
+    """The table of where rays left the domain ("" when none did)."""
+    left = s.get("left") or {}
+    if not left:
+        return ""
+    side = "y" if s.get("symmetry") == "planar" else "r"
+    rows = [[edge, d["count"], d["fraction"], _mm(d["z_min_m"]), _mm(d["z_max_m"]),
+             _mm(d["transverse_min_m"]), _mm(d["transverse_max_m"]), d["energy_mean_eV"],
+             d["energy_min_eV"], d["energy_max_eV"]] for edge, d in left.items()]
+    return format_table(["edge", "rays", "fraction", "z min mm", "z max mm", f"{side} min mm",
+                         f"{side} max mm", "E mean eV", "E min eV", "E max eV"], rows,
+                        title="left the domain")
+
+
 def format_summary(summary: dict) -> str:
     """The summary of one beam (``BeamRun.summary()``) as readable tables.
+
+    A WARNING line stands first for every way rays ended other than landing or a stopping plane
+    (:mod:`tracer.endings`), then the tables: landings with the energy the start implies, planes in
+    the quantities of the symmetry (r and x-x' in axial, y and y-y' in planar), where rays left.
 
     Returns
     -------
     str
     """
     s = summary
-    head = f"beam {s['beam']}: {s['rays']} rays of {s['species']}"
+    head = f"beam {s['beam']}: {s['rays']} rays of {s.get('species_note', s['species'])}"
     if math.isfinite(s.get("current_A", math.nan)):
         head += f", {s['current_A']:.4g} A"
-    parts = [head]
+    warnings = s.get("warnings", [s["warning"]] if s["warning"] else [])
+    parts = ["\n".join([head] + [f"WARNING: {w}" for w in warnings])]
     status = ", ".join(f"{k} {v}" for k, v in s["status"].items() if v)
     parts.append(f"rays ended: {status or 'none'}")
+    parts += [t for t in (_energy_reference(s),) if t]
+    side = "y" if s.get("symmetry") == "planar" else "r"
     if s["landing"]:
         rows = [[name, d["count"], d["fraction"], d["current_A"], d["energy_mean_eV"],
-                 d["energy_std_eV"], d["energy_min_eV"], d["energy_max_eV"],
-                 _mm(d["radius_min_m"]), _mm(d["radius_max_m"])] for name, d in s["landing"].items()]
+                 d.get("energy_expected_eV", math.nan), d["energy_std_eV"], d["energy_min_eV"],
+                 d["energy_max_eV"], _mm(d["radius_min_m"]), _mm(d["radius_max_m"])]
+                for name, d in s["landing"].items()]
         parts.append(format_table(
-            ["electrode", "rays", "fraction", "current A", "E mean eV", "E std eV", "E min eV",
-             "E max eV", "r min mm", "r max mm"], rows, title="landed on electrodes"))
+            ["electrode", "rays", "fraction", "current A", "E mean eV", "E expect eV", "E std eV",
+             "E min eV", "E max eV", f"{side} min mm", f"{side} max mm"], rows, title="landed on electrodes"))
+    parts += [t for t in (_left(s),) if t]
     if s["planes"]:
-        rows = [[_plane(name, d), d["fraction"], d["current_A"], _mm(d["centroid_x_m"]), _mm(d["centroid_y_m"]),
-                 _mm(d["rms_radius_m"]), d["rms_divergence_x_rad"] * 1e3,
-                 d["emittance_x_m_rad"] * 1e6, d["norm_emittance_x_m_rad"] * 1e6,
-                 d["energy_mean_eV"], d["energy_std_eV"], d["time_mean_s"] * 1e9,
-                 d["time_std_s"] * 1e9] for name, d in s["planes"].items()]
+        cols = _transverse(s)
+        rows = [[_plane(name, d), d["fraction"], d["current_A"]]
+                + [d[key] * factor for _, key, factor in cols]
+                + [d["energy_mean_eV"], d["energy_std_eV"], d["time_mean_s"] * 1e9, d["time_std_s"] * 1e9]
+                for name, d in s["planes"].items()]
         parts.append(format_table(
-            ["plane", "fraction", "current A", "x0 mm", "y0 mm", "rms r mm", "rms x' mrad", "emit x mm mrad",
-             "norm emit", "E mean eV", "E std eV", "tof ns", "tof std ns"], rows,
-            title="crossed planes"))
+            ["plane", "fraction", "current A"] + [label for label, _, _ in cols]
+            + ["E mean eV", "E std eV", "tof ns", "tof std ns"], rows,
+            title="crossed planes (emittances rms, pi not in the unit)"))
         timed = {name: d for name, d in s["planes"].items() if "resolving_power" in d}
         if timed:
             parts.append(format_table(
@@ -132,8 +183,6 @@ def format_summary(summary: dict) -> str:
         parts.append(f"energy ledger: worst |dKE - q dV| = {s['ledger_worst_eV']:.3g} eV "
                      f"({s['ledger_worst_relative']:.2g} of the energy scale); "
                      f"{s['ledger_suspects']} ray(s) above {s['ledger_threshold']:.0e}")
-    if s["warning"]:
-        parts.append(f"WARNING: {s['warning']}")
     if "uncertainty" in s:
         parts.append(format_error_bars(s))
     return "\n\n".join(parts)

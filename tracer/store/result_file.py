@@ -10,6 +10,7 @@ rebuilds the interpolant from it (equal to rounding).
 
 from __future__ import annotations
 
+import dataclasses
 import json
 import os
 from collections.abc import Mapping
@@ -20,7 +21,7 @@ import numpy as np
 from scipy import constants
 
 from tracer import ledger
-from tracer.beam import STATUS, BeamRun
+from tracer.beam import STATUS, BeamRun, run_context
 from tracer.display import Shown, rays_png, run_facts
 from tracer.fieldmap import PotentialMap, edge_reflection, hermite_data
 from tracer.geometry import Raster, ShapeTable
@@ -137,6 +138,8 @@ def write_result(path, field, runs, *, setup=None, summaries=None, author=None) 
         /tracer/result/energy_scale_eV/<k>   the k-th beam's per-ray energy scale of the ledger
         /tracer/result/work_eV/<k>           with voltages in time, the k-th beam's per-ray energy
                                              from them, q (∫∂V/∂t dt + jumps) (``BeamRun.work_eV``)
+        /tracer/result/start_potential_V/<k> the potential at each start point of the k-th beam
+                                             (its rays' energy reference)
         /tracer/result/uncertainty/<k>       the k-th beam's error bars, a row per figure, when
                                              its summary has them (:mod:`tracer.store.uncertainty_table`)
 
@@ -210,6 +213,7 @@ def write_result(path, field, runs, *, setup=None, summaries=None, author=None) 
             group.create_dataset(f"energy_scale_eV/{k}", data=np.asarray(run.energy_scale_eV, np.float64))
             if run.work_eV is not None:
                 group.create_dataset(f"work_eV/{k}", data=np.asarray(run.work_eV, np.float64))
+            group.create_dataset(f"start_potential_V/{k}", data=np.asarray(run.start_potential_V, np.float64))
             if "uncertainty" in summaries.get(run.name, {}):
                 write_uncertainty(group, k, summaries[run.name])
             beams.append({"name": run.name, "species": [run.species.name, run.species.mass_kg,
@@ -350,7 +354,13 @@ def read_result(path: str | os.PathLike) -> ResultFile:
                              tuple(voltages.tolist()), hermite)
         beams = {}
         for k, about in enumerate(json.loads(group.attrs["beams"])):
-            beams[about["name"]] = _read_beam(group, it[PARTICLES_PATH], k, about, grid.symmetry)
+            run = _read_beam(group, it[PARTICLES_PATH], k, about, grid.symmetry)
+            context = run_context(field, run.starts)
+            if f"start_potential_V/{k}" in group:    # as traced, not from the rebuilt interpolant
+                context["start_potential_V"] = read_array(group[f"start_potential_V/{k}"])
+            if run.work_eV is not None:                # voltages in time: no landing energy implied
+                context["electrode_voltages"] = {}
+            beams[about["name"]] = dataclasses.replace(run, **context)
         return ResultFile(path=Path(path), title=str(group.attrs["title"]), field=field, phi=phi,
                           e_z=e["z"], e_r=e["r" if grid.symmetry == "axial" else "y"], beams=beams,
                           summaries=json.loads(group.attrs["summaries"]),
