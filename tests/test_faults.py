@@ -54,7 +54,10 @@ def trap(tmp_path_factory):
 
 def test_rays_starting_inside_an_electrode_are_counted_not_fatal(trap):
     assert trap.code == 0
-    assert "beam buried: 3 rays of p+\n\nrays ended: inside 3\n" in trap.stdout
+    assert ("beam buried: 3 rays of p+: p⁺, 1.00727647 u (CODATA proton mass), charge +1 e\n"
+            "WARNING: 3 of 3 rays (100.0%) started inside an electrode and were not traced ('cap_in'): "
+            "move the beam's start (start_z_mm, start_r_mm, its radius) out of the metal\n\n"
+            "rays ended: inside 3\n") in trap.stdout
     assert trap.result.summaries["buried"]["status"]["inside"] == 3
     rec = trap.result.beams["buried"].records
     assert (rec["status"] == "inside").all() and (rec["electrode"] == "cap_in").all()

@@ -688,3 +688,22 @@ def test_weak_solenoid_against_busch_thin_lens(current):
     assert props.focus_image_z_m == pytest.approx(1.0 / inv_f, rel=length * inv_f)
     assert props.rotation_rad == pytest.approx(math.sqrt(e / (8 * m * v_star)) * np.trapezoid(b, z),
                                                rel=1e-6)
+
+
+def test_energy_reference_is_the_start_point_as_for_a_beam():
+    """``energy_eV`` is the kinetic energy at ``start_z_m`` on the axis, as a beam's is at its start
+    point: asking for E at z_s is asking for E + q (V(z_min) - V(z_s)) at the z_min end (energy
+    conservation, common practice), so every lens property agrees."""
+    m = tube_map(ACCEL)
+    zs = 0.3 * R
+    v_s, v_0 = float(ACCEL.axial(zs)), float(ACCEL.axial(-HALF))
+    at_start = paraxial(m, PROTON, 10000.0, start_z_m=zs)
+    at_end = paraxial(m, PROTON, 10000.0 + (v_s - v_0))     # proton: q = +1 e; 4.8 keV at z_min
+    assert at_end.energy_eV < 5000.0
+    assert at_start.start_z_m == zs and at_start.start_potential_V == pytest.approx(v_s, rel=1e-12)
+    assert at_end.start_z_m == -HALF and at_end.start_potential_V == pytest.approx(v_0, abs=1e-9)
+    assert at_start.exit_energy_eV == pytest.approx(at_end.exit_energy_eV, rel=1e-12)
+    assert at_start.f_image_m == pytest.approx(at_end.f_image_m, rel=1e-9)
+    assert at_start.cs_m == pytest.approx(at_end.cs_m, rel=1e-9)
+    with pytest.raises(OpticsError, match=r"start_z_m = .* lies outside the map"):
+        paraxial(m, PROTON, 1000.0, start_z_m=2 * HALF)

@@ -295,18 +295,17 @@ def cmd_tune(args, echo) -> int:
 
 
 def cmd_optics(args, echo) -> int:
-    from tracer.optics import OpticsError, paraxial
-    from tracer.pipeline import optics_error_bars, solve, with_grids
+    from tracer.optics import OpticsError
+    from tracer.pipeline import lens, optics_error_bars, solve, with_grids
     from tracer.plot import plot_optics
     from tracer.report import format_optics
 
     setup = with_grids(_load(args.config), args.grids)
     if setup.optics is None:
         raise InputError(f"{args.config}: no [optics] table (species, energy_eV, object_z_mm)")
-    spec = setup.optics
     maps = solve(setup, cache_dir=_cache_dir(args), progress=_progress(args, "solving"))
     try:
-        props = paraxial(maps.combine(), spec.species, spec.energy_eV, object_z_m=spec.object_z_m)
+        props = lens(setup, maps.combine())
     except OpticsError as exc:
         raise InputError(f"optics: {exc}") from exc
     echo(format_optics(props, optics_error_bars(setup, props, cache_dir=_cache_dir(args))))

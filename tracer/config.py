@@ -46,7 +46,7 @@ Keys (defaults in brackets; "r" stands for "y" in a domain with y_mm)::
     [gun]        cathode, emission "space_charge"|"thermionic", rays [200], temperature_K and
                  work_function_eV (thermionic), schottky [false], relaxation [0.3],
                  max_iterations [50], tolerance [1e-3], species ["e-"]
-    [optics]     species, energy_eV, object_z_mm [at infinity]
+    [optics]     species, energy_eV, object_z_mm [at infinity], start_z_mm [the first beam's start]
     [grid_error] grids 1|2|3 [2], third "coarse"|"fine" ["coarse"], safety [Roache's: 3, or 1.25
                  with an order confirmed], rays [256], warn_fraction [0.01], scan_rows [false]
 """
@@ -1004,8 +1004,10 @@ def _gun(value, path, names):
 
 
 def _optics(value, path):
-    t = _Table(value, path, ("species", "mass_u", "charge_e", "energy_eV", "object_z_mm"))
+    t = _Table(value, path, ("species", "mass_u", "charge_e", "energy_eV", "object_z_mm", "start_z_mm"))
     kind = _species_of(t)
     energy = t.get("energy_eV", _positive)
     z = t.get("object_z_mm", _number, default=None)
-    return OpticsSpec(kind, energy, None if z is None else z / _MM_PER_M)
+    start = t.get("start_z_mm", _number, default=None)
+    return OpticsSpec(kind, energy, None if z is None else z / _MM_PER_M,
+                      None if start is None else start / _MM_PER_M)

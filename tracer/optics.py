@@ -3,9 +3,12 @@
 Method
 ------
 *Accelerating potential.*  For a particle of charge q and mass m with kinetic
-energy T0 where the axial potential equals V(z_min), its value at the map's
-z_min end, the accelerating potential Phi(z) = T(z)/|q| =
-T0/|q| - sign(q) (V(z) - V(z_min)) is zero where the particle would be at rest.
+energy T0 at the start point z_s on the axis, where the potential is V(z_s), the
+accelerating potential Phi(z) = T(z)/|q| = T0/|q| - sign(q) (V(z) - V(z_s)) is
+zero where the particle would be at rest.  This is the energy reference of a
+traced beam, whose ``energy_eV`` is the kinetic energy at its start point
+(:func:`tracer.beam.trace`); z_s is the beam's ``start_z_m`` when one is given,
+else the map's z_min end.
 With eps = |q|/(2 m c^2) the relativistically corrected potential is
 Phi* = Phi (1 + eps Phi), and gamma = 1 + 2 eps Phi.
 
@@ -128,8 +131,9 @@ class LensProperties(Shown):
 
     ``mirror`` is True when the particle turns back on the axis (at
     ``turning_z_m``); the lens quantities and rays are then NaN.  ``energy_eV`` is
-    the entrance energy asked for, ``exit_energy_eV`` the kinetic energy at the end
-    of the axis used.
+    the kinetic energy asked for at ``start_z_m`` on the axis, where the potential
+    is ``start_potential_V`` (the energy reference of a traced beam);
+    ``exit_energy_eV`` the kinetic energy at the end of the axis used.
 
     For plots: ``z_m`` (the axis nodes used), ``axial`` (rows V, V', V'', V''',
     V'''' of the fitted axial potential at ``z_m``, in V/m^k), ``ray_g`` (the ray
@@ -162,6 +166,8 @@ class LensProperties(Shown):
     ray_gbar: np.ndarray
     ray_h: np.ndarray
     rotation_rad: float = 0.0
+    start_z_m: float = math.nan
+    start_potential_V: float = math.nan
 
     def _facts(self):
         if self.mirror:
@@ -186,7 +192,7 @@ class _Kinetics:
 
     axial: AxialPotential
     phi0: float     # accelerating potential where the axial potential is v0 (V)
-    v0: float       # the map's potential on the axis at its z_min end (V)
+    v0: float       # the map's potential on the axis at the start point (V)
     sign: float     # sign of the charge
     eps: float      # |q| / (2 m c^2) (1/V)
     q_over_m: float = 0.0       # |q| / m (C/kg)
@@ -366,7 +372,8 @@ def _turning_point(kin: _Kinetics, z: np.ndarray):
 
 def paraxial(field: PotentialMap, species: str | Species, energy_eV: float,
              object_z_m: float | None = None, *, z_range_m: tuple[float, float] | None = None,
-             knot_cells: int = 3, magnetic: AxialField | None = None) -> LensProperties:
+             knot_cells: int = 3, magnetic: AxialField | None = None,
+             start_z_m: float | None = None) -> LensProperties:
     """Paraxial lens properties and aberration coefficients from a potential map.
 
     Parameters
@@ -378,8 +385,10 @@ def paraxial(field: PotentialMap, species: str | Species, energy_eV: float,
         A species name (see :func:`tracer.species.species`) or an object with
         ``name``, ``mass_kg`` and ``charge_C``.
     energy_eV : float
-        Kinetic energy (> 0) where the axial potential equals its value at the map's
-        z_min end.
+        Kinetic energy (> 0) at ``start_z_m`` on the axis: the same reference as a
+        traced beam's ``energy_eV``, the kinetic energy at its start point
+        (:func:`tracer.beam.trace`), so a beam and its paraxial lens agree when
+        ``start_z_m`` is the beam's.  The result shows the potential there.
     object_z_m : float, optional
         An axial object position before the end of the axis used (before its start
         means in field-free space in front of it).  Gives ``image_z_m``,
@@ -396,6 +405,9 @@ def paraxial(field: PotentialMap, species: str | Species, energy_eV: float,
         z), such as a :class:`tracer.magnetics.profile.AxialProfile` or a
         :class:`tracer.magnetics.units.MagneticMap`.  Adds its focusing and the image
         rotation; Cs and Cc are then NaN (not computed for magnetic lenses).
+    start_z_m : float, optional
+        Where on the axis the particle has ``energy_eV`` (a beam's ``start_z_m``);
+        default the map's z_min end.
 
     Returns
     -------
@@ -424,7 +436,10 @@ def paraxial(field: PotentialMap, species: str | Species, energy_eV: float,
     if object_z_m is not None and not object_z_m < z1:
         raise OpticsError(f"object_z_m = {object_z_m} must lie before the end of the axis used, "
                           f"z = {z1}")
-    v_ref = float(field.potential(np.array([grid.z0]), np.zeros(1))[0])
+    start = grid.z0 if start_z_m is None else float(start_z_m)
+    if not grid.z0 <= start <= grid.z1:
+        raise OpticsError(f"start_z_m = {start} lies outside the map, z = {grid.z0}..{grid.z1}")
+    v_ref = float(field.potential(np.array([start]), np.zeros(1))[0])
     q = abs(sp.charge_C)
     kin = _Kinetics(axial=ax, phi0=energy_eV * constants.e / q, v0=v_ref,
                     sign=math.copysign(1.0, sp.charge_C),
@@ -435,7 +450,7 @@ def paraxial(field: PotentialMap, species: str | Species, energy_eV: float,
     common = dict(object_z_m=nan if object_z_m is None else float(object_z_m),
                   species=sp.name, energy_eV=float(energy_eV),
                   exit_energy_eV=float(energy_eV - sp.charge_C / constants.e * (ax(z1) - kin.v0)),
-                  z_m=z, axial=ax.derivatives(z))
+                  z_m=z, axial=ax.derivatives(z), start_z_m=start, start_potential_V=v_ref)
     turn = _turning_point(kin, z)
     if not math.isnan(turn):
         return LensProperties(nan, nan, nan, nan, nan, nan, nan, nan, image_z_m=nan,

@@ -215,6 +215,25 @@ def run(setup: Setup, *, maps: BasisMaps | None = None, voltages: Mapping[str, f
     return RunResult(setup, maps, field, beams, errors, traced if setup.in_time else None)
 
 
+def lens(setup, field):
+    """The paraxial properties ``[optics]`` asks for, in ``field``.
+
+    The energy reference is the one of the beams: ``energy_eV`` is the kinetic energy at
+    ``[optics] start_z_mm`` on the axis, by default the first beam's start (the z_min end of the
+    map when there is no beam); see :func:`tracer.optics.paraxial`.
+
+    Raises
+    ------
+    tracer.optics.OpticsError
+    """
+    from tracer.optics import paraxial
+
+    spec = setup.optics
+    start = spec.start_z_m if spec.start_z_m is not None else (
+        setup.beams[0].start_z_m if setup.beams else None)
+    return paraxial(field, spec.species, spec.energy_eV, object_z_m=spec.object_z_m, start_z_m=start)
+
+
 def optics_error_bars(setup, props, *, cache_dir=None):
     """The grid errors of lens properties: the same paraxial computation on the maps of the other
     grids of ``setup.grid_error`` (:func:`tracer.errorbars.optics_bars`).
@@ -234,7 +253,7 @@ def optics_error_bars(setup, props, *, cache_dir=None):
         None with ``grids = 1`` or for a mirror.
     """
     from tracer import errorbars
-    from tracer.optics import OpticsError, paraxial
+    from tracer.optics import OpticsError
 
     factors = errorbars.cells(setup)
     if not factors or props.mirror:
@@ -243,7 +262,7 @@ def optics_error_bars(setup, props, *, cache_dir=None):
     for factor in factors:
         field = solve(errorbars.with_cell(setup, factor), cache_dir=cache_dir).combine()
         try:
-            others.append(paraxial(field, spec.species, spec.energy_eV, object_z_m=spec.object_z_m))
+            others.append(lens(setup, field))
         except OpticsError:
             others.append(None)
     spec, h = setup.grid_error, setup.domain.cell_m

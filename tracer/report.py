@@ -254,6 +254,10 @@ def format_optics(props, bars=None) -> str:
     """
     errors = bars.errors if bars is not None else {}
     head = f"{props.species} entering at {props.energy_eV:g} eV, leaving at {props.exit_energy_eV:.6g} eV"
+    if math.isfinite(getattr(props, "start_potential_V", math.nan)):
+        head += (f"\nenergy reference: {props.energy_eV:g} eV is the kinetic energy at z = "
+                 f"{props.start_z_m * 1e3:.6g} mm on the axis, where the potential is "
+                 f"{props.start_potential_V:.6g} V (as a beam's energy_eV at its start point)")
     if props.mirror:
         return f"{head}\nthe particle turns back at z = {props.turning_z_m * 1e3:.6g} mm: a mirror"
     rows = [["focal length, image side", props.f_image_m], ["focal length, object side", props.f_object_m],

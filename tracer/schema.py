@@ -380,14 +380,19 @@ class OpticsSpec:
     species : Species
         The particles.
     energy_eV : float
-        Kinetic energy at the z_min end of the map (on the axis), eV (> 0).
+        Kinetic energy at ``start_z_m`` on the axis, eV (> 0).
     object_z_m : float or None
         Object position, metres; None for an object at infinity.
+    start_z_m : float or None
+        Where on the axis the particle has ``energy_eV``, metres (a beam's energy reference is
+        its start point); None: the first beam's ``start_z_m``, or the z_min end of the map
+        when there is no beam.
     """
 
     species: Species
     energy_eV: float
     object_z_m: float | None = None
+    start_z_m: float | None = None
 
 
 GRIDS = (1, 2, 3)
