@@ -123,7 +123,8 @@ def test_runs_are_bit_identical_on_repeat_and_with_one_or_two_threads(trap, tmp_
 
 
 def test_a_stale_cache_file_is_recomputed(trap, monkeypatch):
-    """A cache file whose stored geometry hash no longer matches is not used but solved again."""
+    """A cache file whose stored geometry hash no longer matches is not used but solved again,
+    with a warning."""
     import tracer.solver
 
     path = cache.cache_file(trap.cache, trap.setup, rtol=DEFAULT_RTOL)
@@ -131,11 +132,13 @@ def test_a_stale_cache_file_is_recomputed(trap, monkeypatch):
     assert cache.load_cached(trap.setup, trap.cache, rtol=DEFAULT_RTOL) is not None
     with h5py.File(path, "r+") as f:
         f["/tracer/maps"].attrs["geometry_hash"] = "0" * 64
-    assert cache.load_cached(trap.setup, trap.cache, rtol=DEFAULT_RTOL) is None
+    with pytest.warns(cache.CacheWarning, match="checksum"):
+        assert cache.load_cached(trap.setup, trap.cache, rtol=DEFAULT_RTOL) is None
     solves = []
     solve = tracer.solver.solve_unit_maps
     monkeypatch.setattr(tracer.solver, "solve_unit_maps", lambda *a, **k: solves.append(a) or solve(*a, **k))
-    maps = cache.cached_solve(trap.setup, trap.cache, rtol=DEFAULT_RTOL)
+    with pytest.warns(cache.CacheWarning):
+        maps = cache.cached_solve(trap.setup, trap.cache, rtol=DEFAULT_RTOL)
     assert len(solves) == 1
     assert maps.geometry_hash == trap.setup.geometry_hash()
     assert maps.unit.tobytes() == good.unit.tobytes()

@@ -2,6 +2,7 @@
 
 import subprocess
 import sys
+import warnings
 
 import h5py
 import numpy as np
@@ -14,6 +15,7 @@ from tracer.fieldmap import BasisMaps
 from tracer.geometry import rasterize, shape_table
 from tracer.grid import Grid
 from tracer.store import StoreError
+from tracer.store import maps_file
 from tracer.store.maps_file import read_maps, read_tags, write_maps
 from tracer.store.openpmd import openpmd_file
 
@@ -196,7 +198,8 @@ def test_corrupt_or_stale_cache_files_are_recomputed(tmp_path, counted_solves):
     good = cache.cached_solve(setup, tmp_path)
     path = cache.cache_file(tmp_path, setup)
     path.write_bytes(path.read_bytes()[:5000])  # a truncated file
-    again = cache.cached_solve(setup, tmp_path)
+    with pytest.warns(cache.CacheWarning, match="unreadable maps file"):
+        again = cache.cached_solve(setup, tmp_path)
     assert len(counted_solves) == 2
     assert_same_maps(good, again)
     assert read_tags(path)["cache_key"] == cache.cache_key(setup)
@@ -204,6 +207,63 @@ def test_corrupt_or_stale_cache_files_are_recomputed(tmp_path, counted_solves):
     other = plate_setup(plate_end=18.0)
     write_maps(path, cache.cached_solve(other, tmp_path), tags={"cache_key": cache.cache_key(other)})
     assert len(counted_solves) == 3
-    assert cache.load_cached(setup, tmp_path) is None
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")   # another key is a plain miss, no warning
+        assert cache.load_cached(setup, tmp_path) is None
     assert_same_maps(good, cache.cached_solve(setup, tmp_path))
     assert len(counted_solves) == 4
+
+
+def flip_bytes(path, dataset, count=8):
+    """Change ``count`` bytes in the middle of an HDF5 dataset's stored data, in place."""
+    with h5py.File(path, "r") as f:
+        node = f[dataset]
+        offset, size = node.id.get_offset(), node.id.get_storage_size()
+    assert offset is not None, "a contiguous dataset has a file offset"
+    with open(path, "r+b") as fh:
+        fh.seek(offset + size // 2)
+        data = bytearray(fh.read(count))
+        fh.seek(offset + size // 2)
+        fh.write(bytes(b ^ 0x5A for b in data))
+
+
+def test_a_map_changed_in_the_cache_is_refused_and_solved_again(tmp_path, counted_solves):
+    """Eight bytes changed inside a cached basis map: the checksum finds it, a warning says so, the
+    maps are solved again and the result is the true map (issue 17)."""
+    setup = plate_setup()
+    good = cache.cached_solve(setup, tmp_path)
+    path = cache.cache_file(tmp_path, setup)
+    with h5py.File(path, "r") as f:
+        record = next(name for name in f["data/0/meshes"])
+    flip_bytes(path, f"data/0/meshes/{record}")
+    with pytest.raises(maps_file.ChecksumError, match="do not match their checksum"):
+        read_maps(path)
+    with pytest.warns(cache.CacheWarning, match="WARNING: cached maps not used.*checksum"):
+        again = cache.cached_solve(setup, tmp_path)
+    assert len(counted_solves) == 2
+    assert_same_maps(good, again)
+    assert_same_maps(good, read_maps(path))   # and the cache file is whole again
+
+
+@pytest.mark.parametrize("edit", ["scaled", "beyond-one"])
+def test_maps_that_cannot_be_laplace_solutions_are_refused(tmp_path, counted_solves, edit):
+    """A map rewritten with a fresh checksum still has to be 1 V on its electrode and within
+    [0, 1] (maximum principle): a map scaled by 0.9 is refused."""
+    setup = plate_setup()
+    good = cache.cached_solve(setup, tmp_path)
+    path = cache.cache_file(tmp_path, setup)
+    if edit == "scaled":
+        bad = BasisMaps.build(good.grid, good.table, good.raster, good.names, good.voltages,
+                              good.unit * 0.9, good.history, good.geometry_hash)
+        match = "not 1 V on its electrode"
+    else:
+        unit = good.unit.copy()
+        unit[0][good.raster.owner < 0] += 2.0
+        bad = BasisMaps.build(good.grid, good.table, good.raster, good.names, good.voltages,
+                              unit, good.history, good.geometry_hash)
+        match = "maximum principle"
+    write_maps(path, bad, tags={"cache_key": cache.cache_key(setup)})
+    with pytest.warns(cache.CacheWarning, match=match):
+        again = cache.cached_solve(setup, tmp_path)
+    assert len(counted_solves) == 2
+    assert_same_maps(good, again)

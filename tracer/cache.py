@@ -1,9 +1,14 @@
 """A disk cache of basis maps, keyed by the geometry and the solver settings (not the voltages).
 
 A cache file is a maps file (``tracer.store.maps_file``) named after the cache key, with the key stored
-inside it.  A file whose stored key or geometry hash does not match, or that cannot be read, is
+inside it.  A file of another key (another geometry or solver setting under the same name) is
 treated as missing: the maps are solved again and the file is replaced (atomically).  The key
 includes the tracer version, so a new version never reads maps made by an older solver.
+
+Nothing in the cache is trusted.  A file of this key that cannot be read, whose data do not match
+the checksum stored with them, whose geometry hash is not the setup's, or whose maps break the
+maximum principle (:func:`implausible`) is not used: a :class:`CacheWarning` says so and the maps
+are solved again, so such a map never reaches a result.
 """
 
 from __future__ import annotations
@@ -11,7 +16,10 @@ from __future__ import annotations
 import dataclasses
 import hashlib
 import json
+import warnings
 from pathlib import Path
+
+import numpy as np
 
 from tracer import __version__
 from tracer.fieldmap import solve_basis
@@ -19,6 +27,34 @@ from tracer.store import StoreError
 from tracer.store.maps_file import read_maps, read_tags, write_maps
 
 CACHE_FORMAT = "tracer-cache-1"
+# Basis values may stray from [0, 1] by the solver's residual; far less than any edit that matters.
+PLAUSIBLE_SLACK = 1e-6
+
+
+class CacheWarning(RuntimeWarning):
+    """A cache file of this setup was damaged or edited; its maps are solved again."""
+
+
+def implausible(maps) -> str:
+    """Why basis maps cannot be Laplace solutions of their geometry, or "" when they can.
+
+    A basis map is 1 on its own electrode, 0 on every other one and, by the maximum principle of
+    harmonic functions (common practice; any electrostatics text, e.g. Jackson), between 0 and 1
+    everywhere (open edges, with zero normal field, keep it so).
+    """
+    owner = maps.raster.owner
+    for k, name in enumerate(maps.names):
+        unit = maps.unit[k]
+        on = unit[owner == k]
+        off = unit[(owner >= 0) & (owner != k)]
+        if on.size and not np.all(on == 1.0):
+            return f"basis map {name!r} is not 1 V on its electrode"
+        if off.size and not np.all(off == 0.0):
+            return f"basis map {name!r} is not 0 V on the other electrodes"
+        if not (np.all(np.isfinite(unit)) and unit.min() >= -PLAUSIBLE_SLACK
+                and unit.max() <= 1.0 + PLAUSIBLE_SLACK):
+            return f"basis map {name!r} leaves [0, 1] (breaks the maximum principle)"
+    return ""
 
 
 def cache_key(setup, *, rtol: float = 1e-10) -> str:
@@ -52,17 +88,27 @@ def load_cached(setup, cache_dir, *, rtol: float = 1e-10):
     -------
     tracer.fieldmap.BasisMaps or None
         With the setup's voltages as the defaults for ``combine``.
+
+    Warns
+    -----
+    CacheWarning
+        When the file of this key is unreadable, does not match its checksum, holds another
+        geometry or implausible maps (None is returned: the maps are to be solved again).
     """
     path = cache_file(cache_dir, setup, rtol=rtol)
-    if not path.is_file():
+    if not path.exists():
         return None
     try:
         if read_tags(path).get("cache_key") != cache_key(setup, rtol=rtol):
             return None
         maps = read_maps(path)
-    except StoreError:
-        return None
-    if maps.geometry_hash != setup.geometry_hash():
+        if maps.geometry_hash != setup.geometry_hash():
+            raise StoreError(f"{path}: the maps are of another geometry than their key says")
+        why = implausible(maps)
+        if why:
+            raise StoreError(f"{path}: {why}")
+    except StoreError as err:
+        warnings.warn(f"WARNING: cached maps not used, solving again: {err}", CacheWarning, stacklevel=2)
         return None
     return _with_setup_voltages(maps, setup)
 

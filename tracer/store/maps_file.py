@@ -6,13 +6,20 @@ Layout::
                                        volts at the node per volt on the electrode)
     /tracer/maps                       everything else needed to rebuild the BasisMaps, outside the
                                        openPMD base path: grid, shape table, raster, electrode
-                                       names and voltages, residual histories, geometry hash, tags
+                                       names and voltages, residual histories, geometry hash, tags,
+                                       and the sha256 checksum of all of it (``checksum``)
 
 The Hermite data are not stored: ``read_maps`` rebuilds them from the node values, bit for bit.
+``read_maps`` computes the checksum of what it read and refuses a file whose data do not match
+the one stored (:class:`ChecksumError`): a flipped bit or an edited map never reaches a result.
+The checksum finds damage and edits that leave it standing; it is not a signature (whoever
+rewrites the data can rewrite it too).
 """
 
 from __future__ import annotations
 
+import dataclasses
+import hashlib
 import json
 from pathlib import Path
 
@@ -21,11 +28,39 @@ import numpy as np
 from tracer.fieldmap import BasisMaps
 from tracer.geometry import Raster, ShapeTable
 from tracer.grid import Grid
-from tracer.store import openpmd
-from tracer.store.hdf5 import read_array, read_fields, tracer_group, write_fields
+from tracer.store import StoreError, openpmd
+from tracer.store.hdf5 import plain, read_array, read_fields, tracer_group, write_fields
 
 MAPS_GROUP = "tracer/maps"
-MAPS_FORMAT = "tracer-maps-1"
+MAPS_FORMAT = "tracer-maps-2"
+
+
+class ChecksumError(StoreError):
+    """A maps file whose data do not match the checksum stored with them."""
+
+
+def _digest_array(h, label, value):
+    value = np.ascontiguousarray(value)
+    h.update(f"{label}:{value.dtype.str}:{value.shape};".encode())
+    h.update(value.tobytes())
+
+
+def maps_checksum(grid, table, raster, names, voltages, unit, history, geometry_hash) -> str:
+    """sha256 hex digest of everything a maps file stores for BasisMaps (the arguments of
+    ``BasisMaps.build``): every array's dtype, shape and bytes, every other value as JSON."""
+    h = hashlib.sha256(MAPS_FORMAT.encode())
+    for label, obj in (("grid", grid), ("table", table), ("raster", raster)):
+        for field in dataclasses.fields(obj):
+            value = getattr(obj, field.name)
+            if isinstance(value, np.ndarray):
+                _digest_array(h, f"{label}.{field.name}", value)
+            else:
+                h.update(json.dumps([label, field.name, value], default=plain).encode())
+    h.update(json.dumps([list(names), [float(v) for v in voltages], geometry_hash]).encode())
+    _digest_array(h, "unit", np.asarray(unit, dtype=np.float64))
+    for k, item in enumerate(history):
+        _digest_array(h, f"history.{k}", np.asarray(item))
+    return h.hexdigest()
 
 
 def write_maps(path, maps, *, tags=None, author=None) -> Path:
@@ -57,6 +92,8 @@ def write_maps(path, maps, *, tags=None, author=None) -> Path:
         group.attrs["voltages"] = np.asarray(maps.voltages, dtype=np.float64)
         group.attrs["geometry_hash"] = maps.geometry_hash
         group.attrs["tags"] = json.dumps(dict(tags or {}))
+        group.attrs["checksum"] = maps_checksum(maps.grid, maps.table, maps.raster, maps.names,
+                                                maps.voltages, maps.unit, maps.history, maps.geometry_hash)
         for key, obj in (("grid", maps.grid), ("table", maps.table), ("raster", maps.raster)):
             write_fields(group.create_group(key), obj)
         history = group.create_group("history")
@@ -86,6 +123,8 @@ def read_maps(path):
 
     Raises
     ------
+    ChecksumError
+        When the data read do not match the checksum stored with them.
     StoreError
         When the file is missing, corrupt or not a maps file.
     """
@@ -99,4 +138,9 @@ def read_maps(path):
         history = tuple(read_array(group["history"][str(k)]) for k in range(len(group["history"])))
         voltages = tuple(group.attrs["voltages"].tolist())
         geometry_hash = str(group.attrs["geometry_hash"])
+        stored = group.attrs.get("checksum")
+    found = maps_checksum(grid, table, raster, names, voltages, unit, history, geometry_hash)
+    if stored != found:
+        raise ChecksumError(f"{path}: the maps do not match their checksum (stored {stored!r}, "
+                            f"data give {found[:16]}...): the file was damaged or edited")
     return BasisMaps.build(grid, table, raster, names, voltages, unit, history, geometry_hash)
