@@ -10,6 +10,7 @@ from tracer import warmup
 from tracer.cli import main
 
 ROOT = Path(__file__).resolve().parents[1]
+DEMO = ROOT / "configs" / "einzel_argon.toml"
 
 
 def test_warmup_command_leaves_nothing_pending(capsys):
@@ -30,21 +31,36 @@ def test_an_empty_numba_cache_is_pending(tmp_path):
     assert list(tmp_path.rglob("*.nb[ic]")) == []     # asking compiles nothing
 
 
-def test_the_command_line_says_a_compile_is_coming(monkeypatch, capsys, tmp_path):
-    monkeypatch.setattr(warmup, "_cached", lambda kernel: False)
-    missing = str(tmp_path / "missing.toml")
-    assert main(["run", missing]) == 2
-    err = capsys.readouterr().err
-    first, *rest = err.splitlines()
+def _terminal(monkeypatch, cached):
+    """stderr as a terminal, and numba's cache as full or empty."""
+    monkeypatch.setattr(sys.stderr, "isatty", lambda: True)
+    monkeypatch.setattr(warmup, "_cached", lambda kernel: cached)
+
+
+def test_the_command_line_says_a_compile_is_coming(monkeypatch, capsys):
+    """On a terminal, once the config is read and before any work (here --rays 0 stops it)."""
+    _terminal(monkeypatch, cached=False)
+    assert main(["run", str(DEMO), "--rays", "0"]) == 2
+    first, second = capsys.readouterr().err.splitlines()
     assert first.startswith("first run of this install: compiling") and warmup.FIRST_COMPILE in first
     assert "tracer warmup" in first
-    assert main(["run", missing, "--quiet"]) == 2
-    assert "first run" not in capsys.readouterr().err
-    assert main(["check", missing]) == 2           # check compiles no kernel
+    assert second.startswith("tracer: error: --rays")
+    assert main(["run", str(DEMO), "--rays", "0", "--quiet"]) == 2
     assert "first run" not in capsys.readouterr().err
 
 
-def test_no_notice_once_compiled(monkeypatch, capsys, tmp_path):
-    monkeypatch.setattr(warmup, "_cached", lambda kernel: True)
+def test_no_notice_before_a_refused_config_or_when_piped(monkeypatch, capsys, tmp_path):
+    _terminal(monkeypatch, cached=False)
     assert main(["run", str(tmp_path / "missing.toml")]) == 2
+    assert "first run" not in capsys.readouterr().err
+    assert main(["check", str(DEMO)]) == 0           # check compiles no ray kernel
+    assert "first run" not in capsys.readouterr().err
+    monkeypatch.setattr(sys.stderr, "isatty", lambda: False)
+    assert main(["run", str(DEMO), "--rays", "0"]) == 2
+    assert "first run" not in capsys.readouterr().err
+
+
+def test_no_notice_once_compiled(monkeypatch, capsys):
+    _terminal(monkeypatch, cached=True)
+    assert main(["run", str(DEMO), "--rays", "0"]) == 2
     assert "first run" not in capsys.readouterr().err

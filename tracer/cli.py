@@ -32,12 +32,30 @@ def _out_dir(args) -> Path:
     return Path(Path(args.config).stem + ".out")
 
 
-def _load(path: str):
+def _load(args):
+    """The setup of ``args.config``; on a terminal, the first-compile notice once it is read."""
     from tracer.config import load
 
+    path = args.config
     if not Path(path).is_file():
         raise InputError(f"{path}: no such config file")
-    return load(path)
+    setup = load(path)
+    _compile_notice(args)
+    return setup
+
+
+def _compile_notice(args) -> None:
+    """One line on a terminal when the kernels are still to compile (the first run of an install).
+
+    Printed after the config is read, so a refused config is never preceded by it, and only where
+    progress bars are drawn (not with --quiet, not when stderr is piped)."""
+    if args.command in NO_KERNELS or args.quiet or not sys.stderr.isatty():
+        return
+    from tracer.warmup import notice
+
+    line = notice()
+    if line:
+        print(line, file=sys.stderr, flush=True)
 
 
 def _progress(args, desc: str, unit: str = "map"):
@@ -81,7 +99,7 @@ def _volts(setup):
 def cmd_check(args, echo) -> int:
     from tracer.report import describe
 
-    setup = _load(args.config)
+    setup = _load(args)
     echo(describe(setup))
     _caution(_volts(setup), echo)
     return 0
@@ -90,7 +108,7 @@ def cmd_check(args, echo) -> int:
 def cmd_solve(args, echo) -> int:
     from tracer.pipeline import solve, write_solve_outputs
 
-    setup = _load(args.config)
+    setup = _load(args)
     out = _out_dir(args)
     maps = solve(setup, cache_dir=_cache_dir(args), progress=_progress(args, "solving"))
     files = write_solve_outputs(setup, maps, out)
@@ -135,7 +153,7 @@ def _run_config(setup, args, out: Path, echo) -> int:
 
 
 def cmd_run(args, echo) -> int:
-    setup = _load(args.config)
+    setup = _load(args)
     return _run_config(setup, args, _out_dir(args), echo)
 
 
@@ -147,6 +165,7 @@ def cmd_demo(args, echo) -> int:
     if out is None:
         raise InputError(f"--out {args.out}: folder exists and is not empty; name a fresh folder")
     setup = load(DEMO_CONFIG)
+    _compile_notice(args)
     echo(f"demo: {setup.title}")
     echo(f"config: {DEMO_CONFIG}")
     code = _run_config(setup, args, out, echo)
@@ -161,7 +180,7 @@ def cmd_gun(args, echo) -> int:
     from tracer.measure import plane_figures
     from tracer.plot import plot_field
 
-    setup = _load(args.config)
+    setup = _load(args)
     if setup.gun is None:
         raise InputError(f"{args.config}: no [gun] section")
     out = _out_dir(args)
@@ -236,7 +255,7 @@ def cmd_scan(args, echo) -> int:
     from tracer.scans import scan
     from tracer.schema import scan_column, scan_unit
 
-    setup = _load(args.config)
+    setup = _load(args)
     if setup.scan is None:
         raise InputError(f"{args.config}: no [scan] section")
     if args.workers is not None and args.workers < 1:
@@ -277,7 +296,7 @@ def cmd_tune(args, echo) -> int:
     from tracer.schema import scan_unit
     from tracer.tuning import tune
 
-    setup = _load(args.config)
+    setup = _load(args)
     if setup.tune is None:
         raise InputError(f"{args.config}: no [tune] section")
     out = _out_dir(args)
@@ -300,7 +319,7 @@ def cmd_optics(args, echo) -> int:
     from tracer.plot import plot_optics
     from tracer.report import format_optics
 
-    setup = with_grids(_load(args.config), args.grids)
+    setup = with_grids(_load(args), args.grids)
     if setup.optics is None:
         raise InputError(f"{args.config}: no [optics] table (species, energy_eV, object_z_mm)")
     maps = solve(setup, cache_dir=_cache_dir(args), progress=_progress(args, "solving"))
@@ -391,12 +410,6 @@ def main(argv: list[str] | None = None) -> int:
     func = COMMANDS[args.command][0]
     echo = print
     try:
-        if args.command not in NO_KERNELS and not args.quiet:
-            from tracer.warmup import notice
-
-            line = notice()
-            if line:
-                print(line, file=sys.stderr, flush=True)
         code = func(args, echo)
         sys.stdout.flush()  # a closed pipe shows here, not at the interpreter's exit
         return code

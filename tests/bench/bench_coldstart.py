@@ -49,8 +49,10 @@ def demo(numba_cache, work, label):
     args = [sys.executable, "-c", PROFILE, "demo", "--quiet", "--out", str(out),
             "--cache", str(Path(work) / f"maps-{label}")]
     t0 = time.perf_counter()
-    done = subprocess.run(args, env=env, capture_output=True, text=True, check=True)
+    done = subprocess.run(args, env=env, capture_output=True, text=True)
     wall = time.perf_counter() - t0
+    if done.returncode:
+        sys.exit(f"the {label} demo failed (exit {done.returncode}):\n{done.stderr}")
     import json
 
     line = [s for s in done.stdout.splitlines() if s.startswith("KERNELS ")][-1]
