@@ -1,6 +1,6 @@
 """Tests of the events at the edges of motion: landings (their angle of incidence and normal
 energy), rays that touch metal with almost no normal energy, rays that turn a hair beyond (or short
-of) a detector plane.
+of) a detector plane, and detector planes at an angle.
 
 The retarding field is the exact uniform field between two plates (``test_trace.linear_map``: a
 bicubic patch reproduces a linear potential, and the map continues it inside the plates, as a
@@ -166,3 +166,116 @@ def test_surface_normals_point_out_of_every_shape():
         assert surface_normal(z, r, k, True, *table.arrays()) == pytest.approx(want, abs=1e-12), (k, z, r)
     assert surface_normal(0.0151, 0.0, 0, False, *table.arrays()) == pytest.approx((0.0, -1.0))
 
+# A cylindrical sector analyser as a full annulus (no fringe fields): the potential of coaxial
+# cylinders, V = k ln(rho / a) (any electrostatics text, e.g. Jackson), written as the map's exact
+# node data about a centre off the node grid, in a planar domain over the full y range.
+A_M, B_M, R0_M = 30e-3, 50e-3, 40e-3
+CENTRE_Z = 55.25e-3
+
+
+def annulus(cell_m, k_volts):
+    """The coaxial-cylinder map (k ln(rho / a), rho about (CENTRE_Z, 0)) and its two cylinders."""
+    from tracer.fieldmap import PotentialMap
+    from tracer.geometry import rasterize, shape_table
+    from tracer.grid import Grid
+    from tracer.schema import Arc, Domain, Electrode
+    domain = Domain("planar", (0.0, 110e-3), (-55e-3, 55e-3), cell_m, ("ground",) * 4)
+    full = (-math.pi, math.pi)
+    electrodes = [Electrode("inner", 0.0, (Arc(CENTRE_Z, (0.0, A_M), full),)),
+                  Electrode("outer", k_volts * math.log(B_M / A_M), (Arc(CENTRE_Z, (B_M, 54e-3), full),))]
+    grid = Grid.from_domain(domain)
+    table = shape_table(electrodes, domain)
+    dz, y = np.meshgrid(grid.z - CENTRE_Z, grid.r, indexing="ij")
+    rho2 = dz * dz + y * y
+    herm = np.stack([0.5 * k_volts * np.log(rho2 / A_M**2), k_volts * dz / rho2, k_volts * y / rho2,
+                     -2.0 * k_volts * dz * y / rho2**2])
+    return PotentialMap(grid, table, rasterize(table, grid), ("inner", "outer"),
+                        (0.0, k_volts * math.log(B_M / A_M)), herm)
+
+
+def test_a_cylindrical_analyser_refocuses_at_pi_over_root_two_on_a_radial_plane():
+    """Protons on the central circle of a cylindrical analyser, fanned by +-2 mrad, refocus on the
+    radial detector plane pi / sqrt(2 - beta^2) round from the source (Hughes & Rojansky 1929);
+    there the fan's first-order spread vanishes and what is left is the second-order blur
+    -(4/3) r0 alpha^2 (the issue's figure, from the same theory), a small fraction of a cell.
+    Planes 0.02 rad either side bracket the focus; the figures of a tilted plane measure along it."""
+    from tracer.schema import Beam, Plane
+    from tracer.species import species
+    cell = 0.5e-3
+    sp = species("p+")
+    energy = 100.0
+    p = momentum(energy, sp.mass_kg)
+    gm = math.hypot(sp.mass_kg, p / C)
+    v = p / gm
+    field = annulus(cell, p * v / sp.charge_C)        # gamma m v^2 / r0 = q k / r0 on the circle
+    beta2 = (v / C) ** 2
+    focus = math.pi / math.sqrt(2.0 - beta2)
+    alphas = np.array([-2e-3, -1e-3, 0.0, 1e-3, 2e-3])
+    s = np.zeros(len(alphas), START_DTYPE)
+    s["ray"] = np.arange(len(alphas))
+    s["z_m"] = CENTRE_Z + R0_M                        # at polar angle 0, bending clockwise
+    s["pz"], s["py"] = p * np.sin(alphas), -p * np.cos(alphas)
+    s["energy_eV"] = energy
+    # the radial line at polar angle -phi: its direction is radial, its normal the motion
+    planes = [Plane(f"at{k}", CENTRE_Z, angle_rad=-(focus + d)) for k, d in enumerate((-0.02, 0.0, 0.02))]
+    run = trace(field, Beam("p", sp, None, None, count=None), planes=planes, starts=s,
+                max_time_s=2.0 * R0_M * focus / v)
+    assert set(run.records["status"]) == {"time"}
+    odd = []
+    for plane in planes:
+        rows = run.at_plane(plane.name)
+        rows = rows[rows["crossing"] == 0]
+        assert len(rows) == len(alphas) and (rows["pn"] > 0).all()
+        rho = np.hypot(rows["z_m"] - CENTRE_Z, rows["y_m"])
+        assert np.allclose(rows["v_m"], rho, rtol=0.0, atol=1e-12)       # along the line, from the centre
+        odd.append((rho[-1] - rho[0]) / (2 * alphas[-1]))               # d rho / d alpha
+    # the focus: where the first-order term changes sign (linear in the angle near it)
+    root = focus - 0.02 + 0.04 * odd[0] / (odd[0] - odd[2])
+    assert abs(root - focus) < 1e-5
+    rows = run.at_plane("at1")
+    rho = np.hypot(rows["z_m"] - CENTRE_Z, rows["y_m"])
+    assert abs(odd[1] * alphas[-1]) < 1e-3 * cell                       # first order: gone
+    blur = rho - rho[2]
+    assert np.allclose(blur, -(4.0 / 3.0) * R0_M * alphas**2, rtol=0.05, atol=1e-4 * cell)
+    figures = run.summary()["planes"]["at1"]
+    assert figures["fraction"] == 1.0
+    assert figures["centroid_y_m"] == pytest.approx(np.mean(rho), abs=1e-12)
+    assert figures["rms_y_m"] < 0.01 * cell
+
+
+def test_a_cone_plane_in_axial_symmetry_gives_local_coordinates(tmp_path):
+    """Straight rays along +z in a field-free tube cross the cone r = z - 10 mm (the plane's line
+    through (10 mm, 0) at 45 degrees) where their radius equals z - 10 mm; along the line that is
+    sqrt(2) r from its point, across it the arc r phi, and the momentum along the normal
+    (1, -1)/sqrt(2) is pz / sqrt(2) (analytic geometry).  The config reads the same plane, and a
+    result file keeps it tilted."""
+    from test_trace import free_map
+
+    from tracer.schema import Plane
+    from tracer.store.result_file import read_result, write_result
+    field, setup = free_map()
+    plane = Plane("cone", 10e-3, r_m=0.0, angle_rad=math.radians(45.0))
+    text = 'z_mm = 10.0\nr_mm = 0.0\nangle_deg = 45.0'
+    assert free_map(extra=f'[[plane]]\nname = "cone"\n{text}')[1].planes == (plane,)
+    sp = setup.beams[0].species
+    s = np.zeros(3, START_DTYPE)
+    s["ray"] = np.arange(3)
+    s["x_m"], s["y_m"] = [1e-3, 0.0, -1.5e-3], [0.0, 2e-3, 0.0]
+    s["z_m"], s["energy_eV"] = 1e-3, 100.0
+    s["pz"] = momentum(100.0, sp.mass_kg)
+    run = trace(field, setup.beams[0], planes=(plane,), starts=s)
+    rows = run.at_plane("cone")
+    r = np.array([1e-3, 2e-3, 1.5e-3])
+    assert np.allclose(rows["z_m"], 10e-3 + r, rtol=0.0, atol=1e-9 * setup.domain.cell_m)
+    assert np.allclose(rows["v_m"], math.sqrt(2.0) * r, rtol=1e-12)
+    assert np.allclose(rows["u_m"], r * np.array([0.0, math.pi / 2, math.pi]), rtol=1e-12)
+    assert np.allclose(rows["pn"], s["pz"] / math.sqrt(2.0), rtol=1e-12)
+    assert run.tilted_planes == ("cone",)
+    figures = run.summary()["planes"]["cone"]
+    assert figures["centroid_y_m"] == pytest.approx(math.sqrt(2.0) * r.mean(), rel=1e-12)
+    path = write_result(tmp_path / "result.h5", field, [run])
+    back = read_result(path).beams[run.name]
+    assert back.tilted_planes == ("cone",)
+    assert np.array_equal(back.at_plane("cone")["v_m"], rows["v_m"])
+    from tracer.plot import plot_phase_space
+    assert plot_phase_space(back, "cone", tmp_path / "phase.png", "axial").stat().st_size > 0

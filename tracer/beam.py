@@ -107,7 +107,9 @@ class BeamRun(Shown):
     crossings : numpy.ndarray
         Every plane crossing: the state fields plus ``plane`` (name) and ``crossing`` (0 for the
         ray's first crossing of that plane, 1 for the next, ...); ``ledger_eV`` is the ray's worst
-        residual up to the crossing.
+        residual up to the crossing; ``u_m``, ``v_m`` (transverse coordinates in the plane),
+        ``pu``, ``pv`` (the momentum along them) and ``pn`` (along the plane's normal), see
+        :func:`plane_coordinates`.
     paths : tuple of numpy.ndarray
         Path points of the first ``keep_paths`` rays, one array per ray with ``time_s``, ``x_m``,
         ``y_m``, ``z_m``, ``px``, ``py``, ``pz``, ``energy_eV`` and the signed per-step ledger
@@ -141,6 +143,9 @@ class BeamRun(Shown):
         unknown).
     electrode_voltages : dict of str to float
         The electrodes' voltages of the map traced, for the landing energies the start implies.
+    tilted_planes : tuple of str
+        The planes that are not z = const (their crossings' ``u_m``, ``v_m`` are the local
+        coordinates of :func:`plane_coordinates`, not x and y).
     """
 
     name: str
@@ -161,6 +166,7 @@ class BeamRun(Shown):
     electrode_voltages: dict = dataclass_field(default_factory=dict)
     work_eV: np.ndarray | None = dataclass_field(default=None, repr=False)
     time_zero_s: float = 0.0
+    tilted_planes: tuple = ()
 
     def _facts(self):
         status, counts = np.unique(self.records["status"], return_counts=True)
@@ -272,9 +278,9 @@ def trace(field: PotentialMap | GroupedMaps, beam: Beam, planes: Sequence[Plane]
         ``BeamRun.work_eV`` holds the energy each ray took from the changing voltages.
     beam : tracer.config.Beam
         The source (species, energies, positions, directions, count, seed).
-    planes : sequence of tracer.config.Plane
-        Detector planes z = const (``name``, ``z_m``, ``stop``); every crossing is recorded, and a
-        plane with ``stop`` true ends the ray there (status "plane").  Their ``direction`` and
+    planes : sequence of tracer.schema.Plane
+        Detector planes (z = const, or lines at an angle: :class:`tracer.schema.Plane`); every
+        crossing is recorded, and a plane with ``stop`` true ends the ray there (status "plane").  Their ``direction`` and
         ``crossing``, when given, say which crossings count for the figures (:mod:`tracer.measure`).
     rtol : float
         Relative tolerance of the Runge–Kutta steps; absolute tolerances are rtol × cell for
@@ -327,7 +333,7 @@ def trace(field: PotentialMap | GroupedMaps, beam: Beam, planes: Sequence[Plane]
     cell = min(grid.hz, grid.hr)
     planes = tuple(planes)
     rules = tuple(measure.CrossingRule.of(p) for p in planes)   # a bad rule is refused before any work
-    plane_lines = np.array([(1.0, 0.0, p.z_m) for p in planes], dtype=np.float64).reshape(-1, 3)
+    plane_lines = np.array([p.line() for p in planes], dtype=np.float64).reshape(-1, 3)
     plane_stop = np.array([bool(getattr(p, "stop", False)) for p in planes], dtype=np.bool_)
     keep = min(int(keep_paths), n)
     paths_buf = np.zeros((keep, max(3, int(max_path_points)), motion.ROW_LEN))
@@ -390,12 +396,17 @@ def trace(field: PotentialMap | GroupedMaps, beam: Beam, planes: Sequence[Plane]
     plane_idx = cross_plane[ray_idx, slot]
     crossings = np.zeros(len(ray_idx), dtype=state_dtype(
         field.names, [("plane", f"U{max([1] + [len(p.name) for p in planes])}"),
-                      ("crossing", np.int64)]))
+                      ("crossing", np.int64)] + [(k, np.float64) for k in LOCAL_FIELDS]))
     crossings["ray"] = ray_idx
     crossings["status"] = "plane"
     _fill_state(crossings, cross_state[ray_idx, slot])
     crossings["plane"] = np.array([p.name for p in planes] + [""])[plane_idx]
     crossings["crossing"] = _occurrence(ray_idx, plane_idx, len(planes))
+    for q, plane in enumerate(planes):
+        rows = plane_idx == q
+        local = plane_coordinates(crossings[rows], plane, grid)
+        for k, name in enumerate(LOCAL_FIELDS):
+            crossings[name][rows] = local[k]
 
     paths = tuple(_path_records(paths_buf[k, :info[k, motion.C_PATH]]) for k in range(keep))
     report = ledger.ledger_report(records["ledger_eV"], scale, ledger_threshold, traced=~inside)
@@ -405,7 +416,51 @@ def trace(field: PotentialMap | GroupedMaps, beam: Beam, planes: Sequence[Plane]
                    crossings_lost=int((info[:, motion.C_CROSSINGS] - n_cross).sum()), symmetry=grid.symmetry,
                    crossing_rules=rules,
                    work_eV=spent[:, 0] * sp.charge_C / constants.e if in_time else None,
-                   time_zero_s=float(time_zero_s), **run_context(field, starts))
+                   time_zero_s=float(time_zero_s),
+                   tilted_planes=tuple(p.name for p in planes if p.tilted), **run_context(field, starts))
+
+
+LOCAL_FIELDS = ("u_m", "v_m", "pu", "pv", "pn")
+"""The fields of a crossing in the plane's own frame (:func:`plane_coordinates`)."""
+
+
+def plane_coordinates(rows, plane, grid):
+    """Where and how rays cross a detector plane, in the plane's own frame.
+
+    A plane z = const keeps the Cartesian frame: (u, v) = (x, y), (pu, pv, pn) = (px, py, pz).
+    A tilted plane (a line through (z0, r0) at angle a, :class:`tracer.schema.Plane`) has v, the
+    distance from (z0, r0) along its line (direction (cos a, sin a) in (z, r)), and u across the
+    map plane: x in planar symmetry (y mirrored to |y| in a mirrored map), the arc r phi about
+    the axis (phi = atan2(y, x)) in axial symmetry, where pr and p_phi replace py and px.  pn is
+    the momentum along the plane's normal (positive forward).
+
+    Parameters
+    ----------
+    rows : numpy.ndarray
+        Crossing states (``x_m``, ``y_m``, ``z_m``, ``px``, ``py``, ``pz``).
+    plane : tracer.schema.Plane
+    grid : tracer.grid.Grid
+
+    Returns
+    -------
+    tuple of numpy.ndarray
+        u_m, v_m, pu, pv, pn.
+    """
+    x, y, z, px, py, pz = (rows[k] for k in ("x_m", "y_m", "z_m", "px", "py", "pz"))
+    if not plane.tilted:
+        return x, y, px, py, pz
+    if grid.symmetry == "axial":
+        r = np.hypot(x, y)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            pr = np.where(r > 0, (x * px + y * py) / r, np.hypot(px, py))
+            p_phi = np.where(r > 0, (x * py - y * px) / r, 0.0)
+        u, pu = r * np.arctan2(y, x), p_phi
+    else:
+        side = np.where(grid.mirror & (y < 0.0), -1.0, 1.0)
+        r, pr, u, pu = side * y, side * py, x, px
+    nz, nr, _ = plane.line()
+    tz, tr = math.cos(plane.angle_rad), math.sin(plane.angle_rad)
+    return u, (z - plane.z_m) * tz + (r - plane.r_m) * tr, pu, pz * tz + pr * tr, pz * nz + pr * nr
 
 
 def incidence(rows, electrode, table, grid, mass):

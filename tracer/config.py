@@ -33,8 +33,10 @@ Keys (defaults in brackets; "r" stands for "y" in a domain with y_mm)::
                  angles "uniform"|"gaussian"|"cosine", current_A;
                  or rays_csv (a file of start rays) in place of the distribution keys;
                  start_time_ns|us [0], start_spread_ns|us [0], start_times "uniform"|"gaussian" (FWHM)
-    [[plane]]    name, z_mm, stop [false], direction "any"|"forward"|"backward" ["any"],
-                 crossing "first"|"last"|"all"|N (from 1) ["first"]
+    [[plane]]    name, z_mm, r_mm [0], angle_deg [90] (the plane's line through (z, r), from +z
+                 towards +r, -180..180; 90 is z = const), stop [false],
+                 direction "any"|"forward"|"backward" ["any"], crossing "first"|"last"|"all"|N
+                 (from 1) ["first"]
     [trace]      max_time_us or max_time_ns [100 us] (each ray's, from its start), rtol [1e-9],
                  ledger_threshold [1e-6], keep_paths [50], time_zero_ns|us [the earliest pulse's
                  start, else 0] (flight times of the resolving power count from it)
@@ -70,7 +72,7 @@ from scipy import constants
 from tracer.geometry import shape_table
 from tracer.schema import (CROSSINGS, DIRECTIONS, GRIDS, START_TIMES, THIRD_GRIDS, Arc, Beam, ConfigError, Domain, Electrode,
                            GridErrorSpec, GunSpec, OpticsSpec, Plane, Polygon, Rect, ScanSpec, Setup, TraceOptions,
-                           TuneSpec)
+                           TuneSpec, Z_PLANE_RAD)
 from tracer.species import custom_species, species
 from tracer.waveforms import Pulse, Sinusoid, Waveform, WaveformError, read_table
 
@@ -769,17 +771,24 @@ def _check_start(beam, t, domain, c):
 
 
 def _plane(value, path, domain):
-    t = _Table(value, path, ("name", "z_mm", "stop", "direction", "crossing"))
+    side = _side(domain)
+    across = f"{side.letter}_mm"
+    t = _Table(value, path, ("name", "z_mm", across, "angle_deg", "stop", "direction", "crossing"),
+               hints=side.hint("{}_mm"))
     name = t.get("name", _name)
     z = t.get("z_mm", _number) / _MM_PER_M
     _within(z, domain.z_m, t.at("z_mm"), t.data["z_mm"], "z")
+    r = t.get(across, _number, default=0.0) / _MM_PER_M
+    if t.has(across):
+        _within(r, domain.r_m, t.at(across), t.data[across], side.letter)
+    angle = t.get("angle_deg", _number, default=90.0, low=-180.0, high=180.0)
     stop = t.get("stop", _boolean, default=False)
     direction = t.get("direction", _choice, default="any", choices=DIRECTIONS)
     crossing = t.get("crossing", _crossing, default="first")
     if stop and crossing not in CROSSINGS + (1,):
         raise ConfigError(t.at("crossing"), f"{crossing} counts nothing: a plane with stop = true ends each ray "
                                             "at its first crossing")
-    return Plane(name, z, stop, direction, crossing)
+    return Plane(name, z, stop, direction, crossing, r, Z_PLANE_RAD if angle == 90.0 else angle * _DEG)
 
 
 def _crossing(value, path):

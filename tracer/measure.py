@@ -12,8 +12,8 @@ through, a reflectron returns it.  One rule holds for every figure of a plane, w
 per plane (``[[plane]]`` keys ``direction`` and ``crossing``, :class:`CrossingRule`):
 
 1. Of a ray's crossings of the plane, in time order, only those in the plane's ``direction``
-   count: ``"any"`` (the default), ``"forward"`` (moving towards +z there, pz > 0) or
-   ``"backward"`` (towards -z, pz < 0).
+   count: ``"any"`` (the default), ``"forward"`` (moving along the plane's normal there, pn > 0;
+   towards +z for a z plane) or ``"backward"`` (pn < 0).
 2. Of those, ``crossing`` picks: ``"first"`` (the default: each ray once, where it first crossed),
    ``"last"``, a number N (the N-th, counting from 1; a ray with fewer does not count) or
    ``"all"`` (every one).
@@ -21,7 +21,7 @@ per plane (``[[plane]]`` keys ``direction`` and ``crossing``, :class:`CrossingRu
 The counted crossings are the rows of the plane's moments (a ray counted at two crossings, with
 ``"all"``, adds two rows).  ``fraction`` (the scan tables' ``transmission``) is the share of the
 rays started that have a counted crossing, and ``current_A`` the current those rays carry, each ray
-once.  A ray that turns exactly at the plane (pz = 0 at the crossing) counts only in direction
+once.  A ray that turns exactly at the plane (pn = 0 at the crossing) counts only in direction
 ``"any"``.  Labels such as ``"first crossing"`` or ``"2nd crossing, -z"`` (:attr:`CrossingRule.label`)
 say which rule a figure follows.
 
@@ -97,7 +97,7 @@ class CrossingRule:
     Attributes
     ----------
     direction : str
-        ``"any"``, ``"forward"`` (pz > 0) or ``"backward"`` (pz < 0).
+        ``"any"``, ``"forward"`` (pn > 0) or ``"backward"`` (pn < 0).
     crossing : str or int
         ``"first"``, ``"last"``, ``"all"`` or N >= 1 (the N-th crossing in that direction).
     """
@@ -135,7 +135,8 @@ class CrossingRule:
             The crossings of one plane, each ray's in time order (``BeamRun.at_plane``).
         """
         if self.direction != "any":
-            rows = rows[rows["pz"] > 0] if self.direction == "forward" else rows[rows["pz"] < 0]
+            pn = frame(rows)[4]
+            rows = rows[pn > 0] if self.direction == "forward" else rows[pn < 0]
         if self.crossing == "all":
             return rows
         index, count = occurrence(rows["ray"])
@@ -144,6 +145,13 @@ class CrossingRule:
         if self.crossing == "last":
             return rows[index == count - 1]
         return rows[index == self.crossing - 1]
+
+
+def frame(rows):
+    """(u, v, pu, pv, pn) of crossing rows: the plane's own frame (``tracer.beam.plane_coordinates``;
+    x, y, px, py, pz for rows stored without it)."""
+    names = ("u_m", "v_m", "pu", "pv", "pn") if "pn" in rows.dtype.names else ("x_m", "y_m", "px", "py", "pz")
+    return tuple(rows[k] for k in names)
 
 
 def counted(run, plane):
@@ -176,6 +184,9 @@ class PlaneStats:
         Standard deviations of x and y.
     rms_divergence_x_rad, rms_divergence_y_rad : float
         Standard deviations of the slopes x' = px/pz and y' = py/pz.
+
+    On a tilted plane x, y, px, py and pz stand for the plane's own u, v, pu, pv and pn
+    (:func:`tracer.beam.plane_coordinates`, :func:`frame`).
     emittance_x_m_rad, emittance_y_m_rad : float
         rms emittances of the x-x' and y-y' planes (:mod:`tracer.stats`).
     norm_emittance_x_m_rad, norm_emittance_y_m_rad : float
@@ -247,8 +258,8 @@ def plane_stats(rows, species, records, time_zero_s=0.0):
     -------
     PlaneStats
     """
-    x, y = rows["x_m"], rows["y_m"]
-    xs, ys = rows["px"] / rows["pz"], rows["py"] / rows["pz"]
+    x, y, pu, pv, pn = frame(rows)
+    xs, ys = pu / pn, pv / pn
     cx, cy = mean(x), mean(y)
     bg = beta_gamma(rows, species.mass_kg)
     ex, ey = rms_emittance(x, xs), rms_emittance(y, ys)

@@ -15,7 +15,7 @@ from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.collections import LineCollection
 from matplotlib.figure import Figure
 
-from tracer.measure import counted, plane_figures
+from tracer.measure import counted, frame, plane_figures
 from tracer.schema import scan_column, scan_unit
 from tracer.stats import radius
 from tracer.store.atomic import atomic_path
@@ -162,15 +162,18 @@ def plot_landing_positions(runs, path, symmetry="axial") -> Path | None:
 
 
 def plot_phase_space(run, plane, path, symmetry="axial") -> Path | None:
-    """Transverse phase space at a plane: (r, r') in axial symmetry, (y, y') in planar, of the
-    crossings that count for the plane's figures (:func:`tracer.measure.counted`).
+    """Transverse phase space at a plane: (r, r') in axial symmetry, (y, y') in planar, (v, v')
+    along a tilted plane's line (:func:`tracer.beam.plane_coordinates`), of the crossings that
+    count for the plane's figures (:func:`tracer.measure.counted`).
 
     ``run`` is a BeamRun (traced, or read back from a result file)."""
     rows = counted(run, plane)
     if not len(rows):
         return None
-    if symmetry == "planar":
-        u, slope, side = rows["y_m"], rows["py"] / rows["pz"], "y"
+    tilted = plane in getattr(run, "tilted_planes", ())
+    if symmetry == "planar" or tilted:
+        _, u, _, pv, pn = frame(rows)
+        slope, side = pv / pn, "v" if tilted else "y"
     else:
         u = np.hypot(rows["x_m"], rows["y_m"])
         with np.errstate(invalid="ignore", divide="ignore"):

@@ -40,7 +40,9 @@ def describe(setup) -> str:
         lines.append(f"beam {b.name}: {b.count} x {b.species.describe()}; at {b.energy_eV:g} eV, "
                      f"from z = {b.start_z_m * 1e3:g} mm")
     for p in setup.planes:
-        lines.append(f"plane {p.name}: z = {p.z_m * 1e3:g} mm" + (" (stops rays)" if p.stop else ""))
+        where = (f"the line through z = {p.z_m * 1e3:g} mm, {side} = {p.r_m * 1e3:g} mm at "
+                 f"{math.degrees(p.angle_rad):g} deg from +z" if p.tilted else f"z = {p.z_m * 1e3:g} mm")
+        lines.append(f"plane {p.name}: {where}" + (" (stops rays)" if p.stop else ""))
     lines.append(_describe_grid_error(setup))
     return "\n".join(lines)
 

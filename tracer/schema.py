@@ -10,6 +10,7 @@ from __future__ import annotations
 import dataclasses
 import hashlib
 import json
+import math
 import pathlib
 from dataclasses import dataclass, field
 
@@ -224,23 +225,36 @@ CROSSINGS = ("first", "last", "all")
 """The named ``crossing`` choices of a plane; a whole number N >= 1 picks each ray's N-th crossing."""
 
 
+Z_PLANE_RAD = math.pi / 2
+"""The ``angle_rad`` of a plane z = const: its line runs along +r."""
+
+
 @dataclass(frozen=True)
 class Plane:
-    """A detector plane z = const.
+    """A detector plane: a line through a point of the (z, r) half-plane at an angle (in axial
+    symmetry the cone, disc or cylinder it sweeps about the axis; in planar symmetry the plane it
+    sweeps along x).  By default a plane z = const.
 
     Parameters
     ----------
     name : str
         Unique name.
     z_m : float
-        Position, metres (inside the domain).
+        The point's z, metres (inside the domain).
     stop : bool
         Whether rays end when they cross it.
     direction : str
-        Which crossings its figures count: ``"any"``, ``"forward"`` (towards +z) or ``"backward"``.
+        Which crossings its figures count: ``"any"``, ``"forward"`` (along the plane's normal; for
+        a z plane towards +z) or ``"backward"``.
     crossing : str or int
         Of those, each ray's ``"first"``, ``"last"``, N-th (N >= 1) or ``"all"`` (the rule of
         :mod:`tracer.measure`).
+    r_m : float
+        The point's r (y in planar symmetry), metres.
+    angle_rad : float
+        Direction of the line from +z towards +r; ``Z_PLANE_RAD`` (pi/2, the default) for a plane
+        z = const.  The normal, "forward", is the line's direction turned by -90 degrees (+z for
+        a z plane).
     """
 
     name: str
@@ -248,6 +262,21 @@ class Plane:
     stop: bool = False
     direction: str = "any"
     crossing: str | int = "first"
+    r_m: float = 0.0
+    angle_rad: float = Z_PLANE_RAD
+
+    @property
+    def tilted(self) -> bool:
+        """True unless the plane is z = const."""
+        return self.angle_rad != Z_PLANE_RAD
+
+    def line(self) -> tuple[float, float, float]:
+        """(n_z, n_r, d): the plane is n_z z + n_r r = d, with (n_z, n_r) its unit normal
+        (exactly (1, 0, z) for a z plane)."""
+        if not self.tilted:
+            return 1.0, 0.0, self.z_m
+        nz, nr = math.sin(self.angle_rad), -math.cos(self.angle_rad)
+        return nz, nr, nz * self.z_m + nr * self.r_m
 
 
 @dataclass(frozen=True)

@@ -223,7 +223,7 @@ def write_result(path, field, runs, *, setup=None, summaries=None, author=None) 
                                      for key in ("starts", "records", "crossings")},
                           "ledger_threshold": run.ledger.threshold, "crossings_lost": run.crossings_lost,
                           "crossing_rules": [[r.direction, r.crossing] for r in run.crossing_rules],
-                          "time_zero_s": run.time_zero_s})
+                          "time_zero_s": run.time_zero_s, "tilted_planes": list(run.tilted_planes)})
         group.attrs["format"] = RESULT_FORMAT
         group.attrs["names"] = json.dumps(list(field.names))
         group.attrs["voltages"] = np.asarray(field.voltages, dtype=np.float64)
@@ -328,7 +328,8 @@ def _read_beam(group, particles, k, about, symmetry) -> BeamRun:
                    crossings_lost=int(about["crossings_lost"]), symmetry=symmetry,
                    crossing_rules=tuple(CrossingRule(*r) for r in about.get("crossing_rules", ())),
                    work_eV=read_array(group[f"work_eV/{k}"]) if f"work_eV/{k}" in group else None,
-                   time_zero_s=float(about.get("time_zero_s", 0.0)))
+                   time_zero_s=float(about.get("time_zero_s", 0.0)),
+                   tilted_planes=tuple(about.get("tilted_planes", ())))
 
 
 def read_result(path: str | os.PathLike) -> ResultFile:
