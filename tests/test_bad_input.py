@@ -108,6 +108,19 @@ def arc(center, radii, angles):
     return electrode(f"[[electrode.arc]]\ncenter_z_mm = {center}\nradii_mm = {radii}\nangles_deg = {angles}")
 
 
+def TIED(tail):
+    """A fourth electrode, 'sleeve', overlapping 'ring' at its voltage (0 V), then ``tail``."""
+    return add('[[electrode]]\nname = "sleeve"\nvoltage_V = 0.0\n[[electrode.rect]]\nz_mm = [10.0, 12.0]\n'
+               f'r_mm = [4.0, 5.2]\n{tail}')
+
+
+def PULSED(parts):
+    """A fourth electrode, 'gate' at 0 V far from the others, driven by the waveform ``parts``."""
+    return add('[[electrode]]\nname = "gate"\nvoltage_V = 0.0\n[[electrode.rect]]\nz_mm = [3.0, 4.0]\n'
+               f'r_mm = [5.0, 5.5]\n{parts}')
+
+
+GATE_PULSE = "[[electrode.pulse]]\nhigh_V = 5.0\ndelay_ns = 10.0"
 PLANE_NAME_LINE = line_of('name = "mid"')
 RAYS_HEAD = "x_mm,y_mm,z_mm,ux,uy,uz,energy_eV\n"
 RAYS_BEAM = add('[[beam]]\nname = "measured"\nspecies = "p+"\nrays_csv = "rays.csv"')
@@ -165,6 +178,20 @@ CASES = [
      "overlaps electrode[1].rect[0] of electrode 'ring' (0 V) while electrode 'extra' is at 50 V"),
     ("overlap-arc", arc(11.0, "[4.8, 5.2]", "[60.0, 120.0]"), {}, "electrode[3].arc[0]",
      "overlaps electrode[1].rect[0] of electrode 'ring' (0 V)"),
+    # electrodes overlapping at one voltage are one conductor: no scan or tune may set them apart
+    ("tied-scan-one", TIED("[scan]\nring = [-10.0, 10.0, 3]"), {}, "scan.ring",
+     "electrodes 'ring' and 'sleeve' overlap, so they are one conductor at one voltage; the scan would set "
+     "'ring' to -10.0..10.0 V"),
+    ("tied-scan-both", TIED("[scan]\nsleeve = [-10.0, 10.0, 3]\nring = [-10.0, 10.0, 3]"), {}, "scan.sleeve",
+     "the scan would set 'sleeve' to -10.0..10.0 V"),
+    ("tied-scan-single", TIED("[scan]\nsleeve = [5.0, 5.0, 1]"), {}, "scan.sleeve", "'ring' and 'sleeve' overlap"),
+    ("tied-scan-waveform", PULSED(f"{GATE_PULSE}\n[[electrode]]\nname = 'gate2'\nvoltage_V = 0.0\n[[electrode.rect]]\n"
+                                  f"z_mm = [3.5, 4.5]\nr_mm = [5.0, 5.5]\n{GATE_PULSE}\n"
+                                  "[scan]\n'gate.pulse[0].high_V' = [1.0, 5.0, 2]"), {},
+     'scan."gate.pulse[0].high_V"', "electrodes 'gate' and 'gate2' overlap, so they are one conductor at one "
+                                    "voltage; the scan would set 'gate.pulse[0].high_V' to 1.0..5.0:"),
+    ("tied-tune", TIED("[tune]\nvary = { sleeve = [0.0, 50.0] }\ngoal = 'most_transmitted'"), {}, "tune.vary.sleeve",
+     "'ring' and 'sleeve' overlap, so they are one conductor at one voltage; tune would vary them apart"),
     # planes outside the domain
     ("plane-beyond", sub("z_mm = 14.0", "z_mm = 25.0"), {}, "plane[0].z_mm", "25.0 is outside the domain's z range 0..22 mm"),
     ("plane-before", sub("z_mm = 14.0", "z_mm = -1.0"), {}, "plane[0].z_mm", "-1.0 is outside the domain's z range"),
@@ -239,6 +266,50 @@ CASES = [
      {"rays.csv": "x_mm,y_mm,z_mm,ux,uy,uz,energy_eV,weight_A\n0,0,11,0,0,1,10,0\n"}, "beam[3].rays_csv",
      "the weight column sums to 0"),
     ("rays-missing", RAYS_BEAM, {}, "beam[3].rays_csv", "no such file 'rays.csv'"),
+    # rays files: numbers that overflow, refused with the line and the column
+    ("rays-direction-overflow", RAYS_BEAM, {"rays.csv": RAYS_HEAD + "0,0,11,0,0,1,10\n0,0,11,1e200,1e200,1e200,10\n"},
+     "beam[3].rays_csv", "'rays.csv': line 3, column 'ux, uy, uz': its length overflows"),
+    ("rays-direction-underflow", RAYS_BEAM, {"rays.csv": RAYS_HEAD + "0,0,11,1e-200,0,1e-200,10\n"},
+     "beam[3].rays_csv", "'rays.csv': line 2, column 'ux, uy, uz': its length underflows"),
+    ("rays-energy-overflow", RAYS_BEAM, {"rays.csv": "x_mm,y_mm,z_mm,ux,uy,uz,energy_MeV\n0,0,11,0,0,1,1e303\n"},
+     "beam[3].rays_csv", "'rays.csv': line 2, column 'energy_MeV': outside the range tracer admits, 0..1e+12 eV"),
+    ("rays-weight-huge", RAYS_BEAM, {"rays.csv": RAYS_HEAD.replace("\n", ",weight_A\n") + "0,0,11,0,0,1,10,1e308\n"},
+     "beam[3].rays_csv", "line 2, column 'weight_A': outside the range tracer admits, |value| 0..1e+06 A"),
+    ("rays-weights-sum", RAYS_BEAM, {"rays.csv": RAYS_HEAD.replace("\n", ",weight_A\n") + "0,0,11,0,0,1,10,9e5\n" * 2},
+     "beam[3].rays_csv", "column 'weight_A': the weights sum to 1.8e+06 A, outside the range tracer admits"),
+    ("rays-position-absurd", RAYS_BEAM, {"rays.csv": "x_m,y_mm,z_mm,ux,uy,uz,energy_eV\n1e306,0,11,0,0,1,10\n"},
+     "beam[3].rays_csv", "line 2, column 'x_m': outside the range tracer admits, -100000..100000 mm"),
+    # absurd but finite numbers: the range a real instrument could have, stated in the message
+    ("voltage-absurd", sub("voltage_V = 0.0", "voltage_V = 1e308"), {}, "electrode[1].voltage_V",
+     "1e+308 is outside the range tracer admits, -1e+08..1e+08 V"),
+    ("energy-absurd", sub("energy_eV = 30.0", "energy_eV = 1e300"), {}, "beam[2].energy_eV",
+     "1e+300 is outside the range tracer admits, 0..1e+12 eV"),
+    ("rtol-absurd", add("rtol = 1e-300"), {}, "trace.rtol", "1e-300 is outside the range tracer admits, 1e-14..0.5"),
+    ("mass-underflow", sub('species = "p+"\nenergy_eV = 30.0', 'mass_u = 1e-320\ncharge_e = 1\nenergy_eV = 30.0'), {},
+     "beam[2].mass_u", "1e-320 is outside the range tracer admits, 0.0001..1e+12 u"),
+    ("charge-underflow", sub('species = "p+"\nenergy_eV = 30.0', 'mass_u = 1.0\ncharge_e = -1e-320\nenergy_eV = 30.0'), {},
+     "beam[2].charge_e", "-1e-320 is outside the range tracer admits, |value| 0.001..1e+06 e"),
+    ("domain-absurd", sub("z_mm = [0.0, 22.0]", "z_mm = [0.0, 1e200]"), {}, "domain.z_mm[1]",
+     "1e+200 is outside the range tracer admits, -100000..100000 mm"),
+    ("time-absurd", sub("max_time_us = 20.0", "max_time_us = 1e300"), {}, "trace.max_time_us",
+     "1e+300 is outside the range tracer admits, -1e+09..1e+09 us"),
+    ("scan-absurd", add("[scan]\nring = [0.0, 1e300, 3]"), {}, "scan.ring[1]",
+     "1e+300 is outside the range tracer admits, -1e+08..1e+08 V"),
+    ("tune-absurd", add("[tune]\nvary = { ring = [-1e300, 50.0] }\ngoal = 'most_transmitted'"), {}, "tune.vary.ring[0]",
+     "-1e+300 is outside the range tracer admits"),
+    ("frequency-absurd", PULSED("[[electrode.sine]]\namplitude_V = 5.0\nfrequency_MHz = 1e300"), {},
+     "electrode[3].sine[0].frequency_MHz", "1e+300 is outside the range tracer admits, 0..1e+06 MHz"),
+    ("phase-absurd", PULSED("[[electrode.sine]]\namplitude_V = 5.0\nfrequency_MHz = 1.0\nphase_deg = -1e300"), {},
+     "electrode[3].sine[0].phase_deg", "-1e+300 is outside the range tracer admits, -3600..3600 deg"),
+    ("delay-absurd", PULSED("[[electrode.pulse]]\nhigh_V = 5.0\ndelay_ns = 1e300"), {},
+     "electrode[3].pulse[0].delay_ns", "1e+300 is outside the range tracer admits, -1e+12..1e+12 ns"),
+    ("scan-delay-absurd", PULSED("[[electrode.pulse]]\nhigh_V = 5.0\ndelay_ns = 10.0\n"
+                                 "[scan]\n'gate.pulse[0].delay_ns' = [0.0, 1e300, 2]"), {},
+     'scan."gate.pulse[0].delay_ns"[1]', "1e+300 is outside the range tracer admits, -1e+12..1e+12 ns"),
+    ("current-absurd", sub('name = "spray"', 'name = "spray"\ncurrent_A = 1e300'), {}, "beam[2].current_A",
+     "1e+300 is outside the range tracer admits, |value| 0..1e+06 A"),
+    ("temperature-absurd", sub('name = "spray"', 'name = "spray"\ntemperature_K = 1e300'), {},
+     "beam[2].temperature_K", "1e+300 is outside the range tracer admits, 0..1e+06 K"),
     # a config that is not text
     ("config-not-utf8", lambda text: text.replace("cap_in", "cap_\xe9").encode("latin-1"), {}, "bad.toml",
      "not UTF-8 text (byte"),
@@ -329,3 +400,113 @@ def test_python_m_tracer_run_refuses_bad_configs(tmp_path, case):
                           timeout=120)
     assert_refused(proc.returncode, proc.stdout, proc.stderr, key, fragment)
     assert not out.exists() and not cache.exists()
+
+
+def test_a_waveform_parameter_is_bounded_by_its_own_unit(tmp_path, cache, capsys):
+    """A delay of 1e9 ns (1 s) is past the voltage range but inside the range of times: a scan of
+    it is admitted (each scanned or tuned quantity is checked in its own unit)."""
+    config = write_case(tmp_path, PULSED("[[electrode.pulse]]\nhigh_V = 5.0\ndelay_ns = 10.0\n"
+                                         "[scan]\n'gate.pulse[0].delay_ns' = [0.0, 1e9, 2]"), {})
+    assert main(["check", str(config)]) == 0, capsys.readouterr().err
+
+
+@pytest.mark.parametrize("scan, verdict", [
+    ("cap_in = [50.0, 150.0, 3]", 0),                  # another electrode: free to scan
+    ("ring = [0.0, 0.0, 1]\nsleeve = [0.0, 0.0, 1]", 0),  # both held at their one voltage
+    ("ring = [7.0, 7.0, 1]\nsleeve = [7.0, 7.0, 1]", 0),  # both moved together to one value
+    ("ring = [7.0, 7.0, 1]", 2),                       # ring moved, sleeve left at 0 V
+])
+def test_overlapping_electrodes_may_be_scanned_only_together(tmp_path, cache, capsys, scan, verdict):
+    config = write_case(tmp_path, TIED(f"[scan]\n{scan}"), {})
+    assert main(["check", str(config)]) == verdict
+    err = capsys.readouterr().err
+    assert ("'ring' and 'sleeve' overlap" in err) == bool(verdict), err
+
+
+@pytest.mark.parametrize("rows, refusal", [
+    ("0,0\n5,5\n", None),
+    ("0,0\n5,4\n", "'sets.csv' row 3: electrodes 'ring' and 'sleeve' overlap, so they are one conductor at one "
+                    "voltage; the row sets 'ring' to 5 V and 'sleeve' to 4 V"),
+    ("0,0\n1e300,1e300\n", "'sets.csv' row 3, column ring_V: 1e+300 is outside the range tracer admits, "
+                            "-1e+08..1e+08 V"),
+])
+def test_a_csv_scan_that_sets_overlapping_electrodes_apart_is_refused_before_any_work(
+        tmp_path, cache, capsys, rows, refusal):
+    """CSV rows are read before the solve: the row that sets them apart, or an absurd voltage, is
+    named (line 3)."""
+    config = write_case(tmp_path, TIED("[scan]\ncsv = 'sets.csv'"), {"sets.csv": "ring_V,sleeve_V\n" + rows})
+    if refusal is None:   # the rows are fine: check them without the work of a scan
+        from tracer import load
+        from tracer.scans import voltage_sets
+        names, sets = voltage_sets(load(config))
+        assert names == ("ring", "sleeve") and sets.tolist() == [[0.0, 0.0], [5.0, 5.0]]
+        return
+    out = tmp_path / "out"
+    code = main(["scan", str(config), "--out", str(out), "--quiet"])
+    captured = capsys.readouterr()
+    assert_refused(code, captured.out, captured.err, "scan.csv", refusal)
+    assert not out.exists() and not cache.exists()
+
+
+EDGES_OF_REAL_WORK = """\
+title = "a long megavolt column with heavy droplets and resting ions (illustrative)"
+[domain]
+symmetry = "axial"
+z_mm = [0.0, 3000.0]
+r_mm = 500.0
+cell_mm = 20.0
+[[electrode]]
+name = "terminal"
+voltage_V = 5e6
+[[electrode.rect]]
+z_mm = [1000.0, 2000.0]
+r_mm = [400.0, 420.0]
+[[beam]]
+name = "droplets"
+mass_u = 1e9
+charge_e = 100
+energy_eV = 1e-6
+start_z_mm = 100.0
+[[beam]]
+name = "resting"
+species = "p+"
+energy_eV = 0.0
+start_z_mm = 100.0
+[[beam]]
+name = "measured"
+species = "e-"
+rays_csv = "rays.csv"
+[trace]
+rtol = 1e-13
+max_time_us = 1e6
+"""
+
+
+def test_real_work_at_the_edges_is_admitted(tmp_path, capsys):
+    """The bounds leave room for real instruments: energies of 0 and 1 ueV, megavolt electrodes,
+    masses of 1e9 u, domains of metres, rays files in MeV (common practice)."""
+    (tmp_path / "rays.csv").write_text("x_m,y_m,z_m,dx/dz,dy/dz,energy_MeV\n0,0,0.5,0,0,0\n0.01,0,0.5,1e-3,0,2.5\n")
+    config = tmp_path / "edges.toml"
+    config.write_text(EDGES_OF_REAL_WORK)
+    assert main(["check", str(config)]) == 0, capsys.readouterr().err
+    from tracer import load
+    from tracer.sources import start_states
+    setup = load(config)
+    assert [b.energy_eV for b in setup.beams[:2]] == [1e-6, 0.0]
+    rays = start_states(setup.beams[2])
+    assert rays["energy_eV"].tolist() == [0.0, 2.5e6]
+
+
+def test_the_guide_states_every_range():
+    """docs/limits-and-trust.md has a row for every range of tracer/bounds.py, with its limits."""
+    from pathlib import Path
+
+    from tracer.bounds import BOUNDS
+
+    guide = (Path(__file__).parents[1] / "docs" / "limits-and-trust.md").read_text()
+    rows = {line.split("|")[1]: line for line in guide.splitlines() if line.startswith("| `")}
+    for key, bound in BOUNDS.items():
+        row = next((line for cell, line in rows.items() if f"`{key}`" in cell), None)
+        assert row is not None, f"no row for {key} in the guide"
+        top = f"{bound.hi:.0e}".replace("e+0", "e").replace("e+", "e") if bound.hi >= 1e4 else f"{bound.hi:g}"
+        assert f".. {top} " in row, row

@@ -252,7 +252,7 @@ def cmd_scan(args, echo) -> int:
     from tracer.executors import ClusterError, ClusterLost, cluster_executor
     from tracer.pipeline import solve
     from tracer.plot import plot_scan
-    from tracer.scans import scan
+    from tracer.scans import scan, voltage_sets
     from tracer.schema import scan_column, scan_unit
 
     setup = _load(args)
@@ -261,6 +261,7 @@ def cmd_scan(args, echo) -> int:
     if args.workers is not None and args.workers < 1:
         raise InputError(f"--workers: {args.workers} must be at least 1")
     out = _out_dir(args)
+    voltage_sets(setup)   # a bad row of a CSV of sets is refused before any work
     maps = solve(setup, cache_dir=_cache_dir(args), progress=_progress(args, "solving"))
     try:
         with cluster_executor(args.scheduler) if args.scheduler else contextlib.nullcontext() as executor:

@@ -69,7 +69,8 @@ from dataclasses import dataclass
 
 from scipy import constants
 
-from tracer.geometry import shape_table
+from tracer.bounds import BOUNDS, bound_of
+from tracer.geometry import overlapping_electrodes, shape_table
 from tracer.schema import (CROSSINGS, DIRECTIONS, GRIDS, START_TIMES, THIRD_GRIDS, Arc, Beam, ConfigError, Domain, Electrode,
                            GridErrorSpec, GunSpec, OpticsSpec, Plane, Polygon, Rect, ScanSpec, Setup, TraceOptions,
                            TuneSpec, Z_PLANE_RAD)
@@ -234,8 +235,9 @@ class _Table:
         return read(self.data[key], self.at(key), **options)
 
 
-def _number(value, path, low=None, high=None, low_open=False, high_open=False):
-    """A finite number within optional bounds, as float."""
+def _number(value, path, low=None, high=None, low_open=False, high_open=False, unit=None):
+    """A finite number within optional bounds and within the range of its unit
+    (:func:`tracer.bounds.bound_of` the key, or of ``unit``, a suffix such as "_V"), as float."""
     if isinstance(value, bool) or not isinstance(value, (int, float)):
         raise ConfigError(path, f"expected a number, got {_show(value)}")
     try:
@@ -248,6 +250,9 @@ def _number(value, path, low=None, high=None, low_open=False, high_open=False):
         raise ConfigError(path, f"must be {'>' if low_open else '>='} {low:g}, got {_show(value)}")
     if high is not None and (number >= high if high_open else number > high):
         raise ConfigError(path, f"must be {'<' if high_open else '<='} {high:g}, got {_show(value)}")
+    bound = BOUNDS.get(unit) if unit else bound_of(path)
+    if bound is not None and bound.problem(number):
+        raise ConfigError(path, bound.problem(number))
     return number
 
 
@@ -311,10 +316,10 @@ def _array(value, path, length=None):
     return value
 
 
-def _range(value, path, words, low=None):
+def _range(value, path, words, low=None, unit=None):
     """A pair [a, b] of numbers with a < b; `words` names the two ends in messages."""
     pair = _array(value, path, 2)
-    a, b = (_number(v, f"{path}[{i}]") for i, v in enumerate(pair))
+    a, b = (_number(v, f"{path}[{i}]", unit=unit) for i, v in enumerate(pair))
     if a > b:
         raise ConfigError(path, f"{words[0]} {_show(pair[0])} exceeds {words[1]} {_show(pair[1])}")
     if a == b:
@@ -384,12 +389,17 @@ def _setup(data, source):
     names = tuple(e.name for e in electrodes)
     _unique(names, "electrode", "electrode")
     _check_memory(domain, len(electrodes))
-    _check_geometry(electrodes, domain)
+    tied = _check_geometry(electrodes, domain)
     beams = tuple(_beam(v, p, domain, base) for v, p in _tables(top.data.get("beam", []), "beam", "beam"))
     _unique([b.name for b in beams], "beam", "beam")
     planes = tuple(_plane(v, p, domain) for v, p in _tables(top.data.get("plane", []), "plane", "plane"))
     plane_names = tuple(p.name for p in planes)
     _unique(plane_names, "plane", "plane")
+    trace = top.get("trace", _trace, default=TraceOptions())
+    scan = top.get("scan", _scan, default=None, names=names, base=base, electrodes=electrodes)
+    tune = top.get("tune", _tune, default=None, names=names, planes=plane_names, domain=domain,
+                   electrodes=electrodes)
+    _check_tied(tied, electrodes, scan, tune)
     return Setup(
         title=title,
         author=author,
@@ -397,10 +407,9 @@ def _setup(data, source):
         electrodes=electrodes,
         beams=beams,
         planes=planes,
-        trace=top.get("trace", _trace, default=TraceOptions()),
-        scan=top.get("scan", _scan, default=None, names=names, base=base, electrodes=electrodes),
-        tune=top.get("tune", _tune, default=None, names=names, planes=plane_names, domain=domain,
-                     electrodes=electrodes),
+        trace=trace,
+        scan=scan,
+        tune=tune,
         gun=top.get("gun", _gun, default=None, names=names),
         optics=top.get("optics", _optics, default=None),
         source=source,
@@ -481,8 +490,43 @@ def _edges(value, symmetry, mirror):
 
 
 def _check_geometry(electrodes, domain):
-    """Refuse shapes that miss the domain or overlap another electrode's at a different voltage."""
-    shape_table(electrodes, domain)
+    """Refuse shapes that miss the domain or overlap another electrode's at a different voltage;
+    return the pairs of electrode names that overlap (at one voltage)."""
+    pairs = overlapping_electrodes(shape_table(electrodes, domain), domain.cell_m)
+    return tuple((electrodes[i].name, electrodes[j].name) for i, j in pairs)
+
+
+def _check_tied(pairs, electrodes, scan, tune):
+    """Refuse a scan or tune that would set overlapping electrodes (``pairs`` of names) apart.
+
+    Overlapping electrodes are one conductor: a scan's ranges must give both the one voltage they
+    share (a range of one value), and a tune may vary neither; neither may have a waveform
+    parameter scanned or tuned.  A CSV scan's rows are checked when they are read
+    (:func:`tracer.scans.voltage_sets`).
+    """
+    names = tuple(e.name for e in electrodes)
+    ranges = {name: (lo, hi) for name, lo, hi, _ in scan.ranges} if scan is not None else {}
+    fixed = {e.name: e.voltage_V for e in electrodes} | {n: lo if lo == hi else None for n, (lo, hi) in ranges.items()}
+
+    def electrode_of(name):
+        return name if name in names else waveform_parameter(name)[0]
+
+    for name, *_ in tune.vary if tune is not None else ():
+        for a, b in pairs:
+            if electrode_of(name) in (a, b):
+                raise ConfigError(_join("tune.vary", name), tied_message(a, b, "tune would vary them apart"))
+    for name, (lo, hi) in ranges.items():
+        for a, b in pairs:
+            if electrode_of(name) in (a, b) and (name not in names or fixed[a] is None or fixed[a] != fixed[b]):
+                raise ConfigError(_join("scan", name), tied_message(
+                    a, b, f"the scan would set {name!r} to {_show(lo)}..{_show(hi)}"
+                          + (" V" if name in names else "")))
+
+
+def tied_message(a, b, why):
+    """The refusal of a voltage set that sets overlapping electrodes ``a`` and ``b`` apart."""
+    return (f"electrodes {a!r} and {b!r} overlap, so they are one conductor at one voltage; {why}: "
+            "join their shapes into one electrode, or separate them")
 
 
 def _check_memory(domain, n_electrodes):
@@ -851,7 +895,7 @@ def _scan(value, path, names, base, electrodes):
         return ScanSpec((), file)
     if not t.data:
         raise ConfigError(path, "empty: give ranges such as focus = [800.0, 1600.0, 41], or csv = 'sets.csv'")
-    ranges = tuple(_scan_range(t.data[name], t.at(name), name) for name in t.data)
+    ranges = tuple(_scan_range(t.data[name], t.at(name), name, _unit_of(name, names)) for name in t.data)
     _check_parameters(t, parameters, ranges, names, electrodes)
     return ScanSpec(ranges)
 
@@ -917,9 +961,15 @@ def with_parameter(drives, parameter, value, path="scan"):
     return drives | {electrode: dataclasses.replace(drive, **{parts: have[:index] + (part,) + have[index + 1:]})}
 
 
-def _scan_range(value, path, name):
+def _unit_of(name, names):
+    """The unit suffix of a scanned or tuned quantity: "_V" for an electrode's voltage, the suffix
+    of its key for a waveform parameter (``repeller.pulse[0].delay_ns`` -> "_ns")."""
+    return "_V" if name in names else "_" + name.rpartition(".")[2].rpartition("_")[2]
+
+
+def _scan_range(value, path, name, unit):
     triple = _array(value, path, 3)
-    start, stop = (_number(v, f"{path}[{i}]") for i, v in enumerate(triple[:2]))
+    start, stop = (_number(v, f"{path}[{i}]", unit=unit) for i, v in enumerate(triple[:2]))
     count = _integer(triple[2], f"{path}[2]", low=1)
     if start > stop:
         raise ConfigError(path, f"from {_show(triple[0])} exceeds to {_show(triple[1])}")
@@ -957,7 +1007,8 @@ def _tune(value, path, names, planes, domain, electrodes):
     vary = _Table(given, t.at("vary"), names + parameters, what="no electrode named")
     if not vary.data:
         raise ConfigError(vary.path, "empty: name the electrodes to vary, e.g. vary = { focus = [800.0, 1600.0] }")
-    ranges = tuple((name, *vary.get(name, _range, words=("lo", "hi"))) for name in vary.data)
+    ranges = tuple((name, *vary.get(name, _range, words=("lo", "hi"), unit=_unit_of(name, names)))
+                   for name in vary.data)
     _check_parameters(vary, parameters, ranges, names, electrodes)
     goal, goal_value = t.get("goal", _goal, domain=domain)
     at = t.get("at", _string, default=None)

@@ -533,22 +533,46 @@ def _overlap(ja, jb, zlo, zhi, rlo, rhi, nz, nr, kind, start, count, points, sec
     return False
 
 
+def _share_area(table, a, b, bb, cell):
+    """True when shapes a and b share area (bb: the shapes' bounding boxes cut to the domain)."""
+    zlo, zhi = max(bb[a, 0], bb[b, 0]), min(bb[a, 1], bb[b, 1])
+    rlo, rhi = max(bb[a, 2], bb[b, 2]), min(bb[a, 3], bb[b, 3])
+    if zhi <= zlo or rhi <= rlo:
+        return False
+    nz = min(_OVERLAP_SAMPLES, max(4, math.ceil(4 * (zhi - zlo) / cell)))
+    nr = min(_OVERLAP_SAMPLES, max(4, math.ceil(4 * (rhi - rlo) / cell)))
+    return _overlap(a, b, zlo, zhi, rlo, rhi, nz, nr,
+                    table.kind, table.start, table.count, table.points, table.sector, table.bbox)
+
+
+def overlapping_electrodes(table, cell):
+    """Pairs ``(i, j)``, i < j, of electrodes whose shapes share area (at the same voltage, as
+    ``shape_table`` refuses the others); such electrodes must keep one voltage.
+
+    Parameters
+    ----------
+    table : ShapeTable
+    cell : float
+        The cell (m), which sets how finely a shared box is sampled.
+    """
+    pairs = set()
+    for a in range(table.kind.size):
+        for b in range(a + 1, table.kind.size):
+            i, j = sorted((int(table.owner[a]), int(table.owner[b])))
+            if i != j and (i, j) not in pairs and _share_area(table, a, b, table.bbox, cell):
+                pairs.add((i, j))
+    return tuple(sorted(pairs))
+
+
 def _check_overlaps(table, electrodes, keys, bb, cell):
     """Raise ConfigError when shapes of two electrodes at different voltages share area
     (bb: the shapes' bounding boxes cut to the domain)."""
-    arrays = (table.kind, table.start, table.count, table.points, table.sector, table.bbox)
     for a in range(table.kind.size):
         for b in range(a + 1, table.kind.size):
             ea, eb = electrodes[table.owner[a]], electrodes[table.owner[b]]
             if table.owner[a] == table.owner[b] or ea.drive == eb.drive:
                 continue
-            zlo, zhi = max(bb[a, 0], bb[b, 0]), min(bb[a, 1], bb[b, 1])
-            rlo, rhi = max(bb[a, 2], bb[b, 2]), min(bb[a, 3], bb[b, 3])
-            if zhi <= zlo or rhi <= rlo:
-                continue
-            nz = min(_OVERLAP_SAMPLES, max(4, math.ceil(4 * (zhi - zlo) / cell)))
-            nr = min(_OVERLAP_SAMPLES, max(4, math.ceil(4 * (rhi - rlo) / cell)))
-            if _overlap(a, b, zlo, zhi, rlo, rhi, nz, nr, *arrays):
+            if _share_area(table, a, b, bb, cell):
                 raise ConfigError(
                     keys[b],
                     f"overlaps {keys[a]} of electrode {ea.name!r} ({_carries(ea)}) while "

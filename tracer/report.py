@@ -37,6 +37,9 @@ def describe(setup) -> str:
         if e.waveform is not None:
             lines.append(f"  {'':<16s} + {e.waveform.describe()}")
     for b in setup.beams:
+        if b.rays_csv is not None:
+            lines.append(f"beam {b.name}: {b.species.describe()}; start rays from {b.rays_csv.name!r}")
+            continue
         lines.append(f"beam {b.name}: {b.count} x {b.species.describe()}; at {b.energy_eV:g} eV, "
                      f"from z = {b.start_z_m * 1e3:g} mm")
     for p in setup.planes:

@@ -36,8 +36,11 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
+from tracer.bounds import BOUNDS
+from tracer.config import tied_message
 from tracer.display import Shown, listing, number
 from tracer.executors import Context, run_sets
+from tracer.geometry import overlapping_electrodes, shape_table
 from tracer.journal import CSV_NAME, Rows, config_hash, read_csv
 from tracer.schema import ConfigError, Setup, scan_column
 
@@ -85,7 +88,28 @@ def voltage_sets(setup):
         raise ConfigError("scan.csv", f"{spec.csv.name!r}: every row needs {len(names)} voltage(s)")
     if not np.isfinite(sets).all():
         raise ConfigError("scan.csv", f"{spec.csv.name!r}: voltages must be finite numbers")
+    outside = np.argwhere(~BOUNDS["_V"].admits(sets))
+    if outside.size:
+        row, column = outside[0]
+        raise ConfigError("scan.csv", f"{spec.csv.name!r} row {row + 2}, column {names[column]}_V: "
+                                      + BOUNDS["_V"].problem(float(sets[row, column])))
+    _check_tied_rows(setup, names, sets)
     return names, sets
+
+
+def _check_tied_rows(setup, names, sets):
+    """Refuse CSV rows that set overlapping electrodes (one conductor) to different voltages."""
+    electrodes = setup.electrodes
+    pairs = overlapping_electrodes(shape_table(electrodes, setup.domain), setup.domain.cell_m)
+    volts = setup.voltages()
+    for i, j in pairs:
+        a, b = electrodes[i].name, electrodes[j].name
+        va, vb = (sets[:, names.index(n)] if n in names else np.full(len(sets), volts[n]) for n in (a, b))
+        apart = np.flatnonzero(va != vb)
+        if apart.size:
+            k = apart[0]
+            raise ConfigError("scan.csv", f"{setup.scan.csv.name!r} row {k + 2}: " + tied_message(
+                a, b, f"the row sets {a!r} to {va[k]:g} V and {b!r} to {vb[k]:g} V"))
 
 
 @dataclass(frozen=True, repr=False)

@@ -87,6 +87,7 @@ import numpy as np
 from scipy import constants
 from scipy.special import ndtr, ndtri
 
+from tracer.bounds import BOUNDS
 from tracer.schema import START_TIMES
 
 SYMMETRIES = ("axial", "planar")
@@ -302,6 +303,11 @@ _CURRENT = {"A": 1.0, "mA": 1e-3, "uA": 1e-6, "nA": 1e-9, "pA": 1e-12}
 _UNITS = {"x": _LENGTH, "y": _LENGTH, "z": _LENGTH, "energy": _ENERGY, "weight": _CURRENT}
 _FIELD = {"x": "x_m", "y": "y_m", "z": "z_m", "energy": "energy_eV", "weight": "weight_A"}
 _UNITLESS = ("ux", "uy", "uz", "dx/dz", "dy/dz")
+# (quantity, its bound, factor from the SI value to the bound's unit): the ranges of tracer.bounds
+_BOUNDED = (("x", BOUNDS["_mm"], 1e3), ("y", BOUNDS["_mm"], 1e3), ("z", BOUNDS["_mm"], 1e3),
+            ("energy", BOUNDS["_eV"], 1.0), ("weight", BOUNDS["_A"], 1.0))
+# A direction shorter than this is not normalized to a unit vector without losing digits.
+_SMALLEST_LENGTH = 1e-150
 
 
 def _column(name, where):
@@ -398,7 +404,8 @@ def read_rays_csv(path):
     rays = np.zeros(len(values), dtype=USER_RAY_DTYPE)
     for quantity, (k, scale) in columns.items():
         if quantity in _FIELD:
-            rays[_FIELD[quantity]] = values[:, k] * scale
+            with np.errstate(over="ignore"):   # an overflow is refused below, by the bounds
+                rays[_FIELD[quantity]] = values[:, k] * scale
     if "weight" not in columns:
         rays["weight_A"] = math.nan
     if slopes:
@@ -406,14 +413,28 @@ def read_rays_csv(path):
                       np.ones(len(values))], axis=1)
     else:
         d = values[:, [columns[q][0] for q in ("ux", "uy", "uz")]]
-    norm = np.sqrt((d * d).sum(axis=1))
+    with np.errstate(over="ignore", under="ignore"):
+        norm = np.sqrt((d * d).sum(axis=1))
     checks = [("energy", rays["energy_eV"] < 0.0, "negative"),
               ("weight", rays["weight_A"] < 0.0, "negative"),
-              ("direction", norm == 0.0, "a zero vector")]
+              ("direction", (d == 0.0).all(axis=1), "a zero vector"),
+              ("direction", ~np.isfinite(norm), "its length overflows; give components of a "
+               "reasonable size (any length is normalized)"),
+              ("direction", norm < _SMALLEST_LENGTH, "its length underflows; give "
+               "components of a reasonable size (any length is normalized)")]
+    for quantity, bound, factor in _BOUNDED:
+        if quantity in columns:
+            with np.errstate(over="ignore"):
+                checks.append((quantity, ~bound.admits(rays[_FIELD[quantity]] * factor), bound.range_text()))
     for quantity, bad, what in checks:
         if bad.any():
             number = lines[int(np.argmax(bad)) + 1][0]
-            column = "ux, uy, uz" if quantity == "direction" else names[columns[quantity][0]]
+            column = ("dx/dz, dy/dz" if slopes else "ux, uy, uz") if quantity == "direction" \
+                else names[columns[quantity][0]]
             raise ValueError(f"{path}: line {number}, column {column!r}: {what}")
+    total = float(rays["weight_A"].sum())
+    if "weight" in columns and total > BOUNDS["_A"].hi:
+        raise ValueError(f"{path}: column {names[columns['weight'][0]]!r}: the weights sum to {total:g} A, "
+                         + BOUNDS["_A"].range_text())
     rays["ux"], rays["uy"], rays["uz"] = (d / norm[:, None]).T
     return rays
