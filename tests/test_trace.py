@@ -273,6 +273,28 @@ def test_planes_record_every_crossing_and_stop_planes_end_rays():
         run.at_plane("nowhere")
 
 
+def test_twenty_planes_crossed_twice_keep_every_crossing():
+    """Twenty planes between the start and the turning point of a proton in a retarding field: each
+    ray crosses each plane on the way in and on the way back, 40 crossings, more than the first
+    pass has room for (max_crossings = 16 by default, 1 here too).  None is dropped: every plane
+    has both crossings of every ray, in order, at the energy 600 eV − 100 eV/mm · z that energy
+    conservation gives (common practice), and transmission 1 at every plane."""
+    extra = "\n".join(f'[[plane]]\nname = "p{k}"\nz_mm = {1.2 + 0.2 * k:.1f}' for k in range(20))
+    field, setup = plates(volts=1000.0, species_name="p+", energy=500.0, count=3, angle=0.0, extra=extra)
+    for room in (16, 1):
+        run = trace(field, setup.beams[0], planes=setup.planes, max_crossings=room)
+        assert len(run.crossings) == 3 * 20 * 2
+        assert (run.records["status"] == "landed").all()
+        for plane in setup.planes:
+            rows = run.at_plane(plane.name)
+            assert sorted(rows["ray"]) == [0, 0, 1, 1, 2, 2] and sorted(rows["crossing"]) == [0, 0, 0, 1, 1, 1]
+            assert (rows["pz"][rows["crossing"] == 0] > 0).all() and (rows["pz"][rows["crossing"] == 1] < 0).all()
+            assert np.allclose(rows["energy_eV"], 600.0 - 100.0 * plane.z_m * 1e3, rtol=1e-9)
+        for ray in range(3):   # each ray's crossings in order of time
+            assert (np.diff(run.crossings["time_s"][run.crossings["ray"] == ray]) > 0).all()
+        assert run.summary()["transmission"] == {p.name: 1.0 for p in setup.planes}
+
+
 def test_time_limit_and_inside_starts():
     """Rays still flying at max_time stop there on their straight line; rays that start inside an
     electrode are not traced (field-free drift: common practice)."""

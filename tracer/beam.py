@@ -119,8 +119,6 @@ class BeamRun(Shown):
     ledger : tracer.ledger.LedgerReport
     energy_scale_eV : numpy.ndarray
         The per-ray energy scale the ledger threshold refers to.
-    crossings_lost : int
-        Crossings beyond the per-ray buffer (``max_crossings``), not recorded.
     symmetry : str
         The map's symmetry ("axial" or "planar"), for the landing radius.
     crossing_rules : tuple of tracer.measure.CrossingRule
@@ -157,7 +155,6 @@ class BeamRun(Shown):
     planes: tuple
     ledger: ledger.LedgerReport
     energy_scale_eV: np.ndarray = dataclass_field(repr=False)
-    crossings_lost: int = 0
     symmetry: str = "axial"
     crossing_rules: tuple = ()
     bounds_m: tuple = ()
@@ -227,8 +224,6 @@ class BeamRun(Shown):
                        rec["ray"][(rec["status"] == "landed") & (rec["electrode"] == name)])}
                    for name, ls in measure.landings(rec, weight_A=weights, symmetry=self.symmetry).items()}
         warnings = endings.status_warnings(rec) + [w for w in (self.ledger.warning,) if w]
-        if self.crossings_lost:
-            warnings.append(f"{self.crossings_lost} plane crossing(s) not recorded (raise max_crossings)")
         return {
             "beam": self.name,
             "species": self.species.name,
@@ -300,7 +295,8 @@ def trace(field: PotentialMap | GroupedMaps, beam: Beam, planes: Sequence[Plane]
     max_steps : int
         Step budget per ray (accepted plus rejected) before it is stopped as "stalled".
     max_crossings : int
-        Plane crossings recorded per ray.
+        Room for plane crossings a ray in the first pass; every crossing is recorded all the same:
+        a ray that crosses more often is traced again with room for all of its crossings.
     progress : callable, optional
         Called as ``progress(done, total)`` as the rays are traced (in chunks of about 5 %).
     starts : numpy.ndarray, optional
@@ -343,27 +339,45 @@ def trace(field: PotentialMap | GroupedMaps, beam: Beam, planes: Sequence[Plane]
     shapes = motion.shapes_of(field.table)
     cell_map = np.ascontiguousarray(field.raster.cell)
     quiet = motion.quiet_cells(cell_map, nodes, plane_lines)
-    chunk = max(256, -(-n // 20))   # between chunks, progress is shown and Ctrl-C is seen
-    parts = []
-    for lo in range(0, max(n, 1), chunk):
-        hi = min(n, lo + chunk)
-        group = max(motion.LANES, -(-(hi - lo) // (2 * numba.get_num_threads())))  # two per thread
+    no_paths = np.zeros((0, 3, motion.ROW_LEN))
+
+    def kernel(rows, width, paths):
+        """The kernel over the rays ``rows`` (a slice or indices), with room for ``width``
+        crossings a ray."""
+        count = len(atol_p[rows])
+        group = max(motion.LANES, -(-count // (2 * numba.get_num_threads())))  # two per thread
         try:
-            parts.append(motion.trace_rays(
-                np.ascontiguousarray(state[lo:hi]), np.ascontiguousarray(starts["time_s"][lo:hi]),
+            return motion.trace_rays(
+                np.ascontiguousarray(state[rows]), np.ascontiguousarray(starts["time_s"][rows]),
                 herm, drive.waves, drive.driven, nodes, sym, bounds, cell_map, shapes,
                 float(sp.mass_kg), float(sp.charge_C), float(max_time_s), float(rtol),
-                atol_p[lo:hi], max_step_cells * cell, sample_cells * cell, fine_cells * cell,
-                plane_lines, plane_stop, int(max_steps), int(max_crossings),
-                paths_buf[lo:min(hi, keep)], quiet, group))
+                np.ascontiguousarray(atol_p[rows]), max_step_cells * cell, sample_cells * cell,
+                fine_cells * cell, plane_lines, plane_stop, int(max_steps), int(width), paths, quiet, group)
         except SystemError as exc:   # numba's parallel kernel hands a Ctrl-C back wrapped
             if by_interrupt(exc):
                 raise KeyboardInterrupt from exc
             raise
+
+    chunk = max(256, -(-n // 20))   # between chunks, progress is shown and Ctrl-C is seen
+    parts = []
+    for lo in range(0, max(n, 1), chunk):
+        hi = min(n, lo + chunk)
+        parts.append(kernel(slice(lo, hi), max_crossings, paths_buf[lo:min(hi, keep)]))
         if progress is not None:
             progress(hi, n)
     final, info, cross_plane, cross_state, spent = (np.concatenate([p[k] for p in parts])
                                                     for k in range(5))
+    counts = info[:, motion.C_CROSSINGS]
+    over = np.flatnonzero(counts > max_crossings)
+    ray_idx, plane_idx, cross_rows = _gathered(np.where(counts > max_crossings, 0, counts), cross_plane,
+                                               cross_state)
+    if over.size:   # rays that crossed planes more often than there was room for: traced again with room for all
+        final[over], info[over], wide_plane, wide_state, spent[over] = kernel(over, counts[over].max(), no_paths)
+        more_ray, more_plane, more_rows = _gathered(info[over, motion.C_CROSSINGS], wide_plane, wide_state)
+        order = np.argsort(np.concatenate([ray_idx, over[more_ray]]), kind="stable")
+        ray_idx = np.concatenate([ray_idx, over[more_ray]])[order]
+        plane_idx = np.concatenate([plane_idx, more_plane])[order]
+        cross_rows = np.concatenate([cross_rows, more_rows])[order]
     if in_time:
         scale = ledger.energy_scale_in_time_eV(starts["energy_eV"], sp.charge_C, volts, spent[:, 1])
 
@@ -390,16 +404,12 @@ def trace(field: PotentialMap | GroupedMaps, beam: Beam, planes: Sequence[Plane]
         records, np.where(codes == motion.LANDED, info[:, motion.C_ELECTRODE], -1), field.table, grid,
         sp.mass_kg)
 
-    n_cross = np.minimum(info[:, motion.C_CROSSINGS], max_crossings)
-    ray_idx = np.repeat(np.arange(n), n_cross)
-    slot = np.concatenate([np.arange(k) for k in n_cross]) if n else np.zeros(0, dtype=int)
-    plane_idx = cross_plane[ray_idx, slot]
     crossings = np.zeros(len(ray_idx), dtype=state_dtype(
         field.names, [("plane", f"U{max([1] + [len(p.name) for p in planes])}"),
                       ("crossing", np.int64)] + [(k, np.float64) for k in LOCAL_FIELDS]))
     crossings["ray"] = ray_idx
     crossings["status"] = "plane"
-    _fill_state(crossings, cross_state[ray_idx, slot])
+    _fill_state(crossings, cross_rows)
     crossings["plane"] = np.array([p.name for p in planes] + [""])[plane_idx]
     crossings["crossing"] = _occurrence(ray_idx, plane_idx, len(planes))
     for q, plane in enumerate(planes):
@@ -413,7 +423,7 @@ def trace(field: PotentialMap | GroupedMaps, beam: Beam, planes: Sequence[Plane]
     return BeamRun(name=getattr(beam, "name", ""), species=sp, starts=starts, records=records,
                    crossings=crossings, paths=paths, planes=tuple(p.name for p in planes),
                    ledger=report, energy_scale_eV=scale,
-                   crossings_lost=int((info[:, motion.C_CROSSINGS] - n_cross).sum()), symmetry=grid.symmetry,
+                   symmetry=grid.symmetry,
                    crossing_rules=rules,
                    work_eV=spent[:, 0] * sp.charge_C / constants.e if in_time else None,
                    time_zero_s=float(time_zero_s),
@@ -461,6 +471,14 @@ def plane_coordinates(rows, plane, grid):
     nz, nr, _ = plane.line()
     tz, tr = math.cos(plane.angle_rad), math.sin(plane.angle_rad)
     return u, (z - plane.z_m) * tz + (r - plane.r_m) * tr, pu, pz * tz + pr * tr, pz * nz + pr * nr
+
+
+def _gathered(counts, cross_plane, cross_state):
+    """The crossings held in per-ray buffers, ray by ray in order of time: (ray, plane, state row)
+    for the first ``counts[k]`` slots of each ray k."""
+    ray = np.repeat(np.arange(len(counts)), counts)
+    slot = np.arange(len(ray)) - np.repeat(np.cumsum(counts) - counts, counts)
+    return ray, cross_plane[ray, slot], cross_state[ray, slot]
 
 
 def incidence(rows, electrode, table, grid, mass):

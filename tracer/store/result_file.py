@@ -221,7 +221,7 @@ def write_result(path, field, runs, *, setup=None, summaries=None, author=None) 
                           "start": start, "final": final, "planes": planes,
                           "dtypes": {key: _dtype_names(getattr(run, key))
                                      for key in ("starts", "records", "crossings")},
-                          "ledger_threshold": run.ledger.threshold, "crossings_lost": run.crossings_lost,
+                          "ledger_threshold": run.ledger.threshold,
                           "crossing_rules": [[r.direction, r.crossing] for r in run.crossing_rules],
                           "time_zero_s": run.time_zero_s, "tilted_planes": list(run.tilted_planes)})
         group.attrs["format"] = RESULT_FORMAT
@@ -325,7 +325,7 @@ def _read_beam(group, particles, k, about, symmetry) -> BeamRun:
                    crossings=_copy_fields(crossings, dtypes["crossings"]),
                    paths=tuple(read_array(paths[str(i)]) for i in range(len(paths))),
                    planes=tuple(about["planes"]), ledger=report, energy_scale_eV=scale,
-                   crossings_lost=int(about["crossings_lost"]), symmetry=symmetry,
+                   symmetry=symmetry,
                    crossing_rules=tuple(CrossingRule(*r) for r in about.get("crossing_rules", ())),
                    work_eV=read_array(group[f"work_eV/{k}"]) if f"work_eV/{k}" in group else None,
                    time_zero_s=float(about.get("time_zero_s", 0.0)),
