@@ -211,7 +211,7 @@ def lane_steps(rng, h, rtol=1e-9, atol_x=1e-12, atol_p=1e-30):
     row = np.empty((1, 6))
 
     def f(s):
-        v = force.rate(a, 2e-3, 1e-3, grid, 0, mass, charge, s, row, 0)
+        v = force.rate(a, 2e-3, 1e-3, grid, 0, mass, charge, s, row, 0, None, a)
         return row[0].copy(), v
 
     states = np.empty((bundles.LANES, 6))
@@ -225,7 +225,7 @@ def lane_steps(rng, h, rtol=1e-9, atol_x=1e-12, atol_p=1e-30):
     w[bundles.W_CZ], w[bundles.W_CR], w[bundles.W_H], w[bundles.W_ATOL] = 2e-3, 1e-3, h, atol_p
     static = drive.static_drive(np.zeros((4, 11, 11)))
     stepper.lane_step(w, grid, 0, mass, charge, rtol, atol_x, drive.drive_workspace(static),
-                      static.waves, np.zeros(bundles.LANES, dtype=np.int64))
+                      static.waves, np.zeros(bundles.LANES, dtype=np.int64), None)
     return w, f, states
 
 

@@ -22,6 +22,8 @@ from tracer.geometry import surface_normals
 from tracer.schema import Beam, Plane
 from tracer.display import Shown, listing, number
 from tracer.interrupts import by_interrupt
+from tracer.magnetics.uniform import UniformField
+from tracer.magnetics.units import MagneticMap
 from tracer.stats import radius
 
 STATUS = {
@@ -261,8 +263,10 @@ def trace(field: PotentialMap | GroupedMaps, beam: Beam, planes: Sequence[Plane]
           ledger_threshold: float = ledger.DEFAULT_THRESHOLD, max_step_cells: float = 1.0,
           sample_cells: float = 0.5, fine_cells: float = 1 / 32, max_steps: int = 10_000_000,
           max_crossings: int = 16, progress: Callable[[int, int], object] | None = None,
-          starts: np.ndarray | None = None, time_zero_s: float = 0.0) -> BeamRun:
-    """Trace a beam through a potential map.
+          starts: np.ndarray | None = None, time_zero_s: float = 0.0,
+          magnetic: MagneticMap | UniformField | Sequence[MagneticMap | UniformField] | None = None
+          ) -> BeamRun:
+    """Trace a beam through a potential map, and a magnetic field when given.
 
     Parameters
     ----------
@@ -304,6 +308,11 @@ def trace(field: PotentialMap | GroupedMaps, beam: Beam, planes: Sequence[Plane]
         the beam then gives only its name and species.
     time_zero_s : float
         The clock time the planes' resolving power counts flight times from (the extraction pulse).
+    magnetic : MagneticMap, UniformField or a sequence of them, optional
+        Static magnetic fields: the force is then q (E + v x B). At most one
+        :class:`tracer.magnetics.units.MagneticMap` (coils and axial profiles, on the field's grid)
+        and any :class:`tracer.magnetics.uniform.UniformField` (see
+        :func:`tracer.motion.bundles.magnet_of`). The ledger is unchanged: B does no work.
 
     Returns
     -------
@@ -313,6 +322,7 @@ def trace(field: PotentialMap | GroupedMaps, beam: Beam, planes: Sequence[Plane]
         raise ValueError("rtol and max_time_s must be positive")
     grid = field.grid
     sym = symmetry_code(grid)
+    magnet = motion.magnet_of(grid, magnetic)
     sp = beam.species
     starts = start_states(beam, field, starts)
     n = len(starts)
@@ -352,7 +362,8 @@ def trace(field: PotentialMap | GroupedMaps, beam: Beam, planes: Sequence[Plane]
                 herm, drive.waves, drive.driven, nodes, sym, bounds, cell_map, shapes,
                 float(sp.mass_kg), float(sp.charge_C), float(max_time_s), float(rtol),
                 np.ascontiguousarray(atol_p[rows]), max_step_cells * cell, sample_cells * cell,
-                fine_cells * cell, plane_lines, plane_stop, int(max_steps), int(width), paths, quiet, group)
+                fine_cells * cell, plane_lines, plane_stop, int(max_steps), int(width), paths, quiet, group,
+                magnet)
         except SystemError as exc:   # numba's parallel kernel hands a Ctrl-C back wrapped
             if by_interrupt(exc):
                 raise KeyboardInterrupt from exc

@@ -13,6 +13,10 @@ from the radial line by its pole-face angle; a positive angle shortens the path 
 rays outside the reference orbit (the usual sign of beam-transport optics, from memory: a positive
 angle weakens horizontal focusing, and a rectangular magnet of bend phi has both angles phi/2).
 The field's edges are hard: no fringe field is modelled.
+
+The ray kernel sees a region as a kind (:data:`EVERYWHERE`, :data:`BOX`, :data:`SECTOR`) and a
+row of numbers (:meth:`Box.row`, :meth:`Sector.row`), tested by :func:`inside`; the regions'
+``contains`` use the same test.
 """
 
 from __future__ import annotations
@@ -21,8 +25,48 @@ import math
 from dataclasses import dataclass
 
 import numpy as np
+from numba import njit
 
 UNBOUNDED = (-math.inf, math.inf)
+
+EVERYWHERE, BOX, SECTOR = 0, 1, 2
+"""Region kinds of :func:`inside`."""
+ROW = 10
+"""Numbers in a region's row."""
+
+
+@njit(cache=True, error_model="numpy", inline="always")
+def inside(kind, row, x, y, z):
+    """Whether the point (x, y, z) lies in a region of kind ``kind`` given by ``row``.
+
+    A box's row is (x_lo, x_hi, y_lo, y_hi, z_lo, z_hi); a sector's (z_c, y_c, rho, half_gap,
+    entrance normal (n_z, n_y), exit point (z, y), exit normal (n_z, n_y)), its entrance point
+    on the axis at z_c, below the centre (z_c, y_c) of the reference orbit.
+    """
+    if kind == BOX:
+        return (row[0] <= x <= row[1]) and (row[2] <= y <= row[3]) and (row[4] <= z <= row[5])
+    if kind == SECTOR:
+        if (z - row[0]) * row[4] + y * row[5] < 0.0:
+            return False
+        if (z - row[6]) * row[8] + (y - row[7]) * row[9] > 0.0:
+            return False
+        return abs(math.sqrt((z - row[0]) ** 2 + (y - row[1]) ** 2) - row[2]) <= row[3]
+    return True
+
+
+@njit(cache=True, error_model="numpy")
+def _inside_many(kind, row, x, y, z, out):
+    for k in range(out.size):
+        out[k] = inside(kind, row, x[k], y[k], z[k])
+
+
+def contains_points(kind, row, x, y, z) -> np.ndarray:
+    """:func:`inside` at arrays of points (broadcast together)."""
+    x, y, z = np.broadcast_arrays(*(np.asarray(v, dtype=float) for v in (x, y, z)))
+    out = np.empty(x.shape, dtype=bool)
+    _inside_many(kind, np.asarray(row, dtype=float), np.ascontiguousarray(x).ravel(),
+                 np.ascontiguousarray(y).ravel(), np.ascontiguousarray(z).ravel(), out.ravel())
+    return out
 
 
 @dataclass(frozen=True)
@@ -33,12 +77,15 @@ class Box:
     y_m: tuple[float, float] = UNBOUNDED
     z_m: tuple[float, float] = UNBOUNDED
 
+    kind = BOX
+
+    def row(self) -> np.ndarray:
+        """The box's numbers for :func:`inside`."""
+        return np.array([*self.x_m, *self.y_m, *self.z_m], dtype=float)
+
     def contains(self, x, y, z) -> np.ndarray:
         """True at the points inside."""
-        inside = True
-        for v, (lo, hi) in ((x, self.x_m), (y, self.y_m), (z, self.z_m)):
-            inside = inside & (np.asarray(v) >= lo) & (np.asarray(v) <= hi)
-        return np.asarray(inside)
+        return contains_points(BOX, self.row(), x, y, z)
 
 
 @dataclass(frozen=True)
@@ -93,23 +140,24 @@ class Sector:
         return (zc + self.radius_m * math.sin(phi), yc - s * self.radius_m * math.cos(phi),
                 math.cos(phi), s * math.sin(phi))
 
-    def contains(self, x, y, z) -> np.ndarray:
-        """True at the points inside (x plays no part)."""
-        y = np.asarray(y, dtype=float)
-        z = np.asarray(z, dtype=float)
+    kind = SECTOR
+
+    def row(self) -> np.ndarray:
+        """The sector's numbers for :func:`inside`."""
         s = self.side
         zc, yc = self.center
         e1 = math.radians(self.entrance_face_deg)
         # entrance face normal: +z turned towards the centre by e1
-        after = (z - zc) * math.cos(e1) + y * s * math.sin(e1) >= 0.0
         z1, y1, tz, ty = self.exit_point()
         e2 = math.radians(self.exit_face_deg)
         to_center = ((zc - z1) / self.radius_m, (yc - y1) / self.radius_m)
-        nz = math.cos(e2) * tz - math.sin(e2) * to_center[0]
-        ny = math.cos(e2) * ty - math.sin(e2) * to_center[1]
-        before = (z - z1) * nz + (y - y1) * ny <= 0.0
-        band = np.abs(np.hypot(z - zc, y - yc) - self.radius_m) <= self.half_gap_m
-        return after & before & band
+        return np.array([zc, yc, self.radius_m, self.half_gap_m, math.cos(e1), s * math.sin(e1),
+                         z1, y1, math.cos(e2) * tz - math.sin(e2) * to_center[0],
+                         math.cos(e2) * ty - math.sin(e2) * to_center[1]], dtype=float)
+
+    def contains(self, x, y, z) -> np.ndarray:
+        """True at the points inside (x plays no part)."""
+        return contains_points(SECTOR, self.row(), x, y, z)
 
 
 @dataclass(frozen=True)
@@ -123,5 +171,5 @@ class UniformField:
     def field(self, x, y, z):
         """(B_x, B_y, B_z) at points (T), zero outside the region."""
         x, y, z = np.broadcast_arrays(*(np.asarray(v, dtype=float) for v in (x, y, z)))
-        inside = np.ones(x.shape, bool) if self.region is None else self.region.contains(x, y, z)
-        return tuple(np.where(inside, b, 0.0) for b in self.b_T)
+        within = np.ones(x.shape, bool) if self.region is None else self.region.contains(x, y, z)
+        return tuple(np.where(within, b, 0.0) for b in self.b_T)

@@ -4,8 +4,8 @@ Rays move by the relativistic equations of motion in momentum form,
 
     dx/dt = p / (gamma m),     dp/dt = F(x, v, t),     gamma = sqrt(1 + (|p| / (m c))^2),
 
-in 3-D Cartesian coordinates (x, y, z), z along the axis; today F = q E(x) from a (z, r)
-potential map. The rooms of the kernel, each one idea:
+in 3-D Cartesian coordinates (x, y, z), z along the axis; F = q (E(x) + v x B(x)) from a (z, r)
+potential map and the magnetic sources (none in an electric-only run). The rooms of the kernel, each one idea:
 
 * :mod:`~tracer.motion.bundles` — the named tuples the kernels take (:class:`Nodes`,
   :class:`Shapes`), the end codes, the state-row and count layouts, the lane workspace;
@@ -22,11 +22,12 @@ potential map. The rooms of the kernel, each one idea:
 from tracer.motion.bundles import (C_CODE, C_CROSSINGS, C_ELECTRODE, C_EVALS, C_PATH,
                                    C_REJECTED, C_STEPS, INSIDE, LANDED, LANES, LEFT, PLANE,
                                    ROW_KE, ROW_LEDGER, ROW_LEN, ROW_STATE, ROW_T, RUNNING, STALLED,
-                                   TIME, Nodes, Shapes, nodes_of, shapes_of)
+                                   TIME, Magnet, Nodes, Shapes, magnet_of, nodes_of,
+                                   shapes_of)
 from tracer.motion.events import quiet_cells
 from tracer.motion.lanes import trace_rays
 from tracer.motion.symmetry import SYMMETRY_CODE
 
 __all__ = ["C_CODE", "C_CROSSINGS", "C_ELECTRODE", "C_EVALS", "C_PATH", "C_REJECTED", "C_STEPS",
            "ROW_KE", "ROW_LEDGER", "ROW_LEN", "ROW_STATE", "ROW_T", "INSIDE", "LANDED", "LANES", "LEFT", "PLANE", "RUNNING", "STALLED", "SYMMETRY_CODE",
-           "TIME", "Nodes", "Shapes", "nodes_of", "quiet_cells", "shapes_of", "trace_rays"]
+           "TIME", "Magnet", "Nodes", "Shapes", "magnet_of", "nodes_of", "quiet_cells", "shapes_of", "trace_rays"]

@@ -7,12 +7,17 @@ arrays, whose arrays the kernels may write), and caches kernels that take them.
 * :class:`Shapes`: the electrode shapes (:meth:`tracer.geometry.ShapeTable.arrays`);
 * the ray end codes;
 * the layout of a state row, shared by a ray's end, its plane crossings and its path points;
+* :class:`Magnet`: the static magnetic field (absent, ``None``, in an electric-only run);
 * the lane workspace of :mod:`tracer.motion.stepper` (one column a lane).
 """
 
 from collections import namedtuple
 
+import numpy as np
 from numba import njit
+
+from tracer.magnetics.uniform import EVERYWHERE, ROW, UniformField
+from tracer.magnetics.units import MagneticMap
 
 Nodes = namedtuple("Nodes", ["z0", "r0", "hz", "hr", "nz", "nr", "z1", "r1"])
 """The node grid of a (z, r) map: first node (z0, r0), spacings (hz, hr), node counts (nz, nr)
@@ -22,10 +27,70 @@ Shapes = namedtuple("Shapes", ["kind", "owner", "start", "count", "points", "sec
 """The electrode shapes in the layout of :meth:`tracer.geometry.ShapeTable.arrays`."""
 
 
+Magnet = namedtuple("Magnet", ["herm", "coils", "kinds", "regions", "fields"])
+"""The static magnetic field as the kernel sees it (:func:`tracer.motion.force.magnetic_field`):
+``herm`` float64[4, nz, nr], the Hermite node data of A_theta on the map's nodes (coils and axial
+profiles, :class:`tracer.magnetics.units.MagneticMap`), used when ``coils`` is true; and K uniform
+fields, ``fields`` float64[K, 3] (B_x, B_y, B_z in tesla) each within its region ``kinds[k]``,
+``regions[k]`` (:func:`tracer.magnetics.uniform.region_row`). An electric-only run passes ``None``
+instead: numba then compiles the kernel without any of it."""
+
+
 def nodes_of(grid):
     """The :class:`Nodes` of a :class:`tracer.grid.Grid`."""
     return Nodes(float(grid.z0), float(grid.r0), float(grid.hz), float(grid.hr), int(grid.nz),
                  int(grid.nr), float(grid.z1), float(grid.r1))
+
+
+def magnet_of(grid, sources):
+    """The :class:`Magnet` of magnetic sources on a map's grid, or None without any.
+
+    Parameters
+    ----------
+    grid : tracer.grid.Grid
+        The potential map's grid.
+    sources : MagneticMap, UniformField, a sequence of them, or None
+        At most one :class:`tracer.magnetics.units.MagneticMap` (coils and axial profiles), on
+        ``grid`` and so in axial symmetry, and any :class:`tracer.magnetics.uniform.UniformField`.
+
+    Raises
+    ------
+    ValueError
+        For a magnetic map on another grid or in planar symmetry, or two of them.
+    TypeError
+        For anything else.
+    """
+    if sources is None:
+        return None
+    if isinstance(sources, (MagneticMap, UniformField)):
+        sources = (sources,)
+    maps = [s for s in sources if isinstance(s, MagneticMap)]
+    uniform = [s for s in sources if isinstance(s, UniformField)]
+    if len(maps) + len(uniform) != len(sources):
+        raise TypeError("magnetic sources are MagneticMap or UniformField objects")
+    if not sources:
+        return None
+    if len(maps) > 1:
+        raise ValueError("give the coils and axial profiles as one MagneticMap")
+    herm = np.zeros((4, 2, 2))
+    if maps:
+        g = maps[0].grid
+        if grid.symmetry != "axial":
+            raise ValueError(f"coils and axial profiles need an axially symmetric map, not "
+                             f"{grid.symmetry!r}")
+        if (g.z0, g.hz, g.nz, g.r0, g.hr, g.nr) != (grid.z0, grid.hz, grid.nz, grid.r0, grid.hr,
+                                                    grid.nr):
+            raise ValueError("the magnetic map lies on another grid than the potential map")
+        herm = np.ascontiguousarray(maps[0].hermite, dtype=np.float64)
+    kinds = np.array([EVERYWHERE if u.region is None else u.region.kind for u in uniform],
+                     dtype=np.int64)
+    regions = np.zeros((len(uniform), ROW))
+    for k, u in enumerate(uniform):
+        if u.region is not None:
+            row = u.region.row()
+            regions[k, :row.size] = row
+    fields = np.array([u.b_T for u in uniform], dtype=np.float64).reshape(-1, 3)
+    return Magnet(herm, bool(maps), kinds, regions, fields)
 
 
 def shapes_of(table):
@@ -73,4 +138,6 @@ W_RATE = 106    # 6: the rate at a stage point
 W_NEXT = 112    # 18: the polynomial and first corner of the cell a step is about to enter
 W_VN = 130      # the potential at the end state in that cell
 W_T = 131       # the time the step starts at
-W_ROWS = 132
+W_BPATCH = 132  # 16: the polynomial of A_theta in the cell (coils and axial profiles; Magnet)
+W_BNEXT = 148   # 16: that of the cell a step is about to enter
+W_ROWS = 164

@@ -6,9 +6,13 @@ computed once per cell for all of its steps, turned into a 3-D field by the map'
 (:mod:`tracer.motion.symmetry`).
 
 :func:`force` is the seam for new physics (DESIGN.md §11): it sees the time and the velocity, so
-a magnetic term q v x B and the time-dependent weights of several maps (the ∂V/∂t work rate it
+the magnetic term q v x B and the time-dependent weights of several maps (the ∂V/∂t work rate it
 returns, :func:`tracer.ledger.time_work`) go there, without touching the stepper or the events.
-Today the field is static: the force is qE and the work rate 0.
+
+The magnetic field (:class:`tracer.motion.bundles.Magnet`, :func:`magnetic_field`) is the curl of
+the interpolated A_theta of the coils and axial profiles, from the polynomial of the same cell as
+the potential's, plus uniform fields in their regions. It does no work, so the ledger is unchanged.
+Without a magnet (``None``) numba compiles none of this: an electric-only force is qE.
 """
 
 import math
@@ -17,6 +21,7 @@ from numba import njit
 from scipy import constants
 
 from tracer.fieldmap import cell_index, patch_coefficients, patch_eval
+from tracer.magnetics.uniform import inside
 from tracer.motion.symmetry import map_r
 
 C_LIGHT = constants.c
@@ -92,7 +97,48 @@ def patch_field(a, pz, pr, nodes, sym, x, y, z):
 
 
 @njit(cache=True, error_model="numpy", inline="always")
-def force(a, pz, pr, nodes, sym, t, x, y, z, vx, vy, vz, charge):
+def magnetic_field(magnet, b, pz, pr, nodes, x, y, z):
+    """The magnetic field at a 3-D point (see :class:`tracer.motion.bundles.Magnet`).
+
+    Parameters
+    ----------
+    magnet : Magnet
+    b : tuple of 16 float
+        The polynomial of A_theta in the cell with first corner (pz, pr) (used when
+        ``magnet.coils``, in axial symmetry), continued beyond its walls as the potential's is:
+        B_z = A/r + dA/dr (2 dA/dr on the axis), B_r = -dA/dz.
+    nodes : Nodes
+    x, y, z : float
+        The point, metres.
+
+    Returns
+    -------
+    (Bx, By, Bz) : tuple of float
+        Tesla.
+    """
+    bx, by, bz = 0.0, 0.0, 0.0
+    if magnet.coils:
+        iz, ir = 1.0 / nodes.hz, 1.0 / nodes.hr
+        r = math.sqrt(x * x + y * y)
+        zc = nodes.z0 if nodes.z0 > z else z
+        zc = nodes.z1 if nodes.z1 < zc else zc
+        rc = nodes.r1 if nodes.r1 < r else r
+        a, au, aw = patch_eval(b, (zc - pz) * iz, (rc - pr) * ir)
+        dadr = aw * ir
+        bz = a / rc + dadr if rc > 0.0 else 2.0 * dadr
+        br = -au * iz / r if r > 0.0 else 0.0
+        bx = br * x
+        by = br * y
+    for k in range(magnet.kinds.shape[0]):
+        if inside(magnet.kinds[k], magnet.regions[k], x, y, z):
+            bx += magnet.fields[k, 0]
+            by += magnet.fields[k, 1]
+            bz += magnet.fields[k, 2]
+    return bx, by, bz
+
+
+@njit(cache=True, error_model="numpy", inline="always")
+def force(a, pz, pr, nodes, sym, t, x, y, z, vx, vy, vz, charge, magnet, b):
     """The force on a charge at a 3-D point in the field of one cell (see :func:`patch_field`).
 
     Parameters
@@ -105,6 +151,9 @@ def force(a, pz, pr, nodes, sym, t, x, y, z, vx, vy, vz, charge):
         Position (metres) and velocity (m/s).
     charge : float
         Coulomb.
+    magnet, b : Magnet or None, tuple of 16 float
+        The magnetic field and the cell's polynomial of A_theta (:func:`magnetic_field`); with
+        ``None`` the force is electric only and ``b`` is not read.
 
     Returns
     -------
@@ -113,7 +162,11 @@ def force(a, pz, pr, nodes, sym, t, x, y, z, vx, vy, vz, charge):
         field).
     """
     v, ex, ey, ez = patch_field(a, pz, pr, nodes, sym, x, y, z)
-    return charge * ex, charge * ey, charge * ez, v, 0.0
+    if magnet is None:
+        return charge * ex, charge * ey, charge * ez, v, 0.0
+    bx, by, bz = magnetic_field(magnet, b, pz, pr, nodes, x, y, z)
+    return (charge * (ex + vy * bz - vz * by), charge * (ey + vz * bx - vx * bz),
+            charge * (ez + vx * by - vy * bx), v, 0.0)
 
 
 @njit(cache=True, error_model="numpy", inline="always")
@@ -125,16 +178,16 @@ def field_at(herm, nodes, sym, x, y, z):
 
 
 @njit(cache=True, error_model="numpy", inline="always")
-def rate(a, pz, pr, nodes, sym, mass, charge, s, ks, row):
+def rate(a, pz, pr, nodes, sym, mass, charge, s, ks, row, magnet, b):
     """Right-hand side of the equations of motion in the field of one cell (see
-    :func:`patch_field`) at state s (x, y, z, px, py, pz) at the start, t = 0: d(state)/dt into
-    ks[row]; returns the potential at s."""
+    :func:`patch_field`; ``magnet``, ``b`` as for :func:`force`) at state s (x, y, z, px, py, pz)
+    at the start, t = 0: d(state)/dt into ks[row]; returns the potential at s."""
     igm = inverse_gamma_mass(mass, s[3], s[4], s[5])
     ks[row, 0] = s[3] * igm
     ks[row, 1] = s[4] * igm
     ks[row, 2] = s[5] * igm
     fx, fy, fz, v, _ = force(a, pz, pr, nodes, sym, 0.0, s[0], s[1], s[2], ks[row, 0], ks[row, 1],
-                             ks[row, 2], charge)
+                             ks[row, 2], charge, magnet, b)
     ks[row, 3] = fx
     ks[row, 4] = fy
     ks[row, 5] = fz

@@ -22,9 +22,9 @@ from tracer.fieldmap import patch_coefficients
 from tracer.ledger import GAUSS_POINTS, GAUSS_THETA, kinetic_energy_J, residual_J
 from tracer.motion.bundles import (C_CODE, C_CROSSINGS, C_ELECTRODE, C_EVALS, C_PATH,
                                    C_REJECTED, C_STEPS, COUNTS, INSIDE, LANDED, LANES, LEFT,
-                                   PLANE, ROW_LEN, RUNNING, STALLED, TIME, W_ATOL, W_ERR, W_H, W_K,
-                                   W_NEXT, W_PATCH, W_ROWS, W_T, W_V1, W_VN, W_Y0, W_Y1, W_DENSE,
-                                   W_RATE, put_row)
+                                   PLANE, ROW_LEN, RUNNING, STALLED, TIME, W_ATOL, W_BNEXT,
+                                   W_BPATCH, W_ERR, W_H, W_K, W_NEXT, W_PATCH, W_ROWS, W_T, W_V1,
+                                   W_VN, W_Y0, W_Y1, W_DENSE, W_RATE, put_row)
 from tracer.motion.drive import (D_CELL, D_NEXT, Drive, drive_workspace, group_potentials, load_cell,
                                  potential_at, step_work, weigh)
 from tracer.motion.events import (EV_LINE, MAX_HALVINGS, TOUCH, bend, bow, electrode_of,
@@ -32,7 +32,7 @@ from tracer.motion.events import (EV_LINE, MAX_HALVINGS, TOUCH, bend, bow, elect
                                   r_line, touches_surface, z_line)
 from tracer.motion.force import field_at, rate, speed
 from tracer.motion.stepper import (dense, lane_next_rates, lane_rate, lane_step, propose,
-                                   put_patch, step_cap)
+                                   put_magnet_patch, put_patch, step_cap)
 from tracer.motion.symmetry import map_r
 from tracer.motion.walls import (KINK_FRACTION, SNAP, STRETCH, cell_ahead, cell_box, cell_of,
                                  excursion, exit_time, hold, kink_error, reach, wall_theta,
@@ -63,13 +63,13 @@ def work_along(w, dw, l, rc, theta, h, t0, m, waves, nodes, sym, points, phi, bu
 
 
 @njit(cache=True, error_model="numpy")
-def first_rate(w, l, y, t, dw, waves, m, nodes, sym, mass, charge, k):
+def first_rate(w, l, y, t, dw, waves, m, nodes, sym, mass, charge, k, magnet):
     """The rate at state y at time t in lane l's cell, its polynomial weighed on waveform piece m
     (:mod:`tracer.motion.drive`), into k[0]; returns the potential there."""
     weigh(dw, D_CELL, l, waves, m, t, w, W_PATCH)
     for i in range(6):
         w[W_Y1 + i, l] = y[i]
-    lane_rate(w, l, t, nodes, sym, mass, charge, W_PATCH, W_V1)
+    lane_rate(w, l, t, nodes, sym, mass, charge, W_PATCH, W_V1, magnet, W_BPATCH)
     for i in range(6):
         k[0, i] = w[W_RATE + i, l]
     return w[W_V1, l]
@@ -78,7 +78,7 @@ def first_rate(w, l, y, t, dw, waves, m, nodes, sym, mass, charge, k):
 @njit(cache=True, error_model="numpy")
 def trace_lanes(lo, hi, starts, t_start, herm, drive, nodes, sym, bounds, cell, shapes, mass,
                 charge, t_max, rtol, atol_p, max_step, sample, fine, planes, stops, max_steps,
-                final, info, cross_plane, cross_state, paths, quiet, spent):
+                final, info, cross_plane, cross_state, paths, quiet, spent, magnet):
     """Trace rays lo..hi-1 of ``starts`` on one thread, ``LANES`` at a time.
 
     Every lane holds one ray; each round, every lane chooses its step, :func:`lane_step` takes all
@@ -99,6 +99,10 @@ def trace_lanes(lo, hi, starts, t_start, herm, drive, nodes, sym, bounds, cell, 
     jump adds its work) and are at most ``drive.waves.max_step_s`` long; the ledger subtracts the
     dV/dt work (:func:`tracer.ledger.time_ledger_J`), whose sum and magnitude over the ray go to
     ``spent[r]`` (volts). With K = 0 none of this runs and the trace is the static one.
+
+    A ``magnet`` (:class:`tracer.motion.bundles.Magnet`) adds q v x B to the force, the lanes
+    keeping A_theta's polynomial of their cells beside the potential's; ``None`` compiles the
+    electric-only kernel.
     """
     w = np.zeros((W_ROWS, LANES))
     waves = drive.waves
@@ -171,14 +175,15 @@ def trace_lanes(lo, hi, starts, t_start, herm, drive, nodes, sym, bounds, cell, 
                 cj[l] = j
                 patch = patch_coefficients(herm, ci[l], cj[l], hz, hr)
                 put_patch(w, l, W_PATCH, patch, z0 + ci[l] * hz, r0 + cj[l] * hr)
+                bpatch = put_magnet_patch(w, l, W_BPATCH, magnet, ci[l], cj[l], hz, hr, patch)
                 if timed:
                     pieces[l] = piece(waves, t_start[r])
                     load_cell(dw, D_CELL, l, patch, drive, ci[l], cj[l], hz, hr)
                     v_start[l] = first_rate(w, l, y0[l], t_start[r], dw, waves, pieces[l], nodes,
-                                            sym, mass, charge, k_new)
+                                            sym, mass, charge, k_new, magnet)
                 else:
                     v_start[l] = rate(patch, z0 + ci[l] * hz, r0 + cj[l] * hr, nodes, sym, mass,
-                                      charge, y0[l], k_new, 0)
+                                      charge, y0[l], k_new, 0, magnet, bpatch)
                 for i in range(6):
                     k0[l, i] = k_new[0, i]
                     w[W_Y0 + i, l] = y0[l, i]
@@ -245,7 +250,7 @@ def trace_lanes(lo, hi, starts, t_start, herm, drive, nodes, sym, bounds, cell, 
                 continue
             w[W_H, l] = h
 
-        lane_step(w, nodes, sym, mass, charge, rtol, atol_x, dw, waves, pieces)
+        lane_step(w, nodes, sym, mass, charge, rtol, atol_x, dw, waves, pieces, magnet)
 
         # each lane checks its step: error, then the cell it ends in and the one it is entering
         for l in range(LANES):
@@ -289,6 +294,7 @@ def trace_lanes(lo, hi, starts, t_start, herm, drive, nodes, sym, bounds, cell, 
                     need[l] = True
                     patch = patch_coefficients(herm, ni, nj, hz, hr)
                     put_patch(w, l, W_NEXT, patch, z0 + ni * hz, r0 + nj * hr)
+                    put_magnet_patch(w, l, W_BNEXT, magnet, ni, nj, hz, hr, patch)
                     if timed:
                         load_cell(dw, D_NEXT, l, patch, drive, ni, nj, hz, hr)
             theta[l] = th
@@ -299,7 +305,7 @@ def trace_lanes(lo, hi, starts, t_start, herm, drive, nodes, sym, bounds, cell, 
             end_cell[l, 3] = nj
 
         # the rates in the cells the steps are entering, all lanes at once
-        lane_next_rates(w, nodes, sym, mass, charge, dw, waves, pieces)
+        lane_next_rates(w, nodes, sym, mass, charge, dw, waves, pieces, magnet)
 
         # each lane enters the next cell, or cuts its step back to the wall, or goes on
         for l in range(LANES):
@@ -467,11 +473,14 @@ def trace_lanes(lo, hi, starts, t_start, herm, drive, nodes, sym, bounds, cell, 
                     cj[l] = nj
                     for m in range(18):
                         w[W_PATCH + m, l] = w[W_NEXT + m, l]
+                    if magnet is not None:
+                        for m in range(16):
+                            w[W_BPATCH + m, l] = w[W_BNEXT + m, l]
                     if timed:
                         dw[D_CELL, :, :, l] = dw[D_NEXT, :, :, l]
                 if corner:   # the first rate of the next step on the new piece
                     first_rate(w, l, y0[l], t_new, dw, waves, pieces[l], nodes, sym, mass, charge,
-                               k_new)
+                               k_new, magnet)
                     evals[l] += 1
                     for i in range(6):
                         k0[l, i] = k_new[0, i]
@@ -529,7 +538,7 @@ def trace_lanes(lo, hi, starts, t_start, herm, drive, nodes, sym, bounds, cell, 
 @njit(cache=True, parallel=True, error_model="numpy")
 def trace_rays(starts, t_start, herm, waves, driven, nodes, sym, bounds, cell, shapes, mass, charge,
                t_max, rtol, atol_p, max_step, sample, fine, planes, stops, max_steps, max_cross,
-               paths, quiet, group):
+               paths, quiet, group, magnet):
     """Trace many rays in parallel (numba prange over groups of rays, each traced by
     :func:`trace_lanes`, whose docstring gives the layouts).
 
@@ -568,6 +577,9 @@ def trace_rays(starts, t_start, herm, waves, driven, nodes, sym, bounds, cell, s
         :func:`tracer.motion.events.quiet_cells` of the cell map and planes.
     group : int
         Rays per group (one thread traces a group, ``LANES`` rays at a time).
+    magnet : Magnet or None
+        The static magnetic field (:class:`tracer.motion.bundles.Magnet`); ``None`` for an
+        electric-only run, which compiles without it.
 
     Returns
     -------
@@ -587,5 +599,5 @@ def trace_rays(starts, t_start, herm, waves, driven, nodes, sym, bounds, cell, s
                     Drive(waves, driven), nodes, sym,
                     bounds, cell, shapes, mass, charge, t_max, rtol, atol_p, max_step, sample, fine,
                     planes, stops, max_steps, final, info, cross_plane, cross_state, paths, quiet,
-                    spent)
+                    spent, magnet)
     return final, info, cross_plane, cross_state, spent

@@ -20,8 +20,9 @@ import math
 import numpy as np
 from numba import njit
 
-from tracer.motion.bundles import (LANES, W_DENSE, W_ERR, W_ATOL, W_H, W_K, W_NEXT, W_PATCH,
-                                   W_RATE, W_T, W_V1, W_VN, W_Y0, W_Y1)
+from tracer.fieldmap import patch_coefficients
+from tracer.motion.bundles import (LANES, W_BNEXT, W_BPATCH, W_DENSE, W_ERR, W_ATOL, W_H, W_K,
+                                   W_NEXT, W_PATCH, W_RATE, W_T, W_V1, W_VN, W_Y0, W_Y1)
 from tracer.motion.drive import D_CELL, D_NEXT, weigh_lanes
 from tracer.motion.force import force, gamma_mass, inverse_gamma_mass
 from tracer.motion.tableau import DP_A, DP_C, DP_D, DP_E
@@ -38,20 +39,28 @@ def dense(rc, theta, out):
 
 
 @njit(cache=True, error_model="numpy", inline="always")
-def lane_rate(w, l, t, nodes, sym, mass, charge, patch, v_row):
+def row_patch(w, l, row):
+    """The 16 coefficients of a cell polynomial in rows row..row+15 of lane l, as a tuple."""
+    return (w[row, l], w[row + 1, l], w[row + 2, l], w[row + 3, l], w[row + 4, l],
+            w[row + 5, l], w[row + 6, l], w[row + 7, l], w[row + 8, l], w[row + 9, l],
+            w[row + 10, l], w[row + 11, l], w[row + 12, l], w[row + 13, l], w[row + 14, l],
+            w[row + 15, l])
+
+
+@njit(cache=True, error_model="numpy", inline="always")
+def lane_rate(w, l, t, nodes, sym, mass, charge, patch, v_row, magnet, bpatch):
     """The rate at lane l's point ``W_Y1`` at time t in the cell polynomial of rows
     patch..patch+17 (16 coefficients, then the first corner) into ``W_RATE``, the potential into
-    row v_row (the force from :func:`tracer.motion.force.force`)."""
+    row v_row (the force from :func:`tracer.motion.force.force`; with a magnet, the polynomial of
+    A_theta in rows bpatch..bpatch+15)."""
     igm = inverse_gamma_mass(mass, w[W_Y1 + 3, l], w[W_Y1 + 4, l], w[W_Y1 + 5, l])
     for i in range(3):
         w[W_RATE + i, l] = w[W_Y1 + 3 + i, l] * igm
-    a = (w[patch, l], w[patch + 1, l], w[patch + 2, l], w[patch + 3, l], w[patch + 4, l],
-         w[patch + 5, l], w[patch + 6, l], w[patch + 7, l], w[patch + 8, l], w[patch + 9, l],
-         w[patch + 10, l], w[patch + 11, l], w[patch + 12, l], w[patch + 13, l],
-         w[patch + 14, l], w[patch + 15, l])
+    a = row_patch(w, l, patch)
+    b = a if magnet is None else row_patch(w, l, bpatch)
     fx, fy, fz, v, _ = force(a, w[patch + 16, l], w[patch + 17, l], nodes, sym, t, w[W_Y1, l],
                              w[W_Y1 + 1, l], w[W_Y1 + 2, l], w[W_RATE, l], w[W_RATE + 1, l],
-                             w[W_RATE + 2, l], charge)
+                             w[W_RATE + 2, l], charge, magnet, b)
     w[W_RATE + 3, l] = fx
     w[W_RATE + 4, l] = fy
     w[W_RATE + 5, l] = fz
@@ -59,7 +68,7 @@ def lane_rate(w, l, t, nodes, sym, mass, charge, patch, v_row):
 
 
 @njit(cache=True, error_model="numpy", inline="always")
-def lane_stage(w, st, nodes, sym, mass, charge):
+def lane_stage(w, st, nodes, sym, mass, charge, magnet):
     """Stage st of the step in every lane: the stage point into ``W_Y1``, its rate into row
     ``W_K + 6 st`` and its potential into ``W_V1`` (see :func:`lane_rate`).
 
@@ -74,14 +83,15 @@ def lane_stage(w, st, nodes, sym, mass, charge):
             for j in range(6):   # DP_A[st, j] is 0 for j >= st: adding 0 k_j (finite) is exact
                 acc += DP_A[st, j] * w[W_K + 6 * j + i, l]
             w[W_Y1 + i, l] = w[W_Y0 + i, l] + h * acc
-        lane_rate(w, l, w[W_T, l] + DP_C[st] * h, nodes, sym, mass, charge, W_PATCH, W_V1)
+        lane_rate(w, l, w[W_T, l] + DP_C[st] * h, nodes, sym, mass, charge, W_PATCH, W_V1, magnet,
+                  W_BPATCH)
     for i in range(6):
         for l in range(LANES):
             w[W_K + 6 * st + i, l] = w[W_RATE + i, l]
 
 
 @njit(cache=True, error_model="numpy", inline="always")
-def lane_step(w, nodes, sym, mass, charge, rtol, atol_x, dw, waves, pieces):
+def lane_step(w, nodes, sym, mass, charge, rtol, atol_x, dw, waves, pieces, magnet):
     """One Dormand–Prince 5(4) step in every lane of a workspace (rows ``W_*``, one column a lane).
 
     Each lane steps from its state y0 (``W_Y0``) at time ``W_T`` with first stage rate ``W_K`` over
@@ -94,7 +104,9 @@ def lane_step(w, nodes, sym, mass, charge, rtol, atol_x, dw, waves, pieces):
 
     Voltages in time: with a drive workspace dw of K > 0 groups (:mod:`tracer.motion.drive`), the
     cell polynomial of each stage is first weighed at the stage's time on the waveform piece
-    ``pieces[l]``; with K = 0 the stages read ``W_PATCH`` as it is.
+    ``pieces[l]``; with K = 0 the stages read ``W_PATCH`` as it is. With a ``magnet``
+    (:class:`tracer.motion.bundles.Magnet`, else None) the force adds q v x B, A_theta's
+    polynomial read from ``W_BPATCH``.
 
     Each loop over lanes holds only loops of constant length and branches the compiler turns into
     selects, so it compiles to SIMD instructions over the lanes (when w is a workspace allocated
@@ -104,7 +116,7 @@ def lane_step(w, nodes, sym, mass, charge, rtol, atol_x, dw, waves, pieces):
     for st in range(1, 7):
         if timed:
             weigh_lanes(dw, D_CELL, w, W_PATCH, waves, pieces, DP_C[st])
-        lane_stage(w, st, nodes, sym, mass, charge)
+        lane_stage(w, st, nodes, sym, mass, charge, magnet)
     for l in range(LANES):
         h = w[W_H, l]
         acc2 = 0.0
@@ -129,14 +141,15 @@ def lane_step(w, nodes, sym, mass, charge, rtol, atol_x, dw, waves, pieces):
 
 
 @njit(cache=True, error_model="numpy", inline="always")
-def lane_next_rates(w, nodes, sym, mass, charge, dw, waves, pieces):
+def lane_next_rates(w, nodes, sym, mass, charge, dw, waves, pieces, magnet):
     """The rates at the end states ``W_Y1`` of all lanes in the cells they are about to enter
-    (``W_NEXT``, weighed at the step's end as in :func:`lane_step`) into ``W_RATE``, the potentials
-    into ``W_VN``: one SIMD loop over the lanes."""
+    (``W_NEXT`` and ``W_BNEXT``, weighed at the step's end as in :func:`lane_step`) into
+    ``W_RATE``, the potentials into ``W_VN``: one SIMD loop over the lanes."""
     if dw.shape[1] > 1:
         weigh_lanes(dw, D_NEXT, w, W_NEXT, waves, pieces, 1.0)
     for l in range(LANES):
-        lane_rate(w, l, w[W_T, l] + w[W_H, l], nodes, sym, mass, charge, W_NEXT, W_VN)
+        lane_rate(w, l, w[W_T, l] + w[W_H, l], nodes, sym, mass, charge, W_NEXT, W_VN, magnet,
+                  W_BNEXT)
 
 
 @njit(cache=True, error_model="numpy", inline="always")
@@ -147,6 +160,21 @@ def put_patch(w, l, row, a, pz, pr):
         w[row + m, l] = a[m]
     w[row + 16, l] = pz
     w[row + 17, l] = pr
+
+
+@njit(cache=True, error_model="numpy", inline="always")
+def put_magnet_patch(w, l, row, magnet, i, j, hz, hr, other):
+    """Write the polynomial of A_theta in cell (i, j) into rows row..row+15 of lane l and return
+    it; without a magnet, or without coils, write nothing and return ``other`` (a polynomial the
+    force will not read)."""
+    if magnet is None:
+        return other
+    if not magnet.coils:
+        return other
+    b = patch_coefficients(magnet.herm, i, j, hz, hr)
+    for m in range(16):
+        w[row + m, l] = b[m]
+    return b
 
 
 @njit(cache=True, error_model="numpy", inline="always")
