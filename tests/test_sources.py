@@ -239,8 +239,8 @@ def test_csv_slopes_and_units(tmp_path):
     ("x_mm,y_mm,z_mm,ux,uy,uz,energy_eV\n0,0,0,0,0,1,5\n0,abc,0,0,0,1,5\n", "line 3, column 'y_mm'"),
     ("x_mm,y_mm,z_mm,ux,uy,uz,energy_eV\n0,0,0,0,0,1\n", "line 2: 6 fields"),
     ("x_mm,y_mm,z_mm,ux,uy,uz,energy\n0,0,0,0,0,1,5\n", "column 7"),
-    ("x_mm,y_mm,z_mm,ux,uy,uz,energy_eV,spin\n", "unknown column 'spin'"),
-    ("x_inch,y_mm,z_mm,ux,uy,uz,energy_eV\n", "column 1: column 'x_inch' has an unknown unit 'inch'"),
+    ("x_mm,y_mm,z_mm,ux,uy,uz,energy_eV,spin\n", "column 8: not a column tracer knows"),
+    ("x_inch,y_mm,z_mm,ux,uy,uz,energy_eV\n", "column 1: the x column has a unit tracer does not know; use one of x_m"),
     ("x_mm,y_mm,z_mm,ux,uy,energy_eV\n0,0,0,0,0,5\n", "missing column"),
     ("x_mm,x_m,y_mm,z_mm,ux,uy,uz,energy_eV\n", "repeats"),
     ("x_mm,y_mm,z_mm,ux,uy,uz,energy_eV\n0,0,0,0,0,1,5\n0,0,0,0,0,0,5\n", "line 3, column 'ux, uy, uz'"),
@@ -282,3 +282,17 @@ def test_a_start_spread_leaves_the_rest_of_the_rays_alone():
     for name in ("x_m", "y_m", "z_m", "px", "py", "pz", "energy_eV"):
         assert np.array_equal(a[name], s[name])
     assert np.ptp(s["time_s"]) > 0.0
+
+
+@pytest.mark.parametrize("text", [
+    "root:x:0:0:SECRET-TEXT:/root:/bin/sh\n",                         # another file's first line as a header
+    "x_mm,y_mm,z_mm,ux,uy,uz,energy_SECRET-TEXT\n0,0,0,0,0,1,5\n",    # an unknown unit
+    "x_mm,y_mm,z_mm,ux,uy,uz,energy_eV\n0,0,0,0,0,1,SECRET-TEXT\n",   # a field that is not a number
+])
+def test_a_rays_file_error_does_not_echo_the_file(tmp_path, text):
+    """rays_csv may name any file: the message gives the line and column, never its text."""
+    path = tmp_path / "rays.csv"
+    path.write_text(text)
+    with pytest.raises(ValueError) as error:
+        read_rays_csv(path)
+    assert "SECRET" not in str(error.value) and "line " in str(error.value)

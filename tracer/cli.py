@@ -222,6 +222,7 @@ def cmd_show(args, echo) -> int:
     from tracer.report import format_summary
     from tracer.store import StoreError
     from tracer.store.result_file import read_result
+    from tracer.store.trust import printable
 
     if not Path(args.config).is_file():
         raise InputError(f"{args.config}: no such result file")
@@ -231,8 +232,8 @@ def cmd_show(args, echo) -> int:
         raise InputError(str(exc)) from exc
     echo(result.title)
     echo("")
-    for summary in result.summaries.values():
-        echo(format_summary(summary))
+    for summary in result.summaries.values():   # the file's text, its control characters escaped
+        echo(printable(format_summary(summary)))
         echo("")
     out = Path(args.out) if args.out else Path(args.config).parent
     out.mkdir(parents=True, exist_ok=True)

@@ -71,7 +71,7 @@ from scipy import constants
 
 from tracer.bounds import BOUNDS, bound_of
 from tracer.geometry import overlapping_electrodes, shape_table
-from tracer.schema import (CROSSINGS, DIRECTIONS, GRIDS, START_TIMES, THIRD_GRIDS, Arc, Beam, ConfigError, Domain, Electrode,
+from tracer.schema import (CROSSINGS, NAME, DIRECTIONS, GRIDS, START_TIMES, THIRD_GRIDS, Arc, Beam, ConfigError, Domain, Electrode,
                            GridErrorSpec, GunSpec, OpticsSpec, Plane, Polygon, Rect, ScanSpec, Setup, TraceOptions,
                            TuneSpec, Z_PLANE_RAD)
 from tracer.species import custom_species, species
@@ -91,7 +91,6 @@ _MEMORY_SHARE = 0.5          # refuse a grid needing more than this share of phy
 _MAX_NODES = 2e8             # fallback cap where physical memory cannot be asked
 _MAX_CELLS = 1e9             # per side, so that node counts stay finite numbers
 _INT64_MAX = 2**63 - 1
-_NAME = re.compile(r"[A-Za-z0-9_][A-Za-z0-9_.+\-]*")
 _BARE_KEY = re.compile(r"[A-Za-z0-9_\-]+")
 _REQUIRED = object()
 
@@ -303,7 +302,7 @@ def _choice(value, path, choices):
 def _name(value, path):
     """A name: letters, digits and _ . + - (it becomes a column and group name)."""
     text = _string(value, path)
-    if not _NAME.fullmatch(text):
+    if not NAME.fullmatch(text):
         raise ConfigError(path, f"bad name {text!r}: use letters, digits and _ . + - (not starting with . + -)")
     return text
 

@@ -12,10 +12,15 @@ import hashlib
 import json
 import math
 import pathlib
+import re
 from dataclasses import dataclass, field
 
 from tracer.species import Species, species
 from tracer.waveforms import Waveform, first_pulse_s
+
+NAME = re.compile(r"[A-Za-z0-9_][A-Za-z0-9_.+\-]*")
+"""What a name may be (electrodes, beams, planes): letters, digits and _ . + -, not first . + -;
+names become columns, groups and parts of file names, so files from elsewhere are held to it too."""
 
 
 class ConfigError(ValueError):

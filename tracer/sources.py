@@ -318,12 +318,12 @@ def _column(name, where):
     if quantity in _UNITS and unit in _UNITS[quantity]:
         return quantity, _UNITS[quantity][unit]
     base = name if name in _UNITS else quantity
-    if base in _UNITS:
+    if base in _UNITS:   # the file's own text is not echoed (it may be any file): only tracer's names
         units = ", ".join(f"{base}_{u}" for u in _UNITS[base])
-        problem = "needs a unit" if base == name else f"has an unknown unit {unit!r}"
-        raise ValueError(f"{where}: column {name!r} {problem}; use one of {units}")
+        problem = "needs a unit" if base == name else "has a unit tracer does not know"
+        raise ValueError(f"{where}: the {base} column {problem}; use one of {units}")
     known = "x_mm, y_mm, z_mm (or _m, _um, ...), ux, uy, uz or dx/dz, dy/dz, energy_eV, weight_A"
-    raise ValueError(f"{where}: unknown column {name!r}; the columns are {known}")
+    raise ValueError(f"{where}: not a column tracer knows; the columns are {known}")
 
 
 def read_rays_csv(path):
@@ -398,7 +398,7 @@ def read_rays_csv(path):
                 values[row, k] = math.nan
             if not math.isfinite(values[row, k]):
                 raise ValueError(f"{path}: line {number}, column {names[k]!r}: "
-                                 f"{text.strip()!r} is not a finite number")
+                                 "not a finite number")
     if not len(values):
         raise ValueError(f"{path}: no rays below the header")
     rays = np.zeros(len(values), dtype=USER_RAY_DTYPE)

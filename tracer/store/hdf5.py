@@ -17,6 +17,7 @@ import numpy as np
 
 from tracer import __version__
 from tracer.store import StoreError
+from tracer.store.trust import check_file
 
 
 @contextlib.contextmanager
@@ -35,6 +36,7 @@ def tracer_group(path, name, file_format, kind):
     """
     try:
         with h5py.File(path, "r") as f:
+            check_file(f, path)
             group = f.get(name)
             found = group.attrs.get("format") if isinstance(group, h5py.Group) else None
             if found != file_format:

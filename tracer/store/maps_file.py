@@ -30,6 +30,7 @@ from tracer.geometry import Raster, ShapeTable
 from tracer.grid import Grid
 from tracer.store import StoreError, openpmd
 from tracer.store.hdf5 import plain, read_array, read_fields, tracer_group, write_fields
+from tracer.store.trust import check_geometry
 
 MAPS_GROUP = "tracer/maps"
 MAPS_FORMAT = "tracer-maps-2"
@@ -139,6 +140,8 @@ def read_maps(path):
         voltages = tuple(group.attrs["voltages"].tolist())
         geometry_hash = str(group.attrs["geometry_hash"])
         stored = group.attrs.get("checksum")
+        check_geometry(path, grid, table, raster, names, voltages,
+                       {f"basis map {k}": u for k, u in enumerate(unit)})
     found = maps_checksum(grid, table, raster, names, voltages, unit, history, geometry_hash)
     if stored != found:
         raise ChecksumError(f"{path}: the maps do not match their checksum (stored {stored!r}, "

@@ -22,6 +22,7 @@ import numpy as np
 from tracer import __version__
 from tracer.store.atomic import atomic_path
 from tracer.store.hdf5 import read_array
+from tracer.store.trust import check_count
 
 OPENPMD_VERSION = "1.1.0"
 BASE_PATH = "/data/%T/"
@@ -210,7 +211,9 @@ def read_component(obj) -> np.ndarray:
     """The entries of a record component, a constant one expanded to its shape."""
     if isinstance(obj, h5py.Group):
         value = np.asarray(obj.attrs["value"])
-        return np.full(int(obj.attrs["shape"][0]), value, dtype=value.dtype)
+        n = check_count(np.asarray(obj.attrs["shape"]).reshape(-1)[0], value.dtype.itemsize, obj.name,
+                        obj.file.filename)
+        return np.full(n, value, dtype=value.dtype)
     return read_array(obj)
 
 

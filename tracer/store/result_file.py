@@ -28,11 +28,12 @@ from tracer.geometry import Raster, ShapeTable
 from tracer.grid import Grid
 from tracer.measure import CrossingRule
 from tracer.species import Species
-from tracer.store import openpmd
+from tracer.store import StoreError, openpmd
 from tracer.store.hdf5 import plain, read_array, read_fields, tracer_group, write_fields
 from tracer.store.openpmd import (CHARGE, CURRENT, DIMENSIONLESS, ELECTRIC_FIELD, ENERGY, LENGTH, MASS,
                                   MOMENTUM, PARTICLES_PATH, POTENTIAL, TIME, particle_patches,
                                   particle_record, read_component, text)
+from tracer.store.trust import check_count, check_dtype, check_geometry, check_name, printable
 from tracer.store.uncertainty_table import write_uncertainty
 
 RESULT_GROUP = "tracer/result"
@@ -86,7 +87,8 @@ def _write_species(particles, name, rows, species, weighting, codes, attrs):
 
 def _read_species(group, dtype) -> np.ndarray:
     """State records of a species written by ``_write_species`` (dtype from the file's names)."""
-    n = int(read_array(group["particlePatches/numParticles"])[0])
+    n = check_count(read_array(group["particlePatches/numParticles"]).reshape(-1)[0], dtype.itemsize,
+                    f"{group.name} numParticles", group.file.filename)
     out = np.zeros(n, dtype=dtype)
     for field in dtype.names:
         if field == "plane":
@@ -308,10 +310,23 @@ class ResultFile(Shown):
         return rays_png(self.field, list(self.beams.values()), title=self.title)
 
 
+_NEEDED = ("ray", "status", "time_s", "x_m", "y_m", "z_m", "px", "py", "pz", "energy_eV")
+"""Fields every state record of a result file has."""
+
+
 def _read_beam(group, particles, k, about, symmetry) -> BeamRun:
-    """The k-th beam of a result file, ``about`` its entry in the beams JSON."""
-    dtypes = {key: _dtype_of(names) for key, names in about["dtypes"].items()}
-    crossing_dtype = _dtype_of(about["dtypes"]["crossings"] + [["row", "<i8"]])
+    """The k-th beam of a result file, ``about`` its entry in the beams JSON; its names, record
+    types and ray indices checked as a file from elsewhere needs (:mod:`tracer.store.trust`)."""
+    path = group.file.filename
+    check_name(about["name"], "beam", path)
+    for plane in about["planes"]:
+        check_name(plane, "plane", path)
+    dtypes = {key: check_dtype(names, f"beam {about['name']!r} {key}", path)
+              for key, names in about["dtypes"].items()}
+    for key in ("starts", "records", "crossings"):
+        if not set(_NEEDED) <= set(dtypes[key].names):
+            raise StoreError(f"{path}: beam {about['name']!r} {key} lacks a field of {list(_NEEDED)}")
+    crossing_dtype = check_dtype(about["dtypes"]["crossings"] + [["row", "<i8"]], "crossings", path)
     parts = [_read_species(particles[s], crossing_dtype) for s in about["planes"].values()]
     crossings = np.concatenate(parts) if parts else np.zeros(0, crossing_dtype)
     crossings = crossings[np.argsort(crossings["row"], kind="stable")]
@@ -320,8 +335,15 @@ def _read_beam(group, particles, k, about, symmetry) -> BeamRun:
     report = ledger.ledger_report(records["ledger_eV"], scale, about["ledger_threshold"],
                                   traced=records["status"] != "inside")
     paths = group[f"paths/{k}"]
+    starts = _read_species(particles[about["start"]], dtypes["starts"])
+    n = len(records)
+    if len(starts) != n or not np.array_equal(records["ray"], np.arange(n)) \
+            or not np.array_equal(starts["ray"], np.arange(n)) or scale.shape != (n,) \
+            or (len(crossings) and (crossings["ray"].min() < 0 or crossings["ray"].max() >= n)):
+        raise StoreError(f"{path}: beam {about['name']!r}: its starts, records, crossings and energy "
+                         "scale do not agree in rays")
     return BeamRun(name=about["name"], species=Species(*about["species"]),
-                   starts=_read_species(particles[about["start"]], dtypes["starts"]), records=records,
+                   starts=starts, records=records,
                    crossings=_copy_fields(crossings, dtypes["crossings"]),
                    paths=tuple(read_array(paths[str(i)]) for i in range(len(paths))),
                    planes=tuple(about["planes"]), ledger=report, energy_scale_eV=scale,
@@ -349,9 +371,12 @@ def read_result(path: str | os.PathLike) -> ResultFile:
         phi = openpmd.read_mesh(it, "phi", grid)
         e = openpmd.read_mesh(it, "E", grid)
         voltages = group.attrs["voltages"]
+        names = tuple(json.loads(group.attrs["names"]))
+        check_geometry(path, grid, table, raster, names, voltages,
+                       {"the potential mesh": phi} | {f"the field mesh {c}": v for c, v in e.items()})
         hermite = hermite_data(phi, raster.owner, raster.arm, raster.arm_owner, voltages, grid.hz,
                                grid.hr, edge_reflection(grid.edges))
-        field = PotentialMap(grid, table, raster, tuple(json.loads(group.attrs["names"])),
+        field = PotentialMap(grid, table, raster, names,
                              tuple(voltages.tolist()), hermite)
         beams = {}
         for k, about in enumerate(json.loads(group.attrs["beams"])):
@@ -362,7 +387,7 @@ def read_result(path: str | os.PathLike) -> ResultFile:
             if run.work_eV is not None:                # voltages in time: no landing energy implied
                 context["electrode_voltages"] = {}
             beams[about["name"]] = dataclasses.replace(run, **context)
-        return ResultFile(path=Path(path), title=str(group.attrs["title"]), field=field, phi=phi,
+        return ResultFile(path=Path(path), title=printable(group.attrs["title"]), field=field, phi=phi,
                           e_z=e["z"], e_r=e["r" if grid.symmetry == "axial" else "y"], beams=beams,
                           summaries=json.loads(group.attrs["summaries"]),
                           config_text=read_array(group["config"]).decode(),
