@@ -185,6 +185,61 @@ def test_mirror_is_even_and_c1_across_the_axis():
     assert np.max(np.abs(on[:2] - below[:2])) < 1e-8
 
 
+def harmonic_quartic():
+    """V = z^4 - 3 z^2 r^2 + 3 r^4 / 8 and its derivatives: the axisymmetric series V(z) - V''(z)
+    r^2 / 4 + V''''(z) r^4 / 64 (Hawkes & Kasper, Principles of Electron Optics) of V(z) = z^4,
+    which ends there; a solution of Laplace's equation about the axis."""
+    return (lambda z, r: z ** 4 - 3 * z ** 2 * r ** 2 + 3 * r ** 4 / 8,
+            lambda z, r: 4 * z ** 3 - 6 * z * r ** 2,
+            lambda z, r: -6 * z ** 2 * r + 1.5 * r ** 3,
+            lambda z, r: -12 * z * r)
+
+
+@pytest.mark.parametrize("exact", [True, False])
+def test_first_cell_row_is_even_in_r(exact):
+    """Next to the axis E_r / r is a series in r^2 (Hawkes & Kasper, Principles of Electron
+    Optics: V(z) - V''(z) r^2 / 4 + ...), so its term linear in r vanishes: a cubic in r fitted to
+    E_r / r across the first cell has linear and cubic coefficients at round-off, with exact node
+    derivatives of the harmonic quartic and with the difference derivatives of its node values.
+    With exact derivatives the even patch reproduces the r^2 and r^4 terms exactly: along r at a
+    node, V and E_r are the quartic's own."""
+    hz, hr = 0.1, 0.1
+    fs = harmonic_quartic()
+    Z, R = node_grid(8, 6, hz, hr, z0=0.2)
+    h = (np.array([f(Z, R) for f in fs]) if exact
+         else from_values(fs[0](Z, R), hz, hr, AXIS_ONLY))
+    r = np.linspace(0.02, 1.0, 40) * hr
+    for z in (0.2 + 2 * hz, 0.2 + 3.37 * hz):
+        v, vz, vr = evaluate(h, hz, hr, np.full(r.size, z), r, mirror=True, z0=0.2)
+        c = np.polynomial.polynomial.polyfit(r, -vr / r, 3)
+        assert abs(c[1]) * hr < 1e-10 * abs(c[0]), c
+        assert abs(c[3]) * hr ** 3 < 1e-10 * abs(c[0]), c
+    v, _, vr = evaluate(h, hz, hr, np.full(r.size, 0.2 + 2 * hz), r, mirror=True, z0=0.2)
+    if exact:
+        assert np.max(np.abs(v - fs[0](0.2 + 2 * hz, r))) < 1e-14
+        assert np.max(np.abs(vr - fs[2](0.2 + 2 * hz, r))) < 1e-13
+
+
+@pytest.mark.parametrize("mirror", [True, False])
+def test_first_cell_row_is_c1_with_its_neighbours(mirror):
+    """The even patches of the first row keep C1 continuity with the second row and with each
+    other along the axis (value and both slopes equal on the shared walls, common practice for a
+    C1 interpolant), for random node data, with the axis (mirror) and without it."""
+    hz, hr = 0.1, 0.2
+    h = RNG.normal(size=(4, 6, 5))
+    h[2:, :, 0] = 0.0          # the mirrored node data have no r-slope on the axis
+    eps = 1e-10
+    z = RNG.uniform(0, 0.5, 20)
+    lo = np.array(evaluate(h, hz, hr, z, np.full(20, hr - eps), mirror=mirror))
+    hi = np.array(evaluate(h, hz, hr, z, np.full(20, hr + eps), mirror=mirror))
+    assert np.max(np.abs(lo - hi)) < 1e-6  # a jump in value or slope would be O(1)
+    r = RNG.uniform(0, hr, 20)
+    for iz in range(1, 5):
+        lo = np.array(evaluate(h, hz, hr, np.full(20, iz * hz - eps), r, mirror=mirror))
+        hi = np.array(evaluate(h, hz, hr, np.full(20, iz * hz + eps), r, mirror=mirror))
+        assert np.max(np.abs(lo - hi)) < 1e-6
+
+
 def test_outside_points_use_the_boundary_cell():
     """Clamping: beyond the last node the boundary cell's cubic continues smoothly."""
     hz = hr = 0.1

@@ -388,27 +388,30 @@ def test_quiet_cells_keep_the_event_search_near_surfaces_planes_and_edges():
     assert quiet[2, 2] and quiet[5, 3] and quiet[7, 8]
 
 
+@pytest.mark.parametrize("j", [1, 0])
 @pytest.mark.parametrize("sym", [0, 1, 2])
-def test_field_of_a_cell_is_the_map_interpolant_in_3d(sym):
+def test_field_of_a_cell_is_the_map_interpolant_in_3d(sym, j):
     """The tracer's field in one cell is the map's interpolant (tracer.fieldmap.hermite_eval),
     continued past the cell's walls, with E_r split into E_x = E_r x / r and E_y = E_r y / r in
     axial symmetry, E_y = E_r in planar and E_y = sign(y) E_r above a mirror plane (common
-    practice), for random node data."""
+    practice), for random node data; in a cell of the first row too, whose patch is even in r
+    about an axis or a mirror plane."""
     rng = np.random.default_rng(3)
     hz, hr = 0.2e-3, 0.3e-3
     herm = rng.normal(size=(4, 6, 5)) * np.array([1.0, 1 / hz, 1 / hr, 1 / (hz * hr)])[:, None, None]
     grid = Nodes(0.0, 0.0, hz, hr, 6, 5, 5 * hz, 4 * hr)
-    i, j = 2, 1
-    a = patch_coefficients(herm, i, j, hz, hr)
+    i = 2
+    a = patch_coefficients(herm, i, j, hz, hr, sym != 1)
+    even = sym != 1 and j == 0
     phi = rng.uniform(0.0, 2 * np.pi, 200)
-    rho = rng.uniform(-0.5, 1.5, 200) * hr + j * hr
+    rho = rng.uniform(-0.5 * j, 1.5, 200) * hr + j * hr   # the grid starts at r = 0
     z = rng.uniform(-0.5, 1.5, 200) * hz + i * hz
     one_cell = np.ascontiguousarray(herm[:, i:i + 2, j:j + 2])
     for ph, rk, zk in zip(phi, rho, z):
         x, y = (rk * np.cos(ph), rk * np.sin(ph)) if sym == 0 else (0.0, rk if sym == 1 else -rk)
         v, ex, ey, ez = force.patch_field(a, i * hz, j * hr, grid, sym, x, y, zk)
         # the Hermite patch of a one-cell grid, which hermite_eval continues beyond it
-        ref = hermite_eval_many(one_cell, i * hz, j * hr, hz, hr, 2, 2, False, np.array([zk]),
+        ref = hermite_eval_many(one_cell, i * hz, j * hr, hz, hr, 2, 2, even, np.array([zk]),
                                 np.array([rk]))
         e_r = -ref[2][0]
         assert v == pytest.approx(ref[0][0], rel=1e-12, abs=1e-12)

@@ -4,6 +4,18 @@ The potential between nodes is a bicubic Hermite patch per cell, built from node
 ``(V, dV/dz, dV/dr, d2V/dzdr)``; the field is minus the analytic gradient of that patch, so
 ``field`` is exactly ``-grad potential`` wherever the patch is used.
 
+The cells that touch the axis (axial symmetry) or the mirror plane (mirrored planar) are even in
+r instead.  A potential symmetric about r = 0 is a function of r^2 (V(z) - V''(z) r^2 / 4 +
+V''''(z) r^4 / 64 - ... about an axis, V(z) - V''(z) y^2 / 2 + ... about a plane; Hawkes & Kasper,
+Principles of Electron Optics), so E_r / r has no term odd in r; a bicubic in r has an r^3 term,
+which bends rays thinner than a cell like a spherical aberration of the map.  Those cells use,
+for each of the four cubic Hermite functions in z, the quadratic in s = r^2 through the value on
+the axis and the value and slope at the cell's outer row.  It needs no dV/dr on the axis (that
+slope is zero for any quadratic in s), keeps C1 continuity with the next row (same value and
+slope there) and along the axis (the same node data as the neighbours' shared wall), and
+represents the first two terms of either series exactly, whatever the charge density, so it
+holds under space charge too.  Its field is still minus its gradient.
+
 Node data are built per basis map in three linear steps, so a potential map for any voltage set is
 the weighted sum of the basis data:
 
@@ -74,8 +86,23 @@ def _to_power(v0, v1, s0, s1):
 
 
 @njit(cache=True, error_model="numpy", inline="always")
-def patch_coefficients(h, i, j, hz, hr):
-    """The bicubic Hermite patch of cell (i, j) in power form.
+def even_row(mirror, j):
+    """Whether the patches of cell row j are even in r: the first row of a map whose ``r = r0`` row
+    is the axis or a mirror plane (``mirror``)."""
+    return mirror and j == 0
+
+
+@njit(cache=True, error_model="numpy", inline="always")
+def _to_even(v0, v1, s1):
+    """Power-form coefficients (1, s, s^2, s^3) of the quadratic in s = w^2, w in [0, 1], with
+    value v0 at w = 0, value v1 and slope s1 (per unit w) at w = 1: the slope in s there is s1 / 2,
+    the s^3 coefficient zero."""
+    return v0, 2.0 * (v1 - v0) - 0.5 * s1, 0.5 * s1 - (v1 - v0), 0.0
+
+
+@njit(cache=True, error_model="numpy", inline="always")
+def patch_coefficients(h, i, j, hz, hr, mirror):
+    """The patch of cell (i, j) in power form.
 
     Parameters
     ----------
@@ -85,39 +112,54 @@ def patch_coefficients(h, i, j, hz, hr):
         The cell (nodes i, i + 1 along z and j, j + 1 along r).
     hz, hr : float
         Grid spacings.
+    mirror : bool
+        The ``r = r0`` row is the axis or a mirror plane: the cells of the first row
+        (:func:`even_row`) get the patch even in r described in the module docstring.
 
     Returns
     -------
     tuple of 16 float
-        ``a[4 p + q]``, the coefficient of u^p w^q, u and w the fractions of the cell along z and r
-        (see :func:`patch_eval`).
+        ``a[4 p + q]``, the coefficient of u^p x^q, u and w the fractions of the cell along z and
+        r, x = w (bicubic) or x = w^2 (even row; see :func:`patch_eval`).
     """
     v0 = _to_power(h[0, i, j], h[0, i + 1, j], hz * h[1, i, j], hz * h[1, i + 1, j])
     v1 = _to_power(h[0, i, j + 1], h[0, i + 1, j + 1], hz * h[1, i, j + 1], hz * h[1, i + 1, j + 1])
-    s0 = _to_power(hr * h[2, i, j], hr * h[2, i + 1, j], hz * hr * h[3, i, j], hz * hr * h[3, i + 1, j])
     s1 = _to_power(hr * h[2, i, j + 1], hr * h[2, i + 1, j + 1], hz * hr * h[3, i, j + 1],
                    hz * hr * h[3, i + 1, j + 1])
+    if even_row(mirror, j):
+        return (_to_even(v0[0], v1[0], s1[0]) + _to_even(v0[1], v1[1], s1[1])
+                + _to_even(v0[2], v1[2], s1[2]) + _to_even(v0[3], v1[3], s1[3]))
+    s0 = _to_power(hr * h[2, i, j], hr * h[2, i + 1, j], hz * hr * h[3, i, j], hz * hr * h[3, i + 1, j])
     return (_to_power(v0[0], v1[0], s0[0], s1[0]) + _to_power(v0[1], v1[1], s0[1], s1[1])
             + _to_power(v0[2], v1[2], s0[2], s1[2]) + _to_power(v0[3], v1[3], s0[3], s1[3]))
 
 
 @njit(cache=True, error_model="numpy", inline="always")
-def patch_eval(a, u, w):
+def patch_eval(a, u, w, even):
     """A patch in power form (:func:`patch_coefficients`) and its derivatives at (u, w).
+
+    Parameters
+    ----------
+    a : tuple of 16 float
+    u, w : float
+        Fractions of the cell along z and r; they may lie outside [0, 1]: the polynomial is
+        continued beyond the cell's walls.
+    even : bool
+        The patch is a polynomial in w^2 (:func:`even_row`).
 
     Returns
     -------
     (V, dV/du, dV/dw) : tuple of float
-        u and w may lie outside [0, 1]: the polynomial is continued beyond the cell's walls.
     """
-    # the cubic in w of each power of u, and its w-derivative (constant indices: the tuple stays
+    x = w * w if even else w
+    # the cubic in x of each power of u, and its x-derivative (constant indices: the tuple stays
     # in registers)
-    c0, d0 = _cubic(a[0], a[1], a[2], a[3], w)
-    c1, d1 = _cubic(a[4], a[5], a[6], a[7], w)
-    c2, d2 = _cubic(a[8], a[9], a[10], a[11], w)
-    c3, d3 = _cubic(a[12], a[13], a[14], a[15], w)
+    c0, d0 = _cubic(a[0], a[1], a[2], a[3], x)
+    c1, d1 = _cubic(a[4], a[5], a[6], a[7], x)
+    c2, d2 = _cubic(a[8], a[9], a[10], a[11], x)
+    c3, d3 = _cubic(a[12], a[13], a[14], a[15], x)
     v, vu = _cubic(c0, c1, c2, c3, u)
-    return v, vu, _cubic(d0, d1, d2, d3, u)[0]
+    return v, vu, _cubic(d0, d1, d2, d3, u)[0] * (2.0 * w if even else 1.0)
 
 
 @njit(cache=True, error_model="numpy", inline="always")
@@ -128,7 +170,8 @@ def _cubic(a0, a1, a2, a3, x):
 
 @njit(cache=True, error_model="numpy", inline="always")
 def hermite_eval(h, z0, r0, hz, hr, nz, nr, mirror, z, r):
-    """Bicubic Hermite interpolant and its gradient at one point.
+    """The map's interpolant (bicubic Hermite; even in r next to a mirror) and its gradient at one
+    point.
 
     Parameters
     ----------
@@ -139,7 +182,8 @@ def hermite_eval(h, z0, r0, hz, hr, nz, nr, mirror, z, r):
     nz, nr : int
         Node counts.
     mirror : bool
-        Even symmetry about r = r0: r is reflected and the sign of dV/dr follows.
+        Even symmetry about r = r0 (the axis or a mirror plane): r is reflected, the sign of dV/dr
+        follows, and the first cell row is even in r (:func:`even_row`).
     z, r : float
         The point.  Outside the grid the nearest boundary cell's polynomial is used.
 
@@ -153,7 +197,8 @@ def hermite_eval(h, z0, r0, hz, hr, nz, nr, mirror, z, r):
         sign = -1.0
     i = cell_index(z, z0, hz, nz)
     j = cell_index(r, r0, hr, nr)
-    v, vu, vw = patch_eval(patch_coefficients(h, i, j, hz, hr), (z - z0) / hz - i, (r - r0) / hr - j)
+    v, vu, vw = patch_eval(patch_coefficients(h, i, j, hz, hr, mirror), (z - z0) / hz - i,
+                           (r - r0) / hr - j, even_row(mirror, j))
     return v, vu / hz, sign * vw / hr
 
 

@@ -52,13 +52,13 @@ def drive_workspace(drive):
 
 
 @njit(cache=True, error_model="numpy", inline="always")
-def load_cell(dw, slot, l, a, drive, i, j, hz, hr):
-    """Put the static polynomial ``a`` of cell (i, j) and the group polynomials of that cell into
-    slot ``slot`` of lane l."""
+def load_cell(dw, slot, l, a, drive, i, j, hz, hr, mirror):
+    """Put the static polynomial ``a`` of cell (i, j) and the group polynomials of that cell
+    (``mirror`` as for ``fieldmap.patch_coefficients``) into slot ``slot`` of lane l."""
     for m in range(16):
         dw[slot, 0, m, l] = a[m]
     for k in range(drive.driven.shape[0]):
-        b = patch_coefficients(drive.driven[k], i, j, hz, hr)
+        b = patch_coefficients(drive.driven[k], i, j, hz, hr, mirror)
         for m in range(16):
             dw[slot, 1 + k, m, l] = b[m]
 

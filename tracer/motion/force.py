@@ -1,7 +1,8 @@
 """The one place where the kernel evaluates the field: potential, force and the work rate.
 
-The field comes from a (z, r) potential map through the bicubic Hermite interpolant of
-:mod:`tracer.fieldmap`, each cell's patch in power form (``fieldmap.patch_coefficients``),
+The field comes from a (z, r) potential map through the C1 interpolant of
+:mod:`tracer.fieldmap` (bicubic Hermite; even in r in the first cell row of an axial or mirrored
+map), each cell's patch in power form (``fieldmap.patch_coefficients``),
 computed once per cell for all of its steps, turned into a 3-D field by the map's symmetry
 (:mod:`tracer.motion.symmetry`).
 
@@ -57,7 +58,7 @@ def cell_of(nodes, sym, x, y, z):
 
 @njit(cache=True, error_model="numpy", inline="always")
 def patch_field(a, pz, pr, nodes, sym, x, y, z):
-    """Potential and field at a 3-D point from the bicubic polynomial of one interpolation cell.
+    """Potential and field at a 3-D point from the polynomial of one interpolation cell.
 
     Parameters
     ----------
@@ -65,7 +66,8 @@ def patch_field(a, pz, pr, nodes, sym, x, y, z):
         The cell's ``tracer.fieldmap.patch_coefficients``; the polynomial is continued beyond its
         walls.
     pz, pr : float
-        The cell's first corner (z, r).
+        The cell's first corner (z, r); pr on the first row of an axial or mirrored map
+        (symmetry code 0 or 2) says that the polynomial is even in r (``fieldmap.even_row``).
     nodes : Nodes
         The map's node grid.
     sym : int
@@ -86,7 +88,7 @@ def patch_field(a, pz, pr, nodes, sym, x, y, z):
     zc = z1 if z1 < zc else zc
     rc = r0 if r0 > r else r
     rc = r1 if r1 < rc else rc
-    v, vu, vw = patch_eval(a, (zc - pz) * iz, (rc - pr) * ir)
+    v, vu, vw = patch_eval(a, (zc - pz) * iz, (rc - pr) * ir, sym != 1 and pr == r0)
     dvdr = vw * ir
     ez = -vu * iz
     f = -dvdr / (r if r > 0.0 else 1.0)
@@ -123,7 +125,7 @@ def magnetic_field(magnet, b, pz, pr, nodes, x, y, z):
         zc = nodes.z0 if nodes.z0 > z else z
         zc = nodes.z1 if nodes.z1 < zc else zc
         rc = nodes.r1 if nodes.r1 < r else r
-        a, au, aw = patch_eval(b, (zc - pz) * iz, (rc - pr) * ir)
+        a, au, aw = patch_eval(b, (zc - pz) * iz, (rc - pr) * ir, False)
         dadr = aw * ir
         bz = a / rc + dadr if rc > 0.0 else 2.0 * dadr
         br = -au * iz / r if r > 0.0 else 0.0
@@ -173,7 +175,8 @@ def force(a, pz, pr, nodes, sym, t, x, y, z, vx, vy, vz, charge, magnet, b):
 def field_at(herm, nodes, sym, x, y, z):
     """Potential and field of the interpolant at a 3-D point (see :func:`patch_field`)."""
     i, j = cell_of(nodes, sym, x, y, z)
-    return patch_field(patch_coefficients(herm, i, j, nodes.hz, nodes.hr), nodes.z0 + i * nodes.hz,
+    return patch_field(patch_coefficients(herm, i, j, nodes.hz, nodes.hr, sym != 1),
+                       nodes.z0 + i * nodes.hz,
                        nodes.r0 + j * nodes.hr, nodes, sym, x, y, z)
 
 

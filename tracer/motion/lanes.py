@@ -173,12 +173,12 @@ def trace_lanes(lo, hi, starts, t_start, herm, drive, nodes, sym, bounds, cell, 
                 i, j = cell_ahead(nodes, sym, y0[l], snap)
                 ci[l] = i
                 cj[l] = j
-                patch = patch_coefficients(herm, ci[l], cj[l], hz, hr)
+                patch = patch_coefficients(herm, ci[l], cj[l], hz, hr, sym != 1)
                 put_patch(w, l, W_PATCH, patch, z0 + ci[l] * hz, r0 + cj[l] * hr)
                 bpatch = put_magnet_patch(w, l, W_BPATCH, magnet, ci[l], cj[l], hz, hr, patch)
                 if timed:
                     pieces[l] = piece(waves, t_start[r])
-                    load_cell(dw, D_CELL, l, patch, drive, ci[l], cj[l], hz, hr)
+                    load_cell(dw, D_CELL, l, patch, drive, ci[l], cj[l], hz, hr, sym != 1)
                     v_start[l] = first_rate(w, l, y0[l], t_start[r], dw, waves, pieces[l], nodes,
                                             sym, mass, charge, k_new, magnet)
                 else:
@@ -292,11 +292,11 @@ def trace_lanes(lo, hi, starts, t_start, herm, drive, nodes, sym, bounds, cell, 
                     th = wall_theta(rt[l], sym, box, 1.0, shapes, buf)
                 else:
                     need[l] = True
-                    patch = patch_coefficients(herm, ni, nj, hz, hr)
+                    patch = patch_coefficients(herm, ni, nj, hz, hr, sym != 1)
                     put_patch(w, l, W_NEXT, patch, z0 + ni * hz, r0 + nj * hr)
                     put_magnet_patch(w, l, W_BNEXT, magnet, ni, nj, hz, hr, patch)
                     if timed:
-                        load_cell(dw, D_NEXT, l, patch, drive, ni, nj, hz, hr)
+                        load_cell(dw, D_NEXT, l, patch, drive, ni, nj, hz, hr, sym != 1)
             theta[l] = th
             past_cell[l] = past
             end_cell[l, 0] = i1

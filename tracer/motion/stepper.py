@@ -171,7 +171,7 @@ def put_magnet_patch(w, l, row, magnet, i, j, hz, hr, other):
         return other
     if not magnet.coils:
         return other
-    b = patch_coefficients(magnet.herm, i, j, hz, hr)
+    b = patch_coefficients(magnet.herm, i, j, hz, hr, False)   # A_theta is odd in r: bicubic
     for m in range(16):
         w[row + m, l] = b[m]
     return b
