@@ -1,4 +1,4 @@
-"""The public API of DESIGN §6: the names exist and stay what they are after every module loads."""
+"""The public API (README, "From Python"): the names exist and stay what they are after every module loads."""
 
 import importlib
 import pkgutil

@@ -63,7 +63,7 @@ start_r_mm = 1.0
 name = "spray"
 species = "p+"
 energy_eV = 30.0
-energy_spread_eV = 2.0
+energy_sigma_eV = 2.0
 count = 200
 seed = 11
 start_z_mm = 11.0
@@ -134,7 +134,7 @@ CASES = [
     ("energy-negative", sub("energy_eV = 30.0", "energy_eV = -30.0"), {}, "beam[2].energy_eV", "got -30.0"),
     ("time-inf", sub("max_time_us = 20.0", "max_time_us = inf"), {}, "trace.max_time_us", "must be finite, got inf"),
     ("count-zero", sub("count = 200", "count = 0"), {}, "beam[2].count", "must be >= 1, got 0"),
-    ("spread-nan", sub("energy_spread_eV = 2.0", "energy_spread_eV = -nan"), {}, "beam[2].energy_spread_eV",
+    ("spread-nan", sub("energy_sigma_eV = 2.0", "energy_sigma_eV = -nan"), {}, "beam[2].energy_sigma_eV",
      "must be finite, got nan"),
     ("rtol-zero", add("rtol = 0.0"), {}, "trace.rtol", "must be > 0, got 0.0"),
     # reversed ranges

@@ -24,6 +24,28 @@ def test_check_describes_the_setup(capsys):
     assert "electrodes (4)" in out and "focus" in out and "nodes" in out
 
 
+def test_check_says_what_the_source_widths_and_edges_are(capsys):
+    """A Gaussian source's widths are shown as sigmas, a uniform one's as a radius and half-angle,
+    and a grounded end of the domain says that it is the default (issue 22)."""
+    assert main(["check", str(CONFIGS / "immersion_helium.toml")]) == 0
+    out = capsys.readouterr().out
+    assert "Gaussian spot, sigma 0.7 mm in x and in y, Gaussian slopes, sigma 0.1 deg, energy sigma 1 eV" in out
+    assert "closed by grounded metal" not in out        # both ends opened in this example
+    assert main(["check", str(CONFIGS / "electron_aperture.toml")]) == 0
+    out = capsys.readouterr().out
+    assert "uniform disc of radius 2 mm, uniform cone of half-angle 0 deg" in out
+    assert 'z_max: closed by grounded metal, the default for every side; [domain] edges = {z_max = "open"}' in out
+
+
+def test_run_without_a_beam_says_so_and_writes_nothing(tmp_path, capsys):
+    """A config with no [[beam]] (here the bundled gun) is refused by run, not run to empty files."""
+    out = tmp_path / "out"
+    assert main(["run", str(CONFIGS / "pierce_gun.toml"), "--out", str(out), "--quiet"]) == 2
+    err = capsys.readouterr().err
+    assert "no [[beam]] to trace" in err and "tracer gun" in err
+    assert not out.exists()
+
+
 def test_solve_writes_maps_and_picture_and_reuses_the_cache(tmp_path, cache, capsys):
     out = tmp_path / "solve"
     assert main(["solve", str(EINZEL), "--out", str(out), "--quiet"]) == 0
@@ -86,3 +108,12 @@ def test_a_terminal_without_unicode_gets_escapes_not_a_fault():
                           text=True, env={**os.environ, "PYTHONIOENCODING": "ascii"})
     assert proc.returncode == 0, proc.stderr
     assert "\\u207a" in proc.stdout and "39.9618345 u" in proc.stdout
+
+
+def test_the_tuner_prints_its_figure_in_the_reports_units():
+    """The tuner's line shows spot sizes in mm, as every other report (issue 22: it printed metres)."""
+    from tracer.report import figure_text
+
+    assert figure_text("spot_rms_m", 1.5e-4) == "spot_rms = 0.15 mm"
+    assert figure_text("energy_mean_eV", 250.0) == "energy_mean = 250 eV"
+    assert figure_text("transmission", 0.5) == "transmission = 0.5"

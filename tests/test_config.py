@@ -64,13 +64,13 @@ angles_deg = [0, 90]
 name = "argon"
 species = "40Ar+"
 energy_eV = 1500.0
-energy_spread_eV = 0.5
+energy_sigma_eV = 0.5
 temperature_K = 1200
 count = 2000
 seed = 7
 start_z_mm = 2.0
 start_r_mm = 0.5
-radius_mm = 1.0
+sigma_mm = 1.0
 profile = "gaussian"
 half_angle_deg = 0.5
 angles = "cosine"
@@ -242,6 +242,18 @@ def test_defaults():
     assert setup.source is None
 
 
+def test_gaussian_widths_are_standard_deviations():
+    """sigma_mm, sigma_angle_deg and energy_sigma_eV are standard deviations; energy_fwhm_eV is the
+    full width at half maximum, 2 sqrt(2 ln 2) sigma of a normal distribution (Gauss; common practice)."""
+    document = base()
+    beam_with(profile="gaussian", sigma_mm=1.0, angles="gaussian", sigma_angle_deg=0.25,
+              energy_fwhm_eV=2.0)(document)
+    got = check(document).beams[0]
+    assert (got.profile, got.radius_m, got.angles) == ("gaussian", 0.001, "gaussian")
+    assert got.half_angle_rad == pytest.approx(math.radians(0.25))
+    assert got.energy_spread_eV == pytest.approx(2.0 / (2.0 * math.sqrt(2.0 * math.log(2.0))))
+
+
 def test_section_defaults():
     document = base()
     document["plane"][0].pop("stop", None)
@@ -319,6 +331,15 @@ def test_trace_in_nanoseconds():
 # ---------------------------------------------------------------- errors
 
 
+def beam_with(**keys):
+    """A mutation of the base document: these keys added to its beam."""
+
+    def mutate(document):
+        document["beam"][0] |= keys
+
+    return mutate
+
+
 def put(path, value):
     """A mutation of the base document: set the value at a path of keys and indices (None deletes)."""
 
@@ -362,7 +383,7 @@ ERRORS = [
     (put(["beam", 0, "count"], 0), "beam[0].count", "must be >= 1, got 0"),
     (put(["beam", 0, "radius_mm"], -1.0), "beam[0].radius_mm", "got -1.0"),
     (put(["beam", 0, "energy_eV"], -5.0), "beam[0].energy_eV", "must be >= 0, got -5.0"),
-    (put(["beam", 0, "energy_spread_eV"], -0.1), "beam[0].energy_spread_eV", "got -0.1"),
+    (put(["beam", 0, "energy_sigma_eV"], -0.1), "beam[0].energy_sigma_eV", "got -0.1"),
     (put(["beam", 0, "temperature_K"], 0), "beam[0].temperature_K", "got 0"),
     (put(["beam", 0, "current_A"], -1e-6), "beam[0].current_A", "got -1e-06"),
     (put(["beam", 0, "seed"], -1), "beam[0].seed", "got -1"),
@@ -423,7 +444,7 @@ ERRORS = [
     (put(["electrode", 1, "rect", 0, "r_mm"], [20.0, 25.0]), "electrode[1].rect[0]", "wholly outside the domain"),
     (put(["electrode", 2, "arc", 0, "center_z_mm"], 130.0), "electrode[2].arc[0]", "wholly outside the domain"),
     (put(["electrode", 1, "rect", 0, "r_mm"], [-1.0, 7.0]), "electrode[1].rect[0].r_mm", "inner radius -1.0 is below 0 (the axis)"),
-    (put(["electrode", 1, "rect"], None), "electrode[1]", "electrode 'focus' has no shapes"),
+    (put(["electrode", 1, "rect"], None), "electrode[1]", "electrode 'focus': no shapes"),
     (put(["electrode"], []), "electrode", "at least one [[electrode]]"),
     (put(["electrode"], None), "electrode", "at least one [[electrode]]"),
     # edges
@@ -458,6 +479,14 @@ ERRORS = [
     (put(["beam", 0, "species"], "Xx+"), "beam[0].species", "unknown species 'Xx+'"),
     (put(["optics", "species"], "40Ar"), "optics.species", "no charge sign"),
     (put(["beam", 0, "species"], None), "beam[0].species", "missing"),
+    # Gaussian widths: a key that says what it is (issue 22: a sigma is not a radius)
+    (beam_with(energy_spread_eV=1.0), "beam[0].energy_spread_eV", "energy_sigma_eV (the standard deviation"),
+    (beam_with(energy_sigma_eV=1.0, energy_fwhm_eV=1.0), "beam[0].energy_fwhm_eV", "not both"),
+    (beam_with(profile="gaussian", radius_mm=1.0), "beam[0].radius_mm", "with 'gaussian' give sigma_mm"),
+    (beam_with(sigma_mm=1.0), "beam[0].sigma_mm", "with 'uniform' give radius_mm"),
+    (beam_with(angles="gaussian", half_angle_deg=0.5), "beam[0].half_angle_deg",
+     "with 'gaussian' give sigma_angle_deg"),
+    (beam_with(angles="cosine", sigma_angle_deg=1.0), "beam[0].sigma_angle_deg", "with 'cosine' give half_angle_deg"),
     # mutually exclusive or dependent keys
     (put(["trace", "max_time_ns"], 5.0), "trace.max_time_ns", "not both"),
     (put(["gun", "emission"], "thermionic"), "gun.temperature_K", "missing"),
@@ -578,6 +607,24 @@ def test_a_bad_wave_table_names_the_file_and_line(tmp_path):
         loads(dumps(document), source=tmp_path / "setup.toml")
     assert caught.value.key == "electrode[1].table.file"
     assert "'gate.csv': line 3" in caught.value.message and "not two finite numbers" in caught.value.message
+
+
+def test_errors_in_an_electrode_name_it():
+    """An error inside an electrode's table names the electrode, not only its index (issue 22)."""
+    document = base()
+    document["electrode"][1]["rect"] = [{"z_mm": [300.0, 310.0], "r_mm": [1.0, 2.0]}]
+    error = error_of(document)
+    assert error.key == "electrode[1].rect[0]" and error.message.startswith("electrode 'focus': wholly outside")
+    document["electrode"][1]["voltage_V"] = "high"
+    assert error_of(document).message.startswith("electrode 'focus': expected a number")
+
+
+def test_a_scan_names_only_electrodes_as_choices():
+    document = base()
+    document["scan"] = {"qqq": [1.0, 2.0, 2]}
+    error = error_of(document)
+    assert error.key == "scan.qqq"
+    assert error.message == "no electrode named 'qqq'; expected one of 'ground', 'focus', 'exit'"
 
 
 def test_mass_u_without_charge_e():

@@ -190,7 +190,7 @@ def test_ctrl_c_while_writing_the_result_keeps_the_old_file(trap, tmp_path, monk
     assert sorted(p.name for p in out.iterdir()) == ["result.h5"]
 
 
-LONG = TRAP.replace("count = 1\n", "count = 20000\nenergy_spread_eV = 1.0\n").replace(
+LONG = TRAP.replace("count = 1\n", "count = 20000\nenergy_sigma_eV = 1.0\n").replace(
     "max_time_us = 20.0", "max_time_us = 200.0")
 
 

@@ -19,7 +19,7 @@ from tracer.stats import rms_emittance
 
 from test_trace import plates
 
-# the record fields of DESIGN §6, with the weight column the sources provide
+# the record fields of the result (docs/reference.md), with the weight column the sources provide
 RECORD = np.dtype([("ray", np.int64), ("status", "U8"), ("electrode", "U8"), ("time_s", float),
                    ("x_m", float), ("y_m", float), ("z_m", float),
                    ("px", float), ("py", float), ("pz", float),

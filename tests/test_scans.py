@@ -2,6 +2,7 @@
 
 import concurrent.futures
 import dataclasses
+import multiprocessing
 import os
 import signal
 import subprocess
@@ -113,6 +114,24 @@ def test_serial_process_pool_threads_and_dask_give_identical_tables(setup_maps, 
                                   dashboard_address=None) as cluster, distributed.Client(cluster) as client:
         dask = scan(setup, maps, client.get_executor())
     assert dask.table.tobytes() == serial.table.tobytes()
+
+
+@pytest.mark.parametrize("method", ["spawn", "forkserver"])
+def test_a_plain_process_pool_gives_the_serial_table(setup_maps, serial, method):
+    """A user's own ProcessPoolExecutor whose workers do not fork from this process (issue 22)."""
+    setup, maps = setup_maps
+    with concurrent.futures.ProcessPoolExecutor(2, mp_context=multiprocessing.get_context(method)) as pool:
+        pooled = scan(setup, maps, pool)
+    assert pooled.table.tobytes() == serial.table.tobytes()
+
+
+def test_a_forking_process_pool_is_refused_before_any_work(setup_maps, tmp_path):
+    """fork() after numba's threads ran breaks the pool; the scan says so in one line, writes nothing."""
+    setup, maps = setup_maps
+    with concurrent.futures.ProcessPoolExecutor(2, mp_context=multiprocessing.get_context("fork")) as pool:
+        with pytest.raises(ValueError, match="^executor: a ProcessPoolExecutor that forks its workers"):
+            scan(setup, maps, pool, out=tmp_path / "scan")
+    assert not (tmp_path / "scan").exists()
 
 
 def _interrupt_after(k):

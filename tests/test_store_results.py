@@ -21,6 +21,7 @@ from tracer.store.landings_csv import LANDING_COLUMNS, read_landings_csv, write_
 from tracer.store.maps_file import write_maps
 from tracer.store.openpmd import read_component
 from tracer.store.result_file import read_result, write_result
+from tracer.sources import read_rays_csv
 
 AXIAL = """
 title = "two tubes and a target (test geometry, illustrative)"
@@ -52,7 +53,7 @@ r_mm = [0.0, 6.0]
 name = "protons"
 species = "p+"
 energy_eV = 100.0
-energy_spread_eV = 0.5
+energy_sigma_eV = 0.5
 count = 24
 seed = 4
 start_z_mm = 2.0
@@ -291,13 +292,35 @@ def test_landings_csv_round_trip(result, tmp_path):
                                ("t_ns", rec["time_s"] * 1e9), ("energy_eV", rec["energy_eV"]),
                                ("ledger_eV", rec["ledger_eV"]), ("start_energy_eV", run.starts["energy_eV"]),
                                ("incidence_deg", rec["incidence_deg"]),
-                               ("normal_energy_eV", rec["normal_energy_eV"])):
+                               ("normal_energy_eV", rec["normal_energy_eV"]),
+                               ("weight_A", np.where(rec["weight_A"] > 0, rec["weight_A"], np.nan))):
             assert np.array_equal(rows[column], values, equal_nan=True), column   # 17 digits: exact
         u = np.stack([rows["ux"], rows["uy"], rows["uz"]])
         moving = np.hypot(np.hypot(rec["px"], rec["py"]), rec["pz"]) > 0
         assert np.allclose(np.linalg.norm(u, axis=0)[moving], 1.0, rtol=1e-14)
     by_name = write_landings_csv(tmp_path / "by_name.csv", {r.name: r for r in runs})
     assert by_name.read_bytes() == path.read_bytes()
+
+
+def test_landings_csv_reads_back_as_the_start_rays_of_a_next_stage(result, tmp_path):
+    """The rays stopped on a plane, with their current, start a next stage (issue 22); a file
+    with none is refused by name."""
+    _, _, runs, _ = result
+    protons = runs[0]                                   # the beam with a current
+    assert (protons.records["weight_A"] > 0).all()
+    rec = protons.records.copy()
+    rec["status"][::3] = "plane"
+    path = write_landings_csv(tmp_path / "landings.csv", [dataclasses.replace(protons, records=rec), runs[1]])
+    rays = read_rays_csv(path)
+    stopped = rec[rec["status"] == "plane"]
+    assert len(rays) == len(stopped)
+    for field in ("x_m", "y_m", "z_m", "energy_eV", "weight_A"):
+        assert np.allclose(rays[field], stopped[field], rtol=1e-15, atol=0.0), field
+    p = np.sqrt(stopped["px"] ** 2 + stopped["py"] ** 2 + stopped["pz"] ** 2)
+    assert np.allclose(rays["uz"], stopped["pz"] / p, rtol=1e-14)
+    write_landings_csv(tmp_path / "none.csv", runs[1:])   # no ray of it stopped on a plane
+    with pytest.raises(ValueError, match="no ray stopped on a plane"):
+        read_rays_csv(tmp_path / "none.csv")
 
 
 def test_landings_csv_cells_are_those_of_the_csv_module(result, tmp_path):
@@ -323,7 +346,8 @@ def test_landings_csv_cells_are_those_of_the_csv_module(result, tmp_path):
                       np.hypot(rec["x_m"][k], rec["y_m"][k]) * 1e3, rec["time_s"][k] * 1e9,
                       rec["energy_eV"][k], rec["px"][k] / p[k], rec["py"][k] / p[k], rec["pz"][k] / p[k],
                       rec["ledger_eV"][k], r.starts["energy_eV"][rec["ray"][k]],
-                      rec["incidence_deg"][k], rec["normal_energy_eV"][k]]
+                      rec["incidence_deg"][k], rec["normal_energy_eV"][k],
+                      rec["weight_A"][k] if rec["weight_A"][k] > 0 else np.nan]
             writer.writerow([r.name, int(rec["ray"][k]), rec["status"][k], rec["electrode"][k]]
                             + [format(float(v), ".17g") for v in floats])
     assert path.read_bytes() == expected.getvalue().encode()

@@ -1,6 +1,6 @@
 """tracer: electrostatic ion and electron optics.
 
-The public API (DESIGN §6).  Names are imported lazily, on first use, so that
+The public API (README, "From Python"; docs/reference.md).  Names are imported lazily, on first use, so that
 ``import tracer`` and the command line start quickly and the numerical kernels
 are compiled (or loaded from numba's cache) only when they are needed.
 """

@@ -154,6 +154,10 @@ def _run_config(setup, args, out: Path, echo) -> int:
 
 def cmd_run(args, echo) -> int:
     setup = _load(args)
+    if not setup.beams:
+        what = "; tracer gun traces its [gun]" if setup.gun is not None else ""
+        raise InputError(f"{args.config}: no [[beam]] to trace (give one, or use tracer solve for the "
+                         f"maps alone{what})")
     return _run_config(setup, args, _out_dir(args), echo)
 
 
@@ -295,6 +299,7 @@ def cmd_scan(args, echo) -> int:
 def cmd_tune(args, echo) -> int:
     from tracer.pipeline import solve
     from tracer.plot import plot_tune
+    from tracer.report import figure_text
     from tracer.schema import scan_unit
     from tracer.tuning import tune
 
@@ -305,7 +310,7 @@ def cmd_tune(args, echo) -> int:
     maps = solve(setup, cache_dir=_cache_dir(args), progress=_progress(args, "solving"))
     result = tune(setup, maps)
     where = f" at {setup.tune.at}" if setup.tune.at else ""
-    echo(f"{setup.title}\n  goal {result.goal}{where}: {result.figure} = {result.value:.6g} "
+    echo(f"{setup.title}\n  goal {result.goal}{where}: {figure_text(result.figure, result.value)} "
          f"after {result.evaluations} voltage sets ({result.method})")
     for name, volts in result.voltages.items():
         echo(f"  {name:<16s} {volts:12.4f} {scan_unit(name)}")

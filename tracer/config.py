@@ -1,6 +1,6 @@
 """Read a setup from TOML into the frozen dataclasses of :mod:`tracer.schema`.
 
-The schema is that of the house design (DESIGN section 5). Every key that
+The schema is that of the user's guide (docs/reference.md). Every key that
 carries a unit says so in its suffix; inside, everything is SI (mm -> m,
 deg -> rad, us/ns -> s). All checks happen here, before any work: every
 problem raises a :class:`ConfigError` whose text is ``"<key path>: <message>"``
@@ -27,10 +27,12 @@ Keys (defaults in brackets; "r" stands for "y" in a domain with y_mm)::
                  width_ns|us [on for ever], fall_ns|us [0], period_ns|us, count [1];
                  [[electrode.sine]] amplitude_V, frequency_MHz|kHz, phase_deg [0];
                  [electrode.table] file (columns time_ns|time_us|time_s, voltage_V)
-    [[beam]]     name, species (or mass_u + charge_e), energy_eV, start_z_mm, energy_spread_eV [0],
-                 temperature_K, count [100], seed [0], start_r_mm [0], radius_mm [0],
-                 profile "uniform"|"gaussian", half_angle_deg [0; 90 for cosine] (0..90),
-                 angles "uniform"|"gaussian"|"cosine", current_A;
+    [[beam]]     name, species (or mass_u + charge_e), energy_eV, start_z_mm,
+                 energy_sigma_eV or energy_fwhm_eV [0] (a normal spread), temperature_K,
+                 count [100], seed [0], start_r_mm [0], profile "uniform"|"gaussian" with
+                 radius_mm [0] (uniform) or sigma_mm (gaussian: of x and of y), angles
+                 "uniform"|"gaussian"|"cosine" with half_angle_deg [0; 90 for cosine] (0..90;
+                 uniform, cosine) or sigma_angle_deg (gaussian), current_A;
                  or rays_csv (a file of start rays) in place of the distribution keys;
                  start_time_ns|us [0], start_spread_ns|us [0], start_times "uniform"|"gaussian" (FWHM)
     [[plane]]    name, z_mm, r_mm [0], angle_deg [90] (the plane's line through (z, r), from +z
@@ -208,14 +210,14 @@ def _unknown(path, key, choices, what="unknown key"):
 class _Table:
     """A TOML table being read: its key path, checked against the keys it may hold."""
 
-    def __init__(self, value, path, keys, what="unknown key", hints=None):
+    def __init__(self, value, path, keys, what="unknown key", hints=None, shown=None):
         if not isinstance(value, dict):
             raise ConfigError(path, f"expected a table, got {_show(value)}")
         for key in value:
             if key not in keys:
                 if hints and key in hints:
                     raise ConfigError(_join(path, key), hints[key])
-                raise _unknown(path, key, tuple(keys), what)
+                raise _unknown(path, key, tuple(keys if shown is None else shown), what)
         self.data = value
         self.path = path
 
@@ -553,6 +555,14 @@ def _electrode(value, path, domain, base):
     name = t.get("name", _name)
     if name == "csv":
         raise ConfigError(t.at("name"), "'csv' is reserved (it is the [scan] key for a file of voltage sets)")
+    try:
+        return _electrode_body(t, path, domain, base)
+    except ConfigError as error:   # the path gives the index; the message names the electrode
+        raise ConfigError(error.key, f"electrode {name!r}: {error.message}") from None
+
+
+def _electrode_body(t, path, domain, base):
+    """The electrode of table t (its name read): its voltage or waveform and its shapes."""
     in_time = any(t.has(part) for part in _WAVE_PARTS)
     voltage = t.get("voltage_V", _number, default=0.0 if in_time else _REQUIRED)
     waveform = _waveform(t, voltage, base) if in_time else None
@@ -565,8 +575,8 @@ def _electrode(value, path, domain, base):
             shapes.append(shape)
     if not shapes:
         tables = "[[electrode.rect]], [[electrode.polygon]] or [[electrode.arc]]"
-        raise ConfigError(path, f"electrode {name!r} has no shapes; give {tables}")
-    return Electrode(name, voltage, tuple(shapes), waveform)
+        raise ConfigError(path, f"no shapes; give {tables}")
+    return Electrode(t.data["name"], voltage, tuple(shapes), waveform)
 
 
 # ---------------------------------------------------------------- waveforms
@@ -739,12 +749,12 @@ def _species_of(t, default=_REQUIRED):
 def _beam(value, path, domain, base):
     side = _side(domain)
     start_r = f"start_{side.letter}_mm"
-    distribution = ("energy_eV", "energy_spread_eV", "temperature_K", "count", "start_z_mm", start_r,
-                    "radius_mm", "profile", "half_angle_deg", "angles")
+    distribution = ("energy_eV", "energy_sigma_eV", "energy_fwhm_eV", "temperature_K", "count", "start_z_mm",
+                    start_r, "radius_mm", "sigma_mm", "profile", "half_angle_deg", "sigma_angle_deg", "angles")
     timing = tuple(f"{stem}_{u}" for stem in ("start_time", "start_spread") for u in _TIME_KEYS)
     keys = ("name", "species", "mass_u", "charge_e", "seed", "current_A", "rays_csv", "start_times") \
         + timing + distribution
-    t = _Table(value, path, keys, hints=side.hint("start_{}_mm"))
+    t = _Table(value, path, keys, hints=side.hint("start_{}_mm") | _SPREAD_HINT)
     name = t.get("name", _name)
     kind = _species_of(t)
     seed = t.get("seed", _integer, default=0)
@@ -760,26 +770,57 @@ def _beam(value, path, domain, base):
         _check_rays_csv(rays_csv, t.at("rays_csv"), current)
         return Beam(name, kind, None, None, count=None, seed=seed, current_A=current, rays_csv=rays_csv, **when)
     angles = t.get("angles", _choice, default="uniform", choices=("uniform", "gaussian", "cosine"))
+    profile = t.get("profile", _choice, default="uniform", choices=("uniform", "gaussian"))
     beam = Beam(
         name,
         kind,
         energy_eV=t.get("energy_eV", _number, low=0.0),
         start_z_m=t.get("start_z_mm", _number) / _MM_PER_M,
-        energy_spread_eV=t.get("energy_spread_eV", _number, default=0.0, low=0.0),
+        energy_spread_eV=_energy_sigma(t),
         temperature_K=t.get("temperature_K", _positive, default=None),
         count=t.get("count", _integer, default=100, low=1),
         seed=seed,
         start_r_m=t.get(start_r, _number, default=0.0) / _MM_PER_M,
-        radius_m=t.get("radius_mm", _number, default=0.0, low=0.0) / _MM_PER_M,
-        profile=t.get("profile", _choice, default="uniform", choices=("uniform", "gaussian")),
-        half_angle_rad=t.get("half_angle_deg", _number, default=90.0 if angles == "cosine" else 0.0,
-                             low=0.0, high=90.0) * _DEG,
+        radius_m=_width(t, profile, "radius_mm", "sigma_mm", _PROFILE_WORDS) / _MM_PER_M,
+        profile=profile,
+        half_angle_rad=_width(t, angles, "half_angle_deg", "sigma_angle_deg", _ANGLE_WORDS,
+                              default=90.0 if angles == "cosine" else 0.0, high=90.0) * _DEG,
         angles=angles,
         current_A=current,
         **when,
     )
     _check_start(beam, t, domain, side.letter)
     return beam
+
+
+_FWHM_PER_SIGMA = 2.0 * math.sqrt(2.0 * math.log(2.0))
+"""Full width at half maximum of a normal distribution, in standard deviations."""
+
+_SPREAD_HINT = {"energy_spread_eV": "say which width the energy spread is: energy_sigma_eV (the standard "
+                                    "deviation of a normal spread) or energy_fwhm_eV (its full width at half maximum)"}
+
+_PROFILE_WORDS = {"radius_mm": "the radius of a uniform disc",
+                  "sigma_mm": "the standard deviation of x and of y of a Gaussian profile"}
+_ANGLE_WORDS = {"half_angle_deg": "the half-angle of a cone (uniform or cosine angles)",
+                "sigma_angle_deg": "the standard deviation of the slopes x' and y' of Gaussian angles"}
+
+
+def _energy_sigma(t):
+    """The energy spread's standard deviation in eV, from energy_sigma_eV or energy_fwhm_eV."""
+    if t.has("energy_sigma_eV") and t.has("energy_fwhm_eV"):
+        raise ConfigError(t.at("energy_fwhm_eV"), "give energy_sigma_eV or energy_fwhm_eV, not both")
+    if t.has("energy_fwhm_eV"):
+        return t.get("energy_fwhm_eV", _number, low=0.0) / _FWHM_PER_SIGMA
+    return t.get("energy_sigma_eV", _number, default=0.0, low=0.0)
+
+
+def _width(t, law, uniform_key, gaussian_key, words, default=0.0, high=None):
+    """A source width that says what it is: ``uniform_key`` (a radius or half-angle) for every law
+    but "gaussian", ``gaussian_key`` (a standard deviation) for "gaussian"; the other one is refused."""
+    key, wrong = (gaussian_key, uniform_key) if law == "gaussian" else (uniform_key, gaussian_key)
+    if t.has(wrong):
+        raise ConfigError(t.at(wrong), f"{words[wrong]}; with {law!r} give {key} ({words[key]})")
+    return t.get(key, _number, default=default, low=0.0, high=high)
 
 
 def _check_rays_csv(file, path, current):
@@ -884,7 +925,7 @@ def _grid_error(value, path):
 
 def _scan(value, path, names, base, electrodes):
     parameters = tuple(k for k in value if "[" in k) if isinstance(value, dict) else ()
-    t = _Table(value, path, names + ("csv",) + parameters, what="no electrode named")
+    t = _Table(value, path, names + ("csv",) + parameters, what="no electrode named", shown=names)
     if t.has("csv"):
         if len(t.data) > 1:
             other = next(k for k in t.data if k != "csv")

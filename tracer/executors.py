@@ -1,7 +1,7 @@
 """Running voltage sets on any executor: the work of one set, and the process pool.
 
 A :class:`Context` holds everything one voltage set needs (the basis maps, the beams, the planes,
-the trace options) and measures a set: the maps combined (no new Laplace solve, DESIGN §2), every
+the trace options) and measures a set: the maps combined (no new Laplace solve), every
 beam traced, the figures of :func:`tracer.measure.row`.  Sets are independent and deterministic, so
 a table is the same, bit for bit, whichever executor ran them.  :func:`run_sets` hands them to any
 :class:`concurrent.futures.Executor` and reports each as it completes: its own process pool
@@ -235,6 +235,29 @@ def process_pool(context, workers=None):
         ctx = multiprocessing.get_context("spawn")
     return ProcessPoolExecutor(workers, mp_context=ctx,
                                initializer=_init_worker, initargs=(context, threads))
+
+
+def refuse_forking_pool(executor) -> None:
+    """Refuse, before any work, a process pool that would fork its workers from this process.
+
+    numba's parallel kernels leave threads (GNU OpenMP's among them) in a process that has traced;
+    a child forked from it hangs or dies ("fork() called from a process already using GNU
+    OpenMP") and the pool breaks.  A pool whose workers are spawned or forked from a fresh server
+    ("spawn", "forkserver") is safe, as is every executor that is not a process pool.
+
+    Raises
+    ------
+    ValueError
+        For a :class:`concurrent.futures.ProcessPoolExecutor` with the "fork" start method (the
+        default of Python before 3.14 on Linux), saying how to make one that works.
+    """
+    context = getattr(executor, "_mp_context", None)
+    if isinstance(executor, ProcessPoolExecutor) and context is not None \
+            and context.get_start_method() == "fork":
+        raise ValueError(
+            "executor: a ProcessPoolExecutor that forks its workers cannot run tracer's parallel "
+            "kernels; make it with mp_context=multiprocessing.get_context('forkserver') (or "
+            "'spawn'), or pass no executor for tracer's own pool")
 
 
 def _submitter(executor, context, own_pool):

@@ -628,9 +628,9 @@ def shape_table(electrodes, domain):
             bbox[j] = (min(zs), max(zs), min(rs), max(rs))
     points = np.array(points, dtype=np.float64).reshape(-1, 2)
     (z0, z1), (r0, r1) = domain.z_m, domain.r_m
-    for j, (_, key, _, _) in enumerate(rows):
+    for j, (i, key, _, _) in enumerate(rows):
         if not _meets_rect(j, z0, z1, r0, r1, kind, start, count, points, sector, bbox):
-            raise ConfigError(key, "the shape lies wholly outside the domain")
+            raise ConfigError(key, f"electrode {electrodes[i].name!r}: the shape lies wholly outside the domain")
     clipped = np.column_stack(
         (np.maximum(bbox[:, 0], z0), np.minimum(bbox[:, 1], z1), np.maximum(bbox[:, 2], r0), np.minimum(bbox[:, 3], r1))
     )

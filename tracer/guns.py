@@ -18,7 +18,7 @@ Emission sites
     are turned to golden-angle azimuths (the fields are axisymmetric, so this changes nothing but
     lets the x-x' statistics at the planes see a round beam).
 
-Self-consistency (DESIGN §2)
+Self-consistency
     Each iteration evaluates the emission in the present field, traces the rays, deposits their
     charge (:mod:`tracer.deposit`, with the layer between the surface and d filled as the
     emission law's potential profile prescribes), solves Poisson's equation with every electrode

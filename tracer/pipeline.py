@@ -1,6 +1,6 @@
 """The steps from a setup to results: ``tracer.solve`` and ``tracer.run``.
 
-Each step is a function of the previous step's output (DESIGN §2); the command line and the
+Each step is a function of the previous step's output; the command line and the
 Python API call the same functions.
 """
 

@@ -28,7 +28,7 @@ def describe(setup) -> str:
         f"{side} {d.r_m[0] * 1e3:g}..{d.r_m[1] * 1e3:g} mm, cell {d.cell_m * 1e3:g} mm "
         f"({g.nz} x {g.nr} = {g.nz * g.nr:,} nodes)",
         "edges: " + ", ".join(f"{s} {k}" for s, k in
-                              zip(("z_min", "z_max", f"{side}_min", f"{side}_max"), d.edges)),
+                              zip(("z_min", "z_max", f"{side}_min", f"{side}_max"), d.edges)) + _closed_ends(d),
         f"electrodes ({len(setup.electrodes)}):",
     ]
     for e in setup.electrodes:
@@ -41,7 +41,7 @@ def describe(setup) -> str:
             lines.append(f"beam {b.name}: {b.species.describe()}; start rays from {b.rays_csv.name!r}")
             continue
         lines.append(f"beam {b.name}: {b.count} x {b.species.describe()}; at {b.energy_eV:g} eV, "
-                     f"from z = {b.start_z_m * 1e3:g} mm")
+                     f"from z = {b.start_z_m * 1e3:g} mm; {_source_widths(b)}")
     for p in setup.planes:
         where = (f"the line through z = {p.z_m * 1e3:g} mm, {side} = {p.r_m * 1e3:g} mm at "
                  f"{math.degrees(p.angle_rad):g} deg from +z" if p.tilted else f"z = {p.z_m * 1e3:g} mm")
@@ -131,6 +131,31 @@ def _left(s):
                         title="left the domain")
 
 
+def _closed_ends(domain):
+    """A note when an end of the domain is grounded metal (the default edges), else ""."""
+    ends = [e for e, kind in zip(("z_min", "z_max"), domain.edges) if kind == "ground"]
+    if not ends:
+        return ""
+    opened = ", ".join(f'{e} = "open"' for e in ends)
+    return (f" ({' and '.join(ends)}: closed by grounded metal, the default for every side; "
+            f"[domain] edges = {{{opened}}} opens {'them' if len(ends) > 1 else 'it'})")
+
+
+def _source_widths(beam):
+    """The beam's source widths in words that say what they are (a sigma is not a radius)."""
+    if beam.profile == "gaussian":
+        spot = f"Gaussian spot, sigma {beam.radius_m * 1e3:g} mm in x and in y"
+    else:
+        spot = f"uniform disc of radius {beam.radius_m * 1e3:g} mm"
+    angle = math.degrees(beam.half_angle_rad)
+    if beam.angles == "gaussian":
+        cone = f"Gaussian slopes, sigma {angle:g} deg"
+    else:
+        cone = f"{beam.angles} cone of half-angle {angle:g} deg"
+    energy = f", energy sigma {beam.energy_spread_eV:g} eV" if beam.energy_spread_eV else ""
+    return f"{spot}, {cone}{energy}"
+
+
 def format_summary(summary: dict) -> str:
     """The summary of one beam (``BeamRun.summary()``) as readable tables.
 
@@ -203,6 +228,13 @@ def _unit(name):
         if name.endswith(suffix):
             return name[:-len(suffix)], unit, factor
     return name, "", 1.0
+
+
+def figure_text(name, value) -> str:
+    """A figure named with an SI suffix (``spot_rms_m``) as the reports print it: ``spot_rms =
+    0.1234 mm``."""
+    short, unit, factor = _unit(name)
+    return f"{short} = {value * factor:.6g}" + (f" {unit}" if unit else "")
 
 
 def _digits(value, error):

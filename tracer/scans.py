@@ -39,7 +39,7 @@ import numpy as np
 from tracer.bounds import BOUNDS
 from tracer.config import tied_message
 from tracer.display import Shown, listing, number
-from tracer.executors import Context, run_sets
+from tracer.executors import Context, refuse_forking_pool, run_sets
 from tracer.geometry import overlapping_electrodes, shape_table
 from tracer.journal import CSV_NAME, Rows, config_hash, read_csv
 from tracer.schema import ConfigError, Setup, scan_column
@@ -189,7 +189,8 @@ def scan(setup: Setup, maps: BasisMaps | None = None, executor: Executor | None 
         the maps once per worker by a broadcast scatter; any other executor gets them with every
         set (cheap for threads).  Default: :func:`tracer.executors.process_pool` with ``workers``
         processes, whose initializer hands each worker the maps once; with ``workers=1``, no
-        executor: the sets run one after another in this process.
+        executor: the sets run one after another in this process.  A process pool must not
+        fork its workers from this process (:func:`tracer.executors.refuse_forking_pool`).
     out : str or os.PathLike, optional
         Folder for ``scan.csv`` and ``scan.h5``; finished sets found there are skipped.  None: no
         files.
@@ -212,7 +213,10 @@ def scan(setup: Setup, maps: BasisMaps | None = None, executor: Executor | None 
     KeyboardInterrupt
         After an interrupt (also one raised by ``progress``): the finished rows are kept in the files
         and the sets not started are cancelled; running again continues where it stopped.
+    ValueError
+        For a process pool that forks its workers, before any work.
     """
+    refuse_forking_pool(executor)
     t_start = time.perf_counter()
     names, sets = voltage_sets(setup)
     if maps is None:

@@ -80,6 +80,7 @@ are without it.
 from __future__ import annotations
 
 import csv
+import io
 import math
 from pathlib import Path
 
@@ -310,6 +311,32 @@ _BOUNDED = (("x", BOUNDS["_mm"], 1e3), ("y", BOUNDS["_mm"], 1e3), ("z", BOUNDS["
 _SMALLEST_LENGTH = 1e-150
 
 
+_RAY_COLUMNS = ("x_mm", "y_mm", "z_mm", "ux", "uy", "uz", "energy_eV", "weight_A")
+"""The columns of a landings file that make a start ray."""
+
+
+def _stopped_rays(path, names, lines):
+    """The header and lines of a landings file reduced to the rays stopped on a plane and the
+    columns of a start ray (``weight_A`` only when every such ray has one)."""
+    rows = [(number, next(csv.reader([line]))) for number, line in lines[1:]]
+    status = names.index("status")
+    rows = [(number, fields) for number, fields in rows if len(fields) == len(names) and fields[status] == "plane"]
+    if not rows:
+        raise ValueError(f"{path}: a landings file with no ray stopped on a plane (status 'plane')")
+    keep = [c for c in _RAY_COLUMNS if c in names and not (
+        c == "weight_A" and any(not math.isfinite(float(f[names.index(c)])) for _, f in rows))]
+    at = [names.index(c) for c in keep]
+    out = io.StringIO()
+    writer = csv.writer(out, lineterminator="")
+    lines = [(lines[0][0], ",".join(keep))]
+    for number, fields in rows:
+        writer.writerow([fields[k] for k in at])
+        lines.append((number, out.getvalue()))
+        out.seek(0)
+        out.truncate()
+    return keep, lines
+
+
 def _column(name, where):
     """(quantity, scale to SI) of a header name such as ``x_mm``."""
     if name in _UNITLESS:
@@ -341,6 +368,11 @@ def read_rays_csv(path):
     * ``weight_<u>``: optional current carried by the ray, ``<u>`` A, mA,
       uA, nA or pA (>= 0).
 
+    A ``landings.csv`` written by a run reads as the rays that stopped on a plane
+    (status ``plane``: where an earlier stage ended), with their positions,
+    directions, energies and, when the beam had a current, weights; its other
+    columns are ignored.
+
     Parameters
     ----------
     path : str or pathlib.Path
@@ -368,6 +400,8 @@ def read_rays_csv(path):
         raise ValueError(f"{path}: no header line")
     head_line, head = lines[0]
     names = [s.strip() for s in next(csv.reader([head]))]
+    if {"beam", "status"} <= set(names):
+        names, lines = _stopped_rays(path, names, lines)
     columns = {}
     for k, name in enumerate(names, start=1):
         where = f"{path}: line {head_line}, column {k}"

@@ -2,7 +2,7 @@
 
 Every trial traces the setup's first beam at one voltage set through the combined basis maps and
 measures it with :func:`tracer.measure.row`, so a trial is exactly a scan row.  Goals
-(``[tune] goal``, DESIGN §5) and what is minimised:
+(``[tune] goal``, docs/reference.md) and what is minimised:
 
 ``smallest_spot`` (at a plane)
     The rms spot radius about the centroid, with the rays that never reach the plane counted at the

@@ -17,11 +17,13 @@ LANDING_COLUMNS = (
     ("x_mm", np.float64), ("y_mm", np.float64), ("z_mm", np.float64), ("r_mm", np.float64),
     ("t_ns", np.float64), ("energy_eV", np.float64), ("ux", np.float64), ("uy", np.float64),
     ("uz", np.float64), ("ledger_eV", np.float64), ("start_energy_eV", np.float64),
-    ("incidence_deg", np.float64), ("normal_energy_eV", np.float64),
+    ("incidence_deg", np.float64), ("normal_energy_eV", np.float64), ("weight_A", np.float64),
 )
 """Columns of ``landings.csv``: the unit of every quantity is in its name (direction cosines ux,
 uy, uz are unitless; r is the distance from the z axis; the angle of incidence from the surface
-normal and the normal energy are those of a landing, empty (nan) for other rays)."""
+normal and the normal energy are those of a landing, empty (nan) for other rays; ``weight_A`` the
+current each ray carries, nan when the beam gives none).  The file reads back as a beam's
+``rays_csv`` (:func:`tracer.sources.read_rays_csv`: the rays stopped on a plane)."""
 
 _CSV_END = "\r\n"
 """The line end of ``landings.csv`` (the csv module's default)."""
@@ -41,6 +43,7 @@ def _landing_columns(run) -> dict:
         "start_energy_eV": run.starts["energy_eV"][rec["ray"]],
         **{name: rec[name] if name in rec.dtype.names else np.full(len(rec), np.nan)
            for name in ("incidence_deg", "normal_energy_eV")},
+        "weight_A": np.where(rec["weight_A"] > 0.0, rec["weight_A"], np.nan),
     }
 
 
