@@ -284,3 +284,22 @@ def test_a_bad_rule_from_python_is_refused_before_tracing(mirror):
     plane = dataclasses.replace(setup.planes[0], direction="sideways")
     with pytest.raises(ValueError, match="direction 'sideways'"):
         trace(field, setup.beams[0], planes=(plane,))
+
+
+def test_the_rms_ellipse_encloses_pi_times_the_rms_emittance():
+    """The phase-space figure's ellipse: area π ε_rms (Lapostolle 1971; Sacherer 1971), centred on
+    the centroid, through the points with d^T S^-1 d = 1."""
+    from tracer.plot import rms_ellipse
+    from tracer.stats import rms_emittance
+
+    rng = np.random.default_rng(3)
+    u = 1e-3 * rng.standard_normal(5000) + 2e-4
+    slope = 0.4 * u + 2e-3 * rng.standard_normal(5000)
+    eu, es = rms_ellipse(u, slope, points=4001)
+    area = 0.5 * abs(np.dot(eu, np.roll(es, 1)) - np.dot(es, np.roll(eu, 1)))     # shoelace
+    assert area == pytest.approx(np.pi * rms_emittance(u, slope), rel=1e-5)
+    d = np.stack([eu - u.mean(), es - slope.mean()])
+    inside = np.einsum("ik,ij,jk->k", d, np.linalg.inv(np.cov(np.stack([u, slope]), bias=True)), d)
+    assert np.allclose(inside, 1.0, rtol=1e-9)
+    assert rms_ellipse(u[:1], slope[:1]) is None
+    assert rms_ellipse(np.zeros(5), np.zeros(5)) is None

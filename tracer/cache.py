@@ -136,3 +136,29 @@ def cached_solve(setup, cache_dir, *, rtol: float = 1e-10, progress=None):
         write_maps(cache_file(cache_dir, setup, rtol=rtol), maps,
                    tags={"cache_key": cache_key(setup, rtol=rtol)})
     return maps
+
+
+@dataclasses.dataclass(frozen=True)
+class CacheEntry:
+    """One cached maps file: its path, size in bytes and last write time (seconds since the epoch)."""
+
+    path: Path
+    size_bytes: int
+    modified_s: float
+
+
+def cache_entries(cache_dir) -> list[CacheEntry]:
+    """The maps files in ``cache_dir``, oldest first; [] when the folder does not exist."""
+    folder = Path(cache_dir)
+    if not folder.is_dir():
+        return []
+    entries = [CacheEntry(p, p.stat().st_size, p.stat().st_mtime) for p in folder.glob("maps-*.h5") if p.is_file()]
+    return sorted(entries, key=lambda e: e.modified_s)
+
+
+def clear_cache(cache_dir) -> list[CacheEntry]:
+    """Delete the maps files of ``cache_dir`` (nothing else in it); the entries deleted."""
+    entries = cache_entries(cache_dir)
+    for entry in entries:
+        entry.path.unlink(missing_ok=True)
+    return entries

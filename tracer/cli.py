@@ -342,6 +342,34 @@ def cmd_optics(args, echo) -> int:
     return 0
 
 
+def _age(seconds):
+    """A duration in the largest whole unit: "40 s", "3 min", "5 h", "2 days"."""
+    for unit, size in (("days", 86400), ("h", 3600), ("min", 60)):
+        if seconds >= size:
+            return f"{seconds / size:.0f} {unit}"
+    return f"{seconds:.0f} s"
+
+
+def cmd_cache(args, echo) -> int:
+    import time
+
+    from tracer.cache import cache_entries, clear_cache
+
+    folder = _cache_dir(args)
+    if folder is None:
+        raise InputError("--no-cache: there is no cache to show")
+    entries = clear_cache(folder) if args.clear else cache_entries(folder)
+    total = sum(e.size_bytes for e in entries)
+    if args.clear:
+        echo(f"cache {folder}: deleted {len(entries)} maps file(s), {total / 1e6:.1f} MB")
+        return 0
+    echo(f"cache {folder}: {len(entries)} maps file(s), {total / 1e6:.1f} MB")
+    now = time.time()
+    for e in entries:
+        echo(f"  {e.path.name}  {e.size_bytes / 1e6:8.1f} MB  written {_age(now - e.modified_s)} ago")
+    return 0
+
+
 def cmd_warmup(args, echo) -> int:
     from tracer.warmup import warmup
 
@@ -361,10 +389,11 @@ COMMANDS = {
     "optics": (cmd_optics, "paraxial lens properties and aberrations on the axis"),
     "gun": (cmd_gun, "iterate a gun's emission with its space charge until the current settles"),
     "warmup": (cmd_warmup, "compile the kernels ahead, for an install script or a cluster image"),
+    "cache": (cmd_cache, "show the cached basis maps (entries, size, age); --clear deletes them"),
 }
 
 # Commands that compile no kernel before they finish (no first-compile notice).
-NO_KERNELS = ("check", "show", "warmup")
+NO_KERNELS = ("check", "show", "warmup", "cache")
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -376,7 +405,7 @@ def build_parser() -> argparse.ArgumentParser:
         p = sub.add_parser(name, help=help_text, description=help_text)
         if name == "show":
             p.add_argument("config", metavar="RESULT", help="a result.h5 file written by tracer run")
-        elif name not in ("demo", "warmup"):
+        elif name not in ("demo", "warmup", "cache"):
             p.add_argument("config", metavar="CONFIG", help="the setup, a TOML file")
         p.add_argument("--debug", action="store_true", help="show tracebacks")
         p.add_argument("--quiet", action="store_true", help="no progress output")
@@ -384,6 +413,8 @@ def build_parser() -> argparse.ArgumentParser:
             p.add_argument("--out", metavar="DIR", help="a fresh output folder (default: tracer-demo/, or the next free tracer-demo-N/)")
         elif name == "show":
             p.add_argument("--out", metavar="DIR", help="folder for the pictures (default: beside RESULT)")
+        elif name == "cache":
+            p.add_argument("--clear", action="store_true", help="delete the cached maps files")
         elif name not in ("check", "warmup"):
             p.add_argument("--out", metavar="DIR", help="output folder (default CONFIG-stem.out/)")
         if name not in ("check", "show", "warmup"):

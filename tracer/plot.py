@@ -17,7 +17,7 @@ from matplotlib.figure import Figure
 
 from tracer.measure import counted, frame, plane_figures
 from tracer.schema import scan_column, scan_unit
-from tracer.stats import radius
+from tracer.stats import beta_gamma, radius, rms_emittance
 from tracer.store.atomic import atomic_path
 
 MM = 1e3
@@ -121,7 +121,8 @@ def _path_zr(path, symmetry):
 
 
 def plot_landing_energy(runs, path) -> Path | None:
-    """Histograms of the landing kinetic energy, one panel per beam, one colour per electrode."""
+    """Histograms of the landing kinetic energy, one panel per beam, one colour per electrode;
+    weighted by each ray's current (A per bin) when the beam has one, else rays per bin."""
     panels = [(run, run.records[run.records["status"] == "landed"]) for run in runs]
     panels = [(run, rows) for run, rows in panels if len(rows)]
     if not panels:
@@ -129,42 +130,55 @@ def plot_landing_energy(runs, path) -> Path | None:
     fig = new_figure((7, 2.8 * len(panels)))
     axes = fig.subplots(len(panels), 1, squeeze=False)
     for ax, (run, rows) in zip(axes[:, 0], panels):
+        weighted = bool((rows["weight_A"] > 0).all())
         for name in np.unique(rows["electrode"]):
-            e = rows["energy_eV"][rows["electrode"] == name]
+            sel = rows["electrode"] == name
+            e = rows["energy_eV"][sel]
             ax.hist(e, bins=min(60, max(10, len(e) // 10)), histtype="step", lw=1.2,
-                    label=f"{name} ({len(e)})")
+                    weights=rows["weight_A"][sel] if weighted else None, label=f"{name} ({len(e)} rays)")
         ax.set_xlabel("landing kinetic energy (eV)")
-        ax.set_ylabel("rays")
+        ax.set_ylabel("current per bin (A)" if weighted else "rays per bin")
         ax.set_title(f"beam {run.name}: landing energies", fontsize=10)
         ax.legend(fontsize=8)
     return save(fig, path)
 
 
 def plot_landing_positions(runs, path, symmetry="axial") -> Path | None:
-    """Where rays landed: z against r (or y) of each landing, one colour per electrode."""
+    """Where rays landed, one colour per beam and electrode: z against r (or y) of each landing,
+    and in axial symmetry beside it the x-y map seen along the axis (the spot on a flat target)."""
     rows = [(run, run.records[run.records["status"] == "landed"]) for run in runs]
     rows = [(run, r) for run, r in rows if len(r)]
     if not rows:
         return None
-    fig = new_figure((7, 4))
-    ax = fig.subplots()
-    side = "y" if symmetry == "planar" else "r"
+    axial = symmetry != "planar"
+    fig = new_figure((11, 4.2) if axial else (7, 4))
+    axes = fig.subplots(1, 2 if axial else 1, squeeze=False)[0]
+    side = "r" if axial else "y"
     for run, r in rows:
         zr = _path_zr(r, symmetry)
         for name in np.unique(r["electrode"]):
             sel = r["electrode"] == name
-            ax.scatter(zr[sel, 0] * MM, zr[sel, 1] * MM, s=4, label=f"{run.name} on {name}")
-    ax.set_xlabel("z (mm)")
-    ax.set_ylabel(f"{side} (mm)")
-    ax.set_title("landing positions", fontsize=10)
-    ax.legend(fontsize=8, markerscale=3)
+            axes[0].scatter(zr[sel, 0] * MM, zr[sel, 1] * MM, s=4, label=f"{run.name} on {name}")
+            if axial:
+                axes[1].scatter(r["x_m"][sel] * MM, r["y_m"][sel] * MM, s=4)
+    axes[0].set_xlabel("z (mm)")
+    axes[0].set_ylabel(f"{side} (mm)")
+    axes[0].set_title("landing positions", fontsize=10)
+    axes[0].legend(fontsize=8, markerscale=3)
+    if axial:
+        axes[1].set_aspect("equal", adjustable="datalim")
+        axes[1].set_xlabel("x (mm)")
+        axes[1].set_ylabel("y (mm)")
+        axes[1].set_title("seen along the axis (x-y)", fontsize=10)
     return save(fig, path)
 
 
 def plot_phase_space(run, plane, path, symmetry="axial") -> Path | None:
-    """Transverse phase space at a plane: (r, r') in axial symmetry, (y, y') in planar, (v, v')
-    along a tilted plane's line (:func:`tracer.beam.plane_coordinates`), of the crossings that
-    count for the plane's figures (:func:`tracer.measure.counted`).
+    """Transverse phase space at a plane with its rms ellipse: (x, x') in axial symmetry (the
+    plane the summary's emittance is quoted in), (y, y') in planar, (v, v') along a tilted plane's
+    line (:func:`tracer.beam.plane_coordinates`), of the crossings that count for the plane's
+    figures (:func:`tracer.measure.counted`).  The legend gives the rms emittance in mm mrad, π not
+    in the unit, and the normalised one, βγ times it.
 
     ``run`` is a BeamRun (traced, or read back from a result file)."""
     rows = counted(run, plane)
@@ -175,21 +189,41 @@ def plot_phase_space(run, plane, path, symmetry="axial") -> Path | None:
         _, u, _, pv, pn = frame(rows)
         slope, side = pv / pn, "v" if tilted else "y"
     else:
-        u = np.hypot(rows["x_m"], rows["y_m"])
-        with np.errstate(invalid="ignore", divide="ignore"):
-            slope = np.where(u > 0, (rows["x_m"] * rows["px"] + rows["y_m"] * rows["py"])
-                             / (u * rows["pz"]), 0.0)
-        side = "r"
+        side = "x"
+        u, slope = rows["x_m"], rows["px"] / rows["pz"]
     fig = new_figure((5.5, 4.2))
     ax = fig.subplots()
     # filled dots of 3.2 pt without an outline: one colour each, so every dot is a path of its own,
     # and stroking 10^4 outlines would double the drawing time
     dots = ax.scatter(u * MM, slope * 1e3, s=10.5, c=rows["energy_eV"], cmap="viridis", linewidths=0)
     fig.colorbar(dots, ax=ax, label="kinetic energy (eV)")
+    eps = rms_emittance(u, slope)
+    ellipse = rms_ellipse(u, slope)
+    if ellipse is not None:
+        ax.plot(ellipse[0] * MM, ellipse[1] * 1e3, color="crimson", lw=1.2,
+                label=f"rms ellipse: ε = {eps * 1e6:.4g} mm mrad (π not in the unit),\n"
+                      f"normalised βγε = {beta_gamma(rows, run.species.mass_kg) * eps * 1e6:.4g} mm mrad")
+        ax.legend(fontsize=7, loc="upper left")
     ax.set_xlabel(f"{side} (mm)")
     ax.set_ylabel(f"{side}' (mrad)")
     ax.set_title(f"beam {run.name} at plane {plane} ({run.crossing_rule(plane).label})", fontsize=10)
     return save(fig, path)
+
+
+def rms_ellipse(u, slope, points=181):
+    """The rms ellipse of a phase-space distribution: the points (u, u') with
+    d^T S^-1 d = 1, d the offset from the centroid and S the covariance of (u, u') (its area is
+    π times the rms emittance; Lapostolle 1971).  None for fewer than two rays or a degenerate S."""
+    if len(u) < 2:
+        return None
+    cov = np.cov(np.stack([u, slope]), bias=True)
+    try:
+        root = np.linalg.cholesky(cov)
+    except np.linalg.LinAlgError:
+        return None
+    angle = np.linspace(0.0, 2.0 * np.pi, points)
+    circle = np.stack([np.cos(angle), np.sin(angle)])
+    return root @ circle + np.array([[np.mean(u)], [np.mean(slope)]])
 
 
 def plot_waveforms(grouped, runs, path, points=20_001) -> Path | None:
