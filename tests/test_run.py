@@ -111,15 +111,22 @@ def test_summary_has_the_figures_of_every_plane_and_electrode(soft_landing):
 
 @pytest.mark.parametrize("config", sorted(p.name for p in CONFIGS.glob("*.toml")))
 def test_every_bundled_config_runs_from_the_command_line(config, tmp_path, monkeypatch, capsys):
-    """`tracer run` on each bundled config with a reduced ray count writes the report files."""
+    """`tracer run` on each bundled config with a reduced ray count writes the report files; a
+    gun's config, which has no [[beam]], is refused with one line that points to `tracer gun`."""
     from tracer.cli import main
 
     monkeypatch.setenv("TRACER_CACHE", str(tmp_path / "cache"))
     out = tmp_path / "out"
+    setup = tracer.load(CONFIGS / config)
     code = main(["run", str(CONFIGS / config), "--out", str(out), "--rays", "20", "--quiet"])
+    if not setup.beams:
+        assert setup.gun is not None
+        err = capsys.readouterr().err
+        assert code == 2 and len(err.splitlines()) == 1 and "tracer gun" in err, err
+        assert not out.exists()
+        return
     assert code == 0
     text = capsys.readouterr().out
-    setup = tracer.load(CONFIGS / config)
     assert text.count("energy ledger") == len(setup.beams)
     for name in ("result.h5", "landings.csv", "rays.png"):
         assert (out / name).stat().st_size > 0, name

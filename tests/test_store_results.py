@@ -302,6 +302,7 @@ def test_landings_csv_round_trip(result, tmp_path):
     assert by_name.read_bytes() == path.read_bytes()
 
 
+@pytest.mark.parametrize("result", ["axial"], indirect=True)   # its two beams, one with a current
 def test_landings_csv_reads_back_as_the_start_rays_of_a_next_stage(result, tmp_path):
     """The rays stopped on a plane, with their current, start a next stage (issue 22); a file
     with none is refused by name."""
