@@ -153,6 +153,9 @@ CASES = [
      "second angle 200.0 exceeds 180"),
     ("arc-angle-low", arc(11.0, "[3.0, 3.5]", "[-5.0, 90.0]"), {}, "electrode[3].arc[0].angles_deg",
      "first angle -5.0 is below 0"),
+    ("arc-centre-off-axis", electrode("[[electrode.arc]]\ncenter_z_mm = 11.0\ncenter_y_mm = 1.0\n"
+                                      "radii_mm = [3.0, 3.5]\nangles_deg = [0.0, 90.0]"), {},
+     "electrode[3].arc[0].center_y_mm", "1.0: here an arc's centre lies on the axis"),
     # species
     ("species-unknown", sub('species = "40Ar+"', 'species = "Zz+"'), {}, "beam[0].species", "unknown species 'Zz+'"),
     ("species-no-charge", sub('species = "40Ar+"', 'species = "40Ar"'), {}, "beam[0].species",

@@ -287,6 +287,34 @@ def test_planar_with_y_range():
     assert error.key == "beam[0].radius_mm" and "about y = -1.5 mm" in error.message
 
 
+def test_planar_arc_about_any_centre_over_any_angles():
+    """In a planar domain over a full y range an arc's centre may leave y = 0 and its angles may
+    run past 0 and 180 degrees, up to a full turn; elsewhere the centre stays on the axis."""
+    document = base()
+    document["domain"] = {"symmetry": "planar", "z_mm": [0.0, 100.0], "y_mm": [-20.0, 20.0], "cell_mm": 0.5}
+    sector = {"center_z_mm": 50.0, "center_y_mm": -12.0, "radii_mm": [15.0, 16.0], "angles_deg": [-45.0, 225.0]}
+    document["electrode"] = [{"name": "outer", "voltage_V": 100.0, "arc": [sector]}]
+    for key in ("scan", "tune", "gun"):
+        del document[key]
+    document["beam"][0]["start_y_mm"] = 0.0
+    shape = check(document).electrodes[0].shapes[0]
+    assert shape == Arc(0.050, (0.015, 0.016), (math.radians(-45.0), math.radians(225.0)), -0.012)
+    for angles, fragment in (([-400.0, 0.0], "first angle -400.0 is below -360"),
+                             ([0.0, 400.0], "spans more than a full turn"),
+                             ([-90.0, 300.0], "spans more than a full turn")):
+        sector["angles_deg"] = angles
+        error = error_of(document)
+        assert error.key == "electrode[0].arc[0].angles_deg" and fragment in error.message, error
+    sector["angles_deg"], sector["center_y_mm"] = [0.0, 90.0], -40.0
+    error = error_of(document)
+    assert error.key == "electrode[0].arc[0]" and "wholly outside the domain" in error.message
+    sector["center_y_mm"] = -12.0
+    document["domain"] = {"symmetry": "planar", "z_mm": [0.0, 100.0], "r_mm": 20.0, "cell_mm": 0.5}
+    document["beam"][0]["start_r_mm"] = document["beam"][0].pop("start_y_mm")
+    error = error_of(document)
+    assert error.key == "electrode[0].arc[0].center_y_mm" and "the mirror plane" in error.message
+
+
 def test_planar_with_mirror_plane():
     document = base()
     document["domain"]["symmetry"] = "planar"

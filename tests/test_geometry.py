@@ -85,6 +85,75 @@ def test_planar_arc_measures_angles_toward_plus_y():
     assert _at(back, 0.018, -0.002) == 0 and _at(back, 0.022, 0.002) == -1
 
 
+# a sector about (21, -3.3) mm over polar angles -60..240 deg: across y = 0 and past the -z
+# direction, so its gap is the wedge -120..-60 deg below the centre
+OFF = (0.021, -0.0033)
+OFF_RADII = (0.005, 0.007)
+OFF_ANGLES = (math.radians(-60.0), math.radians(240.0))
+
+
+def _off_axis():
+    return _table([Arc(OFF[0], OFF_RADII, OFF_ANGLES, OFF[1])], domain=FULL_Y)
+
+
+def _polar(z, r):
+    """Radius about the sector's centre, and whether the polar angle lies in its range."""
+    rho = np.hypot(z - OFF[0], r - OFF[1])
+    angle = np.degrees(np.arctan2(r - OFF[1], z - OFF[0]))
+    return rho, (angle >= -60.0) | (angle <= -120.0)
+
+
+def test_an_arc_about_a_centre_off_the_axis_is_the_circles_sector():
+    """Points inside exactly where the circle's radius and polar angle say (analytic geometry),
+    also for the nodes of the grid; the box is the circle's."""
+    t = _off_axis()
+    np.testing.assert_allclose(t.bbox[0], [0.014, 0.028, OFF[1] - 0.007 * math.sin(math.radians(60.0)),
+                                           OFF[1] + 0.007], atol=1e-9 * 0.04 + 1e-15)
+    z, r = np.random.default_rng(5).uniform((0.012, -0.012), (0.03, 0.006), (3000, 2)).T
+    rho, wide = _polar(z, r)
+    exact = (rho >= OFF_RADII[0]) & (rho <= OFF_RADII[1]) & wide
+    assert 300 < exact.sum() < 2700
+    assert [_at(t, a, b) == 0 for a, b in zip(z, r)] == list(exact)
+    g = _grid(FULL_Y)
+    ras = rasterize(t, g)
+    zz, rr = np.meshgrid(g.z, g.r, indexing="ij")
+    rho, wide = _polar(zz, rr)
+    exact = (rho >= OFF_RADII[0]) & (rho <= OFF_RADII[1]) & wide
+    clear = (np.abs(rho - OFF_RADII[0]) > 1e-9) & (np.abs(rho - OFF_RADII[1]) > 1e-9)
+    assert clear.sum() > 0.99 * clear.size
+    assert ((ras.owner >= 0) == exact)[clear].all()
+
+
+def test_crossings_normals_and_boxes_of_an_arc_off_the_axis():
+    """From the centre a segment meets the inner circle at its radius, and none in the gap; along
+    the gap a segment meets the sector's straight side where the line at -60 deg cuts it; the
+    outward normal is radial about the centre; a box that holds a piece of the boundary is seen
+    by near_boundary and the hollow round the centre is not (analytic geometry)."""
+    from tracer.geometry import near_boundary, surface_normal
+    t = _off_axis()
+    cz, cr = OFF
+    for deg in (100.0, -30.0, 230.0):
+        c, s = math.cos(math.radians(deg)), math.sin(math.radians(deg))
+        t_hit, who = _hit(t, cz, cr, 0.01 * c, 0.01 * s)
+        assert who == 0 and abs(t_hit * 0.01 - OFF_RADII[0]) < 1e-15
+        nz, nr = surface_normal(cz + 0.007 * c, cr + 0.007 * s, 0, False, *t.arrays())
+        assert (nz, nr) == pytest.approx((c, s), abs=1e-12)
+        nz, nr = surface_normal(cz + 0.005 * c, cr + 0.005 * s, 0, False, *t.arrays())
+        assert (nz, nr) == pytest.approx((-c, -s), abs=1e-12)
+    assert _hit(t, cz, cr, 0.0, -0.01) == (2.0, -1)  # straight down the gap
+    # along z at 6 mm below the centre: the side at -60 deg is where z = cz + 6 mm / tan(60 deg)
+    t_hit, who = _hit(t, cz, cr - 0.006, 0.01, 0.0)
+    assert who == 0 and abs(t_hit * 0.01 - 0.006 / math.tan(math.radians(60.0))) < 1e-15
+    assert not near_boundary(cz - 0.001, cz + 0.001, cr - 0.001, cr + 0.001, *t.arrays())
+    rng = np.random.default_rng(8)
+    for deg in rng.uniform(-60.0, 240.0, 40):
+        for radius in OFF_RADII:
+            z = cz + radius * math.cos(math.radians(deg))
+            r = cr + radius * math.sin(math.radians(deg))
+            dz, dr = rng.uniform(0.0, 2e-4, 2)
+            assert near_boundary(z - dz, z + 2e-4 - dz, r - dr, r + 2e-4 - dr, *t.arrays())
+
+
 # ------------------------------------------------------------------------------- first_hit
 
 

@@ -168,24 +168,24 @@ def test_surface_normals_point_out_of_every_shape():
 
 # A cylindrical sector analyser as a full annulus (no fringe fields): the potential of coaxial
 # cylinders, V = k ln(rho / a) (any electrostatics text, e.g. Jackson), written as the map's exact
-# node data about a centre off the node grid, in a planar domain over the full y range.
+# node data about a centre off the node grid and off y = 0, in a planar domain over the full y range.
 A_M, B_M, R0_M = 30e-3, 50e-3, 40e-3
-CENTRE_Z = 55.25e-3
+CENTRE_Z, CENTRE_Y = 55.25e-3, 2.6e-3
 
 
 def annulus(cell_m, k_volts):
-    """The coaxial-cylinder map (k ln(rho / a), rho about (CENTRE_Z, 0)) and its two cylinders."""
+    """The coaxial-cylinder map (k ln(rho / a), rho about (CENTRE_Z, CENTRE_Y)) and its two cylinders."""
     from tracer.fieldmap import PotentialMap
     from tracer.geometry import rasterize, shape_table
     from tracer.grid import Grid
     from tracer.schema import Arc, Domain, Electrode
-    domain = Domain("planar", (0.0, 110e-3), (-55e-3, 55e-3), cell_m, ("ground",) * 4)
+    domain = Domain("planar", (0.0, 110e-3), (-52.5e-3, 57.5e-3), cell_m, ("ground",) * 4)
     full = (-math.pi, math.pi)
-    electrodes = [Electrode("inner", 0.0, (Arc(CENTRE_Z, (0.0, A_M), full),)),
-                  Electrode("outer", k_volts * math.log(B_M / A_M), (Arc(CENTRE_Z, (B_M, 54e-3), full),))]
+    electrodes = [Electrode("inner", 0.0, (Arc(CENTRE_Z, (0.0, A_M), full, CENTRE_Y),)),
+                  Electrode("outer", k_volts * math.log(B_M / A_M), (Arc(CENTRE_Z, (B_M, 54e-3), full, CENTRE_Y),))]
     grid = Grid.from_domain(domain)
     table = shape_table(electrodes, domain)
-    dz, y = np.meshgrid(grid.z - CENTRE_Z, grid.r, indexing="ij")
+    dz, y = np.meshgrid(grid.z - CENTRE_Z, grid.r - CENTRE_Y, indexing="ij")
     rho2 = dz * dz + y * y
     herm = np.stack([0.5 * k_volts * np.log(rho2 / A_M**2), k_volts * dz / rho2, k_volts * y / rho2,
                      -2.0 * k_volts * dz * y / rho2**2])
@@ -213,11 +213,11 @@ def test_a_cylindrical_analyser_refocuses_at_pi_over_root_two_on_a_radial_plane(
     alphas = np.array([-2e-3, -1e-3, 0.0, 1e-3, 2e-3])
     s = np.zeros(len(alphas), START_DTYPE)
     s["ray"] = np.arange(len(alphas))
-    s["z_m"] = CENTRE_Z + R0_M                        # at polar angle 0, bending clockwise
+    s["z_m"], s["y_m"] = CENTRE_Z + R0_M, CENTRE_Y    # at polar angle 0, bending clockwise
     s["pz"], s["py"] = p * np.sin(alphas), -p * np.cos(alphas)
     s["energy_eV"] = energy
     # the radial line at polar angle -phi: its direction is radial, its normal the motion
-    planes = [Plane(f"at{k}", CENTRE_Z, angle_rad=-(focus + d)) for k, d in enumerate((-0.02, 0.0, 0.02))]
+    planes = [Plane(f"at{k}", CENTRE_Z, r_m=CENTRE_Y, angle_rad=-(focus + d)) for k, d in enumerate((-0.02, 0.0, 0.02))]
     run = trace(field, Beam("p", sp, None, None, count=None), planes=planes, starts=s,
                 max_time_s=2.0 * R0_M * focus / v)
     assert set(run.records["status"]) == {"time"}
@@ -226,14 +226,14 @@ def test_a_cylindrical_analyser_refocuses_at_pi_over_root_two_on_a_radial_plane(
         rows = run.at_plane(plane.name)
         rows = rows[rows["crossing"] == 0]
         assert len(rows) == len(alphas) and (rows["pn"] > 0).all()
-        rho = np.hypot(rows["z_m"] - CENTRE_Z, rows["y_m"])
+        rho = np.hypot(rows["z_m"] - CENTRE_Z, rows["y_m"] - CENTRE_Y)
         assert np.allclose(rows["v_m"], rho, rtol=0.0, atol=1e-12)       # along the line, from the centre
         odd.append((rho[-1] - rho[0]) / (2 * alphas[-1]))               # d rho / d alpha
     # the focus: where the first-order term changes sign (linear in the angle near it)
     root = focus - 0.02 + 0.04 * odd[0] / (odd[0] - odd[2])
     assert abs(root - focus) < 1e-5
     rows = run.at_plane("at1")
-    rho = np.hypot(rows["z_m"] - CENTRE_Z, rows["y_m"])
+    rho = np.hypot(rows["z_m"] - CENTRE_Z, rows["y_m"] - CENTRE_Y)
     assert abs(odd[1] * alphas[-1]) < 1e-3 * cell                       # first order: gone
     blur = rho - rho[2]
     assert np.allclose(blur, -(4.0 / 3.0) * R0_M * alphas**2, rtol=0.05, atol=1e-4 * cell)
@@ -241,6 +241,37 @@ def test_a_cylindrical_analyser_refocuses_at_pi_over_root_two_on_a_radial_plane(
     assert figures["fraction"] == 1.0
     assert figures["centroid_y_m"] == pytest.approx(np.mean(rho), abs=1e-12)
     assert figures["rms_y_m"] < 0.01 * cell
+
+
+def test_rays_land_on_the_arcs_of_an_analyser_off_the_axis():
+    """Protons sent straight along radii of the analyser (the field is radial: they stay on them)
+    land on the inner and the outer cylinder where those radii meet them, head on, with the energy
+    the log potential gives them (coaxial cylinders, e.g. Jackson; energy conservation)."""
+    from tracer.schema import Beam
+    from tracer.species import species
+    cell, k = 0.5e-3, 200.0
+    field = annulus(cell, k)
+    sp = species("p+")
+    phis = np.array([2.0, -0.4, 2.9, -2.3])
+    inward = np.array([True, True, False, False])
+    s = np.zeros(len(phis), START_DTYPE)
+    s["ray"] = np.arange(len(phis))
+    s["z_m"], s["y_m"] = CENTRE_Z + R0_M * np.cos(phis), CENTRE_Y + R0_M * np.sin(phis)
+    direction = np.where(inward, -1.0, 1.0)
+    p = momentum(100.0, sp.mass_kg)
+    s["pz"], s["py"] = direction * p * np.cos(phis), direction * p * np.sin(phis)
+    s["energy_eV"] = 100.0
+    run = trace(field, Beam("p", sp, None, None, count=None), planes=(), starts=s)
+    rec = run.records
+    assert list(rec["status"]) == ["landed"] * 4
+    assert list(rec["electrode"]) == ["inner", "inner", "outer", "outer"]
+    rho = np.hypot(rec["z_m"] - CENTRE_Z, rec["y_m"] - CENTRE_Y)
+    radius = np.where(inward, A_M, B_M)
+    assert np.allclose(rho, radius, rtol=0.0, atol=1e-6 * cell)
+    assert np.allclose(np.arctan2(rec["y_m"] - CENTRE_Y, rec["z_m"] - CENTRE_Z), phis, rtol=0.0, atol=1e-9)
+    assert np.allclose(rec["incidence_deg"], 0.0, atol=1e-4)
+    gained = k * np.log(R0_M / radius)                  # q (V(r0) - V(rho)) for a proton
+    assert np.allclose(rec["energy_eV"], 100.0 + gained, rtol=1e-6)
 
 
 def test_a_cone_plane_in_axial_symmetry_gives_local_coordinates(tmp_path):

@@ -239,6 +239,31 @@ def test_coaxial_cylinders():
     assert order >= 1.8
 
 
+def test_concentric_arcs_about_a_centre_off_the_axis():
+    """A rod (a disc of radius a) at 1 V inside a tube (inner radius b) at 0 V, both arcs about a
+    centre off the node grid and off y = 0 in a planar domain over the full y range, the tube made
+    of two sectors, one across y = 0 and one across the -z direction: V = ln(b / rho) / ln(b / a)
+    (coaxial cylinders, Jackson 1999, Classical Electrodynamics), converging at second order."""
+    a, b = 2.3 * MM, 7.7 * MM
+    cz, cy = 12.3 * MM, 2.1 * MM
+    turn = (math.radians(-100.0), math.radians(100.0), math.radians(260.0))
+    errors = []
+    for cell in (0.4 * MM, 0.2 * MM):
+        grid, table = setup(
+            "planar", (0.0, 24 * MM), (-10 * MM, 14 * MM), cell, ("ground",) * 4,
+            [("rod", [Arc(cz, (0.0, a), (-math.pi, math.pi), cy)]),
+             ("tube", [Arc(cz, (b, 9.5 * MM), turn[:2], cy), Arc(cz, (b, 9.5 * MM), turn[1:], cy)])],
+        )
+        u, raster, _ = solve(grid, table, [1.0, 0.0])
+        rho = np.hypot(grid.z[:, None] - cz, grid.r[None, :] - cy)
+        gap = (rho > a) & (rho < b)
+        assert (raster.owner[gap] < 0).all() and (raster.owner[rho < a] == 0).all()
+        exact = np.log(b / np.where(gap, rho, b)) / np.log(b / a)
+        errors.append(np.abs(u - exact)[gap].max())
+    assert errors[1] < 2e-4
+    assert math.log2(errors[0] / errors[1]) >= 1.8
+
+
 def _sphere_errors(transform, cells):
     a, b = 10 * MM, 20 * MM
     errors = []

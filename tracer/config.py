@@ -21,7 +21,9 @@ Keys (defaults in brackets; "r" stands for "y" in a domain with y_mm)::
                  edges "ground"|"open" or {z_min, z_max, r_max | y_min, y_max} ["ground"]
     [[electrode]] name, voltage_V, and one or more of
                  [[electrode.rect]] z_mm, r_mm;  [[electrode.polygon]] points_mm [[z, r], ...];
-                 [[electrode.arc]] center_z_mm, radii_mm, angles_deg (polar angle from +z, 0..180);
+                 [[electrode.arc]] center_z_mm, radii_mm, angles_deg (polar angle from +z, 0..180;
+                 in a planar domain with y_mm: center_y_mm [0] and any range up to a full turn,
+                 -360..360, towards +y);
                  a voltage that changes in time (docs/time-dependent-voltages.md): voltage_V [0] is
                  the DC part of [[electrode.pulse]] high_V, low_V [0], delay_ns|us, rise_ns|us [0],
                  width_ns|us [on for ever], fall_ns|us [0], period_ns|us, count [1];
@@ -72,7 +74,7 @@ from dataclasses import dataclass
 from scipy import constants
 
 from tracer.bounds import BOUNDS, bound_of
-from tracer.geometry import overlapping_electrodes, shape_table
+from tracer.geometry import overlapping_electrodes, sector_bbox, shape_table
 from tracer.schema import (CROSSINGS, NAME, DIRECTIONS, GRIDS, START_TIMES, THIRD_GRIDS, Arc, Beam, ConfigError, Domain, Electrode,
                            GridErrorSpec, GunSpec, OpticsSpec, Plane, Polygon, Rect, ScanSpec, Setup, TraceOptions,
                            TuneSpec, Z_PLANE_RAD)
@@ -693,21 +695,28 @@ def _polygon(value, path, side):
 
 
 def _arc(value, path, side):
-    t = _Table(value, path, ("center_z_mm", "radii_mm", "angles_deg"))
+    t = _Table(value, path, ("center_z_mm", "center_y_mm", "radii_mm", "angles_deg"))
     cz = t.get("center_z_mm", _number)
+    if t.has("center_y_mm") and side.below is not None:
+        raise ConfigError(t.at("center_y_mm"), f"{_show(t.data['center_y_mm'])}: here an arc's centre lies on "
+                                               f"{side.below[1]}; it moves off it only in a planar domain "
+                                               "with y_mm")
+    cy = t.get("center_y_mm", _number, default=0.0)
     rho = t.get("radii_mm", _range, words=("inner radius", "outer"), low=(0.0, "a radius"))
-    theta = t.get("angles_deg", _range, words=("first angle", "second"), low=(0.0, "the +z direction"))
-    if theta[1] > 180:
-        shown = _show(t.data["angles_deg"][1])
-        raise ConfigError(t.at("angles_deg"), f"second angle {shown} exceeds 180 (the -z direction)")
+    if side.below is None:
+        theta = t.get("angles_deg", _range, words=("first angle", "second"), low=(-360.0, "a turn below +z"))
+        if theta[1] > 360 or theta[1] - theta[0] > 360:
+            shown = _show(t.data["angles_deg"])
+            raise ConfigError(t.at("angles_deg"), f"{shown} spans more than a full turn (second angle at "
+                                                  "most first + 360 and 360)")
+    else:
+        theta = t.get("angles_deg", _range, words=("first angle", "second"), low=(0.0, "the +z direction"))
+        if theta[1] > 180:
+            shown = _show(t.data["angles_deg"][1])
+            raise ConfigError(t.at("angles_deg"), f"second angle {shown} exceeds 180 (the -z direction)")
     lo, hi = theta[0] * _DEG, theta[1] * _DEG
-    corners = [(a, b) for a in rho for b in (lo, hi)]
-    if lo < math.pi / 2 < hi:
-        corners.append((rho[1], math.pi / 2))
-    zs = [cz + a * math.cos(b) for a, b in corners]
-    rs = [a * math.sin(b) for a, b in corners]
-    shape = Arc(cz / _MM_PER_M, _metres(rho), (lo, hi))
-    return shape, (min(zs), max(zs), min(rs), max(rs))
+    shape = Arc(cz / _MM_PER_M, _metres(rho), (lo, hi), cy / _MM_PER_M)
+    return shape, sector_bbox(cz, *rho, lo, hi, cy)
 
 
 def _check_inside(box, path, domain, side):

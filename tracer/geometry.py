@@ -5,13 +5,14 @@ Shapes
 Every shape is a closed region of the (z, r) plane (``r`` is the radius in axial symmetry, ``y`` in
 planar symmetry).  A ``Rect`` becomes a 4-vertex polygon; a ``Polygon`` may be concave and is tested
 by its crossing number; an ``Arc`` is the sector ``rho_in <= rho <= rho_out``,
-``theta_lo <= theta <= theta_hi`` with ``rho = hypot(z - cz, r)`` and ``theta = atan2(r, z - cz)``
-measured from the +z direction toward +r.  In axial symmetry and in a mirrored planar domain callers
-pass ``r >= 0``, so ``theta`` lies in [0, pi] and ``rho_in = 0`` with angles [0, pi] is a solid
-ball (or a solid cylinder along x in planar symmetry).  In a planar domain with a full y range,
-``theta`` runs over [-pi, pi] toward +y, so an arc with angles [0, pi] is only the half above
-``y = 0`` and a full disc needs [-pi, pi]; the angle test works modulo 2 pi, so a range such as
-[pi/2, 3 pi/2] is the sector on the -z side.
+``theta_lo <= theta <= theta_hi`` about its centre (cz, cr) with ``rho = hypot(z - cz, r - cr)``
+and ``theta = atan2(r - cr, z - cz)`` measured from the +z direction toward +r.  In axial symmetry
+and in a mirrored planar domain the centre lies on the axis (cr = 0) and callers pass ``r >= 0``,
+so ``theta`` lies in [0, pi] and ``rho_in = 0`` with angles [0, pi] is a solid ball (or a solid
+cylinder along x in planar symmetry).  In a planar domain with a full y range the centre may lie
+anywhere and ``theta`` runs over [-pi, pi] toward +y, so an arc with angles [0, pi] is only the
+half above its centre and a full disc needs [-pi, pi]; the angle test works modulo 2 pi, so a
+range such as [pi/2, 3 pi/2] is the sector on the -z side.
 
 Shapes are clipped to the domain: each shape's bounding box is cut to the domain rectangle, points
 outside it are outside the shape and surface crossings outside it are ignored.
@@ -62,8 +63,9 @@ class ShapeTable:
         Slice of ``points`` holding a polygon's vertices (count 0 for sectors).
     points : float64[m, 2]
         Polygon vertices (z, r) in metres.
-    sector : float64[n, 5]
-        ``(cz, rho_in, rho_out, theta_lo, theta_hi)`` for sector rows (zeros otherwise).
+    sector : float64[n, 6]
+        ``(cz, rho_in, rho_out, theta_lo, theta_hi, cr)`` for sector rows, (cz, cr) the centre
+        (zeros otherwise).
     bbox : float64[n, 4]
         ``(zlo, zhi, rlo, rhi)``: the shape's bounding box cut to the domain.
     names : tuple of str
@@ -147,6 +149,12 @@ def _in_angle(theta, lo, hi):
     return d <= span + _ANGLE_TOL
 
 
+@njit(cache=True, error_model="numpy", inline="always")
+def sector_row(sector, j):
+    """(cz, rho_in, rho_out, theta_lo, theta_hi, cr) of sector row j."""
+    return sector[j, 0], sector[j, 1], sector[j, 2], sector[j, 3], sector[j, 4], sector[j, 5]
+
+
 @njit(cache=True, error_model="numpy")
 def _inside_polygon(z, r, points, s, n):
     inside = False
@@ -166,10 +174,11 @@ def _inside_polygon(z, r, points, s, n):
 @njit(cache=True, error_model="numpy")
 def _inside_sector(z, r, row):
     dz = z - row[0]
-    rho2 = dz * dz + r * r
+    dr = r - row[5]
+    rho2 = dz * dz + dr * dr
     if rho2 < row[1] * row[1] or rho2 > row[2] * row[2]:
         return False
-    return _in_angle(math.atan2(r, dz), row[3], row[4])
+    return _in_angle(math.atan2(dr, dz), row[3], row[4])
 
 
 @njit(cache=True, error_model="numpy")
@@ -237,9 +246,10 @@ def _hit_edge(z, r, dz, dr, az, ar, bz, br):
 def _hit_circle(z, r, dz, dr, row, rho):
     """Smallest t in [0, 1] where the segment meets the sector's arc of radius rho, or 2.0."""
     fz = z - row[0]
+    fr = r - row[5]
     a = dz * dz + dr * dr
-    b = fz * dz + r * dr
-    c = fz * fz + r * r - rho * rho
+    b = fz * dz + fr * dr
+    c = fz * fz + fr * fr - rho * rho
     disc = b * b - a * c
     if disc < 0.0 or a == 0.0:
         return 2.0
@@ -248,7 +258,7 @@ def _hit_circle(z, r, dz, dr, row, rho):
     t2 = c / q if q != 0.0 else t1
     best = 2.0
     for t in (min(t1, t2), max(t1, t2)):
-        if 0.0 <= t <= 1.0 and _in_angle(math.atan2(r + t * dr, fz + t * dz), row[3], row[4]):
+        if 0.0 <= t <= 1.0 and _in_angle(math.atan2(fr + t * dr, fz + t * dz), row[3], row[4]):
             best = t
             break
     return best
@@ -263,7 +273,8 @@ def _hit_sector(z, r, dz, dr, row):
         for a in (row[3], row[4]):
             c = math.cos(a)
             s = math.sin(a)
-            t = min(t, _hit_edge(z, r, dz, dr, row[0] + row[1] * c, row[1] * s, row[0] + row[2] * c, row[2] * s))
+            t = min(t, _hit_edge(z, r, dz, dr, row[0] + row[1] * c, row[5] + row[1] * s, row[0] + row[2] * c,
+                                 row[5] + row[2] * s))
     return t
 
 
@@ -346,18 +357,19 @@ def near_boundary(zlo, zhi, rlo, rhi, kind, owner, start, count, points, sector,
                 if _boxes_meet(zlo, zhi, rlo, rhi, points[a, 0], points[a, 1], points[b, 0], points[b, 1]):
                     return True
             continue
-        cz, rho_in, rho_out, lo, hi = sector[j, 0], sector[j, 1], sector[j, 2], sector[j, 3], sector[j, 4]
+        cz, rho_in, rho_out, lo, hi, cr = sector_row(sector, j)
         near_z = min(max(cz, zlo), zhi) - cz
-        near_r = min(max(0.0, rlo), rhi)
+        near_r = min(max(cr, rlo), rhi) - cr
         far_z = max(abs(zlo - cz), abs(zhi - cz))
-        far_r = max(abs(rlo), abs(rhi))
+        far_r = max(abs(rlo - cr), abs(rhi - cr))
         d_lo, d_hi = math.hypot(near_z, near_r), math.hypot(far_z, far_r)
         if d_lo <= rho_out <= d_hi or (rho_in > 0.0 and d_lo <= rho_in <= d_hi):
             return True
         if hi - lo < _TWO_PI - _ANGLE_TOL:
             for a in (lo, hi):
                 c, s_ = math.cos(a), math.sin(a)
-                if _boxes_meet(zlo, zhi, rlo, rhi, cz + rho_in * c, rho_in * s_, cz + rho_out * c, rho_out * s_):
+                if _boxes_meet(zlo, zhi, rlo, rhi, cz + rho_in * c, cr + rho_in * s_, cz + rho_out * c,
+                               cr + rho_out * s_):
                     return True
     return False
 
@@ -419,19 +431,19 @@ def surface_normal(z, r, electrode, axis, kind, owner, start, count, points, sec
                 if d < best:
                     best, nz, nr = d, ez, er
             continue
-        cz, rho_in, rho_out, lo, hi = sector[j, 0], sector[j, 1], sector[j, 2], sector[j, 3], sector[j, 4]
-        rho = math.hypot(z - cz, r)
-        theta = math.atan2(r, z - cz)
+        cz, rho_in, rho_out, lo, hi, cr = sector_row(sector, j)
+        rho = math.hypot(z - cz, r - cr)
+        theta = math.atan2(r - cr, z - cz)
         if _in_angle(theta, lo, hi) and rho > 0.0:
             for radius, sign in ((rho_out, 1.0), (rho_in, -1.0)):
                 if radius > 0.0 and abs(rho - radius) < best:
-                    best, nz, nr = abs(rho - radius), sign * (z - cz) / rho, sign * r / rho
+                    best, nz, nr = abs(rho - radius), sign * (z - cz) / rho, sign * (r - cr) / rho
         if hi - lo < _TWO_PI - _ANGLE_TOL:
             for a, sign in ((lo, -1.0), (hi, 1.0)):
                 c, s_ = math.cos(a), math.sin(a)
                 # the straight side from rho_in to rho_out at angle a; outward turns away from the sector
-                d = _edge_normal(z, r, cz + rho_in * c, rho_in * s_, cz + rho_out * c,
-                                 rho_out * s_, 1.0)[0]
+                d = _edge_normal(z, r, cz + rho_in * c, cr + rho_in * s_, cz + rho_out * c,
+                                 cr + rho_out * s_, 1.0)[0]
                 if d < best:
                     best, nz, nr = d, -sign * s_, sign * c
     return nz, nr
@@ -453,13 +465,14 @@ def surface_normals(z, r, electrode, axis, kind, owner, start, count, points, se
 # building the table
 
 
-def _sector_bbox(cz, rho_in, rho_out, lo, hi):
-    angles = [lo, hi] + [k * math.pi / 2 for k in range(-2, 5) if _in_angle(k * math.pi / 2, lo, hi)]
+def sector_bbox(cz, rho_in, rho_out, lo, hi, cr=0.0):
+    """(zlo, zhi, rlo, rhi): the bounding box of the sector about (cz, cr) (a ``sector`` row)."""
+    angles = [lo, hi] + [k * math.pi / 2 for k in range(4) if _in_angle(k * math.pi / 2, lo, hi)]
     zs, rs = [], []
     for rho in (rho_in, rho_out):
         for a in angles:
             zs.append(cz + rho * math.cos(a))
-            rs.append(rho * math.sin(a))
+            rs.append(cr + rho * math.sin(a))
     return min(zs), max(zs), min(rs), max(rs)
 
 
@@ -478,7 +491,7 @@ def _rows(electrodes):
                 data = tuple(shape.points_m)
             elif isinstance(shape, Arc):
                 name = "arc"
-                data = (shape.center_z_m, *shape.radii_m, *shape.angles_rad)
+                data = (shape.center_z_m, *shape.radii_m, *shape.angles_rad, shape.center_r_m)
             else:
                 raise TypeError(f"electrode[{i}]: unknown shape {shape!r}")
             rows.append((i, f"electrode[{i}].{name}[{seen[name]}]", name, data))
@@ -503,7 +516,7 @@ def _meets_rect(j, zlo, zhi, rlo, rhi, kind, start, count, points, sector, bbox)
     else:
         row = sector[j]
         pz = row[0] + row[2] * math.cos(row[3])
-        pr = row[2] * math.sin(row[3])
+        pr = row[5] + row[2] * math.sin(row[3])
     return zlo <= pz <= zhi and rlo <= pr <= rhi
 
 
@@ -610,7 +623,7 @@ def shape_table(electrodes, domain):
     owner = np.zeros(n, dtype=np.int64)
     start = np.zeros(n, dtype=np.int64)
     count = np.zeros(n, dtype=np.int64)
-    sector = np.zeros((n, 5))
+    sector = np.zeros((n, 6))
     bbox = np.zeros((n, 4))
     points = []
     for j, (i, _, name, data) in enumerate(rows):
@@ -618,7 +631,7 @@ def shape_table(electrodes, domain):
         if name == "arc":
             kind[j] = SECTOR
             sector[j] = data
-            bbox[j] = _sector_bbox(*data)
+            bbox[j] = sector_bbox(*data)
         else:
             kind[j] = POLYGON
             start[j] = len(points)
@@ -685,11 +698,11 @@ def _mark_segment(az, ar, bz, br, j, step, geo, stamp, touched):
 
 
 @njit(cache=True, error_model="numpy")
-def _mark_arc(cz, rho, lo, span, j, step, geo, stamp, touched):
+def _mark_arc(cz, cr, rho, lo, span, j, step, geo, stamp, touched):
     n = max(8, int(math.ceil(rho * span / step)))
     for i in range(n + 1):
         a = lo + span * i / n
-        _mark(cz + rho * math.cos(a), rho * math.sin(a), j, geo, stamp, touched)
+        _mark(cz + rho * math.cos(a), cr + rho * math.sin(a), j, geo, stamp, touched)
 
 
 @njit(cache=True, error_model="numpy")
@@ -702,16 +715,17 @@ def _mark_boundary(j, kind, start, count, points, sector, step, geo, stamp, touc
             k = s + (i + 1) % n
             _mark_segment(points[s + i, 0], points[s + i, 1], points[k, 0], points[k, 1], j, step, geo, stamp, touched)
         return
-    cz, rho_in, rho_out, lo, hi = sector[j, 0], sector[j, 1], sector[j, 2], sector[j, 3], sector[j, 4]
+    cz, rho_in, rho_out, lo, hi, cr = sector_row(sector, j)
     span = min(hi - lo, _TWO_PI)
-    _mark_arc(cz, rho_out, lo, span, j, step, geo, stamp, touched)
+    _mark_arc(cz, cr, rho_out, lo, span, j, step, geo, stamp, touched)
     if rho_in > 0.0:
-        _mark_arc(cz, rho_in, lo, span, j, step, geo, stamp, touched)
+        _mark_arc(cz, cr, rho_in, lo, span, j, step, geo, stamp, touched)
     if span < _TWO_PI - _ANGLE_TOL:
         for a in (lo, hi):
             c = math.cos(a)
             s = math.sin(a)
-            _mark_segment(cz + rho_in * c, rho_in * s, cz + rho_out * c, rho_out * s, j, step, geo, stamp, touched)
+            _mark_segment(cz + rho_in * c, cr + rho_in * s, cz + rho_out * c, cr + rho_out * s, j, step, geo,
+                          stamp, touched)
 
 
 @njit(cache=True, error_model="numpy")

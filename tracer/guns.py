@@ -171,8 +171,8 @@ def _polygon_pieces(points, step):
 
 
 def _sector_pieces(row, step):
-    """Outline pieces of a spherical sector (cz, rho_in, rho_out, theta_lo, theta_hi)."""
-    cz, rho_in, rho_out, lo, hi = row
+    """Outline pieces of a spherical sector (cz, rho_in, rho_out, theta_lo, theta_hi, cr)."""
+    cz, rho_in, rho_out, lo, hi, cr = row
     mids, normals, lengths = [], [], []
     for rho, sign in ((rho_out, 1.0), (rho_in, -1.0)):
         if rho <= 0.0:
@@ -180,14 +180,14 @@ def _sector_pieces(row, step):
         n = max(1, math.ceil(rho * (hi - lo) / step))
         theta = lo + (np.arange(n) + 0.5) * (hi - lo) / n
         radial = np.column_stack([np.cos(theta), np.sin(theta)])
-        mids.append(np.column_stack([cz + rho * radial[:, 0], rho * radial[:, 1]]))
+        mids.append(np.column_stack([cz + rho * radial[:, 0], cr + rho * radial[:, 1]]))
         normals.append(sign * radial)
         lengths.append(np.full(n, rho * (hi - lo) / n))
     n = max(1, math.ceil((rho_out - rho_in) / step))
     rho = rho_in + (np.arange(n) + 0.5) * (rho_out - rho_in) / n
     for theta, sign in ((lo, -1.0), (hi, 1.0)):
         radial = np.array([math.cos(theta), math.sin(theta)])
-        mids.append(np.column_stack([cz + rho * radial[0], rho * radial[1]]))
+        mids.append(np.column_stack([cz + rho * radial[0], cr + rho * radial[1]]))
         normals.append(np.tile(sign * np.array([-radial[1], radial[0]]), (n, 1)))
         lengths.append(np.full(n, (rho_out - rho_in) / n))
     return mids, normals, lengths

@@ -167,6 +167,9 @@ def counted(run, plane):
 class PlaneStats:
     """The figures of a beam at a plane, over the crossings that count (module notes).
 
+    On a tilted plane x, y, px, py and pz stand for the plane's own u, v, pu, pv and pn
+    (:func:`tracer.beam.plane_coordinates`, :func:`frame`).
+
     Attributes
     ----------
     count : int
@@ -184,9 +187,6 @@ class PlaneStats:
         Standard deviations of x and y.
     rms_divergence_x_rad, rms_divergence_y_rad : float
         Standard deviations of the slopes x' = px/pz and y' = py/pz.
-
-    On a tilted plane x, y, px, py and pz stand for the plane's own u, v, pu, pv and pn
-    (:func:`tracer.beam.plane_coordinates`, :func:`frame`).
     emittance_x_m_rad, emittance_y_m_rad : float
         rms emittances of the x-x' and y-y' planes (:mod:`tracer.stats`).
     norm_emittance_x_m_rad, norm_emittance_y_m_rad : float

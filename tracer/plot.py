@@ -47,10 +47,10 @@ def _shape_outlines(table):
             s, c = table.start[i], table.count[i]
             yield table.owner[i], table.points[s:s + c]
         else:
-            cz, rho_in, rho_out, t0, t1 = table.sector[i]
+            cz, rho_in, rho_out, t0, t1, cr = table.sector[i]
             t = np.linspace(t0, t1, 64)
-            outer = np.column_stack([cz + rho_out * np.cos(t), rho_out * np.sin(t)])
-            inner = np.column_stack([cz + rho_in * np.cos(t[::-1]), rho_in * np.sin(t[::-1])])
+            outer = np.column_stack([cz + rho_out * np.cos(t), cr + rho_out * np.sin(t)])
+            inner = np.column_stack([cz + rho_in * np.cos(t[::-1]), cr + rho_in * np.sin(t[::-1])])
             yield table.owner[i], np.vstack([outer, inner])
 
 

@@ -78,21 +78,27 @@ class Polygon:
 
 @dataclass(frozen=True)
 class Arc:
-    """A spherical-shell sector about (center_z, 0) (an annular sector in planar symmetry).
+    """A spherical-shell sector about (center_z, 0) (an annular sector in planar symmetry,
+    about (center_z, center_r) in a planar domain with a full y range).
 
     Parameters
     ----------
     center_z_m : float
-        Centre on the axis, metres.
+        Centre's z, metres.
     radii_m : tuple of float
         (inner, outer) radius, metres; inner may be 0 (a solid sector).
     angles_rad : tuple of float
-        (first, second) polar angle from the +z direction, within 0..pi.
+        (first, second) polar angle from the +z direction towards +r: within 0..pi about a centre
+        on the axis; any range up to a full turn (first < second) in a planar domain with a full
+        y range.
+    center_r_m : float
+        Centre's y, metres (0 on the axis or mirror plane; only a full planar domain moves it).
     """
 
     center_z_m: float
     radii_m: tuple[float, float]
     angles_rad: tuple[float, float]
+    center_r_m: float = 0.0
 
 
 @dataclass(frozen=True)
