@@ -406,7 +406,7 @@ def test_rects_become_four_vertex_polygons_and_names_are_kept():
     t = _table([Rect((0.01, 0.02), (0.0, 0.008)), Arc(0.03, (0.0, 0.002), (0.0, math.pi))])
     assert list(t.kind) == [0, 1] and list(t.count) == [4, 0] and t.points.shape == (4, 2)
     assert t.names == ("e0",)
-    np.testing.assert_allclose(t.sector[1], [0.03, 0.0, 0.002, 0.0, math.pi])
+    np.testing.assert_allclose(t.sector[1], [0.03, 0.0, 0.002, 0.0, math.pi, 0.0])
     assert len(t.arrays()) == 7
 
 
