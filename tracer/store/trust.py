@@ -118,7 +118,7 @@ def check_geometry(path, grid, table, raster, names, voltages, meshes) -> None:
            "the voltages", path)
     n = table.kind.shape[0] if isinstance(table.kind, np.ndarray) and table.kind.ndim == 1 else -1
     for key, shape, kinds in (("kind", (n,), "iu"), ("owner", (n,), "iu"), ("start", (n,), "iu"),
-                              ("count", (n,), "iu"), ("sector", (n, 5), "f"), ("bbox", (n, 4), "f")):
+                              ("count", (n,), "iu"), ("sector", (n, 6), "f"), ("bbox", (n, 4), "f")):
         _array(getattr(table, key), shape, kinds, f"the shape table's {key}", path)
     points = table.points
     _array(points, (points.shape[0] if isinstance(points, np.ndarray) and points.ndim == 2 else -1, 2), "f",
