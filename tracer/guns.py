@@ -25,7 +25,11 @@ Self-consistency
     at 0 V (:func:`tracer.solver.solve_poisson`) and under-relaxes the space-charge potential,
     phi <- (1 - w) phi + w phi_new.  The field is the electrode maps plus the space-charge map.
     The iteration has converged when the total current changes by less than ``tolerance``
-    (relative) from one iteration to the next; the rays of the last iteration are the run.
+    (relative) from one iteration to the next; the rays of the last iteration are the run.  An
+    iteration that emits nothing (the space charge of an early overshoot has pushed the potential
+    in front of the cathode below the cathode's) deposits no charge, so the next relaxation
+    reopens the cathode and the iteration goes on; only a cathode that emits nothing in the
+    vacuum field ends the run at once.
 
 Units: currents in A (planar symmetry: A per metre of length in x, both halves of a mirrored
 domain counted); the perveance in A/V^1.5 (planar: A m^-1 V^-1.5).
@@ -517,22 +521,31 @@ def gun(setup: Setup, *, maps: BasisMaps | None = None, cache_dir: str | os.Path
         total = float(sites["current_A"].sum())
         change = abs(total - history[-1][0]) / total if history and total > 0.0 else math.nan
         history.append((total, change))
-        converged = total == 0.0 or change < spec.tolerance
+        converged = change < spec.tolerance
         if total > 0.0:
             run = _trace(field, setup, sites, distance)
         if progress is not None and iteration < spec.max_iterations:
             progress(iteration, spec.max_iterations)
-        if converged or total == 0.0 or iteration == spec.max_iterations:
+        # no current in the vacuum field: nothing to iterate; no current later: the space charge
+        # of an overshoot has closed the cathode for now, and relaxing it towards none reopens it
+        if converged or (total == 0.0 and iteration == 1) or iteration == spec.max_iterations:
             break
-        rho = space_charge_density(grid, run, sites, distance, sp)
+        if total > 0.0:
+            rho = space_charge_density(grid, run, sites, distance, sp)
+        else:
+            rho = np.zeros(grid.shape)
         fresh = solve_poisson(grid, vacuum.table, rho, vacuum.raster, rtol=POISSON_RTOL)
         phi = (1.0 - spec.relaxation) * phi + spec.relaxation * fresh
         field = dataclasses.replace(vacuum, hermite=vacuum.hermite + _space_charge_map(vacuum, phi))
     if progress is not None:
         progress(spec.max_iterations, spec.max_iterations)
     warning = ""
-    if total == 0.0:
+    if total == 0.0 and iteration == 1:
         warning = "the cathode emits nothing: no accelerating field in front of it"
+        run = None
+    elif total == 0.0:
+        warning = (f"gun did not converge: the space charge still closed the cathode after "
+                   f"{iteration} iterations")
         run = None
     elif not converged:
         warning = (f"gun did not converge: the current changed by {change:.2e} (relative) in the "
