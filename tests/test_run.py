@@ -19,6 +19,7 @@ from tracer.pipeline import CONFIGS, run, write_run_outputs
 from tracer.plot import run_figures
 from tracer.store import StoreError
 from tracer.store.atomic import atomic_path
+from terminal import as_from_a_terminal
 
 ROOT = Path(__file__).resolve().parent.parent
 
@@ -255,6 +256,7 @@ def test_ctrl_c_to_both_processes_leaves_no_file(tmp_path):
     out = tmp_path / "out"
     out.mkdir()
     proc = subprocess.Popen([sys.executable, "-c", CTRL_C, str(out)], start_new_session=True,
+                            preexec_fn=as_from_a_terminal,
                             stderr=subprocess.PIPE, text=True)
     deadline = time.monotonic() + 60
     while len(list(out.iterdir())) < 2 and time.monotonic() < deadline:   # both temporary files
