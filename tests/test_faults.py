@@ -274,3 +274,109 @@ def test_nothing_is_unpickled_or_evaluated_from_input():
                 found += [f"{path.name}:{node.lineno} allow_pickle" for k in node.keywords
                           if k.arg == "allow_pickle" and not (isinstance(k.value, ast.Constant) and not k.value.value)]
     assert found == []
+
+
+TWO_PLANES = TRAP.replace("[[plane]]\n", '[[plane]]\nname = "late"\nz_mm = 16.0\n\n[[plane]]\n', 1)
+
+
+def test_a_rerun_replaces_the_whole_set_of_outputs(trap, tmp_path, monkeypatch, capsys):
+    """The pictures of a plane no longer in the config go; the manifest names exactly the set."""
+    config = tmp_path / "two.toml"
+    config.write_text(TWO_PLANES)
+    out = tmp_path / "out"
+    monkeypatch.setenv("TRACER_CACHE", str(trap.cache))
+    assert main(["run", str(config), "--out", str(out), "--quiet"]) == 0
+    assert (out / "phase_spray_late.png").exists()
+    assert main(["run", str(trap.config), "--out", str(out), "--quiet"]) == 0
+    capsys.readouterr()
+    names = sorted(p.name for p in out.iterdir())
+    assert "phase_spray_late.png" not in names and "phase_spray_mid.png" in names
+    manifest = (out / "run-files.txt").read_text().splitlines()
+    assert manifest[0].startswith("# tracer run of 'ion trap") and sorted(manifest[1:] + ["run-files.txt"]) == names
+
+
+KILLED_MID_SET = """
+import os, signal, sys
+from tracer.store import atomic
+replace, moved = os.replace, []
+def killed(src, dst):
+    moved.append(dst)
+    if len(moved) == 4:    # the manifest written, the old one set aside, one new file moved
+        os.kill(os.getpid(), signal.SIGKILL)
+    replace(src, dst)
+atomic.os.replace = killed
+with atomic.staged_folder(sys.argv[1], manifest="run-files.txt", heading="second") as staged:
+    for name in ("a", "c", "d"):
+        (staged / name).write_text("second")
+"""
+
+
+def test_a_set_killed_half_way_in_is_finished_by_the_next_writer(tmp_path):
+    """kill -9 while a set of outputs is moved in: the folder holds no manifest until the next
+    locked writer finishes the move (the old set's extra file removed)."""
+    out = tmp_path / "out"
+    with atomic.staged_folder(out, manifest="run-files.txt", heading="first") as staged:
+        for name in ("a", "b"):
+            (staged / name).write_text("first")
+    (out / ".landings.csv.123.abcd.tmp").write_text("left by a killed writer")
+    proc = subprocess.run([sys.executable, "-c", KILLED_MID_SET, str(out)])
+    assert proc.returncode == -signal.SIGKILL
+    assert not (out / "run-files.txt").exists()          # a half-moved set is never named
+    with atomic.locked_folder(out, "run-files.txt"):
+        assert sorted(p.name for p in out.iterdir()) == ["a", "c", "d", "run-files.txt"]
+        assert {(out / n).read_text() for n in "acd"} == {"second"}
+        assert (out / "run-files.txt").read_text() == "# second\na\nc\nd\n"
+
+
+HOLD_LOCK = """
+import sys, time
+from tracer.store import atomic
+with atomic.locked_folder(sys.argv[1], "run-files.txt"):
+    print("locked", flush=True)
+    time.sleep(60)
+"""
+
+
+def test_a_second_process_on_one_output_folder_stops_with_exit_2(trap, tmp_path, capsys):
+    out = tmp_path / "out"
+    holder = subprocess.Popen([sys.executable, "-c", HOLD_LOCK, str(out)], stdout=subprocess.PIPE, text=True)
+    try:
+        assert holder.stdout.readline() == "locked\n"
+        assert main(["run", str(trap.config), "--out", str(out), "--quiet"]) == 2
+    finally:
+        holder.kill()
+        holder.wait()
+    assert capsys.readouterr().err == (f"tracer: error: --out {out}: another tracer process is writing to "
+                                       "this folder; wait for it to end or choose another --out\n")
+    assert list(out.iterdir()) == []
+    # an --out that is a file is refused before any work, as bad input
+    (tmp_path / "file").write_text("x")
+    assert main(["run", str(trap.config), "--out", str(tmp_path / "file"), "--quiet"]) == 2
+    assert "cannot write there" in capsys.readouterr().err
+
+
+def test_sigterm_is_handled_like_ctrl_c(trap, tmp_path):
+    """SIGTERM exits 130 with one line; what a killed run left (a staging folder) is cleaned up first."""
+    config = tmp_path / "long.toml"
+    config.write_text(LONG)
+    out = tmp_path / "out"
+    dead = out / ".staged.1.dead.tmp"
+    dead.mkdir(parents=True)
+    (dead / "result.h5").write_text("half")
+    proc = subprocess.Popen([sys.executable, "-m", "tracer", "run", str(config), "--out", str(out), "--quiet"],
+                            env={**os.environ, "TRACER_CACHE": str(trap.cache)},
+                            stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, text=True)
+    try:
+        deadline = time.monotonic() + 60
+        while dead.exists() and time.monotonic() < deadline:   # gone: the folder is locked, SIGTERM handled
+            time.sleep(0.05)
+        assert not dead.exists()
+        proc.send_signal(signal.SIGTERM)
+        code = proc.wait(timeout=60)
+    finally:
+        if proc.poll() is None:
+            proc.kill()
+            proc.wait()
+    err = proc.stderr.read()
+    assert code == 130 and err == "tracer: interrupted\n", err
+    assert list(out.iterdir()) == []

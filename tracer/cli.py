@@ -2,13 +2,19 @@
 
 Exit codes: 0 success, 2 bad input (one line on stderr, a traceback only with
 ``--debug``), 1 an internal fault, 3 a scan's cluster lost its workers (the finished rows are kept),
-130 interrupted, 141 the reader of the output went away.
+130 interrupted (Ctrl-C or SIGTERM), 141 the reader of the output went away.
+
+A command that writes into an output folder holds a lock on it (``flock`` on the folder) for its
+whole run: a second process on the same folder stops at once with exit 2, and the first step
+under the lock cleans up after writers that were killed (:func:`tracer.store.atomic.locked_folder`).
 """
 
 from __future__ import annotations
 
 import argparse
+import contextlib
 import os
+import signal
 import sys
 import traceback
 from pathlib import Path
@@ -30,6 +36,32 @@ def _out_dir(args) -> Path:
     if args.out:
         return Path(args.out)
     return Path(Path(args.config).stem + ".out")
+
+
+WRITES_OUT = ("solve", "run", "scan", "tune", "optics", "gun")
+"""The commands that write into ``--out`` and lock it (``demo`` writes only into a fresh folder)."""
+
+
+def _lock_out(args, stack) -> None:
+    """Lock the output folder of a command that writes one, for as long as ``stack`` is open."""
+    if args.command not in WRITES_OUT:
+        return
+    from tracer.pipeline import RUN_FILES
+    from tracer.store.atomic import FolderBusy, locked_folder
+
+    out = _out_dir(args)
+    try:
+        stack.enter_context(locked_folder(out, RUN_FILES))
+    except FolderBusy:
+        raise InputError(f"--out {out}: another tracer process is writing to this folder; "
+                         "wait for it to end or choose another --out") from None
+    except OSError as exc:
+        raise InputError(f"--out {out}: cannot write there ({exc.strerror or exc})") from None
+
+
+def _terminated(signum, frame):
+    """SIGTERM: stop as Ctrl-C does (temporary files removed, exit 130)."""
+    raise KeyboardInterrupt
 
 
 def _load(args):
@@ -447,8 +479,11 @@ def main(argv: list[str] | None = None) -> int:
     args = parser.parse_args(argv)
     func = COMMANDS[args.command][0]
     echo = print
+    previous = signal.signal(signal.SIGTERM, _terminated)
     try:
-        code = func(args, echo)
+        with contextlib.ExitStack() as stack:
+            _lock_out(args, stack)
+            code = func(args, echo)
         sys.stdout.flush()  # a closed pipe shows here, not at the interpreter's exit
         return code
     except BrokenPipeError:  # e.g. ``tracer run ... | head``: stop quietly, as pipes expect
@@ -471,3 +506,5 @@ def main(argv: list[str] | None = None) -> int:
         print(f"tracer: internal fault: {type(exc).__name__}: {exc} (run with --debug for details)",
               file=sys.stderr)
         return 1
+    finally:
+        signal.signal(signal.SIGTERM, previous)

@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import dataclasses
 import os
+import time
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass
 from pathlib import Path
@@ -271,13 +272,19 @@ def optics_error_bars(setup, props, *, cache_dir=None):
                               errorbars.lens_warnings(props, errors, h, spec.warn_fraction))
 
 
+RUN_FILES = "run-files.txt"
+"""The manifest of a run's output files: which run wrote them, then their names."""
+
+
 def write_run_outputs(result: RunResult, out) -> list[Path]:
     """Write ``result.h5``, ``landings.csv`` and the pictures of a run into a folder.
 
     The pictures after the first (:func:`tracer.plot.figure_jobs`) are drawn in a child process
     (:func:`beside`) while this one writes the files and the first picture; they are drawn into a
-    staging folder and moved beside the others only when everything has been written, so an
-    interrupted write adds no picture to the folder."""
+    staging folder with the files and moved into ``out`` with them, manifest (``run-files.txt``)
+    last, only when everything has been written (:func:`tracer.store.atomic.staged_folder`): an
+    interrupted write changes nothing, and the files of the previous run that this one does not
+    write (the pictures of a plane no longer there) are removed."""
     from tracer import plot
     from tracer.beside import beside
     from tracer.store.atomic import staged_folder
@@ -295,10 +302,11 @@ def write_run_outputs(result: RunResult, out) -> list[Path]:
         """The names of the pictures drawn (a picture with nothing to show is not drawn)."""
         return [name for name, draw in others if draw(staging / name) is not None]
 
-    with staged_folder(out) as staging:
+    heading = f"tracer run of {setup.title!r} at {time.strftime('%Y-%m-%d %H:%M:%S %Z')}"
+    with staged_folder(out, manifest=RUN_FILES, heading=heading) as staging:
         with beside(draw_others) as drawn:
-            files = [write_result(out / "result.h5", result.field, runs, setup=setup,
+            files = [write_result(staging / "result.h5", result.field, runs, setup=setup,
                                   summaries=result.summary()),
-                     write_landings_csv(out / "landings.csv", runs),
-                     first(out / first_name)]
-    return [f for f in files if f is not None] + [out / name for name in drawn[0]]
+                     write_landings_csv(staging / "landings.csv", runs),
+                     first(staging / first_name)]
+    return [out / f.name for f in files if f is not None] + [out / name for name in drawn[0]] + [out / RUN_FILES]
