@@ -179,13 +179,15 @@ def test_demo_without_out_picks_the_next_fresh_folder(tmp_path, monkeypatch, cap
 
 def test_run_outputs_are_the_files_and_every_picture(soft_landing, tmp_path):
     """write_run_outputs returns each file it wrote, the pictures drawn beside the files included,
-    and leaves no temporary file behind; the pictures are those drawn one by one."""
+    and leaves no temporary file behind; the pictures are those drawn one by one; the manifest
+    names them all."""
     files = write_run_outputs(soft_landing, tmp_path / "out")
     planes = soft_landing.beams["c60"].planes
     assert [f.name for f in files] == (["result.h5", "landings.csv", "rays.png", "landing_energy.png",
                                         "landing_positions.png"]
-                                       + [f"phase_c60_{plane}.png" for plane in planes])
+                                       + [f"phase_c60_{plane}.png" for plane in planes] + ["run-files.txt"])
     assert sorted(p.name for p in (tmp_path / "out").iterdir()) == sorted(f.name for f in files)
+    assert (tmp_path / "out" / "run-files.txt").read_text().splitlines()[1:] == sorted(f.name for f in files[:-1])
     alone = run_figures(soft_landing.field, list(soft_landing.beams.values()), tmp_path / "alone",
                         title=soft_landing.setup.title)
     for picture in alone:
