@@ -365,6 +365,7 @@ def test_sigterm_is_handled_like_ctrl_c(trap, tmp_path):
     (dead / "result.h5").write_text("half")
     proc = subprocess.Popen([sys.executable, "-m", "tracer", "run", str(config), "--out", str(out), "--quiet"],
                             env={**os.environ, "TRACER_CACHE": str(trap.cache)},
+                            preexec_fn=as_from_a_terminal,
                             stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, text=True)
     try:
         deadline = time.monotonic() + 60

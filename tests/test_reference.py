@@ -44,3 +44,18 @@ def test_the_guide_names_no_refused_key(doc):
     for line in text.splitlines():
         if "energy_spread_eV" in line:
             assert "refused" in line or "σ or FWHM" in line, line
+
+
+def test_every_exit_code_and_run_file_is_in_the_guide():
+    """The exit codes the command line documents (tracer/cli.py) and the run's manifest are named
+    in docs/reference.md's exit-code line and file list."""
+    from tracer import cli
+    from tracer.pipeline import RUN_FILES
+
+    codes = re.findall(r"(?<![\w.])(\d+) [a-z]", cli.__doc__.split("Exit codes:")[1].split("\n\n")[0])
+    assert {"0", "1", "2", "130"} <= set(codes)
+    text = GUIDE.read_text(encoding="utf-8")
+    line = " ".join(text.split("Exit codes:")[1].split("\n\n")[0].split())
+    missing = [c for c in codes if not re.search(rf"(?<![\w.]){c} [a-z]", line)]
+    assert not missing, f"docs/reference.md's exit codes lack {missing}"
+    assert f"`{RUN_FILES}`" in text
