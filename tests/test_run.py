@@ -131,6 +131,7 @@ def test_every_bundled_config_runs_from_the_command_line(config, tmp_path, monke
     assert text.count("energy ledger") == len(setup.beams)
     for name in ("result.h5", "landings.csv", "rays.png"):
         assert (out / name).stat().st_size > 0, name
+    assert (out / "magnetic.png").exists() == bool(setup.magnetic.coils or setup.magnetic.profiles)
     if max(abs(e.voltage_V) if e.waveform is None else e.waveform.peak_V for e in setup.electrodes) > 1000:
         assert "CAUTION" in text
 

@@ -75,9 +75,9 @@ from scipy import constants
 
 from tracer.bounds import BOUNDS, bound_of
 from tracer.geometry import overlapping_electrodes, sector_bbox, shape_table
-from tracer.schema import (CROSSINGS, NAME, DIRECTIONS, GRIDS, START_TIMES, THIRD_GRIDS, Arc, Beam, ConfigError, Domain, Electrode,
-                           GridErrorSpec, GunSpec, OpticsSpec, Plane, Polygon, Rect, ScanSpec, Setup, TraceOptions,
-                           TuneSpec, Z_PLANE_RAD)
+from tracer.schema import (CROSSINGS, NAME, DIRECTIONS, GRIDS, START_TIMES, THIRD_GRIDS, Arc, Beam, ConfigError, Domain,
+                           Electrode, GridErrorSpec, GunSpec, MagneticSpec, OpticsSpec, Plane, Polygon, Rect, ScanSpec,
+                           Setup, TraceOptions, TuneSpec, Z_PLANE_RAD)
 from tracer.species import custom_species, species
 from tracer.waveforms import Pulse, Sinusoid, Waveform, WaveformError, read_table
 
@@ -98,7 +98,8 @@ _INT64_MAX = 2**63 - 1
 _BARE_KEY = re.compile(r"[A-Za-z0-9_\-]+")
 _REQUIRED = object()
 
-_TOP = ("title", "author", "domain", "electrode", "beam", "plane", "trace", "scan", "tune", "gun", "optics", "grid_error")
+_TOP = ("title", "author", "domain", "electrode", "beam", "plane", "trace", "scan", "tune", "gun", "optics", "grid_error",
+        "coil", "axial_field", "uniform_field")
 
 
 # ---------------------------------------------------------------- entry points
@@ -403,6 +404,7 @@ def _setup(data, source):
     tune = top.get("tune", _tune, default=None, names=names, planes=plane_names, domain=domain,
                    electrodes=electrodes)
     _check_tied(tied, electrodes, scan, tune)
+    magnetic = _magnetic(top, domain, base)
     return Setup(
         title=title,
         author=author,
@@ -417,6 +419,7 @@ def _setup(data, source):
         optics=top.get("optics", _optics, default=None),
         source=source,
         grid_error=top.get("grid_error", _grid_error, default=GridErrorSpec()),
+        magnetic=magnetic,
     )
 
 
@@ -579,6 +582,146 @@ def _electrode_body(t, path, domain, base):
         tables = "[[electrode.rect]], [[electrode.polygon]] or [[electrode.arc]]"
         raise ConfigError(path, f"no shapes; give {tables}")
     return Electrode(t.data["name"], voltage, tuple(shapes), waveform)
+
+
+# ---------------------------------------------------------------- magnetic sources
+
+
+def _magnetic(top, domain, base):
+    """The ``[[coil]]``, ``[[axial_field]]`` and ``[[uniform_field]]`` tables; names unique among
+    them all (a coil's name heads its ``<name>_A`` column)."""
+    coils = tuple(_coil(v, p, domain) for v, p in _tables(top.data.get("coil", []), "coil", "coil"))
+    profiles = tuple(_axial_field(v, p, domain, base)
+                     for v, p in _tables(top.data.get("axial_field", []), "axial_field", "axial_field"))
+    uniform = tuple(_uniform_field(v, p) for v, p in
+                    _tables(top.data.get("uniform_field", []), "uniform_field", "uniform_field"))
+    seen = {}
+    for key, items in (("coil", coils), ("axial_field", profiles), ("uniform_field", uniform)):
+        for i, item in enumerate(items):
+            if item.name in seen:
+                raise ConfigError(f"{key}[{i}].name", f"duplicate magnetic source name {item.name!r} "
+                                                      f"(also {seen[item.name]})")
+            seen[item.name] = f"{key}[{i}]"
+    return MagneticSpec(coils, profiles, uniform)
+
+
+def _axial_only(path, domain, what):
+    if domain.symmetry != "axial":
+        raise ConfigError(path, f"{what} needs an axially symmetric domain (domain.symmetry = \"axial\"); "
+                                "in a planar domain give a [[uniform_field]]")
+
+
+def _coil(value, path, domain):
+    from tracer.magnetics.coil import Coil
+
+    t = _Table(value, path, ("name", "z_mm", "r_mm", "turns", "current_A"),
+               hints={"current": "give current_A (amperes, in each turn)",
+                      "y_mm": "a coil lies about the axis: give r_mm = [inner, outer]"})
+    _axial_only(path, domain, "a coil")
+    name = t.get("name", _name)
+    z = _span(t, "z_mm", ("start", "end"))
+    r = _span(t, "r_mm", ("inner radius", "outer"))
+    if r[0] < 0.0:
+        raise ConfigError(t.at("r_mm"), f"inner radius {_show(t.data['r_mm'][0])} is below 0 (the axis)")
+    if r[1] == 0.0:
+        raise ConfigError(t.at("r_mm"), "a winding on the axis carries no field; give its radius")
+    if r[0] == 0.0 and r[1] > 0.0:
+        raise ConfigError(t.at("r_mm"), "a winding from the axis outwards crosses the axis; give inner radius > 0")
+    return Coil(name, _metres(z), _metres(r), t.get("turns", _integer, default=1, low=1),
+                t.get("current_A", _number))
+
+
+def _span(t, key, words):
+    """A pair [a, b] with a <= b (equal ends: a thin winding)."""
+    pair = t.get(key, _array, length=2)
+    a, b = (_number(v, f"{t.at(key)}[{i}]") for i, v in enumerate(pair))
+    if a > b:
+        raise ConfigError(t.at(key), f"{words[0]} {_show(pair[0])} exceeds {words[1]} {_show(pair[1])}")
+    return a, b
+
+
+def _axial_field(value, path, domain, base):
+    from tracer.magnetics.profile import AxialProfile
+
+    t = _Table(value, path, ("name", "peak_T", "half_width_mm", "center_z_mm", "csv"))
+    _axial_only(path, domain, "a field on the axis")
+    name = t.get("name", _name)
+    bell = [k for k in ("peak_T", "half_width_mm", "center_z_mm") if t.has(k)]
+    if t.has("csv"):
+        if bell:
+            raise ConfigError(t.at(bell[0]), "give csv (a table of the field) or Glaser's peak_T, half_width_mm, "
+                                             "center_z_mm, not both")
+        z, b = _field_table(t.get("csv", _file, base=base), t.at("csv"))
+        try:
+            return AxialProfile.table(name, z, b)
+        except ValueError as error:
+            raise ConfigError(t.at("csv"), str(error)) from None
+    if not bell:
+        raise ConfigError(path, "give Glaser's bell (peak_T, half_width_mm, center_z_mm) or csv = a table of B on the axis")
+    return AxialProfile.glaser(name, t.get("peak_T", _number), t.get("half_width_mm", _positive) / _MM_PER_M,
+                               t.get("center_z_mm", _number) / _MM_PER_M)
+
+
+def _field_table(file, path):
+    """z (m) and B (T) from a CSV file with the header z_mm, B_T; equally spaced, increasing z."""
+    try:
+        with open(file, newline="", encoding="utf-8") as handle:
+            rows = [row for row in csv.reader(handle) if row and not row[0].lstrip().startswith("#")]
+    except (OSError, UnicodeDecodeError, csv.Error) as error:
+        raise ConfigError(path, f"cannot read {str(file)!r}: {error}") from None
+    if not rows or [c.strip() for c in rows[0]] != ["z_mm", "B_T"]:
+        raise ConfigError(path, f"{str(file)!r}: the first line must be the header z_mm,B_T")
+    z, b = [], []
+    for n, row in enumerate(rows[1:], start=2):
+        try:
+            zv, bv = (float(c) for c in row)
+        except ValueError:
+            raise ConfigError(path, f"{str(file)!r}: row {n} is not two numbers: {','.join(row)!r}") from None
+        if not (math.isfinite(zv) and math.isfinite(bv)):
+            raise ConfigError(path, f"{str(file)!r}: row {n} is not finite")
+        z.append(zv / _MM_PER_M)
+        b.append(bv)
+    if len(z) < 4:
+        raise ConfigError(path, f"{str(file)!r}: give at least 4 rows, got {len(z)}")
+    step = (z[-1] - z[0]) / (len(z) - 1)
+    if not step > 0 or any(abs(zk - (z[0] + k * step)) > 1e-6 * step for k, zk in enumerate(z)):
+        raise ConfigError(path, f"{str(file)!r}: z_mm must increase in equal steps")
+    return z, b
+
+
+def _uniform_field(value, path):
+    from tracer.magnetics.uniform import Box, Sector, UniformField
+
+    t = _Table(value, path, ("name", "B_T", "box", "sector"))
+    name = t.get("name", _name)
+    b = tuple(_number(v, f"{t.at('B_T')}[{i}]") for i, v in enumerate(t.get("B_T", _array, length=3)))
+    if t.has("box") and t.has("sector"):
+        raise ConfigError(t.at("sector"), "give a box or a sector, not both")
+    region = None
+    if t.has("box"):
+        bt = _Table(t.data["box"], t.at("box"), ("x_mm", "y_mm", "z_mm"))
+        region = Box(*(_metres(bt.get(k, _range, default=(-math.inf, math.inf), words=("lower", "upper")))
+                       for k in ("x_mm", "y_mm", "z_mm")))
+    if t.has("sector"):
+        st = _Table(t.data["sector"], t.at("sector"), ("entrance_z_mm", "radius_mm", "angle_deg", "half_gap_mm",
+                                                       "entrance_face_deg", "exit_face_deg"))
+        radius = st.get("radius_mm", _positive)
+        if st.has("half_gap_mm") and st.get("half_gap_mm", _positive) >= radius:
+            raise ConfigError(st.at("half_gap_mm"), f"{_show(st.data['half_gap_mm'])} must be below radius_mm "
+                                                    f"{_show(st.data['radius_mm'])}")
+        if st.get("angle_deg", _number) == 0.0:
+            raise ConfigError(st.at("angle_deg"), "a sector bends by 0 < |angle| <= 180 degrees, got 0")
+        try:
+            region = Sector(st.get("entrance_z_mm", _number) / _MM_PER_M, radius / _MM_PER_M,
+                            st.get("angle_deg", _number, low=-180.0, high=180.0),
+                            st.get("half_gap_mm", _positive) / _MM_PER_M,
+                            st.get("entrance_face_deg", _number, default=0.0, low=-90.0, high=90.0, low_open=True,
+                                   high_open=True),
+                            st.get("exit_face_deg", _number, default=0.0, low=-90.0, high=90.0, low_open=True,
+                                   high_open=True))
+        except ValueError as error:
+            raise ConfigError(t.at("sector"), str(error)) from None
+    return UniformField(name, b, region)
 
 
 # ---------------------------------------------------------------- waveforms

@@ -93,6 +93,8 @@ class Context:
         None: each set's earliest pulse (:func:`tracer.waveforms.first_pulse_s`).
     parameters : dict
         The varied waveform parameters by name (:func:`tracer.config.waveform_parameter`).
+    magnetic : tracer.schema.MagneticSpec
+        The setup's magnetic sources, traced with every set at the setup's currents.
     """
 
     maps: object
@@ -107,6 +109,7 @@ class Context:
     drives: dict | None = None
     time_zero_s: float | None = None
     parameters: dict = field(default_factory=dict)
+    magnetic: object = None
 
     @classmethod
     def of(cls, setup, maps, names, planes=None, beams=None, coarse=None):
@@ -118,7 +121,7 @@ class Context:
                    tuple(setup.planes if planes is None else planes), tuple(names),
                    setup.trace.rtol, setup.trace.max_time_s, coarse, setup.grid_error.rays,
                    setup.grid_error.safety, setup.drives() if setup.in_time or parameters else None,
-                   setup.trace.time_zero_s, parameters)
+                   setup.trace.time_zero_s, parameters, setup.magnetic)
 
     @property
     def columns(self):
@@ -159,6 +162,7 @@ class Context:
         """
         from tracer.beam import trace
         from tracer.errorbars import row_errors
+        from tracer.magnetics.units import traced_sources
         from tracer.waveforms import first_pulse_s
 
         values = dict(zip(self.names, (float(v) for v in voltages)))
@@ -166,16 +170,19 @@ class Context:
         field = self.field_of(self.maps, drives, values)
         coarse = None if self.coarse is None else self.field_of(self.coarse, drives, values)
         time_zero = first_pulse_s(drives.values()) if self.time_zero_s is None else self.time_zero_s
+        magnetic, coarse_magnetic = (None if self.magnetic is None or f is None
+                                     else traced_sources(self.magnetic, f.grid) for f in (field, coarse))
         figures, errors, trace_s = [], [], 0.0
         for beam in self.beams:
             with _TRACE_LOCK:
                 t0 = time.perf_counter()
                 run = trace(field, beam, planes=self.planes, rtol=self.rtol, max_time_s=self.max_time_s,
-                            time_zero_s=time_zero)
+                            time_zero_s=time_zero, magnetic=magnetic)
                 if coarse is not None:
                     errors += row_errors(run, lambda starts, b=beam: trace(
                         coarse, b, planes=self.planes, rtol=self.rtol, max_time_s=self.max_time_s,
-                        starts=starts, time_zero_s=time_zero), self.maps.names, self.rays, self.safety)
+                        starts=starts, time_zero_s=time_zero, magnetic=coarse_magnetic),
+                        self.maps.names, self.rays, self.safety)
                 trace_s += time.perf_counter() - t0
             figures += measure.row(run, self.maps.names)
         return np.array(figures + errors, dtype=np.float64), trace_s

@@ -341,6 +341,7 @@ def _start_rays(sites, distance, symmetry, mass_kg):
 def _trace(field, setup, sites, distance):
     from tracer.beam import trace
     from tracer.config import Beam
+    from tracer.magnetics.units import traced_sources
 
     sp = setup.gun.species
     beam = Beam(name="gun", species=sp, energy_eV=None, start_z_m=None, count=None)
@@ -349,7 +350,8 @@ def _trace(field, setup, sites, distance):
     opts = setup.trace
     return trace(field, beam, planes=setup.planes, rtol=opts.rtol, max_time_s=opts.max_time_s,
                  keep_paths=len(starts), max_path_points=max(4096, 4 * (grid.nz + grid.nr)),
-                 ledger_threshold=opts.ledger_threshold, starts=starts)
+                 ledger_threshold=opts.ledger_threshold, starts=starts,
+                 magnetic=traced_sources(setup.magnetic, grid))
 
 
 def _path_zrt(path, symmetry):

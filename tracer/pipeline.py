@@ -165,16 +165,19 @@ def traced_field(setup, maps, voltages=None):
     return group_maps(maps, with_voltages(setup.drives(), voltages))
 
 
-def trace_beam(field, beam, setup, progress=None, starts=None):
-    """Trace one beam of a setup with its ``[trace]`` options and planes; given ``starts``
-    (:data:`tracer.sources.START_DTYPE`), those rays instead of the beam's, keeping no paths."""
+def trace_beam(field, beam, setup, progress=None, starts=None, currents=None):
+    """Trace one beam of a setup with its ``[trace]`` options, planes and magnetic sources (coil
+    currents from ``currents`` where given); given ``starts`` (:data:`tracer.sources.START_DTYPE`),
+    those rays instead of the beam's, keeping no paths."""
     from tracer.beam import trace
+    from tracer.magnetics.units import traced_sources
 
     opts = setup.trace
     return trace(field, beam, planes=setup.planes, rtol=opts.rtol, max_time_s=opts.max_time_s,
                  keep_paths=opts.keep_paths if starts is None else 0,
                  ledger_threshold=opts.ledger_threshold, progress=progress, starts=starts,
-                 time_zero_s=setup.time_zero_s)
+                 time_zero_s=setup.time_zero_s,
+                 magnetic=traced_sources(setup.magnetic, field.grid, currents))
 
 
 def run(setup: Setup, *, maps: BasisMaps | None = None, voltages: Mapping[str, float] | None = None,
@@ -221,18 +224,25 @@ def lens(setup, field):
 
     The energy reference is the one of the beams: ``energy_eV`` is the kinetic energy at
     ``[optics] start_z_mm`` on the axis, by default the first beam's start (the z_min end of the
-    map when there is no beam); see :func:`tracer.optics.paraxial`.
+    map when there is no beam); see :func:`tracer.optics.paraxial`. The setup's coils and axial
+    fields enter as ``magnetic=`` (their field on the axis, sampled on ``field``'s grid as the
+    rays see it); uniform fields are not round lenses and are left out.
 
     Raises
     ------
     tracer.optics.OpticsError
     """
+    from tracer.magnetics.units import unit_fields
     from tracer.optics import paraxial
 
     spec = setup.optics
     start = spec.start_z_m if spec.start_z_m is not None else (
         setup.beams[0].start_z_m if setup.beams else None)
-    return paraxial(field, spec.species, spec.energy_eV, object_z_m=spec.object_z_m, start_z_m=start)
+    mag = setup.magnetic
+    magnetic = unit_fields(field.grid, mag.coils, mag.profiles).combine() if (
+        mag.coils or mag.profiles) else None
+    return paraxial(field, spec.species, spec.energy_eV, object_z_m=spec.object_z_m, start_z_m=start,
+                    magnetic=magnetic)
 
 
 def optics_error_bars(setup, props, *, cache_dir=None):
@@ -296,7 +306,7 @@ def write_run_outputs(result: RunResult, out) -> list[Path]:
     setup = result.setup
     runs = list(result.beams.values())
     (first_name, first), *others = plot.figure_jobs(result.field, runs, title=setup.title,
-                                                    grouped=result.grouped)
+                                                    grouped=result.grouped, magnetic=setup.magnetic)
 
     def draw_others():
         """The names of the pictures drawn (a picture with nothing to show is not drawn)."""

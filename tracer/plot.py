@@ -10,6 +10,7 @@ from __future__ import annotations
 from pathlib import Path
 
 import matplotlib
+import matplotlib.patches
 import numpy as np
 from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.collections import LineCollection
@@ -112,6 +113,40 @@ def plot_field(field, path, paths=(), title: str | None = None, levels: int = 24
     ax.set_ylim(g.r0 * MM, g.r1 * MM)
     ax.set_aspect("equal")
     ax.set_title(title or "electrodes and equipotentials", fontsize=10)
+    return save(fig, path)
+
+
+def plot_magnetic(spec, field, path) -> Path | None:
+    """The coils' winding sections beside the electrodes in the (z, r) half-plane, and |B| on
+    the axis of the coils and axial fields below it (None when there are neither)."""
+    if not (spec.coils or spec.profiles):
+        return None
+    g = field.grid
+    z = np.linspace(g.z0, g.z1, 2001)
+    fig = new_figure((10.0, 6.0))
+    top, bottom = fig.subplots(2, 1, sharex=True)
+    draw_electrodes(top, field.table, labels=False)
+    reach = g.r1
+    for c in spec.coils:
+        (z0, z1), (r0, r1) = c.z_m, c.r_m
+        w, h = max(z1 - z0, 2e-3 * (g.z1 - g.z0)), max(r1 - r0, 2e-3 * (g.z1 - g.z0))
+        top.add_patch(matplotlib.patches.Rectangle((z0 * MM, r0 * MM), w * MM, h * MM, fc="peru",
+                                                   ec="black", lw=0.5, zorder=4))
+        top.annotate(f"{c.name}\n{c.turns} x {c.current_A:g} A", ((z0 + z1) / 2 * MM, r1 * MM),
+                     fontsize=7, ha="center", va="bottom", zorder=5)
+        reach = max(reach, r1 + h)
+    top.set_xlim(g.z0 * MM, g.z1 * MM)
+    top.set_ylim(0.0, reach * 1.15 * MM)
+    top.set_ylabel("r (mm)")
+    top.set_title("coils and electrodes", fontsize=10)
+    from tracer.magnetics.profile import axial_field_T
+
+    b = np.abs(axial_field_T(spec, z))
+    scale, unit = (1e3, "mT") if b.max() < 0.1 else (1.0, "T")
+    bottom.plot(z * MM, b * scale, color="navy", lw=1.0)
+    bottom.set_xlabel("z (mm)")
+    bottom.set_ylabel(f"|B| on the axis ({unit})")
+    bottom.grid(alpha=0.3)
     return save(fig, path)
 
 
@@ -269,12 +304,14 @@ def plot_arrival_times(run, plane, path) -> Path | None:
     return save(fig, path)
 
 
-def figure_jobs(field, runs, title=None, grouped=None) -> list:
+def figure_jobs(field, runs, title=None, grouped=None, magnetic=None) -> list:
     """The pictures of a run, each as ``(file name, draw)``: ``draw(path)`` writes the picture and
     returns the path (or None when it has nothing to show).  Rays over the equipotentials come
     first (the only picture that evaluates the potential map), then landing energies, landing
     positions and phase space at each plane; with voltages that change in time (``grouped``, a
-    :class:`tracer.groups.GroupedMaps`) also the waveforms and the arrival times at each plane.
+    :class:`tracer.groups.GroupedMaps`) also the waveforms and the arrival times at each plane;
+    with coils or axial fields (``magnetic``, a :class:`tracer.schema.MagneticSpec`) the coils and
+    |B| on the axis.
 
     ``runs`` are BeamRuns or beams read back from a result file (``name``, ``records``,
     ``crossings``, ``paths``, ``planes``)."""
@@ -291,6 +328,8 @@ def figure_jobs(field, runs, title=None, grouped=None) -> list:
         jobs += [(f"arrival_{run.name}_{plane}.png",
                   lambda path, run=run, plane=plane: plot_arrival_times(run, plane, path))
                  for run in runs for plane in run.planes]
+    if magnetic:
+        jobs.append(("magnetic.png", lambda path: plot_magnetic(magnetic, field, path)))
     return jobs
 
 

@@ -46,8 +46,40 @@ def describe(setup) -> str:
         where = (f"the line through z = {p.z_m * 1e3:g} mm, {side} = {p.r_m * 1e3:g} mm at "
                  f"{math.degrees(p.angle_rad):g} deg from +z" if p.tilted else f"z = {p.z_m * 1e3:g} mm")
         lines.append(f"plane {p.name}: {where}" + (" (stops rays)" if p.stop else ""))
+    lines += _describe_magnetic(setup)
     lines.append(_describe_grid_error(setup))
     return "\n".join(lines)
+
+
+def _describe_magnetic(setup):
+    """Lines on the coils, axial fields and uniform fields, and the peak field on the axis."""
+    import numpy as np
+
+    spec = setup.magnetic
+    if not spec:
+        return []
+    lines = []
+    for c in spec.coils:
+        lines.append(f"coil {c.name}: z {c.z_m[0] * 1e3:g}..{c.z_m[1] * 1e3:g} mm, r {c.r_m[0] * 1e3:g}.."
+                     f"{c.r_m[1] * 1e3:g} mm, {c.turns} turns x {c.current_A:g} A = "
+                     f"{c.turns * c.current_A:g} ampere-turns")
+    for p in spec.profiles:
+        shown = (f"Glaser's bell, peak {p.peak_T:g} T, half-width {p.half_width_m * 1e3:g} mm at z = "
+                 f"{p.center_z_m * 1e3:g} mm" if p.fit is None else
+                 f"a table over z {p.fit.z[0] * 1e3:g}..{p.fit.z[-1] * 1e3:g} mm")
+        lines.append(f"axial field {p.name}: {shown}")
+    for u in spec.uniform:
+        where = "everywhere" if u.region is None else f"in a {type(u.region).__name__.lower()}"
+        lines.append(f"uniform field {u.name}: B = ({', '.join(f'{b:g}' for b in u.b_T)}) T {where}")
+    if spec.coils or spec.profiles:
+        from tracer.magnetics.profile import axial_field_T
+
+        z = np.linspace(*setup.domain.z_m, 2001)
+        bz = axial_field_T(spec, z)
+        k = int(np.argmax(np.abs(bz)))
+        lines.append(f"peak |B| on the axis (coils and axial fields): {abs(bz[k]):.4g} T at z = "
+                     f"{z[k] * 1e3:.4g} mm")
+    return lines
 
 
 def _describe_grid_error(setup):

@@ -474,6 +474,33 @@ class GridErrorSpec:
 
 
 @dataclass(frozen=True)
+class MagneticSpec:
+    """The static magnetic sources of a setup (``[[coil]]``, ``[[axial_field]]``,
+    ``[[uniform_field]]``).
+
+    Parameters
+    ----------
+    coils : tuple of tracer.magnetics.coil.Coil
+        Coils about the axis; each a unit field combined by its current.
+    profiles : tuple of tracer.magnetics.profile.AxialProfile
+        Fields given on the axis (Glaser's bell or a table), continued off it.
+    uniform : tuple of tracer.magnetics.uniform.UniformField
+        Uniform fields, everywhere or in a box or sector.
+    """
+
+    coils: tuple = ()
+    profiles: tuple = ()
+    uniform: tuple = ()
+
+    def __bool__(self) -> bool:
+        return bool(self.coils or self.profiles or self.uniform)
+
+    def currents(self) -> dict[str, float]:
+        """Return the coil currents by name (A), in coil order."""
+        return {c.name: c.current_A for c in self.coils}
+
+
+@dataclass(frozen=True)
 class Setup:
     """Everything a config file describes.
 
@@ -495,6 +522,8 @@ class Setup:
     author : str
         Author and contact for the files a run writes (openPMD ``author``); "" leaves it to
         :func:`tracer.store.openpmd.default_author`.
+    magnetic : MagneticSpec
+        The static magnetic sources (none by default: an electric-only setup).
     """
 
     title: str
@@ -510,6 +539,7 @@ class Setup:
     source: pathlib.Path | None = None
     grid_error: GridErrorSpec = GridErrorSpec()
     author: str = ""
+    magnetic: MagneticSpec = MagneticSpec()
 
     def voltages(self) -> dict[str, float]:
         """Return the electrode voltages by name, in electrode order (the DC part of a waveform)."""

@@ -8,7 +8,8 @@ once (:data:`FIRST_COMPILE`, measured by ``tests/bench/bench_coldstart.py``), an
 
 :func:`pending` tells whether the main kernels have no cached code yet (the command line then says
 so on one line with the expected wait); :func:`warmup` compiles every kernel a run, a gun, a run
-with voltages in time and the paraxial optics use, by running the bundled examples small.
+with voltages in time, a run with coils and the paraxial optics use, by running the bundled
+examples small.
 """
 
 from __future__ import annotations
@@ -64,8 +65,9 @@ def warmup(echo=print) -> float:
     """Compile every kernel into numba's cache by running the bundled examples small.
 
     Runs the demo lens (solve, trace, paraxial optics), the Pierce gun (two space-charge
-    iterations) and the delayed-extraction source (voltages in time), each on twice its cell with a
-    few rays and no map cache, and writes nothing else.
+    iterations), the delayed-extraction source (voltages in time) and the solenoid (the ray kernel
+    with a magnetic field, a kernel of its own), each on twice its cell with a few rays and no map
+    cache, and writes nothing else.
 
     Parameters
     ----------
@@ -95,6 +97,8 @@ def warmup(echo=print) -> float:
         gun(dataclasses.replace(source, gun=dataclasses.replace(source.gun, max_iterations=2)))
     echo(f"compiled the gun kernels ({time.perf_counter() - t0:.0f} s)")
     run(_small(load(CONFIGS / "tof_delayed_extraction.toml")))
+    echo(f"compiled the kernels of voltages in time ({time.perf_counter() - t0:.0f} s)")
+    run(_small(load(CONFIGS / "solenoid_focus.toml")))
     total = time.perf_counter() - t0
-    echo(f"compiled the kernels of voltages in time ({total:.0f} s)")
+    echo(f"compiled the magnetic ray kernel ({total:.0f} s)")
     return total

@@ -93,3 +93,13 @@ class AxialProfile:
         bz = d[0] - r ** 2 / 4 * d[2] + r ** 4 / 64 * d[4]
         br = -r / 2 * d[1] + r ** 3 / 16 * d[3] - r ** 5 / 384 * d[5]
         return aphi, bz, br
+
+
+def axial_field_T(spec, z) -> np.ndarray:
+    """B_z on the axis (T) at z of a setup's coils and axial fields (``spec``, a
+    :class:`tracer.schema.MagneticSpec`), from their closed forms."""
+    from tracer.magnetics.coil import coil_field
+
+    z = np.asarray(z, dtype=float)
+    return (sum((coil_field(c, z, np.zeros_like(z))[1] for c in spec.coils), np.zeros_like(z))
+            + sum((p.on_axis(z) for p in spec.profiles), np.zeros_like(z)))

@@ -24,6 +24,7 @@ as its third.
 
 from __future__ import annotations
 
+import functools
 from collections.abc import Mapping
 from dataclasses import dataclass
 
@@ -168,3 +169,36 @@ class MagneticUnits:
         weights = np.array([amps[n] for n in self.names])
         hermite = self.fixed + np.tensordot(weights, self.unit, axes=1)
         return MagneticMap(self.grid, self.names, tuple(weights.tolist()), hermite)
+
+
+@functools.lru_cache(maxsize=8)
+def unit_fields(grid, coils, profiles) -> MagneticUnits:
+    """:meth:`MagneticUnits.build` of coils and axial profiles on a grid, computed once per grid
+    and sources in a process (a scan's rows and the error bars' grids reuse them)."""
+    return MagneticUnits.build(grid, coils, profiles)
+
+
+def traced_sources(spec, grid, currents: Mapping[str, float] | None = None):
+    """The magnetic sources of a setup as :func:`tracer.beam.trace` takes them, or None.
+
+    Parameters
+    ----------
+    spec : tracer.schema.MagneticSpec
+        The setup's coils, axial fields and uniform fields.
+    grid : tracer.grid.Grid
+        The grid of the potential map the rays are traced through.
+    currents : mapping of str to float, optional
+        Coil currents (A) that replace the setup's.
+
+    Returns
+    -------
+    tuple or None
+        The :class:`MagneticMap` of the coils and axial fields (when there are any), then the
+        uniform fields; None without any source.
+    """
+    if not spec:
+        return None
+    maps = (unit_fields(grid, spec.coils, spec.profiles).combine(currents),) if (
+        spec.coils or spec.profiles) else ()
+    return maps + tuple(spec.uniform)
+

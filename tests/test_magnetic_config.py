@@ -1,0 +1,185 @@
+"""The magnetic config keys ([[coil]], [[axial_field]], [[uniform_field]]): reading, refusals that
+name the key, `tracer check`, and runs that trace through the field.
+
+Sources: Busch's image rotation theta = sqrt(q / (8 m V*)) * integral of B dz (Busch 1926) for the
+bundled solenoid's optics; the coil's centre field mu0 N I / sqrt(L^2 + 4 R^2) of a thin finite solenoid (common
+practice) for the peak field `tracer check` shows; the cyclotron radius p / (|q| B)
+(relativistic mechanics, Jackson 1999 §12.2) for a run through a uniform field.
+"""
+
+import math
+
+import numpy as np
+import pytest
+from scipy import constants
+
+import tracer
+from tracer.cli import main
+from tracer.sources import momentum
+
+BASE = """
+title = "magnetic keys (illustrative)"
+[domain]
+symmetry = "{symmetry}"
+z_mm = [0.0, 100.0]
+{side}_mm = {extent}
+cell_mm = 1.0
+edges = "ground"
+[[electrode]]
+name = "corner"
+voltage_V = 0.0
+[[electrode.rect]]
+z_mm = [99.0, 100.0]
+{side}_mm = {corner}
+[[beam]]
+name = "e"
+species = "e-"
+energy_eV = 2000.0
+count = 8
+seed = 1
+start_z_mm = 1.0
+radius_mm = 0.5
+[[plane]]
+name = "end"
+z_mm = 60.0
+stop = true
+"""
+AXIAL = BASE.format(symmetry="axial", side="r", extent="10.0", corner="[9.0, 10.0]")
+PLANAR = BASE.format(symmetry="planar", side="y", extent="[-10.0, 10.0]", corner="[9.0, 10.0]")
+
+SOLENOID = """
+[[coil]]
+name = "lens"
+z_mm = [40.0, 60.0]
+r_mm = [15.0, 15.0]
+turns = 200
+current_A = 2.5
+"""
+
+
+def test_keys_are_read_in_si_units(tmp_path):
+    table = tmp_path / "bell.csv"
+    z = np.linspace(20.0, 80.0, 61)
+    table.write_text("z_mm,B_T\n" + "".join(f"{a},{0.01 / (1 + ((a - 50) / 5) ** 2)}\n" for a in z))
+    setup = tracer.loads(AXIAL + SOLENOID + """
+[[axial_field]]
+name = "bell"
+peak_T = 0.02
+half_width_mm = 4.0
+center_z_mm = 70.0
+[[axial_field]]
+name = "measured"
+csv = "bell.csv"
+[[uniform_field]]
+name = "guide"
+B_T = [0.0, 0.0, 0.001]
+box = { z_mm = [80.0, 90.0] }
+""", source=tmp_path / "x.toml")
+    m = setup.magnetic
+    (coil,) = m.coils
+    assert coil.z_m == (0.04, 0.06) and coil.r_m == (0.015, 0.015) and coil.turns == 200
+    assert coil.current_A == 2.5 and m.currents() == {"lens": 2.5}
+    bell, measured = m.profiles
+    assert (bell.peak_T, bell.half_width_m, bell.center_z_m) == (0.02, 0.004, 0.07)
+    assert measured.on_axis(np.array([0.05]))[0] == pytest.approx(0.01, rel=5e-3)   # a smoothing fit
+    (guide,) = m.uniform
+    assert guide.b_T == (0.0, 0.0, 0.001) and guide.region.z_m == (0.08, 0.09)
+    assert not tracer.loads(AXIAL).magnetic
+
+
+@pytest.mark.parametrize("extra, path, words", [
+    ('[[coil]]\nname = "c"\nz_mm = [1, 2]\nr_mm = [3, 4]\ncurrent = 1', "coil[0].current", "current_A"),
+    ('[[coil]]\nname = "c"\nz_mm = [2, 1]\nr_mm = [3, 4]\ncurrent_A = 1', "coil[0].z_mm", "exceeds"),
+    ('[[coil]]\nname = "c"\nz_mm = [1, 2]\nr_mm = [0, 4]\ncurrent_A = 1', "coil[0].r_mm", "inner radius > 0"),
+    ('[[coil]]\nname = "c"\nz_mm = [1, 2]\nr_mm = [3, 4]\nturns = 0\ncurrent_A = 1', "coil[0].turns", ">= 1"),
+    ('[[coil]]\nname = "c"\nz_mm = [1, 2]\nr_mm = [3, 4]\ncurrent_A = "2"', "coil[0].current_A", "number"),
+    ('[[coil]]\nname = "c"\nz_mm = [1, 2]\nr_mm = [3, 4]\ncurrent_A = 1\n[[uniform_field]]\nname = "c"\n'
+     'B_T = [0, 0, 1]', "uniform_field[0].name", "duplicate"),
+    ('[[axial_field]]\nname = "a"\npeak_T = 1\nhalf_width_mm = 2', "axial_field[0].center_z_mm", "missing"),
+    ('[[axial_field]]\nname = "a"\npeak_T = 1\nhalf_width_mm = -2\ncenter_z_mm = 1',
+     "axial_field[0].half_width_mm", "> 0"),
+    ('[[axial_field]]\nname = "a"', "axial_field[0]", "Glaser"),
+    ('[[uniform_field]]\nname = "u"\nB_T = [0, 1]', "uniform_field[0].B_T", "3 values"),
+    ('[[uniform_field]]\nname = "u"\nB_T = [0, 0, 1]\nbox = { w_mm = [0, 1] }', "uniform_field[0].box.w_mm",
+     "unknown key"),
+    ('[[uniform_field]]\nname = "u"\nB_T = [0, 0, 1]\nsector = { entrance_z_mm = 1, radius_mm = 5, '
+     'angle_deg = 90, half_gap_mm = 6 }', "uniform_field[0].sector.half_gap_mm", "below radius_mm"),
+    ('[[uniform_field]]\nname = "u"\nB_T = [0, 0, 1]\nsector = { entrance_z_mm = 1, radius_mm = 5, '
+     'angle_deg = 0, half_gap_mm = 1 }', "uniform_field[0].sector.angle_deg", "0 < |angle|"),
+    ('[[coils]]\nname = "c"', "coils", "did you mean 'coil'"),
+])
+def test_bad_keys_name_their_path(extra, path, words):
+    with pytest.raises(tracer.ConfigError) as caught:
+        tracer.loads(AXIAL + extra)
+    assert caught.value.key == path and words in str(caught.value)
+
+
+def test_coils_need_an_axial_domain():
+    with pytest.raises(tracer.ConfigError) as caught:
+        tracer.loads(PLANAR + SOLENOID.replace("r_mm", "y_mm"))
+    assert caught.value.key.startswith("coil[0]")
+    with pytest.raises(tracer.ConfigError, match="axially symmetric"):
+        tracer.loads(PLANAR + SOLENOID)
+
+
+def test_axial_table_must_be_equally_spaced(tmp_path):
+    (tmp_path / "t.csv").write_text("z_mm,B_T\n0,0\n1,0.1\n3,0.2\n4,0.1\n")
+    with pytest.raises(tracer.ConfigError, match="equal steps") as caught:
+        tracer.loads(AXIAL + '[[axial_field]]\nname = "t"\ncsv = "t.csv"', source=tmp_path / "x.toml")
+    assert caught.value.key == "axial_field[0].csv"
+
+
+def test_check_describes_coils_and_the_peak_field(tmp_path, capsys):
+    """The coil's peak is the thin solenoid's centre field mu0 N I / sqrt(L^2 + 4 R^2)
+    (common practice)."""
+    config = tmp_path / "coil.toml"
+    config.write_text(AXIAL + SOLENOID)
+    assert main(["check", str(config)]) == 0
+    out = capsys.readouterr().out
+    assert "coil lens: z 40..60 mm, r 15..15 mm, 200 turns x 2.5 A = 500 ampere-turns" in out
+    peak = constants.mu_0 * 200 * 2.5 / math.hypot(0.02, 0.03)
+    shown = float(out.split("peak |B| on the axis (coils and axial fields): ")[1].split(" T")[0])
+    assert shown == pytest.approx(peak, rel=1e-3)
+    assert "at z = 50 mm" in out
+
+
+def test_bad_magnetic_key_exits_2_with_one_line(tmp_path, capsys):
+    config = tmp_path / "bad.toml"
+    config.write_text(AXIAL + SOLENOID.replace("turns = 200", "turns = 2.5"))
+    assert main(["check", str(config)]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and "coil[0].turns" in err[0]
+
+
+def test_a_run_traces_through_the_uniform_field():
+    """Electrons in a uniform B across their path bend on circles of radius p / (|q| B)
+    (Jackson 1999 §12.2): each lands on the stop plane displaced by R - sqrt(R^2 - L^2)."""
+    radius = 0.2
+    b = momentum(2000.0, constants.m_e) / (constants.e * radius)
+    setup = tracer.loads(PLANAR.replace("radius_mm = 0.5", "radius_mm = 0.0") +
+                         f'[[uniform_field]]\nname = "bend"\nB_T = [{float(b)!r}, 0.0, 0.0]\n')
+    run = tracer.run(setup).beams["e"]
+    rec = run.records
+    assert (rec["status"] == "plane").all()
+    length = 0.059
+    shift = radius - math.sqrt(radius ** 2 - length ** 2)
+    np.testing.assert_allclose(np.abs(rec["y_m"] - run.starts["y_m"]), shift, rtol=1e-6)
+    np.testing.assert_allclose(rec["energy_eV"], 2000.0, rtol=1e-9)
+
+
+def test_optics_of_the_bundled_solenoid_turn_the_image_by_busch():
+    """`tracer optics` passes the coils to the paraxial optics: the bundled solenoid images the
+    anode aperture near the target and turns the image by sqrt(q / (8 m V*)) * integral B dz
+    (Busch 1926; V* the relativistically corrected 5 kV), the integral of the coil's closed form
+    over the axis the optics used."""
+    from tracer.magnetics.profile import axial_field_T
+    from tracer.pipeline import CONFIGS, lens
+
+    setup = tracer.load(CONFIGS / "solenoid_focus.toml")
+    props = lens(setup, tracer.solve(setup).combine())
+    assert props.image_z_m == pytest.approx(0.19, abs=0.01)
+    z = np.linspace(props.z_m[0], props.z_m[-1], 20001)   # the axis the optics used
+    b = axial_field_T(setup.magnetic, z)
+    v_star = 5000.0 * (1.0 + constants.e * 5000.0 / (2.0 * constants.m_e * constants.c ** 2))
+    theta = math.sqrt(constants.e / (8.0 * constants.m_e * v_star)) * np.trapezoid(b, z)
+    assert abs(props.rotation_rad) == pytest.approx(theta, rel=1e-3)
