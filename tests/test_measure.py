@@ -303,3 +303,102 @@ def test_the_rms_ellipse_encloses_pi_times_the_rms_emittance():
     assert np.allclose(inside, 1.0, rtol=1e-9)
     assert rms_ellipse(u[:1], slope[:1]) is None
     assert rms_ellipse(np.zeros(5), np.zeros(5)) is None
+
+
+def disc(n, radius_m):
+    """n points filling a disc of radius radius_m evenly (Vogel's sunflower spiral, 1979: point k
+    at radius R sqrt((k + 1/2) / n), turned by the golden angle), so each annulus holds its share."""
+    k = np.arange(n)
+    r = radius_m * np.sqrt((k + 0.5) / n)
+    t = k * math.pi * (3 - math.sqrt(5))
+    return r * np.cos(t), r * np.sin(t)
+
+
+def test_containing_diameters_of_a_uniform_disc():
+    """A uniformly filled disc of radius R holds the share k of its rays within R sqrt(k)
+    (area ratio, analytic): d50 = 2 R sqrt(0.5), d90 = 2 R sqrt(0.9); the current weights them."""
+    x, y = disc(4000, 1e-3)
+    x, y = x + 2e-3, y - 1e-3               # about the centroid, not the axis
+    s = plane_stats(rows_from(x, y, 0 * x, 0 * y, 100.0), PROTON, started(4000))
+    assert s.d50_m == pytest.approx(2e-3 * math.sqrt(0.5), rel=1e-3)
+    assert s.d90_m == pytest.approx(2e-3 * math.sqrt(0.9), rel=1e-3)
+    # the inner half of the rays carry all but a trace of the current: d90 shrinks inside them
+    current = np.where(np.arange(4000) < 2000, 1e-6, 1e-12)
+    w = plane_stats(rows_from(x, y, 0 * x, 0 * y, 100.0), PROTON, started(4000, weight_A=current))
+    assert w.d90_m == pytest.approx(2e-3 * math.sqrt(0.5 * 0.9), rel=1e-3)
+
+
+def test_fwhm_of_a_gaussian_spot():
+    """FWHM = 2 sqrt(2 ln 2) sigma of a normal distribution (analytic), beside sigma itself."""
+    rng = np.random.default_rng(5)
+    x, y = rng.normal(0, 0.3e-3, 40_000), rng.normal(0, 0.1e-3, 40_000)
+    s = plane_stats(rows_from(x, y, 0 * x, 0 * y, 100.0), PROTON, started(40_000))
+    k = 2 * math.sqrt(2 * math.log(2))
+    assert s.fwhm_x_m == pytest.approx(k * s.rms_x_m, rel=0.02)
+    assert s.fwhm_y_m == pytest.approx(k * 0.1e-3, rel=0.02)
+
+
+def test_best_focus_of_a_cone_is_its_apex():
+    """Rays from a disc at z = 40 mm aimed at the point 25 mm further on (or away from the point
+    25 mm behind) meet there: straight lines through one apex (geometry).  The rms and the d50 waist
+    are both at the apex, with a spot of zero size."""
+    x, y = disc(2000, 1e-3)
+    f = 25e-3
+    for sign, apex in ((-1, 65e-3), (1, 15e-3)):
+        rows = rows_from(x, y, sign * x / f, sign * y / f, 100.0)
+        rows["z_m"] = 40e-3
+        s = plane_stats(rows, PROTON, started(2000))
+        assert s.focus_z_m == pytest.approx(apex, abs=1e-12) and s.focus_rms_m < 1e-12
+        assert s.focus_d50_z_m == pytest.approx(apex, abs=1e-9) and s.focus_d50_m < 1e-9
+
+
+def test_best_focus_with_spherical_aberration_is_between_the_foci():
+    """Slopes -r/f - a r^3 (third-order spherical aberration, common practice): the marginal rays
+    cross before the paraxial focus, and both waists (rms and d50) lie between the marginal and the
+    paraxial focus with a spot smaller than at either."""
+    x, y = disc(4000, 1e-3)
+    f, a = 25e-3, 40.0
+    r = np.hypot(x, y)
+    slope = 1 / f + a * r ** 2
+    rows = rows_from(x, y, -x * slope, -y * slope, 100.0)
+    s = plane_stats(rows, PROTON, started(4000))
+    marginal = 1 / (1 / f + a * 1e-6)
+    for z in (s.focus_z_m, s.focus_d50_z_m):
+        assert marginal < z < f
+    at = {z: plane_stats(rows_from(x - z * x * slope, y - z * y * slope, 0 * x, 0 * y, 100.0), PROTON,
+                         started(4000)) for z in (marginal, f)}
+    assert s.focus_rms_m < min(v.rms_radius_m for v in at.values())
+    assert s.focus_d50_m < min(v.d50_m for v in at.values())
+
+
+def test_parallel_rays_have_no_focus_and_empty_planes_no_widths():
+    x, y = disc(100, 1e-3)
+    s = plane_stats(rows_from(x, y, 0 * x, 0 * y, 100.0), PROTON, started(100))
+    assert math.isnan(s.focus_z_m) and math.isnan(s.focus_d50_z_m) and s.d50_m > 0
+    none = plane_stats(np.zeros(0, dtype=RECORD), PROTON, started(10))
+    one = plane_stats(rows_from(x[:1], y[:1], x[:1], y[:1], 100.0), PROTON, started(10))
+    for v in (none.d50_m, none.d90_m, none.fwhm_x_m, none.focus_z_m, one.fwhm_x_m, one.focus_z_m):
+        assert math.isnan(v)
+    assert one.d50_m == 0.0
+    tilted = plane_stats(rows_from(x, y, -x, -y, 100.0), PROTON, started(100), along_z=False)
+    assert math.isnan(tilted.focus_z_m) and math.isnan(tilted.focus_d50_m)
+
+
+def test_the_report_prints_the_spot_widths_and_the_best_focus(mirror):
+    """The printed summary carries d50, d90, sigma beside FWHM and the best focus of each plane, in
+    mm, from the same summary figures (one definition)."""
+    _, _, run = mirror
+    summary = run.summary()
+    text = format_summary(summary)
+    p3 = summary["planes"]["p3"]
+    spot = text[text.index("spot at each plane"):].split("\n")
+    assert spot[1].split() == ["plane", "sigma", "x", "mm", "FWHM", "x", "mm", "sigma", "y", "mm", "FWHM",
+                               "y", "mm", "d50", "mm", "d90", "mm"]
+    line = next(l for l in spot if l.startswith("p3 "))
+    assert line.split()[-2:] == [f"{p3['d50_m'] * 1e3:.4g}", f"{p3['d90_m'] * 1e3:.4g}"]
+    assert p3["d50_m"] < p3["d90_m"]
+    focus = text[text.index("best focus"):].split("\n")
+    line = next(l for l in focus if l.startswith("p3 "))
+    assert line.split()[3] == f"{p3['focus_z_m'] * 1e3:.4g}"
+    # rays from a point source in the cone diverge from the plane: their straight lines meet behind it
+    assert p3["focus_z_m"] < 3e-3 and p3["focus_rms_m"] < p3["rms_radius_m"]

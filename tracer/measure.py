@@ -34,7 +34,10 @@ First one column ``<electrode>_V`` per varied electrode (:mod:`tracer.scans`), t
   ``spot_rms_m`` (rms radius about the centroid), ``centroid_x_m``, ``centroid_y_m``,
   ``divergence_x_rad``, ``divergence_y_rad`` (rms slopes px/pz, py/pz), ``energy_mean_eV``,
   ``energy_std_eV``, ``tof_mean_s``, ``tof_std_s`` (time of flight), ``tof_fwhm_s`` and
-  ``resolving_power`` (the arrival times' width and t / (2 Δt_FWHM), :class:`PlaneStats`);
+  ``resolving_power`` (the arrival times' width and t / (2 Δt_FWHM), :class:`PlaneStats`),
+  ``d50_m``, ``d90_m`` (current-containing diameters), ``fwhm_x_m``, ``fwhm_y_m`` (the profiles'
+  FWHM), ``focus_z_m`` and ``focus_d50_z_m`` (the best focus of the rays continued in straight
+  lines from the plane, by the rms radius and by the d50);
 * on each electrode: ``landed`` (fraction of the rays that landed on it), ``landing_mean_eV``,
   ``landing_std_eV``;
 * for the whole beam: ``landed``, ``landing_mean_eV``, ``landing_std_eV`` (all landed rays),
@@ -57,7 +60,8 @@ from dataclasses import dataclass
 import numpy as np
 
 from tracer.schema import CROSSINGS, DIRECTIONS
-from tracer.stats import beta_gamma, extreme, mean, radius, rms_emittance, std
+from tracer.stats import (beta_gamma, containing_diameter, extreme, fwhm, mean, radius, rms_emittance, std,
+                          straight_d50_waist, straight_waist)
 
 _SIDE = {"any": "", "forward": ", +z", "backward": ", -z"}
 
@@ -185,6 +189,12 @@ class PlaneStats:
         sqrt(<x^2 + y^2>): the rms radius about the axis.
     rms_x_m, rms_y_m : float
         Standard deviations of x and y.
+    fwhm_x_m, fwhm_y_m : float
+        FWHM of the x and y profiles (:func:`tracer.stats.fwhm`: the span of the central 76.1 %,
+        2 sqrt(2 ln 2) sigma for a Gaussian); NaN for fewer than two rows.
+    d50_m, d90_m : float
+        Diameters about the centroid holding 50 % and 90 % of the current (of the rays when they
+        carry none; :func:`tracer.stats.containing_diameter`).
     rms_divergence_x_rad, rms_divergence_y_rad : float
         Standard deviations of the slopes x' = px/pz and y' = py/pz.
     emittance_x_m_rad, emittance_y_m_rad : float
@@ -199,15 +209,23 @@ class PlaneStats:
         Time of flight to the plane, mean and standard deviation (the time on the trace's clock;
         rays that start at t = 0 make it the flight time).
     time_fwhm_s : float
-        Width of the arrival times: the span of their central 76.1 % (erf(sqrt(ln 2)), the share
-        within the full width at half maximum of a normal distribution, so it is the FWHM for a
-        Gaussian peak, and unmoved by a few stragglers); NaN for fewer than two rows.
+        Width of the arrival times: their FWHM as :func:`tracer.stats.fwhm` defines it (the span of
+        their central 76.1 %, the FWHM of a Gaussian peak, unmoved by a few stragglers); NaN for
+        fewer than two rows.
     resolving_power : float
         Mass-resolving power of a time-of-flight analyser at this plane, t / (2 Δt_FWHM), with t
         the mean arrival time counted from ``time_zero_s`` (the extraction pulse; common
         practice, m / Δm = t / (2 Δt) since t ∝ sqrt(m)).
     current_A : float
         The current of the rays counted, each ray once (NaN when the rays carry none).
+    focus_z_m, focus_rms_m : float
+        Best focus of the rays continued in straight lines from the plane (no field beyond it;
+        :func:`tracer.stats.straight_waist`): the z where their rms radius about the centroid is
+        smallest, and that radius.  Behind the plane (z less than the plane's) for rays that
+        diverge from it (a virtual waist).  NaN on a tilted plane (its ``focus`` distance along the
+        normal is not a z) and for rays all parallel.
+    focus_d50_z_m, focus_d50_m : float
+        The same for the smallest d50 (:func:`tracer.stats.straight_d50_waist`).
     """
 
     count: int
@@ -232,13 +250,17 @@ class PlaneStats:
     time_fwhm_s: float
     resolving_power: float
     current_A: float
+    fwhm_x_m: float
+    fwhm_y_m: float
+    d50_m: float
+    d90_m: float
+    focus_z_m: float
+    focus_rms_m: float
+    focus_d50_z_m: float
+    focus_d50_m: float
 
 
-FWHM_SHARE = math.erf(math.sqrt(math.log(2.0)))
-"""Share of a normal distribution within its full width at half maximum (0.761)."""
-
-
-def plane_stats(rows, species, records, time_zero_s=0.0):
+def plane_stats(rows, species, records, time_zero_s=0.0, along_z=True):
     """The figures of the given crossing rows.
 
     Parameters
@@ -253,6 +275,8 @@ def plane_stats(rows, species, records, time_zero_s=0.0):
         ``weight_A`` (when the field is there and sums above 0) the current.
     time_zero_s : float
         The clock time the resolving power counts flight times from (the extraction pulse).
+    along_z : bool
+        Whether the plane is z = const (the best focus is a z only there).
 
     Returns
     -------
@@ -265,9 +289,15 @@ def plane_stats(rows, species, records, time_zero_s=0.0):
     ex, ey = rms_emittance(x, xs), rms_emittance(y, ys)
     n = len(records)
     weights = records["weight_A"] if "weight_A" in records.dtype.names else np.zeros(n)
+    charged = weights.sum() > 0
+    ray_weight = weights[np.searchsorted(records["ray"], rows["ray"])] if charged else None
     t = rows["time_s"]
-    fwhm = (float(np.diff(np.quantile(t, [0.5 - FWHM_SHARE / 2, 0.5 + FWHM_SHARE / 2]))[0])
-            if len(t) > 1 else math.nan)
+    width = fwhm(t)
+    z0 = mean(rows["z_m"]) if along_z else math.nan
+    on = np.isfinite(xs) & np.isfinite(ys)        # a ray turning in the plane has no straight line
+    line = (x[on], y[on], xs[on], ys[on])
+    s_rms, focus_rms = straight_waist(*line)
+    s_d50, focus_d50 = straight_d50_waist(*line, None if ray_weight is None else ray_weight[on])
     return PlaneStats(
         count=len(rows),
         fraction=len(np.unique(rows["ray"])) / n if n else math.nan,
@@ -286,12 +316,19 @@ def plane_stats(rows, species, records, time_zero_s=0.0):
         beta_gamma=bg,
         energy_mean_eV=mean(rows["energy_eV"]),
         energy_std_eV=std(rows["energy_eV"]),
-        time_mean_s=mean(rows["time_s"]),
-        time_std_s=std(rows["time_s"]),
-        time_fwhm_s=fwhm,
-        resolving_power=(mean(t) - time_zero_s) / (2.0 * fwhm) if fwhm > 0.0 else math.nan,
-        current_A=(float(weights[np.isin(records["ray"], rows["ray"])].sum())
-                   if weights.sum() > 0 else math.nan),
+        time_mean_s=mean(t),
+        time_std_s=std(t),
+        time_fwhm_s=width,
+        resolving_power=(mean(t) - time_zero_s) / (2.0 * width) if width > 0.0 else math.nan,
+        current_A=(float(weights[np.isin(records["ray"], rows["ray"])].sum()) if charged else math.nan),
+        fwhm_x_m=fwhm(x),
+        fwhm_y_m=fwhm(y),
+        d50_m=containing_diameter(x - cx, y - cy, 0.5, ray_weight),
+        d90_m=containing_diameter(x - cx, y - cy, 0.9, ray_weight),
+        focus_z_m=z0 + s_rms,
+        focus_rms_m=focus_rms if along_z else math.nan,
+        focus_d50_z_m=z0 + s_d50,
+        focus_d50_m=focus_d50 if along_z else math.nan,
     )
 
 
@@ -306,7 +343,8 @@ def plane_figures(run, plane):
     -------
     PlaneStats
     """
-    return plane_stats(counted(run, plane), run.species, run.records, run.time_zero_s)
+    return plane_stats(counted(run, plane), run.species, run.records, run.time_zero_s,
+                       along_z=plane not in getattr(run, "tilted_planes", ()))
 
 
 # --------------------------------------------------------------------------------------------
@@ -425,7 +463,9 @@ PLANE_COLUMNS = {"transmission": "fraction", "spot_rms_m": "rms_radius_m", "cent
                  "centroid_y_m": "centroid_y_m", "divergence_x_rad": "rms_divergence_x_rad",
                  "divergence_y_rad": "rms_divergence_y_rad", "energy_mean_eV": "energy_mean_eV",
                  "energy_std_eV": "energy_std_eV", "tof_mean_s": "time_mean_s", "tof_std_s": "time_std_s",
-                 "tof_fwhm_s": "time_fwhm_s", "resolving_power": "resolving_power"}
+                 "tof_fwhm_s": "time_fwhm_s", "resolving_power": "resolving_power", "d50_m": "d50_m",
+                 "d90_m": "d90_m", "fwhm_x_m": "fwhm_x_m", "fwhm_y_m": "fwhm_y_m", "focus_z_m": "focus_z_m",
+                 "focus_d50_z_m": "focus_d50_z_m"}
 """Scan column of each plane figure: the :class:`PlaneStats` field it is."""
 
 LANDING_COLUMNS = {"landed": "fraction", "landing_mean_eV": "energy_mean_eV", "landing_std_eV": "energy_std_eV"}

@@ -136,6 +136,36 @@ def _transverse(summary):
             ("norm rms emit x mm mrad", "norm_emittance_x_m_rad", 1e6)]
 
 
+def _spots(s):
+    """The widths of the spot at each plane: sigma beside FWHM, d50 and d90 ("" for summaries stored
+    before they were measured)."""
+    planes = {name: d for name, d in s["planes"].items() if "d50_m" in d}
+    if not planes:
+        return ""
+    axes = ("y",) if s.get("symmetry") == "planar" else ("x", "y")
+    rows = [[_plane(name, d)] + [_mm(d[f"{k}_{a}_m"]) for a in axes for k in ("rms", "fwhm")]
+            + [_mm(d["d50_m"]), _mm(d["d90_m"])] for name, d in planes.items()]
+    header = ["plane"] + [f"{k} {a} mm" for a in axes for k in ("sigma", "FWHM")] + ["d50 mm", "d90 mm"]
+    what = "band across y" if s.get("symmetry") == "planar" else "circle about the centroid"
+    return format_table(header, rows, title=f"spot at each plane (FWHM: the central 76.1 %, exact for a "
+                                            f"Gaussian; d50, d90: the {what} holding 50 %, 90 % of the "
+                                            f"{'current' if math.isfinite(s.get('current_A', math.nan)) else 'rays'})")
+
+
+def _focus(s):
+    """The best focus from each plane: where the rays continued in straight lines have their smallest
+    rms radius and d50 ("" when no plane has one)."""
+    planes = {name: d for name, d in s["planes"].items() if math.isfinite(d.get("focus_z_m", math.nan))}
+    if not planes:
+        return ""
+    rows = [[_plane(name, d), _mm(d["focus_z_m"]), _mm(d["focus_rms_m"]), _mm(d["focus_d50_z_m"]),
+             _mm(d["focus_d50_m"])] for name, d in planes.items()]
+    return format_table(["from plane", "z (rms) mm", "rms r mm", "z (d50) mm", "d50 mm"], rows,
+                        title="best focus of the rays continued in straight lines from the plane "
+                              "(true only where no field acts beyond it; a z before the plane is a "
+                              "virtual focus)")
+
+
 def _energy_reference(s):
     """The line that says where ``energy_eV`` is measured from ("" for summaries stored before)."""
     ref = s.get("energy_reference") or {}
@@ -228,6 +258,7 @@ def format_summary(summary: dict) -> str:
             ["plane", "fraction", "current A"] + [label for label, _, _ in cols]
             + ["E mean eV", "E std eV", "tof ns", "tof std ns"], rows,
             title="crossed planes (emittances rms, pi not in the unit)"))
+        parts += [t for t in (_spots(s), _focus(s)) if t]
         timed = {name: d for name, d in s["planes"].items() if "resolving_power" in d}
         if timed:
             parts.append(format_table(
