@@ -160,7 +160,8 @@ def _focus(s):
         return ""
     rows = [[_plane(name, d), _mm(d["focus_z_m"]), _mm(d["focus_rms_m"]), _mm(d["focus_d50_z_m"]),
              _mm(d["focus_d50_m"])] for name, d in planes.items()]
-    return format_table(["from plane", "z (rms) mm", "rms r mm", "z (d50) mm", "d50 mm"], rows,
+    side = "y" if s.get("symmetry") == "planar" else "r"
+    return format_table(["from plane", "z (rms) mm", f"rms {side} mm", "z (d50) mm", "d50 mm"], rows,
                         title="best focus of the rays continued in straight lines from the plane "
                               "(true only where no field acts beyond it; a z before the plane is a "
                               "virtual focus)")
