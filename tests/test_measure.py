@@ -382,6 +382,14 @@ def test_parallel_rays_have_no_focus_and_empty_planes_no_widths():
     assert one.d50_m == 0.0
     tilted = plane_stats(rows_from(x, y, -x, -y, 100.0), PROTON, started(100), along_z=False)
     assert math.isnan(tilted.focus_z_m) and math.isnan(tilted.focus_d50_m)
+    # a waist 1 km off (slopes of 1e-6 rad per mm) is outside a window of the domain and its length
+    # beyond each end; a waist inside it is found
+    for apex, window in ((1e3, (-0.1, 0.2)), (1e3, (-math.inf, math.inf)), (0.05, (-0.1, 0.2))):
+        rows = rows_from(x, y, -x / apex, -y / apex, 100.0)
+        s = plane_stats(rows, PROTON, started(100), focus_window_m=window)
+        found = window[0] <= apex <= window[1]
+        assert (s.focus_z_m == pytest.approx(apex)) if found else math.isnan(s.focus_z_m)
+        assert (s.focus_d50_z_m == pytest.approx(apex, rel=1e-6)) if found else math.isnan(s.focus_d50_z_m)
 
 
 def test_the_report_prints_the_spot_widths_and_the_best_focus(mirror):

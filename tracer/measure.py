@@ -223,7 +223,8 @@ class PlaneStats:
         :func:`tracer.stats.straight_waist`): the z where their rms radius about the centroid is
         smallest, and that radius.  Behind the plane (z less than the plane's) for rays that
         diverge from it (a virtual waist).  NaN on a tilted plane (its ``focus`` distance along the
-        normal is not a z) and for rays all parallel.
+        normal is not a z), for rays all parallel and for a waist outside the window searched
+        (:func:`focus_window`: the domain and a domain length beyond each end).
     focus_d50_z_m, focus_d50_m : float
         The same for the smallest d50 (:func:`tracer.stats.straight_d50_waist`).
     """
@@ -260,7 +261,7 @@ class PlaneStats:
     focus_d50_m: float
 
 
-def plane_stats(rows, species, records, time_zero_s=0.0, along_z=True):
+def plane_stats(rows, species, records, time_zero_s=0.0, along_z=True, focus_window_m=(-math.inf, math.inf)):
     """The figures of the given crossing rows.
 
     Parameters
@@ -277,6 +278,8 @@ def plane_stats(rows, species, records, time_zero_s=0.0, along_z=True):
         The clock time the resolving power counts flight times from (the extraction pulse).
     along_z : bool
         Whether the plane is z = const (the best focus is a z only there).
+    focus_window_m : (float, float)
+        The z range a best focus is looked for in (:func:`focus_window`); a waist beyond it is NaN.
 
     Returns
     -------
@@ -297,7 +300,10 @@ def plane_stats(rows, species, records, time_zero_s=0.0, along_z=True):
     on = np.isfinite(xs) & np.isfinite(ys)        # a ray turning in the plane has no straight line
     line = (x[on], y[on], xs[on], ys[on])
     s_rms, focus_rms = straight_waist(*line)
-    s_d50, focus_d50 = straight_d50_waist(*line, None if ray_weight is None else ray_weight[on])
+    if not focus_window_m[0] <= z0 + s_rms <= focus_window_m[1]:
+        s_rms, focus_rms = math.nan, math.nan
+    s_d50, focus_d50 = straight_d50_waist(*line, None if ray_weight is None else ray_weight[on],
+                                          window=(focus_window_m[0] - z0, focus_window_m[1] - z0))
     return PlaneStats(
         count=len(rows),
         fraction=len(np.unique(rows["ray"])) / n if n else math.nan,
@@ -344,7 +350,18 @@ def plane_figures(run, plane):
     PlaneStats
     """
     return plane_stats(counted(run, plane), run.species, run.records, run.time_zero_s,
-                       along_z=plane not in getattr(run, "tilted_planes", ()))
+                       along_z=plane not in getattr(run, "tilted_planes", ()), focus_window_m=focus_window(run))
+
+
+def focus_window(run):
+    """The z range a best focus is looked for in: the domain and one domain length beyond each
+    end (a waist farther off belongs to a beam so nearly parallel that it has no focus to speak
+    of); unbounded when the run does not know its domain."""
+    bounds = getattr(run, "bounds_m", ())
+    if len(bounds) < 2:
+        return -math.inf, math.inf
+    length = bounds[1] - bounds[0]
+    return bounds[0] - length, bounds[1] + length
 
 
 # --------------------------------------------------------------------------------------------

@@ -177,22 +177,31 @@ def straight_waist(x, y, xs, ys):
     return s, math.sqrt(max(spread - tilt * tilt / opening, 0.0))
 
 
-def straight_d50_waist(x, y, xs, ys, weights=None, samples=81):
+def straight_d50_waist(x, y, xs, ys, weights=None, window=(-math.inf, math.inf), samples=81):
     """Where the d50 of rays that go on in straight lines is smallest, and that d50.
 
     The search runs over s in [s0 - L, s0 + L], s0 the rms waist (:func:`straight_waist`) and L
     the distance over which the rms divergence doubles the rms size (L = sqrt(<dx^2 + dy^2> /
-    <dx'^2 + dy'^2>), at least |s0|): ``samples`` points, then a bounded scalar minimisation
-    (scipy.optimize.minimize_scalar) between the neighbours of the best.  A waist of the d50 that
-    lies outside that range is not found (the end of the range is returned).
+    <dx'^2 + dy'^2>), at least |s0|), cut to ``window``: ``samples`` points, then a bounded scalar
+    minimisation (scipy.optimize.minimize_scalar) between the neighbours of the best.
+
+    Parameters
+    ----------
+    x, y, xs, ys : ndarray
+        As :func:`straight_waist`.
+    weights : ndarray, optional
+        Current of each ray (:func:`containing_diameter`).
+    window : (float, float)
+        The distances s searched at most.
 
     Returns
     -------
     s, d50 : float
-        NaN for no rays or rays all parallel.
+        NaN for no rays, rays all parallel, an rms waist outside ``window`` or a smallest d50 at an
+        end of the range searched (no waist found in it).
     """
     s0, _ = straight_waist(x, y, xs, ys)
-    if not math.isfinite(s0):
+    if not window[0] <= s0 <= window[1]:
         return math.nan, math.nan
     dx, dy, dxs, dys = (a - np.mean(a) for a in (x, y, xs, ys))
     reach = max(math.sqrt(np.mean(dx * dx + dy * dy) / np.mean(dxs * dxs + dys * dys)), abs(s0))
@@ -202,8 +211,10 @@ def straight_d50_waist(x, y, xs, ys, weights=None, samples=81):
 
     if reach == 0.0:
         return s0, d50(s0)
-    grid = np.linspace(s0 - reach, s0 + reach, samples)
+    grid = np.linspace(max(s0 - reach, window[0]), min(s0 + reach, window[1]), samples)
     k = int(np.argmin([d50(s) for s in grid]))
+    if k in (0, samples - 1):
+        return math.nan, math.nan
     lo, hi = grid[max(k - 1, 0)], grid[min(k + 1, samples - 1)]
     best = optimize.minimize_scalar(d50, bounds=(lo, hi), method="bounded",
                                     options={"xatol": 1e-6 * reach})
