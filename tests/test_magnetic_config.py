@@ -183,3 +183,105 @@ def test_optics_of_the_bundled_solenoid_turn_the_image_by_busch():
     v_star = 5000.0 * (1.0 + constants.e * 5000.0 / (2.0 * constants.m_e * constants.c ** 2))
     theta = math.sqrt(constants.e / (8.0 * constants.m_e * v_star)) * np.trapezoid(b, z)
     assert abs(props.rotation_rad) == pytest.approx(theta, rel=1e-3)
+
+
+# ---------------------------------------------------------------- coil currents in scans and tuning
+
+SCANNED = AXIAL + SOLENOID + "[scan]\nlens = [0.0, 2.5, 2]\n"
+
+
+def test_a_scan_varies_coil_currents_through_the_unit_fields(monkeypatch):
+    """A scan's `<coil>_A` column sets the coil's current: each row is bit for bit the run with the
+    coil at that current (0 A: no field at all), and the unit field is sampled once for all rows
+    (B is linear in the currents)."""
+    from tracer import measure
+    from tracer.magnetics import units
+
+    built = []
+    build = units.MagneticUnits.build.__func__
+    monkeypatch.setattr(units.MagneticUnits, "build", classmethod(lambda cls, *a: built.append(1) or build(cls, *a)))
+    units.unit_fields.cache_clear()
+    setup = tracer.loads(SCANNED)
+    result = tracer.scan(setup, workers=1)
+    assert result.table.dtype.names[0] == "lens_A" and result.coils == ("lens",)
+    assert result.table["lens_A"].tolist() == [0.0, 2.5] and len(built) == 1
+    field = tracer.solve(setup).combine()
+    no_coil = tracer.trace(field, setup.beams[0], planes=setup.planes, rtol=setup.trace.rtol,
+                           max_time_s=setup.trace.max_time_s)
+    at_setup = tracer.run(setup).beams["e"]
+    names = [e.name for e in setup.electrodes]
+    for k, run in enumerate((no_coil, at_setup)):
+        expect = np.array(measure.row(run, names))
+        got = np.array([result.table[c][k] for c in result.figures])
+        np.testing.assert_array_equal(got, expect)
+    assert result.table["spot_rms_m"][1] != result.table["spot_rms_m"][0]
+
+
+def test_scanned_currents_read_back_from_the_table(tmp_path):
+    result = tracer.scan(tracer.loads(SCANNED), workers=1, out=tmp_path)
+    back = tracer.read_scan(tmp_path)
+    assert back.names == ("lens",) and back.coils == ("lens",) and back.table.dtype.names[0] == "lens_A"
+    np.testing.assert_array_equal(back.table["spot_rms_m"], result.table["spot_rms_m"])
+    assert back.smallest("spot_rms_m")[1] == result.smallest("spot_rms_m")[1]
+
+
+def test_a_csv_of_sets_takes_currents_with_their_bound(tmp_path):
+    (tmp_path / "sets.csv").write_text("lens_A,corner_V\n0,0\n1.5,0\n")
+    setup = tracer.loads(AXIAL + SOLENOID + '[scan]\ncsv = "sets.csv"\n', source=tmp_path / "x.toml")
+    from tracer.scans import voltage_sets
+
+    names, sets = voltage_sets(setup)
+    assert names == ("lens", "corner") and sets.tolist() == [[0.0, 0.0], [1.5, 0.0]]
+    (tmp_path / "sets.csv").write_text("lens_A\n2e7\n")
+    with pytest.raises(tracer.ConfigError, match=r"row 2, column lens_A: 2.*1e\+06 A"):
+        voltage_sets(setup)
+    (tmp_path / "sets.csv").write_text("lens_V\n1\n")
+    with pytest.raises(tracer.ConfigError, match="no electrode or coil for column 'lens_V'"):
+        tracer.loads(AXIAL + SOLENOID + '[scan]\ncsv = "sets.csv"\n', source=tmp_path / "x.toml")
+
+
+SECOND = SOLENOID.replace('"lens"', '"trim"')
+
+
+@pytest.mark.parametrize("extra, path, words", [
+    ("[scan]\nlens = [0.0, 2e7, 2]", "scan.lens[1]", "1e+06 A"),
+    ("[scan]\nlense = [0.0, 1.0, 2]", "scan.lense", "no electrode or coil named 'lense'; did you mean 'lens'"),
+    (SECOND.replace("2.5", "1.0"), "coil[1].current_A", "one winding with one current"),
+    (SECOND + "[scan]\nlens = [0.0, 1.0, 2]", "scan.lens", "the scan would set 'lens' to 0.0..1.0 A"),
+    (SECOND + "[tune]\nvary = { trim = [0.0, 1.0] }\ngoal = 'smallest_spot'\nat = 'end'", "tune.vary.trim",
+     "tune would vary them apart"),
+    (SOLENOID.replace('"lens"', '"corner"').replace("40.0, 60.0", "10.0, 20.0"), "coil[1].name",
+     "also an electrode's name"),
+])
+def test_scanned_currents_are_refused_like_voltages(extra, path, words):
+    """Currents keep the bound of amperes, and overlapping coils (one winding) one current."""
+    with pytest.raises(tracer.ConfigError) as caught:
+        tracer.loads(AXIAL + SOLENOID + extra)
+    assert caught.value.key == path and words in str(caught.value)
+
+
+def test_separate_coils_scan_apart_and_a_tune_varies_a_current():
+    setup = tracer.loads(AXIAL + SOLENOID + SECOND.replace("40.0, 60.0", "70.0, 80.0")
+                         + "[scan]\nlens = [1.0, 1.0, 1]\ntrim = [0.0, 1.0, 2]\n"
+                         + "[tune]\nvary = { lens = [0.0, 3.0] }\ngoal = 'smallest_spot'\nat = 'end'\n")
+    assert [r[0] for r in setup.scan.ranges] == ["lens", "trim"]
+    tuned = tracer.tune(setup, grid_points=3)
+    assert tuned.coils == ("lens",) and tuned.points.dtype.names[0] == "lens_A"
+    assert 0.0 <= tuned.voltages["lens"] <= 3.0 and "lens" in repr(tuned) and " A" in repr(tuned)
+
+
+def test_the_scan_journal_sees_the_magnetic_sources():
+    """A scan resumed after a coil, its current or an axial field changed starts a fresh table."""
+    from tracer.journal import config_hash
+
+    def digest(text):
+        setup = tracer.loads(text)
+        return config_hash(setup, ("corner",), np.zeros((1, 1)))
+
+    base = digest(AXIAL + SOLENOID)
+    assert digest(AXIAL + SOLENOID) == base
+    assert digest(AXIAL) != base
+    assert digest(AXIAL + SOLENOID.replace("current_A = 2.5", "current_A = 2.0")) != base
+    assert digest(AXIAL + SOLENOID.replace("turns = 200", "turns = 201")) != base
+    bell = '[[axial_field]]\nname = "b"\npeak_T = 0.01\nhalf_width_mm = 3.0\ncenter_z_mm = 50.0\n'
+    assert digest(AXIAL + SOLENOID + bell) != digest(AXIAL + SOLENOID + bell.replace("0.01", "0.02"))

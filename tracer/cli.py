@@ -319,12 +319,12 @@ def cmd_scan(args, echo) -> int:
     for figure in (f for f in result.figures if f.rpartition(".")[2] == "spot_rms_m"):
         best = result.smallest(figure)
         if best is not None:
-            at = ", ".join(f"{n} = {v:g} {scan_unit(n)}" for n, v in best[1].items())
+            at = ", ".join(f"{n} = {v:g} {scan_unit(n, result.coils)}" for n, v in best[1].items())
             echo(f"  smallest {figure}: {best[0] * 1e3:.4g} mm at {at}")
-    for f in result.files + tuple(plot_scan(table, result.names, out, title=setup.title)):
+    for f in result.files + tuple(plot_scan(table, result.names, out, title=setup.title, coils=result.coils)):
         echo(f"wrote {f}")
-    _caution(_volts(setup) + [v for n in result.names if scan_unit(n) == "V" for v in table[scan_column(n)]],
-             echo)
+    _caution(_volts(setup) + [v for n in result.names if scan_unit(n, result.coils) == "V"
+                              for v in table[scan_column(n)]], echo)
     return 0
 
 
@@ -345,10 +345,10 @@ def cmd_tune(args, echo) -> int:
     echo(f"{setup.title}\n  goal {result.goal}{where}: {figure_text(result.figure, result.value)} "
          f"after {result.evaluations} voltage sets ({result.method})")
     for name, volts in result.voltages.items():
-        echo(f"  {name:<16s} {volts:12.4f} {scan_unit(name)}")
+        echo(f"  {name:<16s} {volts:12.4f} {scan_unit(name, result.coils)}")
     out.mkdir(parents=True, exist_ok=True)
     echo(f"wrote {plot_tune(result, out / 'tune.png')}")
-    _caution(_volts(setup) + [v for n, v in result.voltages.items() if scan_unit(n) == "V"], echo)
+    _caution(_volts(setup) + [v for n, v in result.voltages.items() if scan_unit(n, result.coils) == "V"], echo)
     return 0
 
 

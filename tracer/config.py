@@ -77,7 +77,7 @@ from tracer.bounds import BOUNDS, bound_of
 from tracer.geometry import overlapping_electrodes, sector_bbox, shape_table
 from tracer.schema import (CROSSINGS, NAME, DIRECTIONS, GRIDS, START_TIMES, THIRD_GRIDS, Arc, Beam, ConfigError, Domain,
                            Electrode, GridErrorSpec, GunSpec, MagneticSpec, OpticsSpec, Plane, Polygon, Rect, ScanSpec,
-                           Setup, TraceOptions, TuneSpec, Z_PLANE_RAD)
+                           Setup, TraceOptions, TuneSpec, Z_PLANE_RAD, scan_unit)
 from tracer.species import custom_species, species
 from tracer.waveforms import Pulse, Sinusoid, Waveform, WaveformError, read_table
 
@@ -400,11 +400,12 @@ def _setup(data, source):
     plane_names = tuple(p.name for p in planes)
     _unique(plane_names, "plane", "plane")
     trace = top.get("trace", _trace, default=TraceOptions())
-    scan = top.get("scan", _scan, default=None, names=names, base=base, electrodes=electrodes)
+    magnetic = _magnetic(top, domain, base, names)
+    coils = tuple(magnetic.currents())
+    scan = top.get("scan", _scan, default=None, names=names, base=base, electrodes=electrodes, coils=coils)
     tune = top.get("tune", _tune, default=None, names=names, planes=plane_names, domain=domain,
-                   electrodes=electrodes)
-    _check_tied(tied, electrodes, scan, tune)
-    magnetic = _magnetic(top, domain, base)
+                   electrodes=electrodes, coils=coils)
+    _check_tied(tied, electrodes, magnetic, scan, tune)
     return Setup(
         title=title,
         author=author,
@@ -502,37 +503,44 @@ def _check_geometry(electrodes, domain):
     return tuple((electrodes[i].name, electrodes[j].name) for i, j in pairs)
 
 
-def _check_tied(pairs, electrodes, scan, tune):
-    """Refuse a scan or tune that would set overlapping electrodes (``pairs`` of names) apart.
+def _check_tied(pairs, electrodes, magnetic, scan, tune):
+    """Refuse a scan or tune that would set overlapping electrodes (``pairs`` of names) or
+    overlapping coils apart.
 
-    Overlapping electrodes are one conductor: a scan's ranges must give both the one voltage they
-    share (a range of one value), and a tune may vary neither; neither may have a waveform
-    parameter scanned or tuned.  A CSV scan's rows are checked when they are read
-    (:func:`tracer.scans.voltage_sets`).
+    Overlapping electrodes are one conductor, overlapping coils one winding: a scan's ranges must
+    give both the one voltage (current) they share (a range of one value), and a tune may vary
+    neither; neither electrode may have a waveform parameter scanned or tuned.  A CSV scan's rows
+    are checked when they are read (:func:`tracer.scans.voltage_sets`).
     """
-    names = tuple(e.name for e in electrodes)
+    settings = {e.name: e.voltage_V for e in electrodes} | magnetic.currents()
+    tied = [(a, b, "electrodes") for a, b in pairs] + [(a, b, "coils") for a, b in magnetic.overlapping_coils()]
     ranges = {name: (lo, hi) for name, lo, hi, _ in scan.ranges} if scan is not None else {}
-    fixed = {e.name: e.voltage_V for e in electrodes} | {n: lo if lo == hi else None for n, (lo, hi) in ranges.items()}
+    fixed = settings | {n: lo if lo == hi else None for n, (lo, hi) in ranges.items()}
 
-    def electrode_of(name):
-        return name if name in names else waveform_parameter(name)[0]
+    def owner(name):
+        return name if name in settings else waveform_parameter(name)[0]
 
     for name, *_ in tune.vary if tune is not None else ():
-        for a, b in pairs:
-            if electrode_of(name) in (a, b):
-                raise ConfigError(_join("tune.vary", name), tied_message(a, b, "tune would vary them apart"))
+        for a, b, kind in tied:
+            if owner(name) in (a, b):
+                raise ConfigError(_join("tune.vary", name), tied_message(a, b, "tune would vary them apart", kind))
     for name, (lo, hi) in ranges.items():
-        for a, b in pairs:
-            if electrode_of(name) in (a, b) and (name not in names or fixed[a] is None or fixed[a] != fixed[b]):
+        for a, b, kind in tied:
+            if owner(name) in (a, b) and (name not in settings or fixed[a] is None or fixed[a] != fixed[b]):
+                unit = "" if name not in settings else " " + scan_unit(name, tuple(magnetic.currents()))
                 raise ConfigError(_join("scan", name), tied_message(
-                    a, b, f"the scan would set {name!r} to {_show(lo)}..{_show(hi)}"
-                          + (" V" if name in names else "")))
+                    a, b, f"the scan would set {name!r} to {_show(lo)}..{_show(hi)}{unit}", kind))
 
 
-def tied_message(a, b, why):
-    """The refusal of a voltage set that sets overlapping electrodes ``a`` and ``b`` apart."""
-    return (f"electrodes {a!r} and {b!r} overlap, so they are one conductor at one voltage; {why}: "
-            "join their shapes into one electrode, or separate them")
+_TIED = {"electrodes": ("one conductor at one voltage", "join their shapes into one electrode, or separate them"),
+         "coils": ("one winding with one current", "join them into one coil, or separate their sections")}
+
+
+def tied_message(a, b, why, kind="electrodes"):
+    """The refusal of a set that sets overlapping ``kind`` ("electrodes" or "coils") ``a`` and
+    ``b`` apart."""
+    one, fix = _TIED[kind]
+    return f"{kind} {a!r} and {b!r} overlap, so they are {one}; {why}: {fix}"
 
 
 def _check_memory(domain, n_electrodes):
@@ -587,9 +595,10 @@ def _electrode_body(t, path, domain, base):
 # ---------------------------------------------------------------- magnetic sources
 
 
-def _magnetic(top, domain, base):
+def _magnetic(top, domain, base, electrodes):
     """The ``[[coil]]``, ``[[axial_field]]`` and ``[[uniform_field]]`` tables; names unique among
-    them all (a coil's name heads its ``<name>_A`` column)."""
+    them all, and a coil's none of the ``electrodes`` (a scan or tune names either by it, and its
+    ``<name>_A`` column); overlapping coils at one current."""
     coils = tuple(_coil(v, p, domain) for v, p in _tables(top.data.get("coil", []), "coil", "coil"))
     profiles = tuple(_axial_field(v, p, domain, base)
                      for v, p in _tables(top.data.get("axial_field", []), "axial_field", "axial_field"))
@@ -602,7 +611,17 @@ def _magnetic(top, domain, base):
                 raise ConfigError(f"{key}[{i}].name", f"duplicate magnetic source name {item.name!r} "
                                                       f"(also {seen[item.name]})")
             seen[item.name] = f"{key}[{i}]"
-    return MagneticSpec(coils, profiles, uniform)
+    for i, c in enumerate(coils):
+        if c.name in electrodes:
+            raise ConfigError(f"coil[{i}].name", f"{c.name!r} is also an electrode's name; a scan or tune "
+                                                 "names either by it: rename one")
+    spec = MagneticSpec(coils, profiles, uniform)
+    amps = spec.currents()
+    for a, b in spec.overlapping_coils():
+        if amps[a] != amps[b]:
+            raise ConfigError(f"coil[{list(amps).index(b)}].current_A", tied_message(
+                a, b, f"{b!r} carries {amps[b]:g} A and {a!r} {amps[a]:g} A", "coils"))
+    return spec
 
 
 def _axial_only(path, domain, what):
@@ -1075,19 +1094,25 @@ def _grid_error(value, path):
     )
 
 
-def _scan(value, path, names, base, electrodes):
+def _varied_what(coils):
+    """What a scan or tune key (or a CSV column) that names nothing lacks."""
+    return "no electrode or coil" if coils else "no electrode"
+
+
+def _scan(value, path, names, base, electrodes, coils=()):
     parameters = tuple(k for k in value if "[" in k) if isinstance(value, dict) else ()
-    t = _Table(value, path, names + ("csv",) + parameters, what="no electrode named", shown=names)
+    t = _Table(value, path, names + coils + ("csv",) + parameters, what=f"{_varied_what(coils)} named",
+               shown=names + coils)
     if t.has("csv"):
         if len(t.data) > 1:
             other = next(k for k in t.data if k != "csv")
             raise ConfigError(t.at(other), "give ranges or csv, not both")
         file = t.get("csv", _file, base=base)
-        _check_scan_header(file, t.at("csv"), names)
+        _check_scan_header(file, t.at("csv"), names, coils)
         return ScanSpec((), file)
     if not t.data:
         raise ConfigError(path, "empty: give ranges such as focus = [800.0, 1600.0, 41], or csv = 'sets.csv'")
-    ranges = tuple(_scan_range(t.data[name], t.at(name), name, _unit_of(name, names)) for name in t.data)
+    ranges = tuple(_scan_range(t.data[name], t.at(name), name, _unit_of(name, coils)) for name in t.data)
     _check_parameters(t, parameters, ranges, names, electrodes)
     return ScanSpec(ranges)
 
@@ -1153,10 +1178,11 @@ def with_parameter(drives, parameter, value, path="scan"):
     return drives | {electrode: dataclasses.replace(drive, **{parts: have[:index] + (part,) + have[index + 1:]})}
 
 
-def _unit_of(name, names):
-    """The unit suffix of a scanned or tuned quantity: "_V" for an electrode's voltage, the suffix
-    of its key for a waveform parameter (``repeller.pulse[0].delay_ns`` -> "_ns")."""
-    return "_V" if name in names else "_" + name.rpartition(".")[2].rpartition("_")[2]
+def _unit_of(name, coils=()):
+    """The unit suffix of a scanned or tuned quantity (:func:`tracer.schema.scan_unit`): "_V" for
+    an electrode's voltage, "_A" for a coil's current, the suffix of its key for a waveform
+    parameter (``repeller.pulse[0].delay_ns`` -> "_ns")."""
+    return "_" + scan_unit(name, coils)
 
 
 def _scan_range(value, path, name, unit):
@@ -1171,8 +1197,8 @@ def _scan_range(value, path, name, unit):
     return (name, start, stop, count)
 
 
-def _check_scan_header(file, path, names):
-    """The CSV's header must name `<electrode>_V` columns."""
+def _check_scan_header(file, path, names, coils=()):
+    """The CSV's header must name `<electrode>_V` and `<coil>_A` columns."""
     try:
         with open(file, newline="", encoding="utf-8") as handle:
             header = next(csv.reader(handle), [])
@@ -1183,23 +1209,24 @@ def _check_scan_header(file, path, names):
         raise ConfigError(path, f"{file.name!r} has no header row of <electrode>_V columns")
     if len(set(columns)) < len(columns):
         raise ConfigError(path, f"{file.name!r} repeats a column: {columns}")
+    known = tuple(n + "_V" for n in names) + tuple(c + "_A" for c in coils)
     for column in columns:
-        if not (column.endswith("_V") and column.removesuffix("_V") in names):
-            raise _not_found(path, column, tuple(n + "_V" for n in names), f"{file.name!r}: no electrode for column")
+        if column not in known:
+            raise _not_found(path, column, known, f"{file.name!r}: {_varied_what(coils)} for column")
 
 
 _GOALS = ("smallest_spot", "most_transmitted", "landing_energy", "focus")
 _GOAL_KEYS = {"landing_energy": "landing_energy_eV", "focus": "focus_z_mm"}   # goals that take a value
 
 
-def _tune(value, path, names, planes, domain, electrodes):
+def _tune(value, path, names, planes, domain, electrodes, coils=()):
     t = _Table(value, path, ("vary", "goal", "at", "seed"))
     given = t.get("vary", _raw)
     parameters = tuple(k for k in given if "[" in k) if isinstance(given, dict) else ()
-    vary = _Table(given, t.at("vary"), names + parameters, what="no electrode named")
+    vary = _Table(given, t.at("vary"), names + coils + parameters, what=f"{_varied_what(coils)} named")
     if not vary.data:
         raise ConfigError(vary.path, "empty: name the electrodes to vary, e.g. vary = { focus = [800.0, 1600.0] }")
-    ranges = tuple((name, *vary.get(name, _range, words=("lo", "hi"), unit=_unit_of(name, names)))
+    ranges = tuple((name, *vary.get(name, _range, words=("lo", "hi"), unit=_unit_of(name, coils)))
                    for name in vary.data)
     _check_parameters(vary, parameters, ranges, names, electrodes)
     goal, goal_value = t.get("goal", _goal, domain=domain)

@@ -62,12 +62,12 @@ def grid_text(g) -> str:
     return f"{g.symmetry} {g.nz}x{g.nr} nodes, cell {number(g.hz, 'mm', 1e3)}"
 
 
-def voltage_text(names_, volts) -> str:
-    """Electrode voltages as ``name V`` (a waveform parameter in its own unit,
-    :func:`tracer.schema.scan_unit`), abbreviated past six electrodes."""
+def voltage_text(names_, volts, coils=()) -> str:
+    """Electrode voltages as ``name V`` (a coil's current in A, a waveform parameter in its own
+    unit: :func:`tracer.schema.scan_unit`), abbreviated past six electrodes."""
     from tracer.schema import scan_unit
 
-    return listing(f"{n} {number(v, scan_unit(n))}" for n, v in zip(names_, volts))
+    return listing(f"{n} {number(v, scan_unit(n, coils))}" for n, v in zip(names_, volts))
 
 
 def megabytes(*arrays) -> str:

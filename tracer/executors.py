@@ -75,7 +75,7 @@ class Context:
     beams, planes : tuple
         The setup's beams and detector planes.
     names : tuple of str
-        The varied electrodes, in the order of a voltage set's values.
+        The varied electrodes, coils and waveform parameters, in the order of a set's values.
     rtol, max_time_s : float
         Trace options.
     coarse : tracer.fieldmap.BasisMaps or None
@@ -94,7 +94,11 @@ class Context:
     parameters : dict
         The varied waveform parameters by name (:func:`tracer.config.waveform_parameter`).
     magnetic : tracer.schema.MagneticSpec
-        The setup's magnetic sources, traced with every set at the setup's currents.
+        The setup's magnetic sources, traced with every set at the setup's currents but for the
+        varied coils (``currents``).
+    currents : tuple of str
+        The varied names that are coils: their values are currents (A), combined from the coils'
+        unit fields (:func:`tracer.magnetics.units.traced_sources`), not voltages.
     """
 
     maps: object
@@ -110,6 +114,7 @@ class Context:
     time_zero_s: float | None = None
     parameters: dict = field(default_factory=dict)
     magnetic: object = None
+    currents: tuple = ()
 
     @classmethod
     def of(cls, setup, maps, names, planes=None, beams=None, coarse=None):
@@ -117,11 +122,12 @@ class Context:
         from tracer.config import waveform_parameter
 
         parameters = {n: waveform_parameter(n) for n in names if "[" in n}
+        coils = setup.magnetic.currents()
         return cls(maps, tuple(setup.beams if beams is None else beams),
                    tuple(setup.planes if planes is None else planes), tuple(names),
                    setup.trace.rtol, setup.trace.max_time_s, coarse, setup.grid_error.rays,
                    setup.grid_error.safety, setup.drives() if setup.in_time or parameters else None,
-                   setup.trace.time_zero_s, parameters, setup.magnetic)
+                   setup.trace.time_zero_s, parameters, setup.magnetic, tuple(n for n in names if n in coils))
 
     @property
     def columns(self):
@@ -152,7 +158,7 @@ class Context:
         return group_maps(maps, drives)
 
     def run(self, voltages):
-        """Measure one voltage set.
+        """Measure one set of voltages (and currents, for the varied coils).
 
         Returns
         -------
@@ -166,12 +172,13 @@ class Context:
         from tracer.waveforms import first_pulse_s
 
         values = dict(zip(self.names, (float(v) for v in voltages)))
+        amps = {n: values.pop(n) for n in self.currents}
         drives = self.drives_of(values)
         field = self.field_of(self.maps, drives, values)
         coarse = None if self.coarse is None else self.field_of(self.coarse, drives, values)
         time_zero = first_pulse_s(drives.values()) if self.time_zero_s is None else self.time_zero_s
         magnetic, coarse_magnetic = (None if self.magnetic is None or f is None
-                                     else traced_sources(self.magnetic, f.grid) for f in (field, coarse))
+                                     else traced_sources(self.magnetic, f.grid, amps) for f in (field, coarse))
         figures, errors, trace_s = [], [], 0.0
         for beam in self.beams:
             with _TRACE_LOCK:

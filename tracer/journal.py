@@ -54,8 +54,8 @@ def _plain(value):
 def config_hash(setup, names, sets) -> str:
     """sha256 hex digest of everything a scan table depends on.
 
-    The geometry (``Setup.geometry_hash``), every electrode voltage, the beams (a rays file by its
-    content), the planes, the trace options that change results (``rtol``, ``max_time_s``), the
+    The geometry (``Setup.geometry_hash``), every electrode voltage, the magnetic sources
+    (``MagneticSpec.digest``), the beams (a rays file by its content), the planes, the trace options that change results (``rtol``, ``max_time_s``), the
     varied electrodes, the voltage sets (exact floats), the table format and the tracer version;
     with grid errors per row, their rays and safety factor.
     Title, paths, plots and the ``[tune]``, ``[gun]``, ``[optics]`` sections are left out.
@@ -66,6 +66,8 @@ def config_hash(setup, names, sets) -> str:
         "rtol": setup.trace.rtol, "max_time_s": setup.trace.max_time_s, "names": list(names),
         "sets": np.ascontiguousarray(sets, dtype=np.float64).tobytes().hex(),
     }
+    if setup.magnetic:                                # magnetic sources (absent: the hash as before)
+        payload["magnetic"] = setup.magnetic.digest()
     spec = setup.grid_error
     if spec.scan_rows and spec.grids > 1:            # grid error columns (absent: the hash as before)
         payload["grid_error"] = [spec.rays, spec.safety]

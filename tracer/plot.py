@@ -364,31 +364,31 @@ def _grid_of(x, y, v):
     return ux, uy, grid
 
 
-def _scan_panel(fig, ax, table, names, figure):
+def _scan_panel(fig, ax, table, names, figure, coils=()):
     factor, label = _scaled(figure)
     v = table[figure] * factor
     if len(names) == 1:
-        x = table[scan_column(names[0])]
+        x = table[scan_column(names[0], coils)]
         order = np.argsort(x, kind="stable")
         ax.plot(x[order], v[order], marker=".", lw=1)
         if f"{figure}_grid" in table.dtype.names:      # the grid error of each set, as a band
             err = table[f"{figure}_grid"][order] * factor
             ax.fill_between(x[order], v[order] - err, v[order] + err, alpha=0.3, lw=0, label="± grid")
-        ax.set_xlabel(f"{names[0]} ({scan_unit(names[0])})")
+        ax.set_xlabel(f"{names[0]} ({scan_unit(names[0], coils)})")
         ax.set_ylabel(label, fontsize=8)
         return
-    x, y = table[scan_column(names[0])], table[scan_column(names[1])]
+    x, y = table[scan_column(names[0], coils)], table[scan_column(names[1], coils)]
     grid = _grid_of(x, y, v)
     if grid is None:
         art = ax.scatter(x, y, c=v, s=16, cmap="viridis")
     else:
         art = ax.pcolormesh(grid[0], grid[1], grid[2].T, shading="nearest", cmap="viridis")
     fig.colorbar(art, ax=ax, label=label)
-    ax.set_xlabel(f"{names[0]} ({scan_unit(names[0])})")
-    ax.set_ylabel(f"{names[1]} ({scan_unit(names[1])})")
+    ax.set_xlabel(f"{names[0]} ({scan_unit(names[0], coils)})")
+    ax.set_ylabel(f"{names[1]} ({scan_unit(names[1], coils)})")
 
 
-def plot_scan(table, names, out, title=None) -> list[Path]:
+def plot_scan(table, names, out, title=None, coils=()) -> list[Path]:
     """Scan pictures: each figure against the voltage (one varied electrode) or as a map (two).
 
     One PNG per group of columns that share a prefix (``scan.png`` for the unprefixed figures,
@@ -405,6 +405,8 @@ def plot_scan(table, names, out, title=None) -> list[Path]:
     out : str or Path
         Folder for the PNG files.
     title : str, optional
+    coils : sequence of str
+        The names among ``names`` that are coils (currents, A).
 
     Returns
     -------
@@ -423,7 +425,7 @@ def plot_scan(table, names, out, title=None) -> list[Path]:
         fig = new_figure((4.2 * cols, 2.9 * rows))
         axes = fig.subplots(rows, cols, squeeze=False)
         for ax, figure in zip(axes.ravel(), figures):
-            _scan_panel(fig, ax, table, names, figure)
+            _scan_panel(fig, ax, table, names, figure, coils)
             ax.set_title(figure, fontsize=8)
         for ax in axes.ravel()[len(figures):]:
             ax.set_visible(False)
@@ -449,11 +451,12 @@ def plot_tune(result, path) -> Path:
     best = int(np.argmin(points["objective"]))
     fig = new_figure((6.5, 4))
     ax = fig.subplots()
-    x = points[scan_column(names[0])] if len(names) == 1 else np.arange(1, len(points) + 1)
+    x = points[scan_column(names[0], result.coils)] if len(names) == 1 else np.arange(1, len(points) + 1)
     ax.scatter(x, points["value"] * factor, s=10, label="trials")
     ax.scatter([x[best]], [points["value"][best] * factor], s=60, marker="*", color="crimson",
-               label="best: " + ", ".join(f"{n} = {v:.6g} {scan_unit(n)}" for n, v in result.voltages.items()))
-    ax.set_xlabel(f"{names[0]} ({scan_unit(names[0])})" if len(names) == 1 else "trial")
+               label="best: " + ", ".join(f"{n} = {v:.6g} {scan_unit(n, result.coils)}"
+                                          for n, v in result.voltages.items()))
+    ax.set_xlabel(f"{names[0]} ({scan_unit(names[0], result.coils)})" if len(names) == 1 else "trial")
     ax.set_ylabel(label)
     ax.set_title(f"tune: {result.goal}", fontsize=10)
     ax.legend(fontsize=8)

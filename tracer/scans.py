@@ -1,13 +1,14 @@
 """Voltage scans: many voltage sets through the same basis maps, on any executor, durably.
 
 A scan is a list of voltage sets (the product of per-electrode ranges, or the rows of a CSV file;
-:func:`voltage_sets`).  Every set is measured by :class:`tracer.executors.Context` (the maps
+:func:`voltage_sets`); a set may also give coil currents, combined from the coils' unit fields as
+voltages are from the basis maps.  Every set is measured by :class:`tracer.executors.Context` (the maps
 combined, every beam traced, the figures of :func:`tracer.measure.row`) on any
 :class:`concurrent.futures.Executor` (:func:`tracer.executors.run_sets`); the result is the same,
 bit for bit, whichever ran them.  Each finished row goes to the scan's journal
 (:class:`tracer.journal.Rows`) as it completes.
 
-The table's columns are the varied voltages, ``<electrode>_V``, then the figures of each beam
+The table's columns are the varied voltages, ``<electrode>_V``, and currents, ``<coil>_A``, then the figures of each beam
 (:func:`tracer.measure.columns`; the module notes of :mod:`tracer.measure` name them and say which
 crossings of a plane count).  With ``[grid_error] scan_rows = true`` the maps are solved once more
 on twice the cell and every figure gets its grid error, a column ``<figure>_grid`` after the figures
@@ -55,14 +56,15 @@ def voltage_sets(setup):
     ----------
     setup : tracer.config.Setup
         With ``setup.scan`` given: ranges (the product, the first range varying slowest, each range
-        ``numpy.linspace(from, to, count)``) or a CSV file of ``<electrode>_V`` columns.
+        ``numpy.linspace(from, to, count)``) or a CSV file of ``<electrode>_V`` and ``<coil>_A``
+        columns.
 
     Returns
     -------
     names : tuple of str
-        The varied electrodes.
+        The varied electrodes, coils and waveform parameters.
     sets : float64[n_sets, n_names]
-        One row per voltage set, volts.
+        One row per set: volts, amperes for a coil, a waveform parameter in its key's unit.
 
     Raises
     ------
@@ -79,37 +81,41 @@ def voltage_sets(setup):
         return names, sets
     with open(spec.csv, newline="", encoding="utf-8") as handle:
         rows = [row for row in csv.reader(handle) if any(c.strip() for c in row)]
-    names = tuple(c.strip().removesuffix("_V") for c in rows[0])
+    columns = [c.strip() for c in rows[0]]
+    names = tuple(c[:-2] for c in columns)     # <electrode>_V, <coil>_A (the header was checked)
     try:
         sets = np.array([[float(c) for c in row] for row in rows[1:]], dtype=np.float64)
     except ValueError as error:
-        raise ConfigError("scan.csv", f"{spec.csv.name!r}: a voltage is not a number ({error})") from None
+        raise ConfigError("scan.csv", f"{spec.csv.name!r}: a value is not a number ({error})") from None
     if sets.ndim != 2 or sets.shape[1] != len(names) or not len(sets):
-        raise ConfigError("scan.csv", f"{spec.csv.name!r}: every row needs {len(names)} voltage(s)")
+        raise ConfigError("scan.csv", f"{spec.csv.name!r}: every row needs {len(names)} value(s)")
     if not np.isfinite(sets).all():
-        raise ConfigError("scan.csv", f"{spec.csv.name!r}: voltages must be finite numbers")
-    outside = np.argwhere(~BOUNDS["_V"].admits(sets))
+        raise ConfigError("scan.csv", f"{spec.csv.name!r}: voltages and currents must be finite numbers")
+    bounds = [BOUNDS[c[-2:]] for c in columns]
+    outside = np.argwhere(~np.column_stack([b.admits(sets[:, k]) for k, b in enumerate(bounds)]))
     if outside.size:
         row, column = outside[0]
-        raise ConfigError("scan.csv", f"{spec.csv.name!r} row {row + 2}, column {names[column]}_V: "
-                                      + BOUNDS["_V"].problem(float(sets[row, column])))
+        raise ConfigError("scan.csv", f"{spec.csv.name!r} row {row + 2}, column {columns[column]}: "
+                                      + bounds[column].problem(float(sets[row, column])))
     _check_tied_rows(setup, names, sets)
     return names, sets
 
 
 def _check_tied_rows(setup, names, sets):
-    """Refuse CSV rows that set overlapping electrodes (one conductor) to different voltages."""
+    """Refuse CSV rows that set overlapping electrodes (one conductor) to different voltages, or
+    overlapping coils (one winding) to different currents."""
     electrodes = setup.electrodes
     pairs = overlapping_electrodes(shape_table(electrodes, setup.domain), setup.domain.cell_m)
-    volts = setup.voltages()
-    for i, j in pairs:
-        a, b = electrodes[i].name, electrodes[j].name
-        va, vb = (sets[:, names.index(n)] if n in names else np.full(len(sets), volts[n]) for n in (a, b))
+    settings = setup.voltages() | setup.magnetic.currents()
+    tied = [(electrodes[i].name, electrodes[j].name, "electrodes", "V") for i, j in pairs]
+    tied += [(a, b, "coils", "A") for a, b in setup.magnetic.overlapping_coils()]
+    for a, b, kind, unit in tied:
+        va, vb = (sets[:, names.index(n)] if n in names else np.full(len(sets), settings[n]) for n in (a, b))
         apart = np.flatnonzero(va != vb)
         if apart.size:
             k = apart[0]
             raise ConfigError("scan.csv", f"{setup.scan.csv.name!r} row {k + 2}: " + tied_message(
-                a, b, f"the row sets {a!r} to {va[k]:g} V and {b!r} to {vb[k]:g} V"))
+                a, b, f"the row sets {a!r} to {va[k]:g} {unit} and {b!r} to {vb[k]:g} {unit}", kind))
 
 
 @dataclass(frozen=True, repr=False)
@@ -119,11 +125,12 @@ class ScanResult(Shown):
     Attributes
     ----------
     table : numpy structured array
-        One row per voltage set, in scan order: ``<electrode>_V`` per varied electrode, then the
-        figures (:mod:`tracer.measure` names them), then with ``[grid_error] scan_rows`` their
-        grid errors (``<figure>_grid``).
+        One row per voltage set, in scan order: ``<electrode>_V`` per varied electrode and
+        ``<coil>_A`` per varied coil (:func:`tracer.schema.scan_column`), then the figures
+        (:mod:`tracer.measure` names them), then with ``[grid_error] scan_rows`` their grid errors
+        (``<figure>_grid``).
     names : tuple of str
-        The varied electrodes.
+        The varied electrodes, coils and waveform parameters.
     config_hash : str
         :func:`tracer.journal.config_hash` of the scan.
     resumed : int
@@ -135,6 +142,8 @@ class ScanResult(Shown):
         whichever process ran them).
     files : tuple of pathlib.Path
         The table files written (``scan.csv``, ``scan.h5``), empty without ``out``.
+    coils : tuple of str
+        The names among ``names`` that are coils (their currents, amperes).
     """
 
     table: np.ndarray
@@ -144,6 +153,7 @@ class ScanResult(Shown):
     elapsed_s: float
     trace_s: float
     files: tuple = ()
+    coils: tuple = ()
 
     def _facts(self):
         return {"sets": str(len(self.table)), "varied": listing(self.names),
@@ -152,7 +162,7 @@ class ScanResult(Shown):
 
     @property
     def figures(self) -> tuple:
-        """The figure columns (every column after the voltages)."""
+        """The figure columns (every column after the voltages and currents)."""
         return self.table.dtype.names[len(self.names):]
 
     def smallest(self, figure):
@@ -162,7 +172,7 @@ class ScanResult(Shown):
         -------
         value : float
         voltages : dict of str to float
-            The varied electrodes' voltages there.
+            The varied electrodes' voltages there (and the varied coils' currents).
 
         Or None when the figure is NaN in every row.
         """
@@ -170,7 +180,7 @@ class ScanResult(Shown):
         if not np.isfinite(values).any():
             return None
         k = int(np.nanargmin(values))
-        return float(values[k]), {n: float(self.table[scan_column(n)][k]) for n in self.names}
+        return float(values[k]), {n: float(self.table[scan_column(n, self.coils)][k]) for n in self.names}
 
 
 def scan(setup: Setup, maps: BasisMaps | None = None, executor: Executor | None = None, *,
@@ -232,7 +242,7 @@ def scan(setup: Setup, maps: BasisMaps | None = None, executor: Executor | None 
 
         coarse = solve(with_cell(setup, 2.0), cache_dir=cache_dir)
     context = Context.of(setup, maps, names, coarse=coarse)
-    header = tuple(scan_column(n) for n in names) + context.columns
+    header = tuple(scan_column(n, context.currents) for n in names) + context.columns
     digest = config_hash(setup, names, sets)
     rows = Rows(None if out is None else Path(out), digest, header, sets)
     todo = [i for i in range(len(sets)) if i not in rows.done]
@@ -262,14 +272,16 @@ def scan(setup: Setup, maps: BasisMaps | None = None, executor: Executor | None 
         rows.write_h5()
     table, _ = rows.table()
     files = () if out is None else (rows.csv, rows.h5)
-    return ScanResult(table, names, digest, rows.resumed, time.perf_counter() - t_start, trace_s, files)
+    return ScanResult(table, names, digest, rows.resumed, time.perf_counter() - t_start, trace_s, files,
+                      context.currents)
 
 
 def read_scan(path: str | os.PathLike) -> ScanResult:
     """The table of an earlier scan, from its output folder or its ``scan.csv``.
 
     Every finished row is read back bit for bit; the varied names are the leading ``<name>_V``
-    (voltages) and ``<electrode>.<part>[i].<key>`` (waveform parameters) columns.  ``resumed`` is the number of rows, and the times are 0 (they were not recorded).
+    (voltages), ``<coil>_A`` (currents) and ``<electrode>.<part>[i].<key>`` (waveform parameters)
+    columns.  ``resumed`` is the number of rows, and the times are 0 (they were not recorded).
 
     Raises
     ------
@@ -280,6 +292,7 @@ def read_scan(path: str | os.PathLike) -> ScanResult:
     csv_path = path / CSV_NAME if path.is_dir() else path
     table, _, digest = read_csv(csv_path)
     columns = table.dtype.names
-    k = next((i for i, c in enumerate(columns) if not (c.endswith("_V") or "[" in c)), len(columns))
-    names = tuple(c if "[" in c else c.removesuffix("_V") for c in columns[:k])
-    return ScanResult(table, names, digest, len(table), 0.0, 0.0, (csv_path,))
+    k = next((i for i, c in enumerate(columns) if not (c.endswith(("_V", "_A")) or "[" in c)), len(columns))
+    names = tuple(c if "[" in c else c[:-2] for c in columns[:k])
+    coils = tuple(c[:-2] for c in columns[:k] if "[" not in c and c.endswith("_A"))
+    return ScanResult(table, names, digest, len(table), 0.0, 0.0, (csv_path,), coils)

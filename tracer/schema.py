@@ -316,15 +316,19 @@ class TraceOptions:
     time_zero_s: float | None = None
 
 
-def scan_column(name: str) -> str:
-    """The scan-table column of a varied name: ``<electrode>_V`` for an electrode's voltage, the
-    path itself for a waveform parameter (``"repeller.pulse[0].delay_ns"``: it ends in its unit)."""
-    return name if "[" in name else f"{name}_V"
+def scan_column(name: str, coils=()) -> str:
+    """The scan-table column of a varied name: ``<electrode>_V`` for an electrode's voltage,
+    ``<coil>_A`` for the current of a coil named in ``coils``, the path itself for a waveform
+    parameter (``"repeller.pulse[0].delay_ns"``: it ends in its unit)."""
+    return name if "[" in name else f"{name}_{scan_unit(name, coils)}"
 
 
-def scan_unit(name: str) -> str:
-    """The unit of a varied name: ``V`` for a voltage, the suffix of a waveform parameter's key."""
-    return name.rsplit("_", 1)[1] if "[" in name else "V"
+def scan_unit(name: str, coils=()) -> str:
+    """The unit of a varied name: ``V`` for a voltage, ``A`` for the current of a coil named in
+    ``coils``, the suffix of a waveform parameter's key."""
+    if "[" in name:
+        return name.rpartition(".")[2].rpartition("_")[2]
+    return "A" if name in coils else "V"
 
 
 @dataclass(frozen=True)
@@ -335,11 +339,12 @@ class ScanSpec:
     ----------
     ranges : tuple of (str, float, float, int)
         (name, from, to, count); the scan is the product of the ranges. The name is an electrode's
-        (its voltage, volts) or a waveform parameter's path ``"<electrode>.pulse[i].<key>"`` or
-        ``"<electrode>.sine[i].<key>"``, in the unit of its key (:func:`scan_column`).
+        (its voltage, volts), a coil's (its current, amperes) or a waveform parameter's path
+        ``"<electrode>.pulse[i].<key>"`` or ``"<electrode>.sine[i].<key>"``, in the unit of its key
+        (:func:`scan_column`).
     csv : pathlib.Path or None
-        Instead of ranges, a CSV file whose header names ``<electrode>_V`` columns and
-        whose rows are the voltage sets.
+        Instead of ranges, a CSV file whose header names ``<electrode>_V`` and ``<coil>_A``
+        columns and whose rows are the sets.
     """
 
     ranges: tuple[tuple[str, float, float, int], ...]
@@ -348,12 +353,13 @@ class ScanSpec:
 
 @dataclass(frozen=True)
 class TuneSpec:
-    """An optimiser over electrode voltages.
+    """An optimiser over electrode voltages and coil currents.
 
     Parameters
     ----------
     vary : tuple of (str, float, float)
-        (electrode name, lo_V, hi_V).
+        (name, lo, hi): an electrode's voltage (V), a coil's current (A) or a waveform parameter
+        (in its key's unit).
     goal : str
         ``"smallest_spot"``, ``"most_transmitted"``, ``"landing_energy"`` or ``"focus"``.
     goal_value : float or None
@@ -498,6 +504,32 @@ class MagneticSpec:
     def currents(self) -> dict[str, float]:
         """Return the coil currents by name (A), in coil order."""
         return {c.name: c.current_A for c in self.coils}
+
+    def digest(self) -> str:
+        """sha256 hex digest of every source: coils (with their currents), axial fields (a table
+        by its samples) and uniform fields."""
+        parts = [repr(c) for c in self.coils] + [repr(u) for u in self.uniform]
+        for p in self.profiles:
+            parts.append(repr((p.name, p.peak_T, p.half_width_m, p.center_z_m)) if p.fit is None else
+                         p.name + hashlib.sha256(p.fit.z.tobytes() + p.fit.samples.tobytes()).hexdigest())
+        return hashlib.sha256("\n".join(parts).encode()).hexdigest()
+
+    def overlapping_coils(self) -> tuple:
+        """Pairs of coil names whose winding sections share area (or coincide, for thin
+        windings): one winding, which carries one current."""
+        return tuple((a.name, b.name) for i, a in enumerate(self.coils) for b in self.coils[i + 1:]
+                     if all(_share(*sa, *sb) for sa, sb in ((a.z_m, b.z_m), (a.r_m, b.r_m))))
+
+
+def _share(a0, a1, b0, b1) -> bool:
+    """Whether the spans [a0, a1] and [b0, b1] overlap: over a length, or a span of no length
+    strictly inside the other (equal when both have none)."""
+    if a1 > a0 and b1 > b0:
+        return min(a1, b1) > max(a0, b0)
+    if a1 == a0 and b1 == b0:
+        return a0 == b0
+    (p, _), (lo, hi) = ((a0, a1), (b0, b1)) if a1 == a0 else ((b0, b1), (a0, a1))
+    return lo < p < hi
 
 
 @dataclass(frozen=True)

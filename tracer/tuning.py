@@ -1,7 +1,7 @@
-"""Tuning: the electrode voltages (1 to 4, within bounds) that best meet a goal.
+"""Tuning: the electrode voltages and coil currents (1 to 4, within bounds) that best meet a goal.
 
-Every trial traces the setup's first beam at one voltage set through the combined basis maps and
-measures it with :func:`tracer.measure.row`, so a trial is exactly a scan row.  Goals
+Every trial traces the setup's first beam at one voltage set (with coil currents: through the
+coils' unit fields combined by current) through the combined basis maps and measures it with :func:`tracer.measure.row`, so a trial is exactly a scan row.  Goals
 (``[tune] goal``, docs/reference.md) and what is minimised:
 
 ``smallest_spot`` (at a plane)
@@ -53,7 +53,8 @@ class TuneResult(Shown):
     Attributes
     ----------
     voltages : dict of str to float
-        The best voltage of each varied electrode, volts.
+        The best voltage of each varied electrode, volts (amperes for a varied coil, the key's
+        unit for a waveform parameter).
     value : float
         The goal's figure there: the spot rms radius (m), the transmission (fraction) or the mean
         landing energy (eV).
@@ -63,10 +64,12 @@ class TuneResult(Shown):
     figure : str
         The name of the figure in ``value`` (a scan column name).
     points : numpy structured array
-        Every trial in the order tried: ``<electrode>_V`` per varied electrode, ``value`` and
-        ``objective``.
+        Every trial in the order tried: ``<electrode>_V`` per varied electrode and ``<coil>_A``
+        per varied coil, ``value`` and ``objective``.
     method : str
         The optimiser's description.
+    coils : tuple of str
+        The varied names that are coils.
     """
 
     voltages: dict
@@ -76,9 +79,10 @@ class TuneResult(Shown):
     figure: str
     points: np.ndarray
     method: str
+    coils: tuple = ()
 
     def _facts(self):
-        return {"goal": self.goal, "voltages": voltage_text(self.voltages, self.voltages.values()),
+        return {"goal": self.goal, "voltages": voltage_text(self.voltages, self.voltages.values(), self.coils),
                 self.figure: number(self.value), "evaluations": str(self.evaluations), "method": self.method}
 
     @property
@@ -144,8 +148,8 @@ class _Trials:
         return self.seen[key][1]
 
     def points(self):
-        dtype = [(scan_column(n), np.float64) for n in self.names] + [("value", np.float64),
-                                                                 ("objective", np.float64)]
+        dtype = [(scan_column(n, self.context.currents), np.float64) for n in self.names] + [
+            ("value", np.float64), ("objective", np.float64)]
         return np.array([(*k, *r) for k, r in self.seen.items()], dtype=dtype)
 
 
@@ -219,6 +223,7 @@ def tune(setup: Setup, maps: BasisMaps | None = None, *, cache_dir: str | os.Pat
         method = _several(trials, spec.seed, int(popsize), int(maxiter))
     points = trials.points()
     k = int(np.argmin(points["objective"]))
-    voltages = {n: float(points[scan_column(n)][k]) for n in trials.names}
+    coils = trials.context.currents
+    voltages = {n: float(points[scan_column(n, coils)][k]) for n in trials.names}
     return TuneResult(voltages, float(points["value"][k]), float(points["objective"][k]), spec.goal,
-                      trials.figure, points, method)
+                      trials.figure, points, method, coils)
