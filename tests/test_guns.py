@@ -1,6 +1,7 @@
 """Self-consistent guns: diodes against the Child–Langmuir and Richardson–Dushman laws, charge
 bookkeeping, non-convergence, the bundled Pierce-type gun and the command line."""
 
+import csv
 import math
 from pathlib import Path
 
@@ -204,7 +205,19 @@ def test_command_line(pierce, tmp_path, capsys):
     for word in ("converged", "perveance", "crossover at z", "emission across the cathode",
                  "plane exit", "emittance", "CAUTION", "X-rays"):
         assert word in out
-    assert (tmp_path / "gun.png").stat().st_size > 10_000
+    assert (tmp_path / "rays.png").stat().st_size > 10_000
+    # the emitted beam's result.h5 and landings.csv, as tracer run writes them: every ray, with the
+    # current it carries summing to the gun's current (printed to 5 digits)
+    from tracer.store.result_file import read_result
+
+    beam = read_result(tmp_path / "result.h5").beams["gun"]
+    with open(tmp_path / "landings.csv", newline="") as handle:
+        rows = list(csv.DictReader(handle))
+    assert [int(r["ray"]) for r in rows] == beam.records["ray"].tolist() and len(rows) > 10
+    total = sum(float(r["weight_A"]) for r in rows)
+    assert total == pytest.approx(beam.summary()["current_A"], rel=1e-12)
+    printed = float(out.split("  current ")[1].split()[0])
+    assert total == pytest.approx(printed, rel=1e-4)
 
 
 def test_command_line_without_gun_section(tmp_path, capsys):

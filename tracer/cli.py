@@ -214,6 +214,7 @@ def cmd_gun(args, echo) -> int:
 
     from tracer.guns import gun
     from tracer.measure import plane_figures
+    from tracer.pipeline import RunResult, write_run_outputs
     from tracer.plot import plot_field
 
     setup = _load(args)
@@ -247,8 +248,12 @@ def cmd_gun(args, echo) -> int:
              f"(normalized {st.norm_emittance_x_m_rad * 1e6:.4g}); rays unweighted")
     if result.warning:
         echo(f"warning: {result.warning}")
-    out.mkdir(parents=True, exist_ok=True)
-    echo(f"wrote {plot_field(result.field, out / 'gun.png', paths=result.paths_zr(), title=setup.title)}")
+    if result.run is None:          # nothing emitted: the field alone, to see why
+        out.mkdir(parents=True, exist_ok=True)
+        echo(f"wrote {plot_field(result.field, out / 'rays.png', title=setup.title)}")
+    else:                           # the emitted beam's files and figures, as tracer run writes them
+        for f in write_run_outputs(RunResult(setup, None, result.field, {result.run.name: result.run}), out):
+            echo(f"wrote {f}")
     _caution(_volts(setup), echo)
     return 0
 
