@@ -1,6 +1,7 @@
 """Tests of voltage scans: rows against direct traces, executors, durable rows and resume."""
 
 import concurrent.futures
+import csv
 import dataclasses
 import multiprocessing
 import os
@@ -17,7 +18,7 @@ from tracer.beam import trace
 from tracer.config import loads
 from tracer.pipeline import solve
 from tracer.measure import columns
-from tracer.journal import CSV_NAME, Rows, config_hash, read_h5
+from tracer.journal import CSV_NAME, JOURNAL_NAME, Rows, config_hash, read_h5
 from tracer.scans import read_scan, scan, voltage_sets
 
 from test_trace import THREE_TUBE
@@ -142,7 +143,8 @@ def _interrupt_after(k):
 
 
 def _csv_sets(folder):
-    lines = (Path(folder) / CSV_NAME).read_text().splitlines()
+    """The sets of the journal, the durable record of every finished set."""
+    lines = (Path(folder) / JOURNAL_NAME).read_text().splitlines()
     return sorted(int(line.split(",")[0]) for line in lines[2:])
 
 
@@ -192,6 +194,41 @@ def test_read_scan_refuses_what_is_not_a_scan_table(tmp_path):
         read_scan(tmp_path / "other.csv")
 
 
+def test_scan_csv_is_a_plain_table_in_set_order(setup_maps, serial, tmp_path):
+    """scan.csv opens in any CSV reader as it is: the header first (set, the voltages and the
+    figures, each named with its unit as the suffix, as landings.csv), rows in voltage-set order
+    even when the sets finished in another order; its config hash is in scan.h5 and the journal."""
+    setup, maps = setup_maps
+    names, sets = voltage_sets(setup)
+    rows = Rows(tmp_path, "e" * 64, serial.table.dtype.names, sets)
+    for i in (3, 0, 5, 1):                              # sets finishing out of order
+        rows.add(i, np.array(serial.table[i].tolist()))
+    rows.close()
+    rows.write_tables()
+    with open(tmp_path / CSV_NAME, newline="") as handle:
+        table = list(csv.DictReader(handle))
+    assert [int(r["set"]) for r in table] == [0, 1, 3, 5]
+    assert list(table[0]) == ["set"] + list(serial.table.dtype.names)
+    assert all(c.endswith(("_V", "_m", "_rad", "_eV", "_s")) or c.rpartition(".")[2] in BARE
+               for c in serial.table.dtype.names), serial.table.dtype.names
+    assert [float(r["lens_V"]) for r in table] == serial.table["lens_V"][[0, 1, 3, 5]].tolist()
+    back = read_scan(tmp_path / CSV_NAME)
+    assert back.table.tobytes() == serial.table[[0, 1, 3, 5]].tobytes() and back.config_hash == "e" * 64
+    assert read_h5(tmp_path / "scan.h5")[2] == "e" * 64
+    # a journal written as scan.csv by an earlier tracer is taken over and resumes
+    (tmp_path / CSV_NAME).unlink()
+    old = (tmp_path / JOURNAL_NAME).read_text().replace("# tracer scan journal;", "# tracer scan table;")
+    (tmp_path / JOURNAL_NAME).unlink()
+    (tmp_path / CSV_NAME).write_text(old)
+    again = Rows(tmp_path, "e" * 64, serial.table.dtype.names, sets)
+    again.close()
+    assert sorted(again.done) == [0, 1, 3, 5] and (tmp_path / JOURNAL_NAME).is_file()
+
+
+BARE = ("transmission", "resolving_power", "landed", "left")
+"""Scan figures without a unit: shares of the rays and a ratio (landings.csv has ux, uy, uz so)."""
+
+
 class _LosingCluster(concurrent.futures.Executor):
     """Runs the first ``keep`` sets it is given and cancels the others, as a dask cluster does with
     every set when the workers holding the scattered maps have died."""
@@ -235,7 +272,7 @@ def test_a_line_cut_short_by_a_kill_is_dropped_on_resume(setup_maps, serial, tmp
     setup, maps = setup_maps
     with pytest.raises(KeyboardInterrupt):
         scan(setup, maps, workers=1, out=tmp_path, progress=_interrupt_after(3))
-    csv = tmp_path / CSV_NAME
+    csv = tmp_path / JOURNAL_NAME
     whole = csv.read_text().splitlines()[-1]
     with open(csv, "a") as handle:            # what a process killed mid-write could leave
         handle.write(whole[: len(whole) - 3])
@@ -287,7 +324,7 @@ def test_ctrl_c_on_the_command_line_keeps_the_finished_sets(serial, tmp_path):
                             stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True, env=ENV,
                             start_new_session=True)
     deadline = time.monotonic() + 120
-    while time.monotonic() < deadline and not ((out / CSV_NAME).exists() and len(_csv_sets(out)) >= 1):
+    while time.monotonic() < deadline and not ((out / JOURNAL_NAME).exists() and len(_csv_sets(out)) >= 1):
         time.sleep(0.02)
     os.killpg(proc.pid, signal.SIGINT)       # as Ctrl-C on a terminal: the scan and its workers
     _, err = proc.communicate(timeout=60)
@@ -312,7 +349,8 @@ def test_a_changed_config_starts_a_fresh_table(setup_maps, tmp_path):
     assert config_hash(changed, *voltage_sets(changed)) != first.config_hash
     fresh = scan(changed, maps, workers=1, out=tmp_path)
     assert fresh.resumed == 0 and _csv_sets(tmp_path) == list(range(6))
-    assert (tmp_path / f"scan.{first.config_hash[:12]}.csv").exists()   # the old rows, set aside
+    assert (tmp_path / f"scan.{first.config_hash[:12]}.journal").exists()   # the old rows, set aside
+    assert (tmp_path / f"scan.{first.config_hash[:12]}.csv").exists()
     assert read_h5(tmp_path / "scan.h5")[2] == fresh.config_hash
     # 100 eV more at the start, 100 eV more on landing (energy conservation: common practice), up
     # to the spread of the start potentials (< 0.03 V) over the rays that reach the target
@@ -327,7 +365,7 @@ def test_rows_of_other_sets_are_refused_on_resume(setup_maps, tmp_path):
     rows = Rows(tmp_path, "d" * 64, header, sets)
     rows.add(0, np.array([500.0, 0.0, 1.5]))
     rows.close()
-    with open(tmp_path / CSV_NAME, "a") as handle:
+    with open(tmp_path / JOURNAL_NAME, "a") as handle:
         handle.write("1,123.0,0.0,2.5\n")           # voltages that are not set 1's
         handle.write("0,500.0,0.0,9.0\n")           # set 0 a second time
     back = Rows(tmp_path, "d" * 64, header, sets)

@@ -1,19 +1,29 @@
-"""The durable journal of a scan: its finished rows in ``scan.csv`` and ``scan.h5``.
+"""The durable record of a scan: its finished rows in ``scan.journal``, ``scan.csv`` and ``scan.h5``.
 
-``scan.csv``
+``scan.journal``
     One line per finished set, appended, flushed and fsynced as each set completes (in completion
-    order), after a first line ``# tracer scan table; config sha256 <hash>`` and a header row
+    order), after a first line ``# tracer scan journal; config sha256 <hash>`` and a header row
     ``set,<columns>`` (``set`` is the set's index in the scan order).  Numbers are written in
-    Python's shortest round-trip form, so rows read back are bit for bit those computed.
+    Python's shortest round-trip form, so rows read back are bit for bit those computed.  This is
+    what a scan resumes from; nothing finished is lost when the process is killed.
+``scan.csv``
+    The table to read: the header row ``set,<columns>`` first (every column named with its unit
+    as the suffix, as in ``landings.csv``: ``lens_V``, ``spot_rms_m``, ``tof_mean_s``; fractions
+    and counts bare), then the finished rows in scan order, numbers as in the journal; no comment
+    line, so any CSV reader takes it as it is.  Rewritten atomically with ``scan.h5``.
 ``scan.h5``
     The finished rows in scan order (``tracer/scan/table``, with their indices in
-    ``tracer/scan/set``), rewritten atomically (temporary file renamed into place) when asked
-    (:meth:`Rows.write_h5`).
+    ``tracer/scan/set``) and the config hash (attribute ``config_sha256``), rewritten atomically
+    (temporary file renamed into place) when asked (:meth:`Rows.write_tables`): at least every
+    ``h5_interval_s`` seconds of a scan, on an interrupt and at the end.  After a kill, the two
+    tables may lack the last sets; the journal has them and the next run rewrites both.
 
-Opening the journal of a folder again reads ``scan.csv`` and keeps the finished sets; a last line
-cut short by a killed process is dropped.  The config hash (:func:`config_hash`) covers everything
-the figures depend on; when it differs, the old files are renamed to ``scan.<old hash>.csv`` /
-``.h5`` and a fresh table starts, so rows of different configs are never mixed.
+Opening the journal of a folder again reads ``scan.journal`` and keeps the finished sets; a last
+line cut short by a killed process is dropped.  (A folder of an earlier tracer, whose ``scan.csv``
+was the journal, starting with the comment line, is read as one.)  The config hash
+(:func:`config_hash`) covers everything the figures depend on; when it differs, the old files are
+renamed to ``scan.<old hash>.journal`` / ``.csv`` / ``.h5`` and a fresh table starts, so rows of
+different configs are never mixed.
 """
 
 from __future__ import annotations
@@ -31,9 +41,12 @@ from tracer.store.atomic import atomic_path
 
 TABLE_FORMAT = "tracer-scan-1"
 CSV_NAME = "scan.csv"
+JOURNAL_NAME = "scan.journal"
 H5_NAME = "scan.h5"
 H5_GROUP = "tracer/scan"
-_FIRST_LINE = "# tracer scan table; config sha256 "
+_FIRST_LINE = "# tracer scan journal; config sha256 "
+_OLD_FIRST_LINE = "# tracer scan table; config sha256 "
+"""The first line of a journal written as ``scan.csv`` by an earlier tracer."""
 
 
 def _file_digest(path):
@@ -80,7 +93,7 @@ def _number(value) -> str:
 
 
 class Rows:
-    """The finished rows of a scan, kept durably in ``scan.csv`` (module notes).
+    """The finished rows of a scan, kept durably in ``scan.journal`` (module notes).
 
     Parameters
     ----------
@@ -102,34 +115,39 @@ class Rows:
         if folder is None:
             return
         folder.mkdir(parents=True, exist_ok=True)
+        self.journal = folder / JOURNAL_NAME
         self.csv = folder / CSV_NAME
         self.h5 = folder / H5_NAME
+        _adopt_old_journal(folder)
         lines = self._read()
         if lines is None:
             self._start_fresh()
         else:
             self._resume(lines)
-        self._handle = open(self.csv, "a", encoding="utf-8", newline="")
+        self._handle = open(self.journal, "a", encoding="utf-8", newline="")
 
     def _read(self):
         """Lines of an existing table of this config, or None (and archive any other table)."""
-        if not self.csv.exists():
+        if not self.journal.exists():
             return None
-        lines = self.csv.read_bytes().decode("utf-8", errors="replace").split("\n")
+        lines = self.journal.read_bytes().decode("utf-8", errors="replace").split("\n")
         if lines[:2] == self._prologue().split("\n")[:2]:
             return lines
         first = lines[0]
         old = first.removeprefix(_FIRST_LINE)[:12] if first.startswith(_FIRST_LINE) else "unknown"
-        for path in (self.csv, self.h5):
+        for path in (self.journal, self.csv, self.h5):
             if path.exists():
                 os.replace(path, path.with_name(f"{path.stem}.{old}{path.suffix}"))
         return None
 
     def _prologue(self):
-        return f"{_FIRST_LINE}{self.digest}\n" + ",".join(("set",) + self.header) + "\n"
+        return f"{_FIRST_LINE}{self.digest}\n" + self._header()
+
+    def _header(self):
+        return ",".join(("set",) + self.header) + "\n"
 
     def _start_fresh(self):
-        with atomic_path(self.csv) as tmp:
+        with atomic_path(self.journal) as tmp:
             _write_synced(tmp, self._prologue())
 
     def _resume(self, lines):
@@ -147,7 +165,7 @@ class Rows:
             self.done[row[0]] = row[1]
         self.resumed = len(self.done)
         if not clean:
-            with atomic_path(self.csv) as tmp:
+            with atomic_path(self.journal) as tmp:
                 _write_synced(tmp, self._prologue() + "".join(
                     self._line(i, v) for i, v in sorted(self.done.items())))
 
@@ -176,12 +194,14 @@ class Rows:
         """The finished rows in scan order, as a structured array, and their set indices."""
         return _as_table(self.header, self.done)
 
-    def write_h5(self):
-        """Rewrite ``scan.h5`` atomically with the finished rows."""
+    def write_tables(self):
+        """Rewrite ``scan.csv`` and ``scan.h5`` atomically with the finished rows, in scan order."""
         if self.folder is None:
             return
         import h5py
 
+        with atomic_path(self.csv) as tmp:
+            _write_synced(tmp, self._header() + "".join(self._line(i, v) for i, v in sorted(self.done.items())))
         table, index = self.table()
         with atomic_path(self.h5) as tmp, h5py.File(tmp, "w") as f:
             group = f.create_group(H5_GROUP)
@@ -227,14 +247,32 @@ def _write_synced(path, text):
         os.fsync(handle.fileno())
 
 
+def _adopt_old_journal(folder):
+    """Rename a ``scan.csv`` of an earlier tracer (the journal, comment line first) to
+    ``scan.journal``, so its rows resume; nothing when there is none or a journal exists."""
+    old, journal = folder / CSV_NAME, folder / JOURNAL_NAME
+    if journal.exists() or not old.is_file():
+        return
+    with open(old, encoding="utf-8", errors="replace") as handle:
+        first = handle.readline()
+    if first.startswith(_OLD_FIRST_LINE):
+        with atomic_path(journal) as tmp:
+            _write_synced(tmp, _FIRST_LINE + old.read_text(encoding="utf-8").removeprefix(_OLD_FIRST_LINE))
+        old.unlink()
+
+
 def read_csv(path):
-    """The finished rows of a ``scan.csv``, in scan order (a last line cut short is dropped).
+    """The finished rows of a scan table: ``scan.csv`` (header first), ``scan.journal`` or a
+    ``scan.csv`` of an earlier tracer (a comment line first), in scan order; a last line cut short
+    is dropped.
 
     Returns
     -------
     table : numpy structured array
     index : int64[n]
     digest : str
+        The config hash: from the journal's first line, else from the ``scan.journal`` or
+        ``scan.h5`` beside a ``scan.csv``; "" when none is there.
 
     Raises
     ------
@@ -243,17 +281,37 @@ def read_csv(path):
     """
     from tracer.store import StoreError
 
+    path = Path(path)
     try:
-        lines = Path(path).read_text(encoding="utf-8").split("\n")
+        lines = path.read_text(encoding="utf-8").split("\n")
     except (OSError, UnicodeDecodeError) as exc:
         raise StoreError(f"{path}: cannot read the scan table ({exc})") from None
-    if len(lines) < 3 or not lines[0].startswith(_FIRST_LINE) or not lines[1].startswith("set,"):
-        raise StoreError(f"{path}: not a tracer scan table (its first line is not {_FIRST_LINE!r}...)")
-    header = lines[1].split(",")[1:]
+    first = next((p for p in (_FIRST_LINE, _OLD_FIRST_LINE) if lines[0].startswith(p)), None)
+    digest = lines[0].removeprefix(first).strip() if first else None
+    body = lines[1:] if first else lines
+    if len(body) < 2 or not body[0].startswith("set,"):
+        raise StoreError(f"{path}: not a tracer scan table (its header does not start with 'set,')")
+    header = body[0].split(",")[1:]
     # the text after the last newline may be half written; a bad line is skipped as on resuming
-    rows = [_parse_line(line, len(header)) for line in lines[2:-1]]
+    rows = [_parse_line(line, len(header)) for line in body[1:-1]]
     table, index = _as_table(header, dict(row for row in rows if row is not None))
-    return table, index, lines[0].removeprefix(_FIRST_LINE).strip()
+    return table, index, digest if digest is not None else _digest_beside(path)
+
+
+def _digest_beside(path):
+    """The config hash of the journal or ``scan.h5`` beside a ``scan.csv`` ("" when neither is there)."""
+    journal, h5 = path.with_name(JOURNAL_NAME), path.with_name(H5_NAME)
+    if journal.is_file():
+        with open(journal, encoding="utf-8", errors="replace") as handle:
+            first = handle.readline()
+        if first.startswith(_FIRST_LINE):
+            return first.removeprefix(_FIRST_LINE).strip()
+    if h5.is_file():
+        try:
+            return read_h5(h5)[2]
+        except (OSError, KeyError):
+            return ""
+    return ""
 
 
 def read_h5(path):

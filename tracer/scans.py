@@ -17,9 +17,10 @@ on twice the cell and every figure gets its grid error, a column ``<figure>_grid
 
 Files (when ``out`` is given)
 -----------------------------
-``scan.csv`` gets each finished set as it completes; ``scan.h5`` is rewritten atomically at least
-every ``h5_interval_s`` seconds, on an interrupt and at the end (:mod:`tracer.journal` describes
-both).  Running a scan again skips the finished sets found in ``scan.csv``; when the config hash
+``scan.journal`` gets each finished set as it completes; ``scan.csv`` (header first, rows in scan
+order) and ``scan.h5`` are rewritten atomically at least every ``h5_interval_s`` seconds, on an
+interrupt and at the end (:mod:`tracer.journal` describes the three).  Running a scan again skips
+the finished sets found in ``scan.journal``; when the config hash
 (:func:`tracer.journal.config_hash`) differs, the old files are set aside and a fresh table starts.
 """
 
@@ -42,7 +43,7 @@ from tracer.config import tied_message
 from tracer.display import Shown, listing, number
 from tracer.executors import Context, refuse_forking_pool, run_sets
 from tracer.geometry import overlapping_electrodes, shape_table
-from tracer.journal import CSV_NAME, Rows, config_hash, read_csv
+from tracer.journal import CSV_NAME, JOURNAL_NAME, Rows, config_hash, read_csv
 from tracer.schema import ConfigError, Setup, scan_column
 
 if TYPE_CHECKING:
@@ -202,8 +203,8 @@ def scan(setup: Setup, maps: BasisMaps | None = None, executor: Executor | None 
         executor: the sets run one after another in this process.  A process pool must not
         fork its workers from this process (:func:`tracer.executors.refuse_forking_pool`).
     out : str or os.PathLike, optional
-        Folder for ``scan.csv`` and ``scan.h5``; finished sets found there are skipped.  None: no
-        files.
+        Folder for ``scan.journal``, ``scan.csv`` and ``scan.h5``; finished sets found there are
+        skipped.  None: no files.
     workers : int, optional
         Processes of the default pool (default: the machine's CPU count).
     progress : callable, optional
@@ -212,7 +213,7 @@ def scan(setup: Setup, maps: BasisMaps | None = None, executor: Executor | None 
     cache_dir : str or os.PathLike, optional
         Cache of basis maps used when ``maps`` is None.
     h5_interval_s : float
-        Longest time between rewrites of ``scan.h5`` while scanning.
+        Longest time between rewrites of ``scan.csv`` and ``scan.h5`` while scanning.
 
     Returns
     -------
@@ -254,7 +255,7 @@ def scan(setup: Setup, maps: BasisMaps | None = None, executor: Executor | None 
         rows.add(index, np.concatenate([sets[index], figures]))
         trace_s += seconds
         if time.monotonic() - last_h5 > h5_interval_s:
-            rows.write_h5()
+            rows.write_tables()
             last_h5 = time.monotonic()
         if progress:
             progress(len(rows.done) - rows.resumed, len(todo))
@@ -269,7 +270,7 @@ def scan(setup: Setup, maps: BasisMaps | None = None, executor: Executor | None 
             run_sets(executor, context, workers, sets, todo, finish)
     finally:
         rows.close()
-        rows.write_h5()
+        rows.write_tables()
     table, _ = rows.table()
     files = () if out is None else (rows.csv, rows.h5)
     return ScanResult(table, names, digest, rows.resumed, time.perf_counter() - t_start, trace_s, files,
@@ -277,7 +278,8 @@ def scan(setup: Setup, maps: BasisMaps | None = None, executor: Executor | None 
 
 
 def read_scan(path: str | os.PathLike) -> ScanResult:
-    """The table of an earlier scan, from its output folder or its ``scan.csv``.
+    """The table of an earlier scan, from its output folder (its ``scan.journal``, which holds every
+    finished set even after a kill, else its ``scan.csv``) or a ``scan.csv`` or ``scan.journal``.
 
     Every finished row is read back bit for bit; the varied names are the leading ``<name>_V``
     (voltages), ``<coil>_A`` (currents) and ``<electrode>.<part>[i].<key>`` (waveform parameters)
@@ -289,7 +291,10 @@ def read_scan(path: str | os.PathLike) -> ScanResult:
         When there is no readable scan table there.
     """
     path = Path(path)
-    csv_path = path / CSV_NAME if path.is_dir() else path
+    if path.is_dir():
+        csv_path = path / JOURNAL_NAME if (path / JOURNAL_NAME).is_file() else path / CSV_NAME
+    else:
+        csv_path = path
     table, _, digest = read_csv(csv_path)
     columns = table.dtype.names
     k = next((i for i, c in enumerate(columns) if not (c.endswith(("_V", "_A")) or "[" in c)), len(columns))
