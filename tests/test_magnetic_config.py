@@ -285,3 +285,62 @@ def test_the_scan_journal_sees_the_magnetic_sources():
     assert digest(AXIAL + SOLENOID.replace("turns = 200", "turns = 201")) != base
     bell = '[[axial_field]]\nname = "b"\npeak_T = 0.01\nhalf_width_mm = 3.0\ncenter_z_mm = 50.0\n'
     assert digest(AXIAL + SOLENOID + bell) != digest(AXIAL + SOLENOID + bell.replace("0.01", "0.02"))
+
+
+# ---------------------------------------------------------------- the beam's rotation at a plane
+
+FAR_COIL = AXIAL.replace("z_mm = 60.0\nstop = true", "z_mm = 90.0\nstop = true").replace("count = 8", "count = 12") + """
+[[coil]]
+name = "lens"
+z_mm = [50.0, 70.0]
+r_mm = [15.0, 15.0]
+turns = 200
+current_A = {current}
+"""
+
+
+@pytest.mark.parametrize("current", [0.25, 0.0])
+def test_the_beam_turns_by_the_larmor_angle(current):
+    """Busch's theorem (Busch 1926): rays that start with no azimuthal velocity keep their canonical
+    angular momentum, so in a weak lens the beam turns by sqrt(q / (8 m V*)) * integral of
+    (B(z) - B(z_start)) dz from the start to the plane, V* the relativistically corrected 2 kV; with
+    the coil off it does not turn at all (an electric field has no torque about the axis)."""
+    from tracer.magnetics.coil import coil_field
+
+    setup = tracer.loads(FAR_COIL.format(current=current))
+    run = tracer.run(setup).beams["e"]
+    figures = run.summary()["planes"]["end"]
+    assert figures["fraction"] == 1.0
+    z = np.linspace(run.starts["z_m"][0], 0.09, 20001)
+    b = coil_field(setup.magnetic.coils[0], z, np.zeros_like(z))[1]
+    v_star = 2000.0 * (1.0 + constants.e * 2000.0 / (2.0 * constants.m_e * constants.c ** 2))
+    larmor = math.sqrt(constants.e / (8.0 * constants.m_e * v_star)) * np.trapezoid(b - b[0], z)
+    if current:
+        assert larmor > 0.15 and figures["rotation_rad"] == pytest.approx(larmor, rel=2e-3)
+    else:
+        assert abs(figures["rotation_rad"]) < 1e-12
+
+
+def test_the_rotation_is_modulo_a_half_turn_and_only_about_an_axis():
+    """An inverted image is a half turn: rays through a crossover give the same rotation as before
+    it (pure geometry); planar symmetry has no axis to turn about (NaN)."""
+    from tracer.measure import beam_rotation
+
+    rng = np.random.default_rng(3)
+    n = 40
+    starts = np.zeros(n, dtype=[("ray", int), ("x_m", float), ("y_m", float), ("px", float), ("py", float),
+                                ("pz", float)])
+    starts["ray"] = np.arange(n)
+    starts["x_m"], starts["y_m"] = rng.normal(0, 1e-3, (2, n))
+    starts["px"], starts["py"] = rng.normal(0, 1e-2, (2, n))
+    starts["pz"] = 1.0
+    w0, s0 = starts["x_m"] + 1j * starts["y_m"], starts["px"] + 1j * starts["py"]
+    rows = np.zeros(n, dtype=[("ray", int), ("x_m", float), ("y_m", float)])
+    rows["ray"] = starts["ray"]
+    for g, h, theta in ((0.8, 0.05, 0.4), (-0.5, 0.02, 0.4), (-0.5, 0.02, 0.4 + math.pi), (1.0, 0.0, -1.2)):
+        w = (g * w0 + h * s0) * np.exp(1j * theta)
+        rows["x_m"], rows["y_m"] = w.real, w.imag
+        expect = math.remainder(theta, math.pi)
+        assert beam_rotation(rows, starts) == pytest.approx(expect, abs=1e-12)
+    run = tracer.run(tracer.loads(PLANAR)).beams["e"]
+    assert math.isnan(run.summary()["planes"]["end"]["rotation_rad"])

@@ -37,7 +37,8 @@ First one column ``<electrode>_V`` per varied electrode (:mod:`tracer.scans`), t
   ``resolving_power`` (the arrival times' width and t / (2 Δt_FWHM), :class:`PlaneStats`),
   ``d50_m``, ``d90_m`` (current-containing diameters), ``fwhm_x_m``, ``fwhm_y_m`` (the profiles'
   FWHM), ``focus_z_m`` and ``focus_d50_z_m`` (the best focus of the rays continued in straight
-  lines from the plane, by the rms radius and by the d50);
+  lines from the plane, by the rms radius and by the d50), ``rotation_rad`` (the beam's rotation
+  about the axis from its start, :func:`beam_rotation`);
 * on each electrode: ``landed`` (fraction of the rays that landed on it), ``landing_mean_eV``,
   ``landing_std_eV``;
 * for the whole beam: ``landed``, ``landing_mean_eV``, ``landing_std_eV`` (all landed rays),
@@ -227,6 +228,11 @@ class PlaneStats:
         (:func:`focus_window`: the domain and a domain length beyond each end).
     focus_d50_z_m, focus_d50_m : float
         The same for the smallest d50 (:func:`tracer.stats.straight_d50_waist`).
+    rotation_rad : float
+        The beam's rotation about the axis from its start to the plane, right-handed about +z,
+        modulo a half turn, in (-pi/2, pi/2] (:func:`beam_rotation`: the Larmor rotation in a
+        magnetic field, 0 in an electric one); NaN in planar symmetry, on a tilted plane and when
+        the start states are not given.
     """
 
     count: int
@@ -259,9 +265,53 @@ class PlaneStats:
     focus_rms_m: float
     focus_d50_z_m: float
     focus_d50_m: float
+    rotation_rad: float = math.nan
 
 
-def plane_stats(rows, species, records, time_zero_s=0.0, along_z=True, focus_window_m=(-math.inf, math.inf)):
+def beam_rotation(rows, starts) -> float:
+    """The beam's rotation about the axis from its start to a plane z = const (rad).
+
+    The rays' transverse positions at the plane, w = x + i y, are fitted by least squares as a
+    linear function of their start positions and slopes, w = a w0 + b w0' (w0' = (px + i py)/pz
+    at the start; each column scaled to unit rms, a column of zeros left out).  A round lens maps
+    w0 and w0' alike: a = g e^(i theta), b = h e^(i theta) with real g and h, so theta =
+    arg(a^2 + b^2) / 2 is the turn of the beam's pattern about the axis, right-handed about +z.
+    An image inverted through the axis (g < 0) is a half turn, so theta is known modulo pi and is
+    given in (-pi/2, pi/2]: 0 in a round electric lens before and after a crossover, the Larmor
+    angle (Busch 1926) in a magnetic one.
+
+    Parameters
+    ----------
+    rows : numpy.ndarray
+        Crossing rows (``x_m``, ``y_m``, ``ray``) of a plane z = const.
+    starts : numpy.ndarray
+        The rays' start states (``BeamRun.starts``: ``ray``, ``x_m``, ``y_m``, ``px``, ``py``,
+        ``pz``), sorted by ``ray``.
+
+    Returns
+    -------
+    float
+        NaN for fewer than two rows or rays that all start on the axis, parallel to it.
+    """
+    start = starts[np.searchsorted(starts["ray"], rows["ray"])]
+    with np.errstate(divide="ignore", invalid="ignore"):
+        slope = (start["px"] + 1j * start["py"]) / start["pz"]
+    w = rows["x_m"] + 1j * rows["y_m"]
+    w0 = start["x_m"] + 1j * start["y_m"]
+    ok = np.isfinite(w) & np.isfinite(w0) & np.isfinite(slope)
+    if ok.sum() < 2:
+        return math.nan
+    sizes = [math.sqrt(np.mean(np.abs(c[ok]) ** 2)) for c in (w0, slope)]
+    scaled = [c[ok] / size for c, size in zip((w0, slope), sizes) if size > 0]
+    if not scaled:
+        return math.nan
+    coef = np.linalg.lstsq(np.column_stack(scaled), w[ok], rcond=1e-9)[0]
+    turn = np.sum(coef ** 2)
+    return float(np.angle(turn)) / 2.0 if abs(turn) > 0 else math.nan
+
+
+def plane_stats(rows, species, records, time_zero_s=0.0, along_z=True, focus_window_m=(-math.inf, math.inf),
+                starts=None):
     """The figures of the given crossing rows.
 
     Parameters
@@ -280,6 +330,8 @@ def plane_stats(rows, species, records, time_zero_s=0.0, along_z=True, focus_win
         Whether the plane is z = const (the best focus is a z only there).
     focus_window_m : (float, float)
         The z range a best focus is looked for in (:func:`focus_window`); a waist beyond it is NaN.
+    starts : numpy.ndarray, optional
+        The rays' start states in axial symmetry, for ``rotation_rad`` (NaN without them).
 
     Returns
     -------
@@ -335,6 +387,7 @@ def plane_stats(rows, species, records, time_zero_s=0.0, along_z=True, focus_win
         focus_rms_m=focus_rms if along_z else math.nan,
         focus_d50_z_m=z0 + s_d50,
         focus_d50_m=focus_d50 if along_z else math.nan,
+        rotation_rad=beam_rotation(rows, starts) if along_z and starts is not None else math.nan,
     )
 
 
@@ -350,7 +403,8 @@ def plane_figures(run, plane):
     PlaneStats
     """
     return plane_stats(counted(run, plane), run.species, run.records, run.time_zero_s,
-                       along_z=plane not in getattr(run, "tilted_planes", ()), focus_window_m=focus_window(run))
+                       along_z=plane not in getattr(run, "tilted_planes", ()), focus_window_m=focus_window(run),
+                       starts=getattr(run, "starts", None) if getattr(run, "symmetry", None) == "axial" else None)
 
 
 def focus_window(run):
@@ -482,7 +536,7 @@ PLANE_COLUMNS = {"transmission": "fraction", "spot_rms_m": "rms_radius_m", "cent
                  "energy_std_eV": "energy_std_eV", "tof_mean_s": "time_mean_s", "tof_std_s": "time_std_s",
                  "tof_fwhm_s": "time_fwhm_s", "resolving_power": "resolving_power", "d50_m": "d50_m",
                  "d90_m": "d90_m", "fwhm_x_m": "fwhm_x_m", "fwhm_y_m": "fwhm_y_m", "focus_z_m": "focus_z_m",
-                 "focus_d50_z_m": "focus_d50_z_m"}
+                 "focus_d50_z_m": "focus_d50_z_m", "rotation_rad": "rotation_rad"}
 """Scan column of each plane figure: the :class:`PlaneStats` field it is."""
 
 LANDING_COLUMNS = {"landed": "fraction", "landing_mean_eV": "energy_mean_eV", "landing_std_eV": "energy_std_eV"}

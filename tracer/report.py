@@ -167,6 +167,19 @@ def _focus(s):
                               "virtual focus)")
 
 
+def _rotation(s):
+    """The beam's rotation about the axis at each plane (``rotation_rad``, :func:`tracer.measure.beam_rotation`);
+    "" when it is nowhere above 1e-9 rad (an electric field turns no beam)."""
+    planes = {name: d["rotation_rad"] for name, d in s["planes"].items()
+              if abs(d.get("rotation_rad", math.nan)) > 1e-9}
+    if not planes:
+        return ""
+    return format_table(["plane", "rotation deg"], [[_plane(name, s["planes"][name]), math.degrees(v)]
+                                                     for name, v in planes.items()],
+                        title="rotation of the beam about the axis from its start (right-handed about +z; "
+                              "modulo 180 deg, an inverted image being a half turn)")
+
+
 def _energy_reference(s):
     """The line that says where ``energy_eV`` is measured from ("" for summaries stored before)."""
     ref = s.get("energy_reference") or {}
@@ -259,7 +272,7 @@ def format_summary(summary: dict) -> str:
             ["plane", "fraction", "current A"] + [label for label, _, _ in cols]
             + ["E mean eV", "E std eV", "tof ns", "tof std ns"], rows,
             title="crossed planes (emittances rms, pi not in the unit)"))
-        parts += [t for t in (_spots(s), _focus(s)) if t]
+        parts += [t for t in (_spots(s), _focus(s), _rotation(s)) if t]
         timed = {name: d for name, d in s["planes"].items() if "resolving_power" in d}
         if timed:
             parts.append(format_table(
