@@ -344,3 +344,36 @@ def test_the_rotation_is_modulo_a_half_turn_and_only_about_an_axis():
         assert beam_rotation(rows, starts) == pytest.approx(expect, abs=1e-12)
     run = tracer.run(tracer.loads(PLANAR)).beams["e"]
     assert math.isnan(run.summary()["planes"]["end"]["rotation_rad"])
+
+
+# ---------------------------------------------------------------- bounds of fields and currents
+
+@pytest.mark.parametrize("extra, path", [
+    ('[[axial_field]]\nname = "a"\npeak_T = 5e3\nhalf_width_mm = 2\ncenter_z_mm = 50', "axial_field[0].peak_T"),
+    ('[[uniform_field]]\nname = "u"\nB_T = [0, -2e3, 0]', "uniform_field[0].B_T[1]"),
+    (SOLENOID.replace("current_A = 2.5", "current_A = -2e6"), "coil[0].current_A"),
+])
+def test_fields_and_currents_keep_their_range(extra, path):
+    """Tesla and amperes have ranges as volts do (tracer/bounds.py, docs/limits-and-trust.md)."""
+    with pytest.raises(tracer.ConfigError, match="outside the range tracer admits") as caught:
+        tracer.loads(AXIAL + extra)
+    assert caught.value.key == path
+
+
+def test_a_table_of_the_axial_field_keeps_the_range_of_tesla(tmp_path):
+    (tmp_path / "t.csv").write_text("z_mm,B_T\n0,0\n1,0.1\n2,5000\n3,0.1\n")
+    with pytest.raises(tracer.ConfigError, match="row 4, column B_T: 5000.0 is outside") as caught:
+        tracer.loads(AXIAL + '[[axial_field]]\nname = "t"\ncsv = "t.csv"', source=tmp_path / "x.toml")
+    assert caught.value.key == "axial_field[0].csv"
+
+
+def test_a_coil_may_carry_no_current_or_a_negative_one():
+    """0 A turns a coil off (no field on the axis); a negative current reverses B_z."""
+    off = tracer.loads(AXIAL + SOLENOID.replace("current_A = 2.5", "current_A = 0"))
+    back = tracer.loads(AXIAL + SOLENOID.replace("current_A = 2.5", "current_A = -2.5"))
+    on = tracer.loads(AXIAL + SOLENOID)
+    from tracer.magnetics.profile import axial_field_T
+
+    z = np.linspace(0.0, 0.1, 11)
+    assert off.magnetic.currents() == {"lens": 0.0} and not axial_field_T(off.magnetic, z).any()
+    np.testing.assert_array_equal(axial_field_T(back.magnetic, z), -axial_field_T(on.magnetic, z))

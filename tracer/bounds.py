@@ -6,7 +6,7 @@ Every physical input is checked against the range of its unit here, when it is r
 their unit suffix, the columns of a rays file by their unit), and a number outside is refused with
 the range in the message.  The ranges admit what real work needs, with room to spare: kinetic
 energies of 0 and 1 µeV, megavolt electrodes, masses from the electron's up to 1e12 u (clusters,
-droplets), domains of tens of metres.
+droplets), domains of tens of metres, magnetic fields ten times the strongest pulsed magnets'.
 
 The table is the one place these ranges are written; ``docs/limits-and-trust.md`` repeats it for
 the user.
@@ -30,7 +30,8 @@ class Bound:
     why : str
         What the range covers, for the message.
     magnitude : bool
-        The bound applies to the absolute value (a charge of either sign); 0 is then refused.
+        The bound applies to the absolute value (a charge of either sign); with ``lo`` above 0,
+        0 is then refused.
     """
 
     lo: float
@@ -65,7 +66,8 @@ BOUNDS = {
     "_mm": Bound(-1e5, 1e5, "mm", "positions and sizes up to 100 m"),
     "_us": Bound(-1e9, 1e9, "us", "times up to 1000 s either side of zero"),
     "_ns": Bound(-1e12, 1e12, "ns", "times up to 1000 s either side of zero"),
-    "_A": Bound(0.0, 1e6, "A", "currents up to 1 MA, either sign", magnitude=True),
+    "_A": Bound(-1e6, 1e6, "A", "currents up to 1 MA, either sign; 0 A turns a coil off"),
+    "_T": Bound(-1e3, 1e3, "T", "magnetic fields up to 1000 T either way, beyond the strongest magnets"),
     "_MHz": Bound(0.0, 1e6, "MHz", "frequencies up to 1 THz"),
     "_kHz": Bound(0.0, 1e9, "kHz", "frequencies up to 1 THz"),
     "_deg": Bound(-3600.0, 3600.0, "deg", "ten turns either way"),

@@ -698,6 +698,9 @@ def _field_table(file, path):
             raise ConfigError(path, f"{str(file)!r}: row {n} is not two numbers: {','.join(row)!r}") from None
         if not (math.isfinite(zv) and math.isfinite(bv)):
             raise ConfigError(path, f"{str(file)!r}: row {n} is not finite")
+        for column, unit, value in (("z_mm", "_mm", zv), ("B_T", "_T", bv)):
+            if problem := BOUNDS[unit].problem(value):
+                raise ConfigError(path, f"{str(file)!r}: row {n}, column {column}: {problem}")
         z.append(zv / _MM_PER_M)
         b.append(bv)
     if len(z) < 4:
