@@ -349,13 +349,67 @@ def test_a_changed_config_starts_a_fresh_table(setup_maps, tmp_path):
     assert config_hash(changed, *voltage_sets(changed)) != first.config_hash
     fresh = scan(changed, maps, workers=1, out=tmp_path)
     assert fresh.resumed == 0 and _csv_sets(tmp_path) == list(range(6))
-    assert (tmp_path / f"scan.{first.config_hash[:12]}.journal").exists()   # the old rows, set aside
-    assert (tmp_path / f"scan.{first.config_hash[:12]}.csv").exists()
+    aside = f"scan.{first.config_hash[:12]}"
+    assert (tmp_path / f"{aside}.journal").exists()   # the old rows, set aside
+    assert (tmp_path / f"{aside}.csv").exists()
+    assert fresh.moved == tuple((f"scan{s}", f"{aside}{s}") for s in (".journal", ".csv", ".h5"))
     assert read_h5(tmp_path / "scan.h5")[2] == fresh.config_hash
+    back = scan(setup, maps, workers=1, out=tmp_path)          # the first config's rows taken back
+    assert back.resumed == 6 and back.table.tobytes() == first.table.tobytes()
+    assert back.moved[-3:] == tuple((f"{aside}{s}", f"scan{s}") for s in (".journal", ".csv", ".h5"))
+    again = f"scan.{fresh.config_hash[:12]}"
+    assert sorted(p.name for p in tmp_path.glob("scan*")) == sorted(
+        f"{stem}{s}" for stem in ("scan", again) for s in (".journal", ".csv", ".h5"))
     # 100 eV more at the start, 100 eV more on landing (energy conservation: common practice), up
     # to the spread of the start potentials (< 0.03 V) over the rays that reach the target
     assert fresh.table["target.landing_mean_eV"] == pytest.approx(first.table["target.landing_mean_eV"] + 100.0,
                                                                   abs=0.01)
+
+
+def _rows(folder, config, done, n=4):
+    """The journal of a one-electrode scan of ``n`` sets under config hash ``config * 64``, with
+    the sets ``done`` finished (figure ``x`` = 10 + the set's index)."""
+    rows = Rows(folder, config * 64, ("a_V", "x"), np.arange(float(n))[:, None])
+    for i in done:
+        if i not in rows.done:
+            rows.add(i, np.array([float(i), 10.0 + i]))
+    rows.close()
+    return rows
+
+
+def test_switching_configs_back_and_forth_loses_no_row(tmp_path):
+    """A -> B -> A (stopped after one more set) -> B -> A: each config resumes its own rows
+    wherever they were set aside, and no archive is written over."""
+    a, b = f"scan.{'a' * 12}", f"scan.{'b' * 12}"
+    assert _rows(tmp_path, "a", [0, 1]).resumed == 0
+    assert _rows(tmp_path, "b", [0, 1, 2, 3]).moved == [("scan.journal", f"{a}.journal")]
+    again = _rows(tmp_path, "a", [2])                  # resumed, then stopped after one more set
+    assert again.resumed == 2 and again.moved == [("scan.journal", f"{b}.journal"), (f"{a}.journal", "scan.journal")]
+    assert _rows(tmp_path, "b", []).resumed == 4
+    final = _rows(tmp_path, "a", [3])                  # a resumed scan resumes again
+    assert final.resumed == 3 and _csv_sets(tmp_path) == [0, 1, 2, 3]
+    assert sorted(final.done) == [0, 1, 2, 3] and final.done[2].tolist() == [2.0, 12.0]
+    assert sorted(p.name for p in tmp_path.iterdir()) == sorted(["scan.journal", f"{b}.journal"])
+
+
+def test_a_journal_is_never_set_aside_over_an_archive(tmp_path):
+    """Archive names already taken (by files of the user's or an earlier tracer's): a journal
+    that is no table, and the journal of another config, go to the next free name; all are kept."""
+    a, b = f"scan.{'a' * 12}", f"scan.{'b' * 12}"
+    (tmp_path / "scan.unknown.journal").write_text("an earlier file\n")
+    (tmp_path / f"{b}.journal").write_text("someone's own file\n")
+    (tmp_path / JOURNAL_NAME).write_text("not a journal\n")
+    assert _rows(tmp_path, "a", [0]).moved == [("scan.journal", "scan.unknown.2.journal")]
+    rows_b = _rows(tmp_path, "b", [1])                 # its archive name holds no journal of its: fresh
+    assert rows_b.resumed == 0 and rows_b.moved == [("scan.journal", f"{a}.journal")]
+    rows_a = _rows(tmp_path, "a", [])
+    assert rows_a.resumed == 1 and rows_a.moved == [("scan.journal", f"{b}.2.journal"), (f"{a}.journal", "scan.journal")]
+    assert (tmp_path / "scan.unknown.journal").read_text() == "an earlier file\n"
+    assert (tmp_path / "scan.unknown.2.journal").read_text() == "not a journal\n"
+    assert (tmp_path / f"{b}.journal").read_text() == "someone's own file\n"
+    b_rows = (tmp_path / f"{b}.2.journal").read_text().splitlines()
+    assert b_rows[0] == f"# tracer scan journal; config sha256 {'b' * 64}" and b_rows[2:] == ["1,1.0,11.0"]
+    assert _csv_sets(tmp_path) == [0]
 
 
 def test_rows_of_other_sets_are_refused_on_resume(setup_maps, tmp_path):

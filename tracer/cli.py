@@ -319,6 +319,9 @@ def cmd_scan(args, echo) -> int:
               "again to continue", file=sys.stderr)
         raise
     table = result.table
+    for source, target in result.moved:
+        whose = "this config's earlier table, resumed" if source.count(".") > 1 else "another config's table, kept"
+        echo(f"moved {out / source} to {target} ({whose})")
     echo(f"{setup.title}\n  {len(table)} voltage sets of {', '.join(result.names)} "
          f"({result.resumed} from an earlier run) in {result.elapsed_s:.1f} s")
     for figure in (f for f in result.figures if f.rpartition(".")[2] == "spot_rms_m"):

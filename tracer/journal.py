@@ -23,13 +23,18 @@ line cut short by a killed process is dropped.  (A folder of an earlier tracer, 
 was the journal, starting with the comment line, is read as one.)  The config hash
 (:func:`config_hash`) covers everything the figures depend on; when it differs, the old files are
 renamed to ``scan.<old hash>.journal`` / ``.csv`` / ``.h5`` and a fresh table starts, so rows of
-different configs are never mixed.
+different configs are never mixed.  An archive is never overwritten: when ``scan.<old hash>.*``
+is taken, the files go to ``scan.<old hash>.2.*``, ``.3.*`` and on.  A config whose own archive is
+there (``scan.<its hash>.journal``) takes it back as ``scan.journal`` and resumes it, so switching
+configs back and forth in one folder loses no row of either.
 """
 
 from __future__ import annotations
 
+import contextlib
 import dataclasses
 import hashlib
+import itertools
 import json
 import os
 from pathlib import Path
@@ -111,6 +116,7 @@ class Rows:
         self.folder, self.digest, self.header, self.sets = folder, digest, tuple(header), sets
         self.done = {}
         self.resumed = 0
+        self.moved = []
         self._handle = None
         if folder is None:
             return
@@ -127,18 +133,46 @@ class Rows:
         self._handle = open(self.journal, "a", encoding="utf-8", newline="")
 
     def _read(self):
-        """Lines of an existing table of this config, or None (and archive any other table)."""
-        if not self.journal.exists():
-            return None
-        lines = self.journal.read_bytes().decode("utf-8", errors="replace").split("\n")
-        if lines[:2] == self._prologue().split("\n")[:2]:
-            return lines
-        first = lines[0]
-        old = first.removeprefix(_FIRST_LINE)[:12] if first.startswith(_FIRST_LINE) else "unknown"
-        for path in (self.journal, self.csv, self.h5):
-            if path.exists():
-                os.replace(path, path.with_name(f"{path.stem}.{old}{path.suffix}"))
+        """Lines of an existing journal of this config, or None.
+
+        The files of another config (or tables without a journal) are set aside first; this
+        config's own archive, when there is one, is then taken back (module notes)."""
+        if self.journal.exists():
+            lines = self.journal.read_bytes().decode("utf-8", errors="replace").split("\n")
+            if self._ours(lines):
+                return lines
+            first = lines[0]
+            self._set_aside(first.removeprefix(_FIRST_LINE)[:12] if first.startswith(_FIRST_LINE) else "unknown")
+        elif self.csv.exists() or self.h5.exists():
+            self._set_aside("unknown")
+        for stem in _archive_stems(self.digest[:12]):
+            if not self.journal.with_name(f"{stem}.journal").exists():
+                return None
+            lines = self.journal.with_name(f"{stem}.journal").read_bytes().decode("utf-8", errors="replace").split("\n")
+            if self._ours(lines):
+                for path in (self.journal, self.csv, self.h5):
+                    with contextlib.suppress(FileNotFoundError):
+                        self._move(path.with_name(f"{stem}{path.suffix}"), path)
+                return lines
         return None
+
+    def _ours(self, lines):
+        """Whether a journal's first two lines are this config's (its hash and columns)."""
+        return lines[:2] == self._prologue().split("\n")[:2]
+
+    def _set_aside(self, tag):
+        """Move the journal and tables to the first archive names of ``tag`` that none of them
+        has yet (the folder is locked by the command line: no other writer races for them)."""
+        files = (self.journal, self.csv, self.h5)
+        stem = next(s for s in _archive_stems(tag)
+                    if not any(p.with_name(f"{s}{p.suffix}").exists() for p in files))
+        for path in files:
+            if path.exists():
+                self._move(path, path.with_name(f"{stem}{path.suffix}"))
+
+    def _move(self, source, target):
+        os.replace(source, target)
+        self.moved.append((source.name, target.name))
 
     def _prologue(self):
         return f"{_FIRST_LINE}{self.digest}\n" + self._header()
@@ -245,6 +279,15 @@ def _write_synced(path, text):
         handle.write(text)
         handle.flush()
         os.fsync(handle.fileno())
+
+
+def _archive_stems(tag):
+    """The archive names of a scan's files tagged ``tag``, in the order they are taken:
+    ``scan.<tag>``, then ``scan.<tag>.2``, ``scan.<tag>.3``, ..."""
+    base = Path(CSV_NAME).stem
+    yield f"{base}.{tag}"
+    for n in itertools.count(2):
+        yield f"{base}.{tag}.{n}"
 
 
 def _adopt_old_journal(folder):

@@ -21,7 +21,8 @@ Files (when ``out`` is given)
 order) and ``scan.h5`` are rewritten atomically at least every ``h5_interval_s`` seconds, on an
 interrupt and at the end (:mod:`tracer.journal` describes the three).  Running a scan again skips
 the finished sets found in ``scan.journal``; when the config hash
-(:func:`tracer.journal.config_hash`) differs, the old files are set aside and a fresh table starts.
+(:func:`tracer.journal.config_hash`) differs, the old files are set aside (never over an earlier
+archive) and the config's own archived journal, if any, is resumed; else a fresh table starts.
 """
 
 from __future__ import annotations
@@ -145,6 +146,10 @@ class ScanResult(Shown):
         The table files written (``scan.csv``, ``scan.h5``), empty without ``out``.
     coils : tuple of str
         The names among ``names`` that are coils (their currents, amperes).
+    moved : tuple of (str, str)
+        Files renamed in ``out`` before the scan, ``(from, to)``: another config's journal and
+        tables set aside (``scan.journal`` to ``scan.<its hash>.journal``, ...), this config's
+        archived ones taken back (:mod:`tracer.journal`).
     """
 
     table: np.ndarray
@@ -155,6 +160,7 @@ class ScanResult(Shown):
     trace_s: float
     files: tuple = ()
     coils: tuple = ()
+    moved: tuple = ()
 
     def _facts(self):
         return {"sets": str(len(self.table)), "varied": listing(self.names),
@@ -274,7 +280,7 @@ def scan(setup: Setup, maps: BasisMaps | None = None, executor: Executor | None 
     table, _ = rows.table()
     files = () if out is None else (rows.csv, rows.h5)
     return ScanResult(table, names, digest, rows.resumed, time.perf_counter() - t_start, trace_s, files,
-                      context.currents)
+                      context.currents, tuple(rows.moved))
 
 
 def read_scan(path: str | os.PathLike) -> ScanResult:
