@@ -7,12 +7,14 @@ One small solved setup (the ion trap ``TRAP`` of ``test_bad_input.py``) is run o
 
 import ast
 import contextlib
+import errno
 import fcntl
 import io
 import os
 import pty
 import re
 import select
+import shutil
 import signal
 import struct
 import subprocess
@@ -30,6 +32,7 @@ from scipy import constants
 import tracer
 from test_bad_input import TRAP
 from tracer import cache
+from tracer import journal
 from tracer.store import atomic, maps_file, openpmd, result_file
 from tracer.cli import main
 from tracer.pipeline import DEFAULT_RTOL
@@ -381,3 +384,123 @@ def test_sigterm_is_handled_like_ctrl_c(trap, tmp_path):
     err = proc.stderr.read()
     assert code == 130 and err == "tracer: interrupted\n", err
     assert list(out.iterdir()) == []
+
+
+def _files(folder):
+    """Every file of a folder and its bytes."""
+    return {p.name: p.read_bytes() for p in sorted(folder.iterdir())}
+
+
+def _full_disk_line(path):
+    return (f"tracer: error: no space left on the device: {path} was not written; the files there before "
+            "are kept (free some space and run again)\n")
+
+
+FULL_DISK = """
+set -e
+mount -t tmpfs -o size=$5k tmpfs "$1"
+cp -a "$2" "$1/out"
+head -c $6 /dev/zero > "$1/filler"
+set +e
+"$7" -m tracer run "$3" --out "$1/out" --quiet > /dev/null 2> "$4/stderr"
+echo $? > "$4/code"
+cp -a "$1/out" "$4/after"
+"""
+
+
+def test_a_full_disk_ends_in_one_line_and_keeps_the_earlier_outputs(trap, tmp_path):
+    """A real full file system (a small tmpfs in a user and mount namespace of its own): the run
+    that finds no room ends with one line naming the file and exit 1, no traceback, no crash;
+    the earlier outputs in --out are untouched and no temporary file is left."""
+    if shutil.which("unshare") is None or subprocess.run(["unshare", "-rm", "true"]).returncode != 0:
+        pytest.skip("no unshare -rm here to mount a small file system")
+    used_k = sum(-(-p.stat().st_size // 4096) * 4 for p in trap.out.iterdir())
+    mount, seen = tmp_path / "small", tmp_path / "seen"
+    mount.mkdir()
+    seen.mkdir()
+    proc = subprocess.run(["unshare", "-rm", "sh", "-c", FULL_DISK, "sh", str(mount), str(trap.out),
+                           str(trap.config), str(seen), str(used_k + 512), str(448 * 1024), sys.executable],
+                          env={**os.environ, "TRACER_CACHE": str(trap.cache)}, capture_output=True, text=True)
+    assert proc.returncode == 0, proc.stderr
+    code, err = int((seen / "code").read_text()), (seen / "stderr").read_text()
+    assert code == 1, err
+    assert re.fullmatch(rf"tracer: error: no space left on the device: {re.escape(str(mount))}/out/\S+ was not "
+                        r"written; the files there before are kept \(free some space and run again\)\n", err), err
+    assert _files(seen / "after") == _files(trap.out)
+
+
+def test_a_full_disk_while_a_picture_is_drawn_names_it(trap, tmp_path, monkeypatch, capsys):
+    """The pictures drawn in the child process (tracer.beside) report a full disk as the parent's
+    own writes do: one line naming the picture, exit 1, the earlier set kept whole."""
+    import matplotlib.figure
+
+    out = tmp_path / "out"
+    shutil.copytree(trap.out, out)
+    savefig = matplotlib.figure.Figure.savefig
+
+    def full(self, fname, *args, **kwargs):
+        if Path(fname).name.startswith(".landing_energy.png"):
+            raise OSError(errno.ENOSPC, "No space left on device")
+        return savefig(self, fname, *args, **kwargs)
+
+    monkeypatch.setattr(matplotlib.figure.Figure, "savefig", full)
+    monkeypatch.setenv("TRACER_CACHE", str(trap.cache))
+    assert main(["run", str(trap.config), "--out", str(out), "--quiet"]) == 1
+    assert capsys.readouterr().err == _full_disk_line(out / "landing_energy.png")
+    assert _files(out) == _files(trap.out)
+
+
+class _FillingUp:
+    """A file handle on a disk that fills up: the first write takes half the bytes, the next fails."""
+
+    def __init__(self, handle):
+        self.handle, self.writes = handle, 0
+
+    def write(self, data):
+        self.writes += 1
+        if self.writes > 1:
+            raise OSError(errno.ENOSPC, "No space left on device")
+        return self.handle.write(data[:len(data) // 2])
+
+    def fileno(self):
+        return self.handle.fileno()
+
+    def close(self):
+        self.handle.close()
+
+
+def test_a_full_disk_while_a_scan_row_is_written(tmp_path):
+    """The row cut short by a full disk names scan.journal; the rows before it are kept and
+    resumed, the half line dropped."""
+    sets = np.arange(3.0)[:, None]
+    rows = journal.Rows(tmp_path, "a" * 64, ("a_V", "x"), sets)
+    rows.add(0, np.array([0.0, 10.0]))
+    rows._handle = _FillingUp(rows._handle)
+    with pytest.raises(OSError) as caught:
+        rows.add(1, np.array([1.0, 11.0]))
+    rows.close()
+    assert caught.value.errno == errno.ENOSPC and caught.value.filename == str(tmp_path / "scan.journal")
+    assert (tmp_path / "scan.journal").read_text().endswith("0,0.0,10.0\n1,1.0")
+    again = journal.Rows(tmp_path, "a" * 64, ("a_V", "x"), sets)
+    again.close()
+    assert again.resumed == 1 and again.done[0].tolist() == [0.0, 10.0]
+
+
+def test_an_hdf5_file_on_a_full_disk_leaves_the_old_one(tmp_path, monkeypatch):
+    """An HDF5 file is built in memory and written with plain writes (tracer.store.hdf5.new_file):
+    a full disk is one OSError naming the file, the old file stays, no temporary is left."""
+    from tracer.store import hdf5
+
+    path = tmp_path / "scan.h5"
+    path.write_bytes(b"the complete old file")
+
+    def full(name, mode="r", *args, **kwargs):
+        handle = open(name, mode, *args, **kwargs)
+        handle.write = lambda data: (_ for _ in ()).throw(OSError(errno.ENOSPC, "No space left on device"))
+        return handle
+
+    monkeypatch.setattr(hdf5, "open", full, raising=False)
+    with pytest.raises(OSError) as caught, hdf5.new_file(path) as f:
+        f.create_dataset("x", data=np.arange(10))
+    assert caught.value.errno == errno.ENOSPC and caught.value.filename == str(path)
+    assert path.read_bytes() == b"the complete old file" and leftovers(tmp_path) == []

@@ -14,7 +14,8 @@ def beside(job):
 
     Yields a list that holds the job's return value (a JSON value) once the block has ended.  An
     exception of the job is raised again at the end of the block: a built-in exception as its own
-    type, any other as a RuntimeError that names it.  When the block raises (Ctrl-C included),
+    type (an ``OSError`` with its ``errno`` and ``filename``), any other as a RuntimeError that
+    names it.  When the block raises (Ctrl-C included),
     the child is stopped, exactly once, by a KeyboardInterrupt raised inside it (so that its
     atomic writes remove their temporary files), and waited for.  The child ignores Ctrl-C of its
     own: it hears of it through this process.  Without ``os.fork`` the job runs at the end of
@@ -62,9 +63,12 @@ def beside(job):
     done.append(reply["value"])
 
 
-def _rebuilt(kind, message):
-    """The exception a child of :func:`beside` reported, from its type name and message."""
+def _rebuilt(kind, message, code=None, filename=None):
+    """The exception a child of :func:`beside` reported, from its type name and message (and an
+    OSError's errno and file name)."""
     cls = getattr(builtins, kind, None)
+    if isinstance(cls, type) and issubclass(cls, OSError) and code is not None:
+        return cls(code, message, filename)
     if isinstance(cls, type) and issubclass(cls, BaseException):
         return cls(message)
     return RuntimeError(f"in the child process: {kind}: {message}")
@@ -89,6 +93,9 @@ def _child(job, read_end, write_end, mask):
                 reply = json.dumps({"value": value})
             except (TypeError, ValueError) as err:
                 raise TypeError(f"the child process could not send back its result {value!r}: {err}") from err
+        except OSError as err:
+            reply = json.dumps({"error": [type(err).__name__, err.strerror or str(err), err.errno,
+                                          None if err.filename is None else str(err.filename)]})
         except BaseException as err:
             reply = json.dumps({"error": [type(err).__name__, str(err)]})
         with os.fdopen(write_end, "w") as pipe:

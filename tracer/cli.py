@@ -1,8 +1,9 @@
 """The command line: parsing arguments and printing, nothing else.
 
 Exit codes: 0 success, 2 bad input (one line on stderr, a traceback only with
-``--debug``), 1 an internal fault, 3 a scan's cluster lost its workers (the finished rows are kept),
-130 interrupted (Ctrl-C or SIGTERM), 141 the reader of the output went away.
+``--debug``), 1 an internal fault or a full disk (one line naming the file not written), 3 a
+scan's cluster lost its workers (the finished rows are kept), 130 interrupted (Ctrl-C or
+SIGTERM), 141 the reader of the output went away.
 
 A command that writes into an output folder holds a lock on it (``flock`` on the folder) for its
 whole run: a second process on the same folder stops at once with exit 2, and the first step
@@ -479,6 +480,7 @@ def main(argv: list[str] | None = None) -> int:
     """Run the command line; return the exit code."""
     from tracer.interrupts import by_interrupt
     from tracer.schema import ConfigError
+    from tracer.store.atomic import no_space
 
     for stream in (sys.stdout, sys.stderr):   # a terminal that cannot show a character gets an escape
         if hasattr(stream, "reconfigure"):
@@ -511,6 +513,10 @@ def main(argv: list[str] | None = None) -> int:
             return 130
         if args.debug:
             traceback.print_exc()
+        if no_space(exc):      # a full disk: the writers name the file; what was there is kept
+            print(f"tracer: error: no space left on the device: {exc.filename or 'an output file'} was not "
+                  "written; the files there before are kept (free some space and run again)", file=sys.stderr)
+            return 1
         print(f"tracer: internal fault: {type(exc).__name__}: {exc} (run with --debug for details)",
               file=sys.stderr)
         return 1

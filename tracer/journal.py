@@ -130,7 +130,7 @@ class Rows:
             self._start_fresh()
         else:
             self._resume(lines)
-        self._handle = open(self.journal, "a", encoding="utf-8", newline="")
+        self._handle = open(self.journal, "ab", buffering=0)   # unbuffered: a failed write is not retried on closing
 
     def _read(self):
         """Lines of an existing journal of this config, or None.
@@ -217,12 +217,23 @@ class Rows:
         return ",".join([str(index)] + [_number(v) for v in values]) + "\n"
 
     def add(self, index, values):
-        """Record a finished row: appended, flushed and fsynced before returning."""
+        """Record a finished row: appended, flushed and fsynced before returning.
+
+        Raises
+        ------
+        OSError
+            When the row cannot be written (a full disk: ``filename`` is ``scan.journal``).  The rows
+            recorded before stay in the file; a part of this one is dropped when it is read back.
+        """
         self.done[index] = values
         if self._handle is not None:
-            self._handle.write(self._line(index, values))
-            self._handle.flush()
-            os.fsync(self._handle.fileno())
+            line = memoryview(self._line(index, values).encode("utf-8"))
+            try:
+                while line:
+                    line = line[self._handle.write(line):]
+                os.fsync(self._handle.fileno())
+            except OSError as exc:
+                raise OSError(exc.errno, exc.strerror, str(self.journal)) from None
 
     def table(self):
         """The finished rows in scan order, as a structured array, and their set indices."""
@@ -232,12 +243,12 @@ class Rows:
         """Rewrite ``scan.csv`` and ``scan.h5`` atomically with the finished rows, in scan order."""
         if self.folder is None:
             return
-        import h5py
+        from tracer.store.hdf5 import new_file
 
         with atomic_path(self.csv) as tmp:
             _write_synced(tmp, self._header() + "".join(self._line(i, v) for i, v in sorted(self.done.items())))
         table, index = self.table()
-        with atomic_path(self.h5) as tmp, h5py.File(tmp, "w") as f:
+        with new_file(self.h5) as f:
             group = f.create_group(H5_GROUP)
             group.attrs["format"] = TABLE_FORMAT
             group.attrs["config_sha256"] = self.digest

@@ -27,12 +27,26 @@ from pathlib import Path
 STAGED = ".staged."
 """Prefix of the staging folders inside an output folder."""
 
+NO_SPACE = (errno.ENOSPC, errno.EDQUOT)
+"""The errors of a full disk or an exhausted quota."""
+
+
+def no_space(exc: BaseException) -> bool:
+    """Whether an exception is a full disk (or quota) on a write."""
+    return isinstance(exc, OSError) and exc.errno in NO_SPACE
+
+
+def _naming(exc: OSError, path) -> OSError:
+    """A full-disk error that names ``path`` (the file being made, not its temporary name)."""
+    return OSError(exc.errno, os.strerror(exc.errno), str(path))
+
 
 @contextlib.contextmanager
 def atomic_path(path):
     """Yield a temporary path beside ``path``; rename it onto ``path`` when the block succeeds.
 
-    On an exception the temporary file is removed and ``path`` is left as it was.
+    On an exception the temporary file is removed and ``path`` is left as it was; a full disk
+    (:func:`no_space`) is raised again as an ``OSError`` whose ``filename`` is ``path``.
     """
     path = Path(path)
     path.parent.mkdir(parents=True, exist_ok=True)
@@ -40,9 +54,11 @@ def atomic_path(path):
     try:
         yield tmp
         os.replace(tmp, path)
-    except BaseException:
+    except BaseException as exc:
         with contextlib.suppress(FileNotFoundError):
             os.unlink(tmp)
+        if no_space(exc):
+            raise _naming(exc, path) from None
         raise
 
 
@@ -52,8 +68,8 @@ def staged_folder(folder, manifest=None, heading=""):
     succeeds.
 
     On an exception the temporary folder is removed with everything in it, and ``folder`` keeps
-    only what it held before.  Files written into the temporary folder with ``atomic_path`` are
-    complete when they are moved.
+    only what it held before (a full disk names the file of ``folder`` that was being made).
+    Files written into the temporary folder with ``atomic_path`` are complete when they are moved.
 
     Parameters
     ----------
@@ -68,7 +84,12 @@ def staged_folder(folder, manifest=None, heading=""):
     folder = Path(folder)
     folder.mkdir(parents=True, exist_ok=True)
     tmp = folder / f"{STAGED}{os.getpid()}.{secrets.token_hex(4)}.tmp"
-    tmp.mkdir()
+    try:
+        tmp.mkdir()
+    except OSError as exc:
+        if no_space(exc):
+            raise _naming(exc, folder) from None
+        raise
     try:
         yield tmp
         if manifest is None:
@@ -83,6 +104,10 @@ def staged_folder(folder, manifest=None, heading=""):
                 _commit(tmp, folder, manifest)
             finally:
                 signal.pthread_sigmask(signal.SIG_SETMASK, mask)
+    except OSError as exc:
+        if no_space(exc) and exc.filename and Path(exc.filename).parent == tmp:
+            raise _naming(exc, folder / Path(exc.filename).name) from None
+        raise
     finally:
         shutil.rmtree(tmp, ignore_errors=True)
 

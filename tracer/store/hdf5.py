@@ -2,14 +2,16 @@
 
 ``tracer_group`` opens a file and finds tracer's own group of a given kind by its format tag,
 turning every failure to read into a :class:`~tracer.store.StoreError`; ``read_array`` is the one
-function through which every array of a file is read; ``write_fields`` / ``read_fields`` store a
-frozen dataclass as a group (arrays as datasets, every other field in one JSON attribute).
+function through which every array of a file is read; ``new_file`` is the one way a file is
+made; ``write_fields`` / ``read_fields`` store a frozen dataclass as a group (arrays as
+datasets, every other field in one JSON attribute).
 """
 
 from __future__ import annotations
 
 import contextlib
 import dataclasses
+import io
 import json
 
 import h5py
@@ -17,7 +19,25 @@ import numpy as np
 
 from tracer import __version__
 from tracer.store import StoreError
+from tracer.store.atomic import atomic_path
 from tracer.store.trust import check_file
+
+
+@contextlib.contextmanager
+def new_file(path):
+    """Create an HDF5 file atomically and yield it open for writing.
+
+    The file is built in memory and written out with plain writes once it is closed
+    (:func:`tracer.store.atomic.atomic_path`), so a failed write, a full disk above all, is one
+    ``OSError`` naming ``path`` and ``path`` keeps what it held.  The HDF5 library never meets the
+    failed write itself: when it does, it floods stderr from every open object and may crash the
+    process at its exit.
+    """
+    image = io.BytesIO()
+    with h5py.File(image, "w") as f:
+        yield f
+    with atomic_path(path) as tmp, open(tmp, "wb") as handle:
+        handle.write(image.getbuffer())
 
 
 @contextlib.contextmanager

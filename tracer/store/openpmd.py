@@ -20,8 +20,7 @@ import h5py
 import numpy as np
 
 from tracer import __version__
-from tracer.store.atomic import atomic_path
-from tracer.store.hdf5 import read_array
+from tracer.store.hdf5 import new_file, read_array
 from tracer.store.trust import check_count
 
 OPENPMD_VERSION = "1.1.0"
@@ -96,7 +95,7 @@ def openpmd_file(path, iteration: int = 0, author: str | None = None, particles:
     particles : bool
         Declare the particles path (``particles/``) and create its group in the iteration.
     """
-    with atomic_path(path) as tmp, h5py.File(tmp, "w") as f:
+    with new_file(path) as f:
         f.attrs["openPMD"] = text(OPENPMD_VERSION)
         f.attrs["openPMDextension"] = np.uint32(0)
         f.attrs["basePath"] = text(BASE_PATH)
