@@ -38,6 +38,10 @@ def _beams(f, change):
     f[GROUP].attrs["beams"] = json.dumps(beams)
 
 
+def _summaries(f, change):
+    f[GROUP].attrs["summaries"] = change(json.loads(f[GROUP].attrs["summaries"]))
+
+
 def _bomb(f):
     """4 GiB declared, a few kilobytes written (chunks never written take no space)."""
     f.create_dataset(f"{GROUP}/padding", shape=(MAX_ARRAY_BYTES // 8 * 2,), dtype="f8", chunks=(1 << 16,),
@@ -82,6 +86,12 @@ CRAFTED = {
         "plane '../up/x' is not a name tracer admits"),
     "object-dtype": (lambda f, tmp: _beams(f, lambda b: b["dtypes"]["records"].append(["extra", "O"])),
                      "field 'extra' of type |O is not one tracer reads"),
+    "summaries-list": (lambda f, tmp: _summaries(f, lambda s: json.dumps(list(s.values()))),
+                       "its stored summaries are not one summary per beam of the file"),
+    "summaries-beams": (lambda f, tmp: _summaries(f, lambda s: json.dumps({"other": s["protons"]})),
+                        "its stored summaries are not one summary per beam of the file"),
+    "summaries-deep": (lambda f, tmp: _summaries(f, lambda s: "[" * 100_000 + "]" * 100_000),
+                       "unreadable result file"),
     "ray-index": (lambda f, tmp: _replace(f, "data/0/particles/protons_at_mid/rayIndex",
                                           np.full(f["data/0/particles/protons_at_mid/rayIndex"].shape, 10 ** 6)),
                   "do not agree in rays"),
@@ -120,6 +130,35 @@ def test_tracer_show_refuses_a_crafted_file_with_exit_2_and_writes_nothing(good,
     err = capsys.readouterr().err
     assert err.count("\n") == 1 and err.startswith("tracer: error: ") and CRAFTED[case][1] in err, err
     assert not out.exists() and not list(tmp_path.rglob("*.png"))
+
+
+SUMMARY_INSIDE = {
+    "status-list": lambda s: s.__setitem__("status", [1, 2]),
+    "landing-text": lambda s: s.__setitem__("landing", "everywhere"),
+    "rays-missing": lambda s: s.pop("rays"),
+    "plane-number": lambda s: s["planes"].__setitem__(next(iter(s["planes"])), 7),
+    "ledger-text": lambda s: s.__setitem__("ledger_worst_eV", "small"),
+}
+
+
+@pytest.mark.parametrize("case", sorted(SUMMARY_INSIDE))
+def test_tracer_show_refuses_a_summary_of_another_structure_with_exit_2(good, tmp_path, capsys, case):
+    """A summary that reads as JSON but not as the summary tracer writes (a list where a table
+    belongs, text where a number belongs, a key missing): one line, exit 2, no picture written."""
+    path = tmp_path / "result.h5"
+    shutil.copy(good, path)
+
+    def change(summaries):
+        SUMMARY_INSIDE[case](summaries["protons"])
+        return json.dumps(summaries)
+
+    with h5py.File(path, "r+") as f:
+        _summaries(f, change)
+    out = tmp_path / "out"
+    assert main(["show", str(path), "--out", str(out)]) == 2
+    captured = capsys.readouterr()
+    assert captured.err == f"tracer: error: {path}: the stored summary of beam 'protons' is not as tracer writes it\n"
+    assert captured.out == "" and not out.exists()
 
 
 def test_a_title_is_shown_with_its_control_characters_escaped(good, tmp_path):

@@ -272,10 +272,17 @@ def cmd_show(args, echo) -> int:
         result = read_result(args.config)
     except StoreError as exc:
         raise InputError(str(exc)) from exc
+    texts = []
+    for name, summary in result.summaries.items():   # the file's text, its control characters escaped
+        try:
+            texts.append(printable(format_summary(summary)))
+        except (KeyError, TypeError, ValueError, AttributeError, IndexError, RecursionError):
+            raise InputError(f"{args.config}: the stored summary of beam {name!r} is not as tracer "
+                             "writes it") from None
     echo(result.title)
     echo("")
-    for summary in result.summaries.values():   # the file's text, its control characters escaped
-        echo(printable(format_summary(summary)))
+    for text in texts:
+        echo(text)
         echo("")
     out = Path(args.out) if args.out else Path(args.config).parent
     out.mkdir(parents=True, exist_ok=True)

@@ -66,8 +66,8 @@ def tracer_group(path, name, file_format, kind):
                                      "it again with this version")
                 raise StoreError(f"{path}: not a tracer {kind} file ({file_format})")
             yield f, group
-    except (OSError, KeyError, ValueError, TypeError) as err:
-        if isinstance(err, StoreError):
+    except (OSError, KeyError, ValueError, TypeError, AttributeError, RecursionError) as err:
+        if isinstance(err, StoreError):   # AttributeError, RecursionError: JSON of another structure
             raise
         raise StoreError(f"{path}: unreadable {kind} file: {err}") from err
 

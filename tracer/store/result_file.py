@@ -33,7 +33,7 @@ from tracer.store.hdf5 import plain, read_array, read_fields, tracer_group, writ
 from tracer.store.openpmd import (CHARGE, CURRENT, DIMENSIONLESS, ELECTRIC_FIELD, ENERGY, LENGTH, MASS,
                                   MOMENTUM, PARTICLES_PATH, POTENTIAL, TIME, particle_patches,
                                   particle_record, read_component, text)
-from tracer.store.trust import check_count, check_dtype, check_geometry, check_name, printable
+from tracer.store.trust import check_count, check_dtype, check_geometry, check_name, check_summaries, printable
 from tracer.store.uncertainty_table import write_uncertainty
 
 RESULT_GROUP = "tracer/result"
@@ -389,6 +389,6 @@ def read_result(path: str | os.PathLike) -> ResultFile:
             beams[about["name"]] = dataclasses.replace(run, **context)
         return ResultFile(path=Path(path), title=printable(group.attrs["title"]), field=field, phi=phi,
                           e_z=e["z"], e_r=e["r" if grid.symmetry == "axial" else "y"], beams=beams,
-                          summaries=json.loads(group.attrs["summaries"]),
+                          summaries=check_summaries(json.loads(group.attrs["summaries"]), beams, path),
                           config_text=read_array(group["config"]).decode(),
                           geometry_hash=str(group.attrs["geometry_hash"]))

@@ -142,6 +142,14 @@ def check_geometry(path, grid, table, raster, names, voltages, meshes) -> None:
         _array(mesh, nodes, "f", what, path)
 
 
+def check_summaries(summaries, beams, path) -> dict:
+    """The stored summaries of a result file: an object with one object per beam of the file."""
+    if not (isinstance(summaries, dict) and sorted(summaries) == sorted(beams)
+            and all(isinstance(s, dict) for s in summaries.values())):
+        raise StoreError(f"{path}: its stored summaries are not one summary per beam of the file")
+    return summaries
+
+
 def printable(text: str) -> str:
     """``text`` with control characters (and other unprintable ones) escaped, newlines kept."""
     return "".join(c if c.isprintable() or c == "\n" else repr(c)[1:-1] for c in str(text))
