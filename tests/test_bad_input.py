@@ -228,6 +228,11 @@ CASES = [
     ("toml-open-string", sub('name = "mid"', 'name = "mid'), {}, f"line {PLANE_NAME_LINE}, column 12",
      "Illegal character"),
     ("toml-open-header", sub("[trace]", "[trace"), {}, f"line {line_of('[trace]')}, column 7", "Expected ']'"),
+    # integers longer than Python reads (4300 digits, sys.get_int_max_str_digits): the key on their line
+    ("toml-integer-4301-digits", sub("count = 200", "count = " + "9" * 4301), {},
+     f"line {line_of('count = 200')}, column 9", "count: an integer of 4301 digits; tracer reads at most 4300"),
+    ("toml-integer-in-an-array", sub("z_mm = [0.0, 22.0]", "z_mm = [0.0, -1_" + "0" * 5000 + "]"), {},
+     f"line {line_of('z_mm = [0.0, 22.0]')}, column 14", "z_mm: an integer of 5001 digits"),
     # wrong types
     ("type-voltage", sub("voltage_V = 0.0", 'voltage_V = "0 V"'), {}, "electrode[1].voltage_V",
      "expected a number, got '0 V'"),

@@ -504,3 +504,56 @@ def test_an_hdf5_file_on_a_full_disk_leaves_the_old_one(tmp_path, monkeypatch):
         f.create_dataset("x", data=np.arange(10))
     assert caught.value.errno == errno.ENOSPC and caught.value.filename == str(path)
     assert path.read_bytes() == b"the complete old file" and leftovers(tmp_path) == []
+
+
+@pytest.mark.parametrize("where", ["a file", "below a file"])
+def test_an_unusable_cache_is_one_warning_and_the_work_goes_on(trap, tmp_path, monkeypatch, capsys, where):
+    """TRACER_CACHE naming a file (or a folder below one): the maps are solved and used without the
+    cache, with one line saying so; nothing is written there."""
+    blocker = tmp_path / "cache"
+    blocker.write_text("not a folder")
+    folder = blocker if where == "a file" else blocker / "sub"
+    monkeypatch.setenv("TRACER_CACHE", str(folder))
+    assert main(["solve", str(trap.config), "--out", str(tmp_path / "out"), "--quiet"]) == 0
+    err = capsys.readouterr().err
+    assert err.splitlines() == [f"WARNING: the maps cache {folder} cannot be used "
+                                f"({'File exists' if where == 'a file' else 'Not a directory'}); going on "
+                                "without it (set TRACER_CACHE to a folder you can write, or give --no-cache)"], err
+    assert blocker.read_text() == "not a folder" and (tmp_path / "out" / "maps.h5").exists()
+
+
+HOLD_ENTRY = """
+import fcntl, os, sys
+fd = os.open(sys.argv[1], os.O_RDWR | os.O_CREAT)
+fcntl.flock(fd, fcntl.LOCK_EX)
+print("locked", flush=True)
+sys.stdin.readline()
+"""
+
+
+def test_a_cache_entry_is_written_by_one_process_at_a_time(trap, tmp_path, monkeypatch):
+    """While another process holds a cache entry's lock (as it does while solving and writing the
+    entry), a second one waits; once the entry is there it reads it instead of solving again."""
+    import threading
+
+    path = cache.cache_file(tmp_path, trap.setup, rtol=DEFAULT_RTOL)
+    holder = subprocess.Popen([sys.executable, "-c", HOLD_ENTRY, str(path.with_suffix(".lock"))],
+                              stdin=subprocess.PIPE, stdout=subprocess.PIPE, text=True)
+    solves, got = [], []
+    monkeypatch.setattr(cache, "solve_basis", lambda *a, **k: solves.append(a))
+    try:
+        assert holder.stdout.readline() == "locked\n"
+        waiting = threading.Thread(target=lambda: got.append(cache.cached_solve(trap.setup, tmp_path,
+                                                                                  rtol=DEFAULT_RTOL)))
+        waiting.start()
+        waiting.join(0.5)
+        assert waiting.is_alive() and got == []                         # held up by the lock
+        shutil.copy(cache.cache_file(trap.cache, trap.setup, rtol=DEFAULT_RTOL), path)   # the entry written
+        holder.stdin.write("\n")
+        holder.stdin.flush()
+        waiting.join(30)
+    finally:
+        holder.kill()
+        holder.wait()
+    assert not waiting.is_alive() and solves == []
+    assert got[0].unit.tobytes() == maps_file.read_maps(path).unit.tobytes()

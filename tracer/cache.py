@@ -9,13 +9,24 @@ Nothing in the cache is trusted.  A file of this key that cannot be read, whose 
 the checksum stored with them, whose geometry hash is not the setup's, or whose maps break the
 maximum principle (:func:`implausible`) is not used: a :class:`CacheWarning` says so and the maps
 are solved again, so such a map never reaches a result.
+
+The cache is optional: a cache folder that cannot be used (a file of that name, no permission, a
+full disk) gives one :class:`CacheWarning` and the maps are solved and used without it.
+
+One process writes an entry at a time: :func:`cached_solve` holds an exclusive ``flock`` on the
+entry's lock file (``maps-<key>.lock``) while it looks the entry up and, when it is missing,
+solves and writes it; a second process wanting the same entry waits, then reads the maps the
+first one wrote instead of solving them again.  Other entries are not held up.
 """
 
 from __future__ import annotations
 
+import contextlib
 import dataclasses
+import fcntl
 import hashlib
 import json
+import os
 import warnings
 from pathlib import Path
 
@@ -96,7 +107,11 @@ def load_cached(setup, cache_dir, *, rtol: float = 1e-10):
         geometry or implausible maps (None is returned: the maps are to be solved again).
     """
     path = cache_file(cache_dir, setup, rtol=rtol)
-    if not path.exists():
+    try:
+        if not path.is_file():
+            return None
+    except OSError as err:       # a folder that cannot be searched
+        _unusable(cache_dir, err)
         return None
     try:
         if read_tags(path).get("cache_key") != cache_key(setup, rtol=rtol):
@@ -130,12 +145,40 @@ def cached_solve(setup, cache_dir, *, rtol: float = 1e-10, progress=None):
     -------
     tracer.fieldmap.BasisMaps
     """
-    maps = load_cached(setup, cache_dir, rtol=rtol)
-    if maps is None:
-        maps = solve_basis(setup, rtol=rtol, progress=progress)
-        write_maps(cache_file(cache_dir, setup, rtol=rtol), maps,
-                   tags={"cache_key": cache_key(setup, rtol=rtol)})
+    path = cache_file(cache_dir, setup, rtol=rtol)
+    with _entry_lock(path):
+        maps = load_cached(setup, cache_dir, rtol=rtol)
+        if maps is None:
+            maps = solve_basis(setup, rtol=rtol, progress=progress)
+            try:
+                write_maps(path, maps, tags={"cache_key": cache_key(setup, rtol=rtol)})
+            except OSError as err:
+                _unusable(cache_dir, err)
     return maps
+
+
+def _unusable(cache_dir, err) -> None:
+    """Say, once per call, that the cache folder cannot be used and the maps go without it."""
+    warnings.warn(f"WARNING: the maps cache {cache_dir} cannot be used ({err.strerror or err}); going on "
+                  "without it (set TRACER_CACHE to a folder you can write, or give --no-cache)",
+                  CacheWarning, stacklevel=3)
+
+
+@contextlib.contextmanager
+def _entry_lock(path):
+    """Hold the lock of the cache entry ``path`` (module notes); none when the lock file cannot be
+    made (the cache folder is unusable: the entry is then neither read nor written)."""
+    try:
+        path.parent.mkdir(parents=True, exist_ok=True)
+        fd = os.open(path.with_suffix(".lock"), os.O_RDWR | os.O_CREAT, 0o666)
+    except OSError:
+        yield
+        return
+    try:
+        fcntl.flock(fd, fcntl.LOCK_EX)
+        yield
+    finally:
+        os.close(fd)
 
 
 @dataclasses.dataclass(frozen=True)

@@ -18,6 +18,7 @@ import os
 import signal
 import sys
 import traceback
+import warnings
 from pathlib import Path
 
 from tracer import __version__
@@ -58,6 +59,21 @@ def _lock_out(args, stack) -> None:
                          "wait for it to end or choose another --out") from None
     except OSError as exc:
         raise InputError(f"--out {out}: cannot write there ({exc.strerror or exc})") from None
+
+
+def _one_line_warnings(stack) -> None:
+    """Show tracer's own warnings (their text starts with ``WARNING: ``) as that one line on
+    stderr, others as Python does, while ``stack`` is open."""
+    shown = warnings.showwarning
+
+    def show(message, category, filename, lineno, file=None, line=None):
+        if str(message).startswith("WARNING: "):
+            print(message, file=sys.stderr if file is None else file)
+        else:
+            shown(message, category, filename, lineno, file, line)
+
+    warnings.showwarning = show
+    stack.callback(setattr, warnings, "showwarning", shown)
 
 
 def _terminated(signum, frame):
@@ -499,6 +515,7 @@ def main(argv: list[str] | None = None) -> int:
     previous = signal.signal(signal.SIGTERM, _terminated)
     try:
         with contextlib.ExitStack() as stack:
+            _one_line_warnings(stack)
             _lock_out(args, stack)
             code = func(args, echo)
         sys.stdout.flush()  # a closed pipe shows here, not at the interpreter's exit

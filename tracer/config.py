@@ -68,6 +68,7 @@ import math
 import os
 import pathlib
 import re
+import sys
 import tomllib
 from dataclasses import dataclass
 
@@ -158,7 +159,24 @@ def loads(text: str, source: str | os.PathLike | None = None) -> Setup:
         raise _syntax_error(str(error), text) from None
     except RecursionError:
         raise ConfigError("document", "nested too deeply to read") from None
+    except ValueError as error:   # an integer longer than Python reads (sys.get_int_max_str_digits)
+        raise _long_integer(text) or error from None
     return _setup(data, source)
+
+
+def _long_integer(text):
+    """The ConfigError of the first integer in ``text`` longer than Python reads, naming the key
+    on its line; None when there is none."""
+    limit = sys.get_int_max_str_digits()
+    match = re.search(r"(?<![\w.])[+-]?[0-9](?:_?[0-9]){%d,}" % limit, text) if limit else None
+    if match is None:
+        return None
+    start = text.rfind("\n", 0, match.start()) + 1
+    key = re.match(r"\s*([^=\s]+)\s*=", text[start:match.start()])
+    digits = sum(c.isdigit() for c in match[0])
+    return ConfigError(f"line {text.count(chr(10), 0, start) + 1}, column {match.start() - start + 1}",
+                       f"{key[1] + ': ' if key else ''}an integer of {digits} digits; tracer reads at most "
+                       f"{limit} (Python's limit), and no input needs more")
 
 
 def _syntax_error(message, text):
