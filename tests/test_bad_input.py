@@ -228,6 +228,11 @@ CASES = [
     ("toml-open-string", sub('name = "mid"', 'name = "mid'), {}, f"line {PLANE_NAME_LINE}, column 12",
      "Illegal character"),
     ("toml-open-header", sub("[trace]", "[trace"), {}, f"line {line_of('[trace]')}, column 7", "Expected ']'"),
+    # more than memory can hold (tracer.footprint): the largest item named with its estimate
+    ("memory-rays", sub("count = 200", "count = 1000000000000"), {}, "beam[2].count",
+     "1,000,000,000,000 rays need about"),
+    ("memory-kept-paths", lambda text: add("keep_paths = 10000000000")(sub("count = 200", "count = 10000000000")(text)),
+     {}, "trace.keep_paths", "10,000,000,000 kept paths of up to 4096 points need about"),
     # integers longer than Python reads (4300 digits, sys.get_int_max_str_digits): the key on their line
     ("toml-integer-4301-digits", sub("count = 200", "count = " + "9" * 4301), {},
      f"line {line_of('count = 200')}, column 9", "count: an integer of 4301 digits; tracer reads at most 4300"),

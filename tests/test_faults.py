@@ -557,3 +557,18 @@ def test_a_cache_entry_is_written_by_one_process_at_a_time(trap, tmp_path, monke
         holder.wait()
     assert not waiting.is_alive() and solves == []
     assert got[0].unit.tobytes() == maps_file.read_maps(path).unit.tobytes()
+
+
+def test_the_memory_estimate_covers_what_a_traced_ray_holds(trap):
+    """tracer.footprint's bytes per ray hold at least the records, the kept crossings and the
+    kernel's arrays of a traced ray (its state, counts, time spent and the first pass's room for 16
+    crossings, tracer.motion), and not more than four times as much."""
+    from tracer import footprint
+    from tracer.motion.bundles import COUNTS, ROW_LEN
+
+    run = trap.result.beams["spray"]
+    n = len(run.records)
+    kernel = (ROW_LEN + COUNTS + 16 * (1 + ROW_LEN) + 2) * 8
+    held = run.records.itemsize + run.starts.itemsize + run.crossings.nbytes / n + kernel
+    estimate = footprint.RAY_BYTES + footprint.CROSSING_BYTES * len(trap.setup.planes)
+    assert held <= estimate <= 4 * held, (held, estimate)

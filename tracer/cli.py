@@ -315,6 +315,7 @@ CLUSTER_LOST = 3
 def cmd_scan(args, echo) -> int:
     import contextlib
 
+    from tracer import footprint
     from tracer.executors import ClusterError, ClusterLost, cluster_executor
     from tracer.pipeline import solve
     from tracer.plot import plot_scan
@@ -327,6 +328,7 @@ def cmd_scan(args, echo) -> int:
     if args.workers is not None and args.workers < 1:
         raise InputError(f"--workers: {args.workers} must be at least 1")
     out = _out_dir(args)
+    footprint.check(setup, scan=True, workers=None if args.scheduler else args.workers or os.cpu_count() or 1)
     voltage_sets(setup)   # a bad row of a CSV of sets is refused before any work
     maps = solve(setup, cache_dir=_cache_dir(args), progress=_progress(args, "solving"))
     try:

@@ -74,6 +74,7 @@ from dataclasses import dataclass
 
 from scipy import constants
 
+from tracer import footprint
 from tracer.bounds import BOUNDS, bound_of
 from tracer.geometry import overlapping_electrodes, sector_bbox, shape_table
 from tracer.schema import (CROSSINGS, NAME, DIRECTIONS, GRIDS, START_TIMES, THIRD_GRIDS, Arc, Beam, ConfigError, Domain,
@@ -89,11 +90,6 @@ _MM_PER_M = round(1 / constants.milli)   # conversions divide, so 52 mm -> 0.052
 _DEG = constants.degree
 _PER_S = {"max_time_us": round(1 / constants.micro), "max_time_ns": round(1 / constants.nano)}
 
-# Memory estimate for the field solution: per node and electrode, the unit map and
-# its Hermite data, the multigrid work arrays and a share of the raster (rounded up).
-_BYTES_PER_NODE_PER_ELECTRODE = 200
-_MEMORY_SHARE = 0.5          # refuse a grid needing more than this share of physical memory
-_MAX_NODES = 2e8             # fallback cap where physical memory cannot be asked
 _MAX_CELLS = 1e9             # per side, so that node counts stay finite numbers
 _INT64_MAX = 2**63 - 1
 _BARE_KEY = re.compile(r"[A-Za-z0-9_\-]+")
@@ -562,21 +558,18 @@ def tied_message(a, b, why, kind="electrodes"):
 
 
 def _check_memory(domain, n_electrodes):
-    """Refuse a grid whose field solution would not fit in memory."""
-    (z0, z1), (r0, r1), cell = domain.z_m, domain.r_m, domain.cell_m
-    nodes = ((z1 - z0) / cell + 1) * ((r1 - r0) / cell + 1)
-    need = nodes * _BYTES_PER_NODE_PER_ELECTRODE * n_electrodes
-    try:
-        limit = _MEMORY_SHARE * os.sysconf("SC_PAGE_SIZE") * os.sysconf("SC_PHYS_PAGES")
-    except (AttributeError, ValueError, OSError):
-        limit = _MAX_NODES * _BYTES_PER_NODE_PER_ELECTRODE
+    """Refuse a grid whose field solution would not fit in memory (:mod:`tracer.footprint`)."""
+    cell = domain.cell_m
+    nodes = footprint.grid_nodes(domain)
+    need = nodes * footprint.NODE_BYTES * n_electrodes
+    limit = footprint.memory_limit()
     if need > limit:
         coarser = cell * _MM_PER_M * math.sqrt(need / limit) * 1.01   # margin for the +1 node per side
         step = 10.0 ** (math.floor(math.log10(coarser)) - 1) if math.isfinite(coarser) else math.inf
         raise ConfigError(
             "domain.cell_mm",
             f"{cell * _MM_PER_M:g} mm gives a grid of {nodes:.3g} nodes, which for {n_electrodes} electrode(s) "
-            f"needs about {need / 1e9:.3g} GB, more than {limit / 1e9:.3g} GB ({_MEMORY_SHARE:.0%} of this "
+            f"needs about {need / 1e9:.3g} GB, more than {limit / 1e9:.3g} GB ({footprint.MEMORY_SHARE:.0%} of this "
             f"machine's memory); use a coarser cell_mm, e.g. {math.ceil(coarser / step) * step:.3g}",
         )
 

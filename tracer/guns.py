@@ -496,6 +496,7 @@ def gun(setup: Setup, *, maps: BasisMaps | None = None, cache_dir: str | os.Path
     RuntimeWarning
         When the current has not converged within ``max_iterations``.
     """
+    from tracer import footprint
     from tracer.config import ConfigError
     from tracer.pipeline import solve
     from tracer.solver import solve_poisson
@@ -503,6 +504,7 @@ def gun(setup: Setup, *, maps: BasisMaps | None = None, cache_dir: str | os.Path
     spec = setup.gun
     if spec is None:
         raise ConfigError("gun", "the setup has no [gun] section")
+    footprint.check(setup, beams=False, gun=True)
     if maps is None:
         maps = solve(setup, cache_dir=cache_dir)
     vacuum = maps.combine()

@@ -203,11 +203,12 @@ def run(setup: Setup, *, maps: BasisMaps | None = None, voltages: Mapping[str, f
     RunResult
         With the error bars of ``setup.grid_error`` (:mod:`tracer.errorbars`).
     """
-    from tracer import errorbars
+    from tracer import errorbars, footprint
 
     def stage(name):
         return None if progress is None else (lambda done, total: progress(name, done, total))
 
+    footprint.check(setup)
     if maps is None:
         maps = solve(setup, cache_dir=cache_dir, progress=stage("solve"))
     traced = traced_field(setup, maps, voltages)

@@ -39,6 +39,7 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
+from tracer import footprint
 from tracer.bounds import BOUNDS
 from tracer.config import tied_message
 from tracer.display import Shown, listing, number
@@ -235,6 +236,7 @@ def scan(setup: Setup, maps: BasisMaps | None = None, executor: Executor | None 
     """
     refuse_forking_pool(executor)
     t_start = time.perf_counter()
+    footprint.check(setup, scan=True, workers=None if executor is not None else workers or os.cpu_count() or 1)
     names, sets = voltage_sets(setup)
     if maps is None:
         from tracer.pipeline import solve

@@ -35,6 +35,7 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
+from tracer import footprint
 from tracer.display import Shown, number, voltage_text
 from tracer.executors import Context
 from tracer.schema import ConfigError, Plane, Setup, scan_column
@@ -212,6 +213,7 @@ def tune(setup: Setup, maps: BasisMaps | None = None, *, cache_dir: str | os.Pat
         raise ConfigError("tune", "missing: the setup has no [tune] section")
     if not setup.beams:
         raise ConfigError("beam", "missing: tuning traces the setup's first [[beam]]")
+    footprint.check(setup)
     if maps is None:
         from tracer.pipeline import solve
 
