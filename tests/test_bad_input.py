@@ -232,7 +232,19 @@ CASES = [
     ("memory-rays", sub("count = 200", "count = 1000000000000"), {}, "beam[2].count",
      "1,000,000,000,000 rays need about"),
     ("memory-kept-paths", lambda text: add("keep_paths = 10000000000")(sub("count = 200", "count = 10000000000")(text)),
-     {}, "trace.keep_paths", "10,000,000,000 kept paths of up to 4096 points need about"),
+     {}, "trace.keep_paths", "10,000,000,004 kept paths of up to 4096 points need about"),
+    # names and titles too long, names whose pictures or scan columns would come twice
+    ("name-too-long", sub('name = "mid"', 'name = "' + "m" * 101 + '"'), {}, "plane[0].name",
+     "a name of 101 characters; at most 100"),
+    ("title-huge", sub('title = "ion trap', 'title = "' + "x" * 100_000 + ' ion trap'), {}, "title",
+     "a title of 100,055 characters; at most 300"),
+    ("names-same-picture", lambda text: sub("[[plane]]\n", '[[plane]]\nname = "mid_mid"\nz_mm = 15.0\n\n[[plane]]\n')(
+        sub('name = "buried"', 'name = "spray_mid"')(text)), {}, "plane",
+     "beam 'spray' at plane 'mid_mid' and beam 'spray_mid' at plane 'mid' would draw the same picture "
+     "phase_spray_mid_mid.png"),
+    ("names-same-column", lambda text: add("[scan]\ncap_in = [90.0, 100.0, 2]")(
+        sub('name = "buried"', 'name = "spray.ring"')(text)), {}, "scan",
+     "the table's column 'spray.ring.landed' would come twice"),
     # integers longer than Python reads (4300 digits, sys.get_int_max_str_digits): the key on their line
     ("toml-integer-4301-digits", sub("count = 200", "count = " + "9" * 4301), {},
      f"line {line_of('count = 200')}, column 9", "count: an integer of 4301 digits; tracer reads at most 4300"),

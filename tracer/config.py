@@ -77,7 +77,8 @@ from scipy import constants
 from tracer import footprint
 from tracer.bounds import BOUNDS, bound_of
 from tracer.geometry import overlapping_electrodes, sector_bbox, shape_table
-from tracer.schema import (CROSSINGS, NAME, DIRECTIONS, GRIDS, START_TIMES, THIRD_GRIDS, Arc, Beam, ConfigError, Domain,
+from tracer.measure import columns
+from tracer.schema import (CROSSINGS, NAME, NAME_LENGTH, TITLE_LENGTH, DIRECTIONS, GRIDS, START_TIMES, THIRD_GRIDS, Arc, Beam, ConfigError, Domain,
                            Electrode, GridErrorSpec, GunSpec, MagneticSpec, OpticsSpec, Plane, Polygon, Rect, ScanSpec,
                            Setup, TraceOptions, TuneSpec, Z_PLANE_RAD, scan_unit)
 from tracer.species import custom_species, species
@@ -322,8 +323,40 @@ def _name(value, path):
     """A name: letters, digits and _ . + - (it becomes a column and group name)."""
     text = _string(value, path)
     if not NAME.fullmatch(text):
-        raise ConfigError(path, f"bad name {text!r}: use letters, digits and _ . + - (not starting with . + -)")
+        raise ConfigError(path, f"bad name {_show(text)}: use letters, digits and _ . + - (not starting with . + -)")
+    if len(text) > NAME_LENGTH:
+        raise ConfigError(path, f"a name of {len(text)} characters; at most {NAME_LENGTH} (names become parts "
+                                "of file names)")
     return text
+
+
+def _title(value, path):
+    """The title: text of at most TITLE_LENGTH characters (it heads every figure and table)."""
+    text = _string(value, path)
+    if len(text) > TITLE_LENGTH:
+        raise ConfigError(path, f"a title of {len(text):,} characters; at most {TITLE_LENGTH} (it heads every "
+                                "figure and table)")
+    return text
+
+
+def _check_output_names(beams, planes, electrodes, scan):
+    """Refuse names whose pictures (``phase_<beam>_<plane>.png``) or scan columns
+    (``<beam>.<plane>.<figure>``, ``<beam>.<electrode>.<figure>``) would come out twice."""
+    drawn = {}
+    for b in beams:
+        for p in planes:
+            other = drawn.setdefault(f"{b.name}_{p.name}", (b.name, p.name))
+            if other != (b.name, p.name):
+                raise ConfigError("plane", f"beam {b.name!r} at plane {p.name!r} and beam {other[0]!r} at plane "
+                                           f"{other[1]!r} would draw the same picture phase_{b.name}_{p.name}.png; "
+                                           "rename one of them")
+    if scan is None:
+        return
+    names = columns([b.name for b in beams], [p.name for p in planes], [e.name for e in electrodes])
+    twice = next((c for k, c in enumerate(names) if c in names[:k]), None)
+    if twice is not None:
+        raise ConfigError("scan", f"the table's column {twice!r} would come twice (beam, plane and electrode "
+                                  "names are joined by '.'): rename a beam, plane or electrode")
 
 
 def _array(value, path, length=None):
@@ -395,7 +428,7 @@ def _within(x, span, path, shown, axis):
 def _setup(data, source):
     top = _Table(data, "", _TOP, what="unknown top-level key")
     base = source.parent if source is not None else pathlib.Path.cwd()
-    title = top.get("title", _string, default="")
+    title = top.get("title", _title, default="")
     author = top.get("author", _string, default="")
     domain = _domain(top.get("domain", _raw))
     if not top.has("electrode"):
@@ -420,6 +453,7 @@ def _setup(data, source):
     tune = top.get("tune", _tune, default=None, names=names, planes=plane_names, domain=domain,
                    electrodes=electrodes, coils=coils)
     _check_tied(tied, electrodes, magnetic, scan, tune)
+    _check_output_names(beams, planes, electrodes, scan)
     return Setup(
         title=title,
         author=author,

@@ -130,9 +130,10 @@ def check(setup, *, beams=True, scan=False, gun=False, workers=None) -> None:
     key, what, size, per = max(items, key=lambda item: item[2])
     room = max(0.0, limit - (total - size))
     fits = math.floor(room / per) if math.isfinite(room / per) else 0
+    fit = f"at most about {fits:,} fit" if fits else "the rest of the command alone does not fit either"
     raise ConfigError(key, f"{what} need about {_gb(size)} of memory, and the whole command about "
                            f"{_gb(total)}, more than {_gb(limit)} ({MEMORY_SHARE:.0%} of this machine's "
-                           f"memory); at most about {fits:,} fit")
+                           f"memory); {fit}")
 
 
 def _gb(size) -> str:

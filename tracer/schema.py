@@ -22,6 +22,13 @@ NAME = re.compile(r"[A-Za-z0-9_][A-Za-z0-9_.+\-]*")
 """What a name may be (electrodes, beams, planes): letters, digits and _ . + -, not first . + -;
 names become columns, groups and parts of file names, so files from elsewhere are held to it too."""
 
+NAME_LENGTH = 100
+"""The longest name: ``arrival_<beam>_<plane>.png`` stays under the 255 bytes a file name may
+have on common file systems (common practice: ext4, XFS, APFS, NTFS)."""
+
+TITLE_LENGTH = 300
+"""The longest title: it heads every figure and table."""
+
 
 class ConfigError(ValueError):
     """A bad setup: ``str(error) == f"{key}: {message}"``.

@@ -19,7 +19,7 @@ import math
 import h5py
 import numpy as np
 
-from tracer.schema import NAME
+from tracer.schema import NAME, NAME_LENGTH
 from tracer.store import StoreError
 
 MAX_ARRAY_BYTES = 1 << 31
@@ -79,7 +79,7 @@ def check_dtype(names, what, path) -> np.dtype:
 def check_name(name, what, path) -> str:
     """A name from a file (a beam's, a plane's, an electrode's): what a config admits, as names
     become parts of file names."""
-    if not isinstance(name, str) or not NAME.fullmatch(name) or len(name) > 200:
+    if not isinstance(name, str) or not NAME.fullmatch(name) or len(name) > NAME_LENGTH:
         raise StoreError(f"{path}: {what} {printable(repr(name))[:80]} is not a name tracer admits "
                          "(letters, digits and _ . + -)")
     return name
