@@ -186,7 +186,8 @@ def test_run_outputs_are_the_files_and_every_picture(soft_landing, tmp_path):
     planes = soft_landing.beams["c60"].planes
     assert [f.name for f in files] == (["result.h5", "landings.csv", "rays.png", "landing_energy.png",
                                         "landing_positions.png"]
-                                       + [f"phase_c60_{plane}.png" for plane in planes] + ["run-files.txt"])
+                                       + [f"{kind}_c60_{plane}.png" for plane in planes for kind in ("phase", "spot")]
+                                       + ["run-files.txt"])
     assert sorted(p.name for p in (tmp_path / "out").iterdir()) == sorted(f.name for f in files)
     assert (tmp_path / "out" / "run-files.txt").read_text().splitlines()[1:] == sorted(f.name for f in files[:-1])
     alone = run_figures(soft_landing.field, list(soft_landing.beams.values()), tmp_path / "alone",

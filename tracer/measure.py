@@ -345,7 +345,7 @@ def plane_stats(rows, species, records, time_zero_s=0.0, along_z=True, focus_win
     n = len(records)
     weights = records["weight_A"] if "weight_A" in records.dtype.names else np.zeros(n)
     charged = weights.sum() > 0
-    ray_weight = weights[np.searchsorted(records["ray"], rows["ray"])] if charged else None
+    ray_weight = ray_weights(records, rows)
     t = rows["time_s"]
     width = fwhm(t)
     z0 = mean(rows["z_m"]) if along_z else math.nan
@@ -389,6 +389,14 @@ def plane_stats(rows, species, records, time_zero_s=0.0, along_z=True, focus_win
         focus_d50_m=focus_d50 if along_z else math.nan,
         rotation_rad=beam_rotation(rows, starts) if along_z and starts is not None else math.nan,
     )
+
+
+def ray_weights(records, rows):
+    """The current each of ``rows`` carries (its ray's ``weight_A`` in ``records``, the rays started
+    in ray order), or None when the rays carry no current."""
+    if "weight_A" not in records.dtype.names or not records["weight_A"].sum() > 0:
+        return None
+    return records["weight_A"][np.searchsorted(records["ray"], rows["ray"])]
 
 
 def plane_figures(run, plane):
