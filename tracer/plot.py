@@ -142,7 +142,7 @@ def rays_figure(field, runs=(), title: str | None = None, levels: int = 24) -> F
         One panel at true scale; with rays a second, stretched across the beam.
     """
     g = field.grid
-    paths = [_path_zr(p, g.symmetry) for run in runs for p in run.paths]
+    paths = [_path_zr(p, g.symmetry) for run in runs for p in run.paths if len(p)]
     z = np.linspace(g.z0, g.z1, min(g.nz, 800))
     r = np.linspace(g.r0, g.r1, min(g.nr, 400))
     zz, rr = np.meshgrid(z, r, indexing="ij")
@@ -177,8 +177,8 @@ def rays_figure(field, runs=(), title: str | None = None, levels: int = 24) -> F
         ax.set_title("stretched across the beam (its envelope), planes and best foci marked", fontsize=9)
         for name, zp, focus in marks:
             ax.axvline(zp * MM, color="black", lw=0.8, ls="--", zorder=5)
-            ax.annotate(f" {name}", (zp * MM, 0.97), xycoords=("data", "axes fraction"), fontsize=7,
-                        ha="left", va="top", zorder=6)
+            ax.annotate(f" {name}", (zp * MM, 0.03), xycoords=("data", "axes fraction"), fontsize=7,
+                        ha="left", va="bottom", zorder=6)
             if np.isfinite(focus) and g.z0 <= focus <= g.z1:
                 ax.plot([focus * MM], [0.0 if g.symmetry == "axial" else np.mean(ax.get_ylim())],
                         marker="X", ms=8, color="black", zorder=6, ls="none", clip_on=False,
