@@ -175,7 +175,8 @@ def test_optics_of_the_bundled_solenoid_turn_the_image_by_busch():
     from tracer.magnetics.profile import axial_field_T
     from tracer.pipeline import CONFIGS, lens
 
-    setup = tracer.load(CONFIGS / "solenoid_focus.toml")
+    bundled = CONFIGS / "solenoid_focus.toml"     # on twice its cell: the coil's unit field is sampled faster
+    setup = tracer.loads(bundled.read_text().replace("cell_mm = 0.5", "cell_mm = 1.0"), source=bundled)
     props = lens(setup, tracer.solve(setup).combine())
     assert props.image_z_m == pytest.approx(0.19, abs=0.01)
     z = np.linspace(props.z_m[0], props.z_m[-1], 20001)   # the axis the optics used
@@ -377,3 +378,69 @@ def test_a_coil_may_carry_no_current_or_a_negative_one():
     z = np.linspace(0.0, 0.1, 11)
     assert off.magnetic.currents() == {"lens": 0.0} and not axial_field_T(off.magnetic, z).any()
     np.testing.assert_array_equal(axial_field_T(back.magnetic, z), -axial_field_T(on.magnetic, z))
+
+
+# ---------------------------------------------------------------- B in result.h5
+
+def _written(tmp_path, text):
+    from tracer.store.result_file import write_result
+
+    setup = tracer.loads(text)
+    result = tracer.run(setup)
+    return setup, write_result(tmp_path / "result.h5", result.field, result.beams, setup=setup)
+
+
+def test_result_file_keeps_the_coils_field_as_an_openpmd_mesh(tmp_path):
+    """B_z on the axis read back from result.h5 is the thin solenoid's closed form
+    (mu0 N I / 2L)(cos a1 - cos a2) (common practice) to the interpolation's accuracy, with
+    openPMD 1.1.0's unitSI and unitDimension of tesla (kg s^-2 A^-1)."""
+    import h5py
+
+    from tracer.magnetics.profile import axial_field_T
+
+    setup, path = _written(tmp_path, AXIAL + SOLENOID)
+    back = tracer.read_result(path)
+    assert set(back.b) == {"z", "r"} and back.b["z"].shape == back.phi.shape
+    z = back.grid.z
+    expect = axial_field_T(setup.magnetic, z)
+    l, a, zc = 0.02, 0.015, 0.05
+    closed = constants.mu_0 * 200 * 2.5 / (2 * l) * ((z - zc + l / 2) / np.hypot(z - zc + l / 2, a)
+                                                     - (z - zc - l / 2) / np.hypot(z - zc - l / 2, a))
+    np.testing.assert_allclose(expect, closed, rtol=1e-9, atol=1e-12)
+    np.testing.assert_allclose(back.b["z"][:, 0], closed, rtol=0, atol=1e-4 * closed.max())
+    assert np.abs(back.b["r"][:, 0]).max() == 0.0
+    with h5py.File(path, "r") as f:
+        record = f["data/0/meshes/B"]
+        assert record.attrs["unitDimension"].tolist() == [0.0, 1.0, -2.0, -1.0, 0.0, 0.0, 0.0]
+        assert record.attrs["geometry"] == b"thetaMode"
+        assert all(record[c].attrs["unitSI"] == 1.0 for c in ("z", "r"))
+
+
+def test_result_file_keeps_a_planar_uniform_field_and_none_without_one(tmp_path):
+    _, path = _written(tmp_path, PLANAR + '[[uniform_field]]\nname = "u"\nB_T = [0.01, 0.0, 0.0]\n'
+                                          'box = { z_mm = [20.0, 40.0] }\n')
+    back = tracer.read_result(path)
+    assert set(back.b) == {"x", "y", "z"}
+    inside = (back.grid.z >= 0.02) & (back.grid.z <= 0.04)
+    assert (back.b["x"][inside] == 0.01).all() and (back.b["x"][~inside] == 0.0).all()
+    assert not back.b["y"].any() and not back.b["z"].any()
+    (tmp_path / "none").mkdir()
+    assert tracer.read_result(_written(tmp_path / "none", AXIAL)[1]).b == {}
+
+
+@pytest.mark.parametrize("damage, words", [
+    (lambda record: (record.__delitem__("z"), record.create_dataset("z", data=np.zeros((1, 3, 3))))[-1],
+     "the magnetic field mesh z"),
+    (lambda record: record.move("r", "q"), "components are not those of its symmetry"),
+])
+def test_a_damaged_magnetic_mesh_is_refused(tmp_path, damage, words):
+    """A result file from elsewhere is checked before use (tracer/store/trust.py): B too."""
+    import h5py
+
+    from tracer.store import StoreError
+
+    _, path = _written(tmp_path, AXIAL + SOLENOID)
+    with h5py.File(path, "r+") as f:
+        damage(f["data/0/meshes/B"])
+    with pytest.raises(StoreError, match=words):
+        tracer.read_result(path)

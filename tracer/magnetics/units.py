@@ -202,3 +202,21 @@ def traced_sources(spec, grid, currents: Mapping[str, float] | None = None):
         spec.coils or spec.profiles) else ()
     return maps + tuple(spec.uniform)
 
+
+
+def node_field(sources, grid) -> dict:
+    """B at the nodes of a map's grid (T), by component, from the sources as the kernel traces
+    them (:func:`traced_sources`; None or empty: ``{}``).
+
+    In axial symmetry ``{"z", "r"}``: the field of the coils and axial fields (the curl of their
+    interpolated A_theta, as the rays see it); a uniform field there has no rotational symmetry
+    and is left out.  In planar symmetry ``{"x", "y", "z"}``: the uniform fields in the plane
+    x = 0 of the rays.  ``{}`` when there is nothing to show in the grid's symmetry.
+    """
+    z, r = np.meshgrid(grid.z, grid.r, indexing="ij")
+    sources = tuple(sources or ())
+    if grid.symmetry == "axial":
+        parts = [s.field(z, r) for s in sources if isinstance(s, MagneticMap)]
+        return dict(zip("zr", (sum(c) for c in zip(*parts)))) if parts else {}
+    parts = [s.field(0.0, r, z) for s in sources if not isinstance(s, MagneticMap)]
+    return dict(zip("xyz", (sum(c) for c in zip(*parts)))) if parts else {}

@@ -1,6 +1,7 @@
 """The field and the traced beams in one openPMD 1.1.0 HDF5 file (``result.h5``).
 
-``write_result`` writes the potential and field meshes and, for every beam, its start states,
+``write_result`` writes the potential and field meshes (and the magnetic field's, with magnetic
+sources) and, for every beam, its start states,
 final states and plane crossings as particle species (layout at ``write_result``);
 ``read_result`` reads them back, each beam as the :class:`tracer.beam.BeamRun` the trace
 returned (records, crossings, paths, planes, the ledger report from the stored per-ray energy
@@ -30,8 +31,8 @@ from tracer.measure import CrossingRule
 from tracer.species import Species
 from tracer.store import StoreError, openpmd
 from tracer.store.hdf5 import plain, read_array, read_fields, tracer_group, write_fields
-from tracer.store.openpmd import (CHARGE, CURRENT, DIMENSIONLESS, ELECTRIC_FIELD, ENERGY, LENGTH, MASS,
-                                  MOMENTUM, PARTICLES_PATH, POTENTIAL, TIME, particle_patches,
+from tracer.store.openpmd import (CHARGE, CURRENT, DIMENSIONLESS, ELECTRIC_FIELD, ENERGY, LENGTH, MAGNETIC_FIELD,
+                                  MASS, MESHES_PATH, MOMENTUM, PARTICLES_PATH, POTENTIAL, TIME, particle_patches,
                                   particle_record, read_component, text)
 from tracer.store.trust import check_count, check_dtype, check_geometry, check_name, check_summaries, printable
 from tracer.store.uncertainty_table import write_uncertainty
@@ -119,7 +120,7 @@ def _dtype_of(names) -> np.dtype:
     return np.dtype([(name, kind) for name, kind in names])
 
 
-def write_result(path, field, runs, *, setup=None, summaries=None, author=None) -> Path:
+def write_result(path, field, runs, *, setup=None, summaries=None, author=None, magnetic=None) -> Path:
     """Write the field and the traced beams to one openPMD 1.1.0 HDF5 file (atomically).
 
     Layout::
@@ -127,6 +128,10 @@ def write_result(path, field, runs, *, setup=None, summaries=None, author=None) 
         /data/0/meshes/phi                   potential at the grid nodes (V)
         /data/0/meshes/E                     field components z and r (axial, thetaMode m = 0) or
                                              z and y (planar), V/m, at the grid nodes
+        /data/0/meshes/B                     with magnetic sources, the magnetic field (T) at the
+                                             grid nodes: z and r of the coils and axial fields
+                                             (axial), x, y and z of the uniform fields (planar;
+                                             :func:`tracer.magnetics.units.node_field`)
         /data/0/particles/<beam>_start       start state of every ray
         /data/0/particles/<beam>_final       final state of every ray
         /data/0/particles/<beam>_at_<plane>  every crossing of a detector plane
@@ -166,14 +171,21 @@ def write_result(path, field, runs, *, setup=None, summaries=None, author=None) 
     author : str, optional
         Author and contact, the openPMD ``author`` attribute; default ``setup.author``, else
         :func:`tracer.store.openpmd.default_author`.
+    magnetic : tuple, optional
+        The magnetic sources the beams were traced through (:func:`tracer.magnetics.units.traced_sources`);
+        default the setup's at its currents.
 
     Returns
     -------
     Path
     """
+    from tracer.magnetics.units import node_field, traced_sources
+
     runs = list(runs.values()) if isinstance(runs, Mapping) else list(runs)
     summaries = dict(summaries) if summaries is not None else {run.name: run.summary() for run in runs}
     grid = field.grid
+    if magnetic is None and setup is not None:
+        magnetic = traced_sources(setup.magnetic, grid)
     zz, rr = np.meshgrid(grid.z, grid.r, indexing="ij")
     ez, er = field.field(zz, rr)
     side = "r" if grid.symmetry == "axial" else "y"
@@ -190,6 +202,9 @@ def write_result(path, field, runs, *, setup=None, summaries=None, author=None) 
                            attrs={"comment": text("electrostatic potential at the grid nodes")})
         openpmd.write_mesh(it, "E", {"z": ez, side: er}, grid, ELECTRIC_FIELD,
                            attrs={"comment": text("electric field -grad(phi) at the grid nodes")})
+        if b := node_field(magnetic, grid):
+            openpmd.write_mesh(it, "B", b, grid, MAGNETIC_FIELD,
+                               attrs={"comment": text("magnetic field at the grid nodes, as the rays saw it")})
         particles = it[PARTICLES_PATH]
         group = f.create_group(RESULT_GROUP)
         beams = []
@@ -273,6 +288,9 @@ class ResultFile(Shown):
         Node potential (V).
     e_z, e_r : float64[nz, nr]
         Node field (V/m); ``e_r`` is E_y in planar symmetry.
+    b : dict of str to float64[nz, nr]
+        Node magnetic field (T) by component ("z", "r" in axial symmetry, "x", "y", "z" in
+        planar), {} when the run had no magnetic field to store.
     beams : dict of str to tracer.beam.BeamRun
         By beam name, in the order they were written.
     summaries : dict of str to dict
@@ -293,6 +311,7 @@ class ResultFile(Shown):
     summaries: dict
     config_text: str
     geometry_hash: str
+    b: dict = dataclasses.field(default_factory=dict)
 
     @property
     def grid(self) -> Grid:
@@ -370,10 +389,14 @@ def read_result(path: str | os.PathLike) -> ResultFile:
         it = f[openpmd.iteration_path()]
         phi = openpmd.read_mesh(it, "phi", grid)
         e = openpmd.read_mesh(it, "E", grid)
+        b = openpmd.read_mesh(it, "B", grid) if f"{MESHES_PATH}B" in it else {}
         voltages = group.attrs["voltages"]
         names = tuple(json.loads(group.attrs["names"]))
+        if not isinstance(b, dict) or not set(b) <= set("zr" if grid.symmetry == "axial" else "xyz"):
+            raise StoreError(f"{path}: the magnetic field mesh's components are not those of its symmetry")
         check_geometry(path, grid, table, raster, names, voltages,
-                       {"the potential mesh": phi} | {f"the field mesh {c}": v for c, v in e.items()})
+                       {"the potential mesh": phi} | {f"the field mesh {c}": v for c, v in e.items()}
+                       | {f"the magnetic field mesh {c}": v for c, v in b.items()})
         hermite = hermite_data(phi, raster.owner, raster.arm, raster.arm_owner, voltages, grid.hz,
                                grid.hr, edge_reflection(grid.edges))
         field = PotentialMap(grid, table, raster, names,
@@ -391,4 +414,4 @@ def read_result(path: str | os.PathLike) -> ResultFile:
                           e_z=e["z"], e_r=e["r" if grid.symmetry == "axial" else "y"], beams=beams,
                           summaries=check_summaries(json.loads(group.attrs["summaries"]), beams, path),
                           config_text=read_array(group["config"]).decode(),
-                          geometry_hash=str(group.attrs["geometry_hash"]))
+                          geometry_hash=str(group.attrs["geometry_hash"]), b=b)
