@@ -572,3 +572,19 @@ def test_the_memory_estimate_covers_what_a_traced_ray_holds(trap):
     held = run.records.itemsize + run.starts.itemsize + run.crossings.nbytes / n + kernel
     estimate = footprint.RAY_BYTES + footprint.CROSSING_BYTES * len(trap.setup.planes)
     assert held <= estimate <= 4 * held, (held, estimate)
+
+
+def test_crossings_too_many_to_keep_are_refused_in_one_line(trap, monkeypatch):
+    """A trapped ray crosses its plane at every turn; when keeping every crossing would exceed the
+    memory (here a limit of 1 kB), the trace stops after the first pass with one line keyed
+    'plane' that counts them, instead of dying in the allocation."""
+    from tracer import footprint
+
+    beam = next(b for b in trap.setup.beams if b.name == "trapped")
+    crossed = len(trap.result.beams["trapped"].crossings)
+    assert crossed * footprint.CROSSING_BYTES > 1e3
+    monkeypatch.setattr(footprint, "memory_limit", lambda: 1e3)
+    with pytest.raises(tracer.ConfigError) as error:
+        tracer.trace(trap.result.field, beam, planes=trap.setup.planes, rtol=DEFAULT_RTOL, max_time_s=MAX_TIME_S)
+    assert error.value.key == "plane"
+    assert f"the rays crossed the planes {crossed:,} times (one ray {crossed:,} times)" in str(error.value)

@@ -59,3 +59,17 @@ def test_what_real_work_needs_is_admitted(monkeypatch):
     with pytest.raises(ConfigError, match=r"^beam\[2\]\.count: "):    # and refused with 2 GB
         monkeypatch.setattr(footprint, "memory_limit", lambda: 2e9)
         footprint.check(setup)
+
+
+def test_crossings_are_refused_only_when_they_cannot_be_kept(monkeypatch):
+    """A ray oscillating in a trap may cross a plane a hundred thousand times: the second pass's
+    room for it and every crossing's row are counted against the limit (here 10 MB)."""
+    import numpy as np
+
+    monkeypatch.setattr(footprint, "memory_limit", lambda: 1e7)
+    footprint.check_crossings(np.array([0, 20, 3] * 100), 16, 80)     # about 1.3 MB
+    with pytest.raises(ConfigError) as error:                          # about 59 MB
+        footprint.check_crossings(np.array([0, 100_000, 3]), 16, 80)
+    assert error.value.key == "plane"
+    assert "crossed the planes 100,003 times (one ray 100,000 times)" in str(error.value)
+    assert "needs about 0.0592 GB, more than 0.01 GB" in str(error.value)

@@ -14,7 +14,7 @@ import numba
 import numpy as np
 from scipy import constants
 
-from tracer import endings, ledger, measure, motion, sources
+from tracer import endings, footprint, ledger, measure, motion, sources
 from tracer.groups import GroupedMaps
 from tracer.motion.drive import Drive, static_drive
 from tracer.fieldmap import PotentialMap
@@ -379,6 +379,7 @@ def trace(field: PotentialMap | GroupedMaps, beam: Beam, planes: Sequence[Plane]
     final, info, cross_plane, cross_state, spent = (np.concatenate([p[k] for p in parts])
                                                     for k in range(5))
     counts = info[:, motion.C_CROSSINGS]
+    footprint.check_crossings(counts, max_crossings, (motion.ROW_LEN + 1) * 8)
     over = np.flatnonzero(counts > max_crossings)
     ray_idx, plane_idx, cross_rows = _gathered(np.where(counts > max_crossings, 0, counts), cross_plane,
                                                cross_state)

@@ -136,5 +136,38 @@ def check(setup, *, beams=True, scan=False, gun=False, workers=None) -> None:
                            f"memory); {fit}")
 
 
+def check_crossings(counts, room, row_bytes) -> None:
+    """Refuse, after a beam's first pass, plane crossings too many to keep.
+
+    Every crossing is kept (:func:`tracer.beam.trace`): the rays that crossed more often than the
+    first pass had ``room`` for are traced again with room for all of theirs, and every crossing
+    becomes a row.  How often rays cross is known only once they have flown (a trapped ray may
+    cross a plane at every turn), so this check comes after the first pass, before those arrays
+    are made.
+
+    Parameters
+    ----------
+    counts : int array
+        The crossings of each ray.
+    room : int
+        The room a ray had in the first pass.
+    row_bytes : int
+        The bytes of one crossing slot of the kernel.
+
+    Raises
+    ------
+    ConfigError
+        Keyed ``plane``, with the crossings counted and the estimate.
+    """
+    over = counts[counts > room]
+    need = over.size * float(over.max(initial=0)) * row_bytes + float(counts.sum()) * CROSSING_BYTES
+    limit = memory_limit()
+    if need > limit:
+        raise ConfigError("plane", f"the rays crossed the planes {int(counts.sum()):,} times (one ray "
+                                   f"{int(counts.max()):,} times), and keeping every crossing needs about "
+                                   f"{_gb(need)}, more than {_gb(limit)} ({MEMORY_SHARE:.0%} of this machine's "
+                                   "memory): use fewer planes or rays, or a shorter [trace] max_time_us")
+
+
 def _gb(size) -> str:
     return f"{size / 1e9:.3g} GB"
