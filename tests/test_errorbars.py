@@ -382,24 +382,27 @@ def test_lens_warning_names_the_property(tmp_path):
 
 
 def test_scan_rows_with_grid_errors(tmp_path):
-    """``scan_rows = true``: every figure column has a ``<figure>_grid`` column, the landing energy's
+    """``scan_rows = true``: every figure column has a grid-error column, named with the unit last
+    (``spot_rms_grid_m``, as every scan column ends in its unit), the landing energy's
     at round-off in the uniform field (as in a run), equal to what a run at that voltage reports;
     without it the table is as before."""
+    from tracer.measure import grid_column
     from tracer.scans import scan
 
     text = UNIFORM.format(count=20, extra="[scan]\nplate = [-1000.0, -500.0, 2]\n")
     plain = scan(loads(text), workers=1)
-    assert not any(name.endswith("_grid") for name in plain.table.dtype.names)
+    assert not any("_grid" in name for name in plain.table.dtype.names)
     setup = loads(text + "[grid_error]\nscan_rows = true\nrays = 10\n")
     result = scan(setup, workers=1, out=tmp_path)
-    figures = [n for n in result.table.dtype.names if n != "plate_V" and not n.endswith("_grid")]
-    assert [f"{n}_grid" for n in figures] == [n for n in result.table.dtype.names if n.endswith("_grid")]
-    assert np.all(result.table["landing_mean_eV_grid"] <= 1e-9 * result.table["landing_mean_eV"])
+    figures = [n for n in result.table.dtype.names if n != "plate_V" and "_grid" not in n]
+    assert [grid_column(n) for n in figures] == [n for n in result.table.dtype.names if "_grid" in n]
+    assert grid_column("target.landed") == "target.landed_grid" and grid_column("d50_m") == "d50_grid_m"
+    assert np.all(result.table["landing_mean_grid_eV"] <= 1e-9 * result.table["landing_mean_eV"])
     assert result.config_hash != plain.config_hash
     one = run(dataclasses.replace(setup, grid_error=dataclasses.replace(setup.grid_error, rays=10)))
     bar = next(f for f in one.errors.beams["p"].figures if f.where == "mid" and f.figure == "rms_radius_m")
     row = result.table[result.table["plate_V"] == -1000.0][0]
-    assert row["spot_rms_m_grid"] == pytest.approx(bar.grid.error, rel=1e-9, abs=1e-15)
+    assert row["spot_rms_grid_m"] == pytest.approx(bar.grid.error, rel=1e-9, abs=1e-15)
     from tracer.plot import plot_scan
 
     assert [p.name for p in plot_scan(result.table, result.names, tmp_path)] == ["scan.png", "scan_plate.png"]

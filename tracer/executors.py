@@ -80,7 +80,7 @@ class Context:
         Trace options.
     coarse : tracer.fieldmap.BasisMaps or None
         The maps on twice the cell: each figure then gets its grid error, a column
-        ``<figure>_grid`` after all the figures (:func:`tracer.errorbars.row_errors`).
+        :func:`tracer.measure.grid_column` (``spot_rms_grid_m``) after all the figures (:func:`tracer.errorbars.row_errors`).
     rays, safety : int, float or None
         Rays traced again through the coarse maps, and the GCI's safety factor (None: 3).
     drives : dict or None
@@ -132,7 +132,7 @@ class Context:
     @property
     def columns(self):
         figures = measure.columns([b.name for b in self.beams], [p.name for p in self.planes], self.maps.names)
-        return figures + (() if self.coarse is None else tuple(f"{c}_grid" for c in figures))
+        return figures + (() if self.coarse is None else tuple(measure.grid_column(c) for c in figures))
 
     def drives_of(self, values):
         """What each electrode carries at one set of ``values`` (by varied name): the voltages set

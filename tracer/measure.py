@@ -568,6 +568,20 @@ def columns(beams, planes, electrodes):
     return tuple(out)
 
 
+SCAN_UNITS = ("_m", "_rad", "_eV", "_s", "_A", "_V")
+"""The unit suffixes of scan columns (SI; a share of the rays or a ratio has none)."""
+
+
+def grid_column(figure):
+    """The scan column of a figure's grid error (``[grid_error] scan_rows``): ``_grid`` before the
+    unit suffix, so that the name still ends in its unit (``spot_rms_m`` -> ``spot_rms_grid_m``,
+    ``transmission`` -> ``transmission_grid``)."""
+    for unit in SCAN_UNITS:
+        if figure.endswith(unit):
+            return f"{figure[:-len(unit)]}_grid{unit}"
+    return f"{figure}_grid"
+
+
 def row(run, electrodes):
     """The figures of one traced beam, in the order of :func:`columns` for that beam.
 

@@ -34,7 +34,7 @@ from matplotlib import ticker
 from matplotlib.collections import LineCollection
 from matplotlib.figure import Figure
 
-from tracer.measure import counted, frame, plane_figures, ray_weights
+from tracer.measure import counted, frame, grid_column, plane_figures, ray_weights
 from tracer.schema import scan_column, scan_unit
 from tracer.stats import beta_gamma, radius, rms_emittance
 from tracer.store.atomic import atomic_path
@@ -539,8 +539,8 @@ def _scan_panel(fig, ax, table, names, figure, coils=()):
         x = table[scan_column(names[0], coils)]
         order = np.argsort(x, kind="stable")
         ax.plot(x[order], v[order], marker=".", lw=1)
-        if f"{figure}_grid" in table.dtype.names:      # the grid error of each set, as a band
-            err = table[f"{figure}_grid"][order] * factor
+        if grid_column(figure) in table.dtype.names:      # the grid error of each set, as a band
+            err = table[grid_column(figure)][order] * factor
             ax.fill_between(x[order], v[order] - err, v[order] + err, alpha=0.3, lw=0, label="± grid")
         ax.set_xlabel(f"{names[0]} ({scan_unit(names[0], coils)})")
         ax.set_ylabel(label, fontsize=8)
@@ -559,11 +559,13 @@ def _scan_panel(fig, ax, table, names, figure, coils=()):
 def varying(table, names):
     """The figure columns of a scan table worth a panel: not NaN at every set and not the same
     value at every set (a constant, such as a transmission of 1 throughout, says nothing a curve
-    shows), and not a grid-error column (``<figure>_grid``, drawn as a band about its figure)."""
+    shows), and not a grid-error column (:func:`tracer.measure.grid_column`, drawn as a band about
+    its figure)."""
     out = []
+    errors = {grid_column(figure) for figure in table.dtype.names}
     for figure in table.dtype.names[len(names):]:
         values = table[figure][np.isfinite(table[figure])]
-        if len(values) and values.min() != values.max() and not figure.endswith("_grid"):
+        if len(values) and values.min() != values.max() and figure not in errors:
             out.append(figure)
     return out
 
@@ -573,8 +575,8 @@ def scan_figures(table, names, title=None, coils=()) -> dict:
     varied name) or as a map (two), one panel each, titled in words with its unit.
 
     One figure per group of columns that share a prefix (the unprefixed figures, then one per
-    ``[beam.][where.]`` of :mod:`tracer.measure`).  A figure's grid error (its ``<figure>_grid``
-    column, ``[grid_error] scan_rows``) is drawn as a band about its curve.
+    ``[beam.][where.]`` of :mod:`tracer.measure`).  A figure's grid error (its
+    :func:`tracer.measure.grid_column`, ``[grid_error] scan_rows``) is drawn as a band about its curve.
 
     Parameters
     ----------

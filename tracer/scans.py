@@ -11,7 +11,7 @@ bit for bit, whichever ran them.  Each finished row goes to the scan's journal
 The table's columns are the varied voltages, ``<electrode>_V``, and currents, ``<coil>_A``, then the figures of each beam
 (:func:`tracer.measure.columns`; the module notes of :mod:`tracer.measure` name them and say which
 crossings of a plane count).  With ``[grid_error] scan_rows = true`` the maps are solved once more
-on twice the cell and every figure gets its grid error, a column ``<figure>_grid`` after the figures
+on twice the cell and every figure gets its grid error, a column :func:`tracer.measure.grid_column` (``spot_rms_grid_m``) after the figures
 (two grids, Roache's GCI; :func:`tracer.errorbars.row_errors`): each set then traces
 ``[grid_error] rays`` rays of each beam again through the coarse maps.
 
@@ -131,7 +131,7 @@ class ScanResult(Shown):
         One row per voltage set, in scan order: ``<electrode>_V`` per varied electrode and
         ``<coil>_A`` per varied coil (:func:`tracer.schema.scan_column`), then the figures
         (:mod:`tracer.measure` names them), then with ``[grid_error] scan_rows`` their grid errors
-        (``<figure>_grid``).
+        (:func:`tracer.measure.grid_column`: ``spot_rms_grid_m``).
     names : tuple of str
         The varied electrodes, coils and waveform parameters.
     config_hash : str
