@@ -175,8 +175,7 @@ def test_optics_of_the_bundled_solenoid_turn_the_image_by_busch():
     from tracer.magnetics.profile import axial_field_T
     from tracer.pipeline import CONFIGS, lens
 
-    bundled = CONFIGS / "solenoid_focus.toml"     # on twice its cell: the coil's unit field is sampled faster
-    setup = tracer.loads(bundled.read_text().replace("cell_mm = 0.5", "cell_mm = 1.0"), source=bundled)
+    setup = tracer.load(CONFIGS / "solenoid_focus.toml")
     props = lens(setup, tracer.solve(setup).combine())
     assert props.image_z_m == pytest.approx(0.19, abs=0.01)
     z = np.linspace(props.z_m[0], props.z_m[-1], 20001)   # the axis the optics used
