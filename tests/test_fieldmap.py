@@ -6,6 +6,7 @@ from scipy import special
 
 from tracer.fieldmap import (
     ARM_MIN,
+    even_slope,
     ghost_extend,
     hermite_data,
     hermite_eval,
@@ -29,9 +30,10 @@ def free_raster(nz, nr):
 
 
 def from_values(v, hz, hr, reflect):
-    """Hermite data of node values on a grid without electrodes."""
+    """Hermite data of node values on a grid without electrodes; the r_min edge is the axis when
+    it reflects."""
     owner, arm, arm_owner = free_raster(*v.shape)
-    return hermite_data(v, owner, arm, arm_owner, np.zeros(0), hz, hr, reflect)
+    return hermite_data(v, owner, arm, arm_owner, np.zeros(0), hz, hr, reflect, bool(reflect[2]))
 
 
 def evaluate(h, hz, hr, z, r, mirror=False, z0=0.0, r0=0.0):
@@ -201,8 +203,9 @@ def test_first_cell_row_is_even_in_r(exact):
     Optics: V(z) - V''(z) r^2 / 4 + ...), so its term linear in r vanishes: a cubic in r fitted to
     E_r / r across the first cell has linear and cubic coefficients at round-off, with exact node
     derivatives of the harmonic quartic and with the difference derivatives of its node values.
-    With exact derivatives the even patch reproduces the r^2 and r^4 terms exactly: along r at a
-    node, V and E_r are the quartic's own."""
+    The even patch reproduces the r^2 and r^4 terms exactly: along r at a node, V and E_r are the
+    quartic's own, with exact derivatives and with the node values alone (the slope one row off
+    the axis from ``even_slope``)."""
     hz, hr = 0.1, 0.1
     fs = harmonic_quartic()
     Z, R = node_grid(8, 6, hz, hr, z0=0.2)
@@ -215,9 +218,23 @@ def test_first_cell_row_is_even_in_r(exact):
         assert abs(c[1]) * hr < 1e-10 * abs(c[0]), c
         assert abs(c[3]) * hr ** 3 < 1e-10 * abs(c[0]), c
     v, _, vr = evaluate(h, hz, hr, np.full(r.size, 0.2 + 2 * hz), r, mirror=True, z0=0.2)
-    if exact:
-        assert np.max(np.abs(v - fs[0](0.2 + 2 * hz, r))) < 1e-14
-        assert np.max(np.abs(vr - fs[2](0.2 + 2 * hz, r))) < 1e-13
+    assert np.max(np.abs(v - fs[0](0.2 + 2 * hz, r))) < 1e-14
+    assert np.max(np.abs(vr - fs[2](0.2 + 2 * hz, r))) < 1e-13
+
+
+def test_even_slope_is_exact_to_the_r4_term():
+    """The slope one node off a mirror from three values is exact for a + b r^2 + c r^4 (the first
+    three terms of the series in r^2 about an axis, Hawkes & Kasper, Principles of Electron
+    Optics) and its error falls as h^5 for cosh r (scipy's cosh, whose series goes on); the central
+    difference is wrong in the r^3 term (its error falls only as h^3)."""
+    a, b, c, h = 0.3, -1.7, 2.9, 0.13
+    f = lambda r: a + b * r ** 2 + c * r ** 4  # noqa: E731
+    assert even_slope(f(0.0), f(h), f(2 * h), h) == pytest.approx(2 * b * h + 4 * c * h ** 3,
+                                                                   rel=1e-13)
+    err = [abs(even_slope(1.0, np.cosh(h), np.cosh(2 * h), h) - np.sinh(h)) for h in (0.1, 0.05)]
+    central = [abs((np.cosh(2 * h) - 1.0) / (2 * h) - np.sinh(h)) for h in (0.1, 0.05)]
+    assert np.log2(err[0] / err[1]) == pytest.approx(5.0, abs=0.2)
+    assert np.log2(central[0] / central[1]) == pytest.approx(3.0, abs=0.2)
 
 
 @pytest.mark.parametrize("mirror", [True, False])
@@ -338,7 +355,7 @@ def sphere_errors(case, extend):
     arm, arm_owner, owner = case["arm"], case["arm_owner"], case["owner"]
     if not extend:  # the plain interpolant of the kinked node values
         owner, arm, arm_owner = free_raster(case["nz"], case["nr"])
-    h = hermite_data(case["v"], owner, arm, arm_owner, np.ones(1), case["h"], case["h"], AXIS_ONLY)
+    h = hermite_data(case["v"], owner, arm, arm_owner, np.ones(1), case["h"], case["h"], AXIS_ONLY, True)
     z, r, rho, theta = near_surface_points(case)
     v, vz, vr = hermite_eval_many(h, case["z0"], 0.0, case["h"], case["h"], case["nz"], case["nr"],
                                   True, z, r)
@@ -368,7 +385,7 @@ def test_no_ringing_near_a_curved_conductor():
     assert plain_v > 10 * err_v
     assert plain_e > 10 * err_e
     h = hermite_data(case["v"], case["owner"], case["arm"], case["arm_owner"], np.ones(1),
-                     case["h"], case["h"], AXIS_ONLY)
+                     case["h"], case["h"], AXIS_ONLY, True)
     profile, _ = radial_profiles(
         lambda z, r: hermite_eval_many(h, case["z0"], 0.0, case["h"], case["h"], case["nz"],
                                        case["nr"], True, z.ravel(), r.ravel())[0].reshape(z.shape),
@@ -571,7 +588,7 @@ def test_solved_concentric_spheres_near_the_inner_surface():
     assert v.max() - 1.0 < 5e-4
     assert err_e < 0.012
     owner, arm, arm_owner = free_raster(grid.nz, grid.nr)
-    plain = hermite_data(maps.unit[0], owner, arm, arm_owner, np.zeros(0), h, h, AXIS_ONLY)
+    plain = hermite_data(maps.unit[0], owner, arm, arm_owner, np.zeros(0), h, h, AXIS_ONLY, True)
     _, pz, pr = hermite_eval_many(plain, grid.z0, 0.0, h, h, grid.nz, grid.nr, True, z.ravel(), r.ravel())
     plain_e = np.hypot(-pz - (e * np.cos(theta)).ravel(), -pr - (e * np.sin(theta)).ravel()) / e.ravel()
     assert np.max(plain_e) > 10 * err_e

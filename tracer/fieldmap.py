@@ -34,7 +34,10 @@ the weighted sum of the basis data:
    one-sided second-order differences next to conductor nodes that were not extended and at
    "ground" edges; "open" edges, the axis and a mirror plane reflect the map, so the normal
    derivative vanishes there (which also makes the mirrored interpolant C1 across r = 0).
-3. ``d2V/dzdr = d/dr (dV/dz)`` with the same difference rules.
+   One row off the axis or mirror plane, ``dV/dr`` is the slope of the quartic even in r through
+   the first three rows (:func:`even_slope`), which the even patch needs for its r^4 term.
+3. ``d2V/dzdr = d/dr (dV/dz)`` with the same difference rules (and :func:`even_slope` one row
+   off the axis).
 
 Points outside the grid are evaluated with the polynomial of the nearest boundary cell (the cell
 index is clamped); this is only meaningful close to the grid, and the ray tracer stops rays that leave
@@ -397,8 +400,24 @@ def diff_z(g, extended, h, reflect_lo, reflect_hi):
     return out
 
 
+@njit(cache=True, error_model="numpy", inline="always")
+def even_slope(v0, v1, v2, h):
+    """Slope one node off a mirror of a function even about it, from the values on the mirror
+    (``v0``) and one and two nodes off it (``v1``, ``v2``; spacing ``h``).
+
+    The even quartic a + b r^2 + c r^4 through the three values has the slope
+    ``(-9 v0 + 8 v1 + v2) / (6 h)`` at r = h: exact for the first three terms of the series in
+    r^2 (error O(h^5) against the slope's O(h)), where the central difference
+    ``(v2 - v0) / (2 h)`` = 2 b h + 8 c h^3 doubles the r^3 term.  The even patch of the first cell
+    row takes its r^4 term from this slope (:func:`_to_even`), and its r^2 term (the paraxial
+    focusing) from this slope and the value, so the central difference would triple the one and
+    shift the other by 2 c h^2.
+    """
+    return (-9.0 * v0 + 8.0 * v1 + v2) / (6.0 * h)
+
+
 @njit(cache=True, error_model="numpy")
-def hermite_data(v, owner, arm, arm_owner, surface, hz, hr, reflect):
+def hermite_data(v, owner, arm, arm_owner, surface, hz, hr, reflect, mirror):
     """Hermite node data (V, dV/dz, dV/dr, d2V/dzdr) of one map.
 
     Parameters
@@ -409,6 +428,10 @@ def hermite_data(v, owner, arm, arm_owner, surface, hz, hr, reflect):
         Grid spacings.
     reflect : bool[4]
         Whether each edge (z_min, z_max, r_min, r_max) mirrors the map ("open", axis, mirror plane).
+    mirror : bool
+        The ``r = r0`` row is the axis or a mirror plane: the map is even in r there, and the nodes
+        one row off it take dV/dr and d2V/dzdr from :func:`even_slope` wherever the first three
+        rows are extended (both patches that share that row use them, so the map stays C1).
 
     Returns
     -------
@@ -421,7 +444,29 @@ def hermite_data(v, owner, arm, arm_owner, surface, hz, hr, reflect):
     out[1] = diff_z(g, extended, hz, reflect[0], reflect[1])
     out[2] = diff_z(g.T, extended.T, hr, reflect[2], reflect[3]).T
     out[3] = diff_z(out[1].T, extended.T, hr, reflect[2], reflect[3]).T
+    if mirror and nr >= 3:
+        for iz in range(nz):
+            if extended[iz, 0] and extended[iz, 1] and extended[iz, 2]:
+                out[2, iz, 1] = even_slope(g[iz, 0], g[iz, 1], g[iz, 2], hr)
+                out[3, iz, 1] = even_slope(out[1, iz, 0], out[1, iz, 1], out[1, iz, 2], hr)
     return out
+
+
+def map_hermite(grid, raster, v, surface) -> np.ndarray:
+    """Hermite data (:func:`hermite_data`) of node values ``v`` on a grid and its raster.
+
+    Parameters
+    ----------
+    grid : tracer.grid.Grid
+    raster : tracer.geometry.Raster
+    v : float64[nz, nr]
+        Node values.
+    surface : float64[n_electrodes]
+        Value of ``v`` on each electrode.
+    """
+    return hermite_data(v, raster.owner, raster.arm, raster.arm_owner,
+                        np.asarray(surface, dtype=np.float64), grid.hz, grid.hr,
+                        edge_reflection(grid.edges), bool(grid.mirror))
 
 
 def edge_reflection(edges) -> np.ndarray:
@@ -444,11 +489,9 @@ def basis_hermite(grid, raster, unit) -> np.ndarray:
     float64[n_electrodes, 4, nz, nr]
     """
     n = unit.shape[0]
-    reflect = edge_reflection(grid.edges)
     out = np.empty((n, 4) + unit.shape[1:])
     for k in range(n):
-        out[k] = hermite_data(unit[k], raster.owner, raster.arm, raster.arm_owner, np.eye(n)[k],
-                              grid.hz, grid.hr, reflect)
+        out[k] = map_hermite(grid, raster, unit[k], np.eye(n)[k])
     return out
 
 

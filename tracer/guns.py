@@ -49,7 +49,7 @@ import numpy as np
 from tracer import emission
 from tracer.deposit import charge_density
 from tracer.display import Shown, number, rays_png
-from tracer.fieldmap import BasisMaps, edge_reflection, hermite_data
+from tracer.fieldmap import BasisMaps, map_hermite
 from tracer.geometry import electrode_at
 from tracer.schema import Setup
 from tracer.stats import radius
@@ -398,9 +398,7 @@ def space_charge_density(grid, run, sites, distance, species):
 
 def _space_charge_map(field, phi):
     """Hermite data of a space-charge potential (every electrode at 0 V)."""
-    g, raster = field.grid, field.raster
-    return hermite_data(phi, raster.owner, raster.arm, raster.arm_owner, np.zeros(len(field.names)),
-                        g.hz, g.hr, edge_reflection(g.edges))
+    return map_hermite(field.grid, field.raster, phi, np.zeros(len(field.names)))
 
 
 # ---------------------------------------------------------------------------------------------

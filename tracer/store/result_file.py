@@ -24,7 +24,7 @@ from scipy import constants
 from tracer import ledger
 from tracer.beam import STATUS, BeamRun, run_context
 from tracer.display import Shown, rays_png, run_facts
-from tracer.fieldmap import PotentialMap, edge_reflection, hermite_data
+from tracer.fieldmap import PotentialMap, map_hermite
 from tracer.geometry import Raster, ShapeTable
 from tracer.grid import Grid
 from tracer.measure import CrossingRule
@@ -397,8 +397,7 @@ def read_result(path: str | os.PathLike) -> ResultFile:
         check_geometry(path, grid, table, raster, names, voltages,
                        {"the potential mesh": phi} | {f"the field mesh {c}": v for c, v in e.items()}
                        | {f"the magnetic field mesh {c}": v for c, v in b.items()})
-        hermite = hermite_data(phi, raster.owner, raster.arm, raster.arm_owner, voltages, grid.hz,
-                               grid.hr, edge_reflection(grid.edges))
+        hermite = map_hermite(grid, raster, phi, voltages)
         field = PotentialMap(grid, table, raster, names,
                              tuple(voltages.tolist()), hermite)
         beams = {}
