@@ -14,6 +14,11 @@ Schottky lowering (Schottky 1914)
     An extracting field E at the surface lowers the work function by
     dW = sqrt(e^3 E / (4 pi eps0)) (the image-force barrier).
 
+Curved cathodes (Langmuir & Blodgett 1923, 1924)
+    On a curved surface the flow spreads or gathers along the normals, and the limited density at
+    a site is the planar one times :func:`curvature_factor` of the local principal curvatures;
+    without it the planar law errs at first order in d / radius.
+
 Transition
     A hot cathode emits the Richardson–Dushman density when the field can carry it away
     (temperature-limited) and no more than the local Child law allows (space-charge-limited):
@@ -54,6 +59,34 @@ def child_langmuir(voltage, distance, mass_kg, charge_C):
     return (4.0 * constants.epsilon_0 / 9.0) * np.sqrt(2.0 * abs(charge_C) / mass_kg) * v**1.5 / distance**2
 
 
+def curvature_factor(distance, curvature_sum, curvature_product):
+    """Space-charge-limited density at a curved cathode over the planar law with the same V and d.
+
+    The flow leaves along the surface normals, so the area of a tube of normals grows as
+    1 + H x + K x^2 with H = k1 + k2 and K = k1 k2 the sum and product of the principal curvatures
+    (positive where the cathode is convex). Poisson's equation along the tube then gives
+    J / J_CL = 1 + (4/5) H d + (7 K / 12 - H^2 / 50) d^2 + O(d^3): the coefficients follow from
+    Langmuir and Blodgett's series for concentric spheres (1924; H = 2/a, K = 1/a^2) and coaxial
+    cylinders (1923; H = 1/a, K = 0), which are this equation with those areas.  The remainder is
+    third order in d times the curvature: keep the radius of curvature many times d.
+
+    Parameters
+    ----------
+    distance : float
+        Distance d from the surface where the potential is taken, metres.
+    curvature_sum, curvature_product : float or ndarray
+        H = k1 + k2 (1/m, positive convex, negative concave) and K = k1 k2 (1/m^2).
+
+    Returns
+    -------
+    ndarray
+        J / J_CL (1 on a plane).
+    """
+    hd = np.asarray(curvature_sum, dtype=np.float64) * distance
+    kd2 = np.asarray(curvature_product, dtype=np.float64) * distance * distance
+    return 1.0 + 0.8 * hd + 7.0 * kd2 / 12.0 - hd * hd / 50.0
+
+
 def schottky_lowering_eV(field_V_per_m):
     """Work-function lowering by an extracting surface field (Schottky 1914).
 
@@ -92,7 +125,7 @@ def richardson_dushman(temperature_K, work_function_eV):
 
 
 def emission_density(voltage, distance, mass_kg, charge_C, *, temperature_K=None,
-                     work_function_eV=None, surface_field_V_per_m=None):
+                     work_function_eV=None, surface_field_V_per_m=None, curvature=(0.0, 0.0)):
     """Current density of emission sites: space-charge-limited, or thermionic up to that limit.
 
     Parameters
@@ -107,6 +140,9 @@ def emission_density(voltage, distance, mass_kg, charge_C, *, temperature_K=None
         Give both for a thermionic cathode; without them the emission is space-charge-limited.
     surface_field_V_per_m : ndarray, optional
         Extracting surface field for the Schottky lowering (thermionic only); None: no lowering.
+    curvature : (ndarray, ndarray)
+        Sum and product of the surface's principal curvatures at each site
+        (:func:`curvature_factor`); (0, 0) for a plane.
 
     Returns
     -------
@@ -115,7 +151,7 @@ def emission_density(voltage, distance, mass_kg, charge_C, *, temperature_K=None
     limited : ndarray of bool
         True where the space-charge limit sets the density.
     """
-    limit = child_langmuir(voltage, distance, mass_kg, charge_C)
+    limit = child_langmuir(voltage, distance, mass_kg, charge_C) * curvature_factor(distance, *curvature)
     if temperature_K is None:
         return limit, np.ones(limit.shape, dtype=bool)
     w = np.full(limit.shape, float(work_function_eV))

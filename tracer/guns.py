@@ -14,7 +14,11 @@ Emission sites
     ds per unit length in planar), each site at its part's centre of area.  The ray of a site
     starts at the distance d = ``EMIT_CELLS`` cells in front of the surface, along the normal,
     with the kinetic energy it gained from the cathode, and carries J A / rays, J from
-    :func:`tracer.emission.emission_density` with the potential at d.  In axial symmetry the rays
+    :func:`tracer.emission.emission_density` with the potential at d and the surface's local
+    curvature there (:func:`tracer.emission.curvature_factor`): the in-plane curvature of the
+    outline (1 / radius on an arc, positive where the cathode is convex, 0 on a polygon's edges)
+    and, in axial symmetry, the curvature of the circle the piece sweeps about the axis, n_r / r
+    (Meusnier's theorem); in planar symmetry the surface is straight along x.  In axial symmetry the rays
     are turned to golden-angle azimuths (the fields are axisymmetric, so this changes nothing but
     lets the x-x' statistics at the planes see a round beam).
 
@@ -26,10 +30,11 @@ Self-consistency
     phi <- (1 - w) phi + w phi_new.  The field is the electrode maps plus the space-charge map.
     The iteration has converged when the total current changes by less than ``tolerance``
     (relative) from one iteration to the next; the rays of the last iteration are the run.  An
-    iteration that emits nothing (the space charge of an early overshoot has pushed the potential
-    in front of the cathode below the cathode's) deposits no charge, so the next relaxation
-    reopens the cathode and the iteration goes on; only a cathode that emits nothing in the
-    vacuum field ends the run at once.
+    iteration that emits nothing (the space charge of an overshoot has pushed the potential in
+    front of the cathode below the cathode's: the vacuum field draws several times the limited
+    current, so the first space charge is several times too strong) takes the step again with
+    half the relaxation, from the potential before it, and keeps the halved relaxation from then
+    on; only a cathode that emits nothing in the vacuum field ends the run at once.
 
 Units: currents in A (planar symmetry: A per metre of length in x, both halves of a mirrored
 domain counted); the perveance in A/V^1.5 (planar: A m^-1 V^-1.5).
@@ -72,6 +77,8 @@ EMISSION_DTYPE = np.dtype([
     ("z_m", np.float64), ("r_m", np.float64),            # the site on the cathode surface
     ("normal_z", np.float64), ("normal_r", np.float64),  # outward unit normal there
     ("area_m2", np.float64),                             # emitting area the site stands for (m per m in planar)
+    ("curvature_per_m", np.float64),                     # k1 + k2 of the surface there, > 0 convex
+    ("gaussian_curvature_per_m2", np.float64),           # k1 k2
     ("voltage_V", np.float64),                           # accelerating potential at the ray start
     ("density_A_per_m2", np.float64),
     ("current_A", np.float64),
@@ -171,13 +178,14 @@ def _polygon_pieces(points, step):
         normal = orientation * np.array([edge[1], -edge[0]]) / length
         normals.append(np.tile(normal, (n, 1)))
         lengths.append(np.full(n, length / n))
-    return mids, normals, lengths
+    return mids, normals, lengths, [np.zeros(len(m)) for m in mids]
 
 
 def _sector_pieces(row, step):
-    """Outline pieces of a spherical sector (cz, rho_in, rho_out, theta_lo, theta_hi, cr)."""
+    """Outline pieces of a spherical sector (cz, rho_in, rho_out, theta_lo, theta_hi, cr), with their
+    in-plane curvature (1 / rho on the outer arc, -1 / rho on the inner one, 0 on the sides)."""
     cz, rho_in, rho_out, lo, hi, cr = row
-    mids, normals, lengths = [], [], []
+    mids, normals, lengths, bends = [], [], [], []
     for rho, sign in ((rho_out, 1.0), (rho_in, -1.0)):
         if rho <= 0.0:
             continue
@@ -187,6 +195,7 @@ def _sector_pieces(row, step):
         mids.append(np.column_stack([cz + rho * radial[:, 0], cr + rho * radial[:, 1]]))
         normals.append(sign * radial)
         lengths.append(np.full(n, rho * (hi - lo) / n))
+        bends.append(np.full(n, sign / rho))
     n = max(1, math.ceil((rho_out - rho_in) / step))
     rho = rho_in + (np.arange(n) + 0.5) * (rho_out - rho_in) / n
     for theta, sign in ((lo, -1.0), (hi, 1.0)):
@@ -194,11 +203,13 @@ def _sector_pieces(row, step):
         mids.append(np.column_stack([cz + rho * radial[0], cr + rho * radial[1]]))
         normals.append(np.tile(sign * np.array([-radial[1], radial[0]]), (n, 1)))
         lengths.append(np.full(n, (rho_out - rho_in) / n))
-    return mids, normals, lengths
+        bends.append(np.zeros(n))
+    return mids, normals, lengths, bends
 
 
 def cathode_outline(table, index, step):
-    """Pieces of the outline of electrode ``index``: midpoints (z, r), outward normals, lengths.
+    """Pieces of the outline of electrode ``index``: midpoints (z, r), outward normals, lengths
+    and in-plane curvatures.
 
     Parameters
     ----------
@@ -212,19 +223,50 @@ def cathode_outline(table, index, step):
     -------
     points, normals : float64[n, 2]
     lengths : float64[n]
+    bends : float64[n]
+        Curvature of the outline in the (z, r) plane, 1/m, positive where the electrode is convex.
     """
-    mids, normals, lengths = [], [], []
+    mids, normals, lengths, bends = [], [], [], []
     for j in np.flatnonzero(table.owner == index):
         if table.kind[j] == 0:
             s, c = table.start[j], table.count[j]
             parts = _polygon_pieces(table.points[s:s + c], step)
         else:
             parts = _sector_pieces(table.sector[j], step)
-        for whole, part in zip((mids, normals, lengths), parts):
+        for whole, part in zip((mids, normals, lengths, bends), parts):
             whole.extend(part)
     if not lengths:
-        return np.zeros((0, 2)), np.zeros((0, 2)), np.zeros(0)
-    return np.vstack(mids), np.vstack(normals), np.concatenate(lengths)
+        return np.zeros((0, 2)), np.zeros((0, 2)), np.zeros(0), np.zeros(0)
+    return np.vstack(mids), np.vstack(normals), np.concatenate(lengths), np.concatenate(bends)
+
+
+def surface_curvatures(points, normals, bends, symmetry):
+    """Sum and product of the principal curvatures of the cathode surface at outline points.
+
+    In planar symmetry the surface is straight along x: the sum is the outline's curvature and
+    the product 0.  In axial symmetry the second principal curvature is that of the circle the
+    point sweeps about the axis, n_r / r (Meusnier's theorem; 1 / a on a sphere of radius a about
+    a point of the axis, 1 / a on a tube's outer face, -1 / a on its inner face); on the axis
+    itself it equals the outline's.
+
+    Parameters
+    ----------
+    points, normals : float64[n, 2]
+        Points (z, r) and outward unit normals.
+    bends : float64[n]
+        The outline's curvature there (:func:`cathode_outline`).
+    symmetry : str
+
+    Returns
+    -------
+    (sum, product) : float64[n] each
+        k1 + k2 (1/m) and k1 k2 (1/m^2), the sum positive where the cathode is convex.
+    """
+    if symmetry != "axial":
+        return bends.copy(), np.zeros_like(bends)
+    r = points[:, 1]
+    swept = np.divide(normals[:, 1], r, out=bends.copy(), where=r > 0.0)
+    return bends + swept, bends * swept
 
 
 def _free(table, grid, z, r):
@@ -258,7 +300,7 @@ def emission_sites(field, cathode, rays, distance, charge_C):
     Returns
     -------
     numpy.ndarray
-        ``EMISSION_DTYPE`` rows with position, normal and area filled in.
+        ``EMISSION_DTYPE`` rows with position, normal, area and curvature filled in.
 
     Raises
     ------
@@ -267,7 +309,7 @@ def emission_sites(field, cathode, rays, distance, charge_C):
     """
     grid, table = field.grid, field.table
     cell = min(grid.hz, grid.hr)
-    points, normals, lengths = cathode_outline(table, cathode, OUTLINE_CELLS * cell)
+    points, normals, lengths, bends = cathode_outline(table, cathode, OUTLINE_CELLS * cell)
     probe = points + 0.05 * cell * normals
     start = points + distance * normals
     ok = (normals[:, 0] > 0.0) & _free(table, grid, *probe.T) & _free(table, grid, *start.T)
@@ -275,7 +317,7 @@ def emission_sites(field, cathode, rays, distance, charge_C):
     if not ok.any():
         raise ValueError(f"electrode {table.names[cathode]!r} has no face towards free space "
                          "where the field pulls the emitted particles off")
-    points, normals, lengths = points[ok], normals[ok], lengths[ok]
+    points, normals, lengths, bends = points[ok], normals[ok], lengths[ok], bends[ok]
     area = 2.0 * math.pi * points[:, 1] * lengths if grid.symmetry == "axial" else lengths
     # the pieces follow the outline, so each equal-area part is a contiguous stretch of it
     cumulative = np.cumsum(area)
@@ -286,6 +328,8 @@ def emission_sites(field, cathode, rays, distance, charge_C):
     out["z_m"], out["r_m"] = points[k].T
     out["normal_z"], out["normal_r"] = normals[k].T
     out["area_m2"] = total / rays
+    out["curvature_per_m"], out["gaussian_curvature_per_m2"] = surface_curvatures(
+        points[k], normals[k], bends[k], grid.symmetry)
     out["ray"] = -1
     return out
 
@@ -306,7 +350,8 @@ def _evaluate_emission(sites, field, spec, cathode_V, distance):
         surface_field = math.copysign(1.0, sp.charge_C) * (ez * sites["normal_z"] + er * sites["normal_r"])
     density, limited = emission.emission_density(
         volts, distance, sp.mass_kg, sp.charge_C, temperature_K=spec.temperature_K,
-        work_function_eV=spec.work_function_eV, surface_field_V_per_m=surface_field)
+        work_function_eV=spec.work_function_eV, surface_field_V_per_m=surface_field,
+        curvature=_curvature(sites))
     out = sites.copy()
     out["voltage_V"] = volts
     out["density_A_per_m2"] = density
@@ -316,6 +361,11 @@ def _evaluate_emission(sites, field, spec, cathode_V, distance):
     emitting = np.flatnonzero(out["current_A"] > 0.0)
     out["ray"][emitting] = np.arange(emitting.size)
     return out
+
+
+def _curvature(sites):
+    """The sites' (sum, product) of principal curvatures, as ``emission_density`` takes them."""
+    return sites["curvature_per_m"], sites["gaussian_curvature_per_m2"]
 
 
 def _start_rays(sites, distance, symmetry, mass_kg):
@@ -362,7 +412,8 @@ def _path_zrt(path, symmetry):
 def _layer_paths(sites, distance, mass_kg, charge_C):
     """Paths across the layer between the surface and each ray's start (``emission.layer_transit``)."""
     rows = sites[sites["ray"] >= 0]
-    limit = emission.child_langmuir(rows["voltage_V"], distance, mass_kg, charge_C)
+    limit = (emission.child_langmuir(rows["voltage_V"], distance, mass_kg, charge_C)
+             * emission.curvature_factor(distance, *_curvature(rows)))
     alpha = emission.layer_exponent(rows["density_A_per_m2"], limit)
     speed = np.sqrt(2.0 * abs(charge_C) * rows["voltage_V"] / mass_kg)
     paths = []
@@ -515,6 +566,8 @@ def gun(setup: Setup, *, maps: BasisMaps | None = None, cache_dir: str | os.Path
     halves = 2.0 if grid.symmetry == "planar" and grid.mirror else 1.0
 
     phi = np.zeros(grid.shape)
+    before = fresh = phi
+    relaxation = spec.relaxation
     field = vacuum
     history = []
     converged = False
@@ -529,15 +582,16 @@ def gun(setup: Setup, *, maps: BasisMaps | None = None, cache_dir: str | os.Path
         if progress is not None and iteration < spec.max_iterations:
             progress(iteration, spec.max_iterations)
         # no current in the vacuum field: nothing to iterate; no current later: the space charge
-        # of an overshoot has closed the cathode for now, and relaxing it towards none reopens it
+        # of an overshoot has closed the cathode, and that step is taken again with half the weight
         if converged or (total == 0.0 and iteration == 1) or iteration == spec.max_iterations:
             break
         if total > 0.0:
             rho = space_charge_density(grid, run, sites, distance, sp)
+            fresh = solve_poisson(grid, vacuum.table, rho, vacuum.raster, rtol=POISSON_RTOL)
+            before = phi
         else:
-            rho = np.zeros(grid.shape)
-        fresh = solve_poisson(grid, vacuum.table, rho, vacuum.raster, rtol=POISSON_RTOL)
-        phi = (1.0 - spec.relaxation) * phi + spec.relaxation * fresh
+            relaxation *= 0.5    # the last step closed the cathode: take it again, halved
+        phi = (1.0 - relaxation) * before + relaxation * fresh
         field = dataclasses.replace(vacuum, hermite=vacuum.hermite + _space_charge_map(vacuum, phi))
     if progress is not None:
         progress(spec.max_iterations, spec.max_iterations)
