@@ -8,8 +8,7 @@ in 3-D Cartesian coordinates (x, y, z), z along the axis; F = q (E(x) + v x B(x)
 potential map and the magnetic sources (none in an electric-only run). The rooms of the kernel, each one idea:
 
 * :mod:`~tracer.motion.bundles` — the named tuples the kernels take (:class:`Nodes`,
-  :class:`Shapes`, and the bundles of the lane loop), the end codes, the state-row and count
-  layouts, the lane workspace;
+  :class:`Shapes`), the end codes, the state-row and count layouts, the lane workspace;
 * :mod:`~tracer.motion.tableau` — the Dormand–Prince 5(4) coefficients as data;
 * :mod:`~tracer.motion.symmetry` — axial, planar and mirrored planar maps seen from 3-D;
 * :mod:`~tracer.motion.force` — the one seam where the field and the force are evaluated;
@@ -17,10 +16,7 @@ potential map and the magnetic sources (none in an electric-only run). The rooms
 * :mod:`~tracer.motion.events` — leaving the domain, landings and plane crossings on the dense
   output;
 * :mod:`~tracer.motion.walls` — steps that end on cell walls, and the kink past a wall;
-* :mod:`~tracer.motion.phases` — the phases of the lane loop: start, choose, check and settle
-  the steps (walls, events, ledger, controller, path), hand in the results;
-* :mod:`~tracer.motion.lanes` — the lane loop (a short loop over the phases) and the parallel
-  driver :func:`trace_rays`.
+* :mod:`~tracer.motion.lanes` — the lane loop and the parallel driver :func:`trace_rays`.
 """
 
 from tracer.motion.bundles import (C_CODE, C_CROSSINGS, C_ELECTRODE, C_EVALS, C_PATH,

@@ -8,11 +8,6 @@ arrays, whose arrays the kernels may write), and caches kernels that take them.
 * the ray end codes;
 * the layout of a state row, shared by a ray's end, its plane crossings and its path points;
 * :class:`Magnet`: the static magnetic field (absent, ``None``, in an electric-only run);
-* the bundles of the lane loop (:mod:`tracer.motion.phases`): what the rays fly through
-  (:class:`Scene`), the numbers that bound their steps (:class:`Limits`), where the results go
-  (:class:`Out`), and per lane the ray it holds (:class:`Lanes`), its counts (:class:`Tally`),
-  its energy ledger (:class:`Books`), the step it is trying (:class:`Trial`) and scratch
-  (:class:`Scratch`);
 * the lane workspace of :mod:`tracer.motion.stepper` (one column a lane).
 """
 
@@ -124,56 +119,6 @@ def put_row(rows, n, t, s, ke, ledger):
 
 # The counts of a traced ray: the columns of the kernel's int64[n, COUNTS] output.
 C_CODE, C_ELECTRODE, C_CROSSINGS, C_PATH, C_STEPS, C_REJECTED, C_EVALS, COUNTS = range(8)
-
-Scene = namedtuple("Scene", ["starts", "t_start", "atol_p", "herm", "drive", "nodes", "sym",
-                             "bounds", "cell", "shapes", "planes", "stops", "quiet"])
-"""What the rays of a lane loop fly through, and where they start: the arguments of
-:func:`tracer.motion.lanes.trace_rays` of those names (``drive`` a
-:class:`tracer.motion.drive.Drive`)."""
-
-Limits = namedtuple("Limits", ["mass", "charge", "t_max", "rtol", "max_step", "sample", "fine",
-                               "max_steps", "atol_x", "touch_tol", "snap"])
-"""The numbers of a lane loop: the species' mass (kg) and charge (C), the flight time (s), the
-relative tolerance, the longest step, the event sampling and fine lengths (m) and the step budget
-(as :func:`tracer.motion.lanes.trace_rays` takes them); the absolute position tolerance, the
-deepest unseen dip into metal and the snapping distance to a cell wall (m)."""
-
-Out = namedtuple("Out", ["final", "info", "cross_plane", "cross_state", "paths", "spent"])
-"""Where a lane loop writes each ray's results (the layouts of
-:func:`tracer.motion.lanes.trace_lanes`)."""
-
-Lanes = namedtuple("Lanes", ["ray", "code", "electrode", "t", "t_stop", "piece", "ci", "cj", "y0",
-                             "k0", "h_err", "h_cut", "cut", "hp", "rc"])
-"""Per lane, the ray it holds (-1: none) and where that ray is: its end code and electrode (-1:
-none), time and time limit, waveform piece, cell (ci, cj), state y0 (float64[LANES, 6]) and the
-first stage rate k0 of its next step; the step-size control: the controller's proposal
-``h_err``, the length ``h_cut`` of a step cut back to a wall (0: none) and whether the step now
-tried is such a redo (``cut``); the length ``hp`` (0: none) and the dense output ``rc``
-(float64[LANES, 5, 6]) of the last accepted step."""
-
-Tally = namedtuple("Tally", ["steps", "rejected", "evals", "n_cross", "n_path", "stride"])
-"""Per lane, the counts of its ray (the ``C_*`` columns): accepted and rejected steps, field
-evaluations, plane crossings, path points, and the path's stride in accepted steps."""
-
-Books = namedtuple("Books", ["ke_start", "v_start", "worst", "work", "spread"])
-"""Per lane, the energy ledger of its ray (:mod:`tracer.ledger`): its start kinetic energy (J)
-and potential (V), its worst |ledger| so far (J), and the dV/dt and jump work and its magnitude
-(V)."""
-
-Trial = namedtuple("Trial", ["y1", "k1", "rt", "passed", "need", "past", "end_cell", "theta",
-                             "dt"])
-"""Per lane, the step just tried: its end state, the rate there and its dense output; whether it
-passed the error test, needs the rate in the cell ahead, ends outside its cell; the cell it ends
-in and the cell ahead (int64[LANES, 4]: i1, j1, ni, nj); where it is to be cut back to a wall
-(theta > 1: nowhere) and the time between its end and the wall it is passing."""
-
-Scratch = namedtuple("Scratch", ["k_new", "ahead", "buf", "hits", "stack", "pa", "box", "points",
-                                 "phi", "at_x"])
-"""Scratch arrays of a lane loop: a rate in a new cell (float64[1, 6]), the predicted path
-(:func:`tracer.motion.walls.reach`), a state, plane crossings on a piece, the halving stack of
-:func:`tracer.motion.events.touch`, a (z, r) point, a cell's walls, and the Gauss points, group
-potentials and potentials at a point of the dV/dt work (:func:`tracer.motion.drive.step_work`)."""
-
 
 # Rays stepped together by one thread: their Runge–Kutta stages run as SIMD loops over the lanes.
 LANES = 8
