@@ -165,10 +165,10 @@ def traced_field(setup, maps, voltages=None):
     return group_maps(maps, with_voltages(setup.drives(), voltages))
 
 
-def trace_beam(field, beam, setup, progress=None, starts=None, currents=None):
-    """Trace one beam of a setup with its ``[trace]`` options, planes and magnetic sources (coil
-    currents from ``currents`` where given); given ``starts`` (:data:`tracer.sources.START_DTYPE`),
-    those rays instead of the beam's, keeping no paths."""
+def trace_beam(field, beam, setup, progress=None, starts=None):
+    """Trace one beam of a setup with its ``[trace]`` options, planes and magnetic sources; given
+    ``starts`` (:data:`tracer.sources.START_DTYPE`), those rays instead of the beam's, keeping no
+    paths."""
     from tracer.beam import trace
     from tracer.magnetics.units import traced_sources
 
@@ -177,7 +177,7 @@ def trace_beam(field, beam, setup, progress=None, starts=None, currents=None):
                  keep_paths=opts.keep_paths if starts is None else 0,
                  ledger_threshold=opts.ledger_threshold, progress=progress, starts=starts,
                  time_zero_s=setup.time_zero_s,
-                 magnetic=traced_sources(setup.magnetic, field.grid, currents))
+                 magnetic=traced_sources(setup.magnetic, field.grid))
 
 
 def run(setup: Setup, *, maps: BasisMaps | None = None, voltages: Mapping[str, float] | None = None,
