@@ -121,6 +121,13 @@ def PULSED(parts):
 
 
 GATE_PULSE = "[[electrode.pulse]]\nhigh_V = 5.0\ndelay_ns = 10.0"
+
+
+def CSV_SCAN(text):
+    """A pulsed 'gate' scanned by the file sets.csv of ``text``: (edit, files, key)."""
+    return PULSED(f"{GATE_PULSE}\n[scan]\ncsv = 'sets.csv'"), {"sets.csv": text}, "scan.csv"
+
+
 PLANE_NAME_LINE = line_of('name = "mid"')
 RAYS_HEAD = "x_mm,y_mm,z_mm,ux,uy,uz,energy_eV\n"
 RAYS_BEAM = add('[[beam]]\nname = "measured"\nspecies = "p+"\nrays_csv = "rays.csv"')
@@ -207,6 +214,14 @@ CASES = [
     ("gun-cathode", add("[gun]\ncathode = 'filament'"), {}, "gun.cathode", "no electrode named 'filament'"),
     ("scan-csv-column", add("[scan]\ncsv = 'sets.csv'"), {"sets.csv": "ring_V,lens_V\n0,0\n"}, "scan.csv",
      "no electrode for column 'lens_V'"),
+    ("scan-csv-parameter-key", *CSV_SCAN("ring_V,gate.pulse[0].delay\n0,10\n"),
+     "'sets.csv' column 'gate.pulse[0].delay': 'gate.pulse[0].delay' is neither an electrode nor a waveform parameter"),
+    ("scan-csv-parameter-part", *CSV_SCAN("gate.sine[0].phase_deg\n0\n"),
+     "'sets.csv' column 'gate.sine[0].phase_deg': electrode 'gate' has 0 sinusoid part(s), no [0]"),
+    ("scan-csv-parameter-electrode", *CSV_SCAN("grid.pulse[0].delay_ns\n0\n"),
+     "'sets.csv' column 'grid.pulse[0].delay_ns': no electrode named 'grid'"),
+    ("scan-csv-parameter-twice", *CSV_SCAN("gate.pulse[0].delay_ns,gate.pulse[0].delay_us\n10,0.01\n"),
+     "'sets.csv': columns 'gate.pulse[0].delay_ns' and 'gate.pulse[0].delay_us' set the same parameter"),
     # a grid too large for memory, refused with advice
     ("grid-too-large", sub("cell_mm = 0.25", "cell_mm = 0.00002"), {}, "domain.cell_mm",
      "2e-05 mm gives a grid of 3.3e+11 nodes"),
@@ -460,17 +475,60 @@ def test_a_csv_scan_that_sets_overlapping_electrodes_apart_is_refused_before_any
     """CSV rows are read before the solve: the row that sets them apart, or an absurd voltage, is
     named (line 3)."""
     config = write_case(tmp_path, TIED("[scan]\ncsv = 'sets.csv'"), {"sets.csv": "ring_V,sleeve_V\n" + rows})
-    if refusal is None:   # the rows are fine: check them without the work of a scan
+    read = scan_verdict(config, tmp_path, cache, capsys, refusal)
+    if refusal is None:
+        names, sets = read
+        assert names == ("ring", "sleeve") and sets.tolist() == [[0.0, 0.0], [5.0, 5.0]]
+
+
+def scan_verdict(config, tmp_path, cache, capsys, refusal):
+    """A refusal: check that `tracer scan` refuses the config with it before any work (None
+    returned); None: the rows are fine, read them without the work of a scan (voltage_sets)."""
+    if refusal is None:
         from tracer import load
         from tracer.scans import voltage_sets
-        names, sets = voltage_sets(load(config))
-        assert names == ("ring", "sleeve") and sets.tolist() == [[0.0, 0.0], [5.0, 5.0]]
-        return
+        return voltage_sets(load(config))
     out = tmp_path / "out"
     code = main(["scan", str(config), "--out", str(out), "--quiet"])
     captured = capsys.readouterr()
     assert_refused(code, captured.out, captured.err, "scan.csv", refusal)
     assert not out.exists() and not cache.exists()
+    return None
+
+
+def test_a_csv_scan_of_a_parameter_of_overlapping_electrodes_is_refused(tmp_path, cache, capsys):
+    """Overlapping electrodes are one conductor: a column of a waveform parameter of either would
+    set them apart, as a [scan] range of it would."""
+    tied = PULSED(f"{GATE_PULSE}\n[[electrode]]\nname = 'gate2'\nvoltage_V = 0.0\n[[electrode.rect]]\n"
+                  f"z_mm = [3.5, 4.5]\nr_mm = [5.0, 5.5]\n{GATE_PULSE}\n[scan]\ncsv = 'sets.csv'")
+    config = write_case(tmp_path, tied, {"sets.csv": "cap_in_V,gate2.pulse[0].high_V\n100,5\n"})
+    scan_verdict(config, tmp_path, cache, capsys, "'sets.csv' column gate2.pulse[0].high_V: electrodes 'gate' and "
+                 "'gate2' overlap, so they are one conductor at one voltage; the file would set "
+                 "'gate2.pulse[0].high_V' for one of them")
+
+
+REPEATED = "[[electrode.pulse]]\nhigh_V = 5.0\ndelay_ns = 10.0\nwidth_ns = 100.0\nperiod_ns = 1000.0\ncount = 2"
+
+
+@pytest.mark.parametrize("rows, refusal", [
+    # width and period grow together: each alone against the config's pulse would be refused
+    ("100,1000,10\n2000,5000,10\n", None),
+    ("100,1000,10\n50,40,10\n", "'sets.csv' row 3, column gate.pulse[0].period_ns: 40: 4e-08 s is shorter than "
+                                  "rise + width + fall = 5e-08 s"),
+    ("100,1000,10\n-5,1000,10\n", "'sets.csv' row 3, column gate.pulse[0].width_ns: -5: must be >= 0, got -5e-09"),
+    ("100,1000,1e300\n", "'sets.csv' row 2, column gate.pulse[0].delay_ns: 1e+300 is outside the range tracer "
+                          "admits, -1e+12..1e+12 ns"),
+])
+def test_a_csv_scan_of_waveform_parameters_refuses_a_bad_row_before_any_work(tmp_path, cache, capsys, rows, refusal):
+    """A CSV row of waveform parameters is checked as the scan would set it (the parameters of one
+    pulse together) before the solve; the refusal names the row (line) and the column."""
+    config = write_case(tmp_path, PULSED(f"{REPEATED}\n[scan]\ncsv = 'sets.csv'"),
+                        {"sets.csv": "gate.pulse[0].width_ns,gate.pulse[0].period_ns,gate.pulse[0].delay_ns\n" + rows})
+    read = scan_verdict(config, tmp_path, cache, capsys, refusal)
+    if refusal is None:
+        names, sets = read
+        assert names == ("gate.pulse[0].width_ns", "gate.pulse[0].period_ns", "gate.pulse[0].delay_ns")
+        assert sets.tolist() == [[100.0, 1000.0, 10.0], [2000.0, 5000.0, 10.0]]
 
 
 EDGES_OF_REAL_WORK = """\

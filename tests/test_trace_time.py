@@ -18,6 +18,8 @@ from tracer.fieldmap import BasisMaps
 from tracer.geometry import rasterize, shape_table
 from tracer.grid import Grid
 from tracer.groups import group_maps
+from tracer.scans import voltage_sets
+from tracer.schema import scan_column
 from tracer.sources import rays_from
 from tracer.waveforms import Pulse, Sinusoid, Waveform
 
@@ -423,6 +425,26 @@ def test_a_scan_over_a_pulse_delay():
     assert later["tof_mean_s"] - first["tof_mean_s"] == pytest.approx(50e-9, rel=0.05)
     for row, zero in ((first, 100e-9), (later, 150e-9)):
         assert row["resolving_power"] == pytest.approx((row["tof_mean_s"] - zero) / (2 * row["tof_fwhm_s"]))
+
+
+def test_a_csv_scan_of_waveform_parameters_equals_the_range_scan_row_for_row(tmp_path):
+    """A CSV file whose columns are a voltage and waveform parameters (named as [scan] keys, in
+    their keys' units) gives, row for row and bit for bit, the table of the [scan] ranges over the
+    same sets."""
+    import tracer
+
+    ranges = loads(PULSED + '[scan]\nback = [-50.0, 0.0, 2]\n"back.pulse[0].delay_ns" = [100.0, 150.0, 2]\n'
+                            '"back.pulse[0].rise_ns" = [0.0, 10.0, 2]\n')
+    names, sets = voltage_sets(ranges)
+    header = ",".join(scan_column(n) for n in names)
+    rows = "".join(",".join(repr(float(v)) for v in row) + "\n" for row in sets)
+    (tmp_path / "sets.csv").write_text(header + "\n" + rows)
+    from_csv = loads(PULSED + '[scan]\ncsv = "sets.csv"\n', source=tmp_path / "pulsed.toml")
+    maps = tracer.solve(ranges)
+    table, again = (tracer.scan(s, maps=maps, workers=1).table for s in (ranges, from_csv))
+    assert len(table) == 8 and table.dtype.names[:3] == ("back_V", "back.pulse[0].delay_ns", "back.pulse[0].rise_ns")
+    assert again.dtype == table.dtype and again.tobytes() == table.tobytes()
+    assert len(np.unique(table["tof_mean_s"])) == 8    # every set traced its own waveform
 
 
 def test_a_tune_over_a_pulse_level():

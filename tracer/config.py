@@ -46,7 +46,7 @@ Keys (defaults in brackets; "r" stands for "y" in a domain with y_mm)::
                  start, else 0] (flight times of the resolving power count from it)
     [scan]       <electrode> = [from_V, to_V, count], "<electrode>.pulse[i].<key>" = [from, to, count]
                  (a waveform parameter in its key's unit; also .sine[i]), ...;  or csv = "sets.csv"
-                 (<electrode>_V columns)
+                 (<electrode>_V columns, and waveform parameters named as the keys)
     [tune]       vary = {<electrode> = [lo_V, hi_V], "<electrode>.pulse[i].<key>" = [lo, hi], ...}, goal = "smallest_spot" | "most_transmitted"
                  | {landing_energy_eV = E} | {focus_z_mm = z}, at (a plane), seed [0]
     [gun]        cathode, emission "space_charge"|"thermionic", rays [200], temperature_K and
@@ -1156,7 +1156,7 @@ def _scan(value, path, names, base, electrodes, coils=()):
             other = next(k for k in t.data if k != "csv")
             raise ConfigError(t.at(other), "give ranges or csv, not both")
         file = t.get("csv", _file, base=base)
-        _check_scan_header(file, t.at("csv"), names, coils)
+        _check_scan_header(file, t.at("csv"), names, coils, electrodes)
         return ScanSpec((), file)
     if not t.data:
         raise ConfigError(path, "empty: give ranges such as focus = [800.0, 1600.0, 41], or csv = 'sets.csv'")
@@ -1172,7 +1172,7 @@ def _check_parameters(t, parameters, ranges, names, electrodes):
     for name, lo, hi, *_ in ranges:
         if name in parameters:
             for end in (lo, hi):
-                with_parameter(drives, waveform_parameter(name, t.at(name)), end, t.at(name))
+                with_parameters(drives, {name: end}, t.at)
 
 
 _PARAMETER = re.compile(r"(?P<electrode>.+)\.(?P<part>pulse|sine)\[(?P<index>\d+)\]\.(?P<key>\w+)")
@@ -1205,25 +1205,49 @@ def waveform_parameter(name, path="scan"):
     return match["electrode"], parts, int(match["index"]), field, multiply, divide
 
 
-def with_parameter(drives, parameter, value, path="scan"):
-    """The drives with one waveform parameter (:func:`waveform_parameter`) set to ``value`` (in
-    its key's unit), the electrode's waveform otherwise as it was.
+def with_parameters(drives, values, key=lambda name: "scan"):
+    """The drives with waveform parameters set, the electrodes' waveforms otherwise as they were.
+
+    Parameters
+    ----------
+    drives : dict
+        What each electrode carries by name (``Setup.drives``).
+    values : dict of str to float
+        Each parameter's value in its key's unit, by its path (:func:`waveform_parameter`).  The
+        parameters of one part are set together, so a pulse's width and period may grow together.
+    key : callable
+        ``key(name)``: the key path an error about the parameter ``name`` is keyed by.
 
     Raises
     ------
     ConfigError
-        Keyed ``path``, for an electrode without that part, or a value the part refuses."""
-    electrode, parts, index, field, multiply, divide = parameter
-    drive = drives.get(electrode)
-    have = getattr(drive, parts, ())
+        Keyed ``key(name)``, for a name that is no parameter, an electrode without that part, or a
+        value the part refuses (the parameter of the part's field it names, else its first)."""
+    by_part = {}
+    for name, value in values.items():
+        parameter = waveform_parameter(name, key(name))
+        by_part.setdefault(parameter[:3], []).append((name, parameter, value))
+    for (electrode, parts, index), given in by_part.items():
+        have = _parts_of(drives, given[0][1], key(given[0][0]))
+        try:
+            part = dataclasses.replace(have[index], **{p[3]: v * p[4] / p[5] for _, p, v in given})
+            drive = dataclasses.replace(drives[electrode], **{parts: have[:index] + (part,) + have[index + 1:]})
+        except WaveformError as error:
+            name, _, value = next((g for g in given if error.field.rpartition(".")[2] == g[1][3]), given[0])
+            raise ConfigError(key(name), f"{value:g}: {error.message}") from None
+        drives = drives | {electrode: drive}
+    return drives
+
+
+def _parts_of(drives, parameter, path):
+    """The parts (pulses or sinusoids) of the electrode a waveform parameter names, refused keyed
+    ``path`` when there is no such electrode or it has no part of that index."""
+    electrode, parts, index = parameter[:3]
+    have = getattr(drives.get(electrode), parts, ())
     if index >= len(have):
         raise ConfigError(path, f"electrode {electrode!r} has {len(have)} {parts[:-1]} part(s), "
                                 f"no [{index}]" if electrode in drives else f"no electrode named {electrode!r}")
-    try:
-        part = dataclasses.replace(have[index], **{field: value * multiply / divide})
-    except WaveformError as error:
-        raise ConfigError(path, f"{value:g}: {error.message}") from None
-    return drives | {electrode: dataclasses.replace(drive, **{parts: have[:index] + (part,) + have[index + 1:]})}
+    return have
 
 
 def _unit_of(name, coils=()):
@@ -1245,8 +1269,9 @@ def _scan_range(value, path, name, unit):
     return (name, start, stop, count)
 
 
-def _check_scan_header(file, path, names, coils=()):
-    """The CSV's header must name `<electrode>_V` and `<coil>_A` columns."""
+def _check_scan_header(file, path, names, coils=(), electrodes=()):
+    """The CSV's header must name `<electrode>_V` and `<coil>_A` columns, and waveform parameters
+    as ``[scan]`` keys name them (``<electrode>.pulse[i].<key>``), each parameter once."""
     try:
         with open(file, newline="", encoding="utf-8") as handle:
             header = next(csv.reader(handle), [])
@@ -1258,8 +1283,19 @@ def _check_scan_header(file, path, names, coils=()):
     if len(set(columns)) < len(columns):
         raise ConfigError(path, f"{file.name!r} repeats a column: {columns}")
     known = tuple(n + "_V" for n in names) + tuple(c + "_A" for c in coils)
+    drives = {e.name: e.drive for e in electrodes}
+    seen = {}
     for column in columns:
-        if column not in known:
+        if "[" in column:
+            try:
+                parameter = waveform_parameter(column, path)
+                _parts_of(drives, parameter, path)
+            except ConfigError as error:
+                raise ConfigError(path, f"{file.name!r} column {column!r}: {error.message}") from None
+            other = seen.setdefault(parameter[:4], column)
+            if other != column:
+                raise ConfigError(path, f"{file.name!r}: columns {other!r} and {column!r} set the same parameter")
+        elif column not in known:
             raise _not_found(path, column, known, f"{file.name!r}: {_varied_what(coils)} for column")
 
 

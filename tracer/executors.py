@@ -140,13 +140,11 @@ class Context:
         every voltage is constant."""
         if self.drives is None:
             return {}
-        from tracer.config import with_parameter
+        from tracer.config import with_parameters
         from tracer.groups import with_voltages
 
         drives = with_voltages(self.drives, {n: v for n, v in values.items() if n not in self.parameters})
-        for name, parameter in self.parameters.items():
-            drives = with_parameter(drives, parameter, values[name])
-        return drives
+        return with_parameters(drives, {n: values[n] for n in self.parameters})
 
     def field_of(self, maps, drives, values):
         """The field of one set through ``maps``: combined at the ``values``, or grouped by

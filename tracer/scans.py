@@ -2,7 +2,8 @@
 
 A scan is a list of voltage sets (the product of per-electrode ranges, or the rows of a CSV file;
 :func:`voltage_sets`); a set may also give coil currents, combined from the coils' unit fields as
-voltages are from the basis maps.  Every set is measured by :class:`tracer.executors.Context` (the maps
+voltages are from the basis maps, and waveform parameters (a pulse's delay, a sinusoid's phase).
+Every set is measured by :class:`tracer.executors.Context` (the maps
 combined, every beam traced, the figures of :func:`tracer.measure.row`) on any
 :class:`concurrent.futures.Executor` (:func:`tracer.executors.run_sets`); the result is the same,
 bit for bit, whichever ran them.  Each finished row goes to the scan's journal
@@ -41,7 +42,7 @@ import numpy as np
 
 from tracer import footprint
 from tracer.bounds import BOUNDS
-from tracer.config import tied_message
+from tracer.config import tied_message, waveform_parameter, with_parameters
 from tracer.display import Shown, listing, number
 from tracer.executors import Context, refuse_forking_pool, run_sets
 from tracer.geometry import overlapping_electrodes, shape_table
@@ -60,7 +61,8 @@ def voltage_sets(setup):
     setup : tracer.config.Setup
         With ``setup.scan`` given: ranges (the product, the first range varying slowest, each range
         ``numpy.linspace(from, to, count)``) or a CSV file of ``<electrode>_V`` and ``<coil>_A``
-        columns.
+        columns and waveform parameters (``<electrode>.pulse[i].<key>``, named and in units as
+        ``[scan]`` keys name them).
 
     Returns
     -------
@@ -72,7 +74,9 @@ def voltage_sets(setup):
     Raises
     ------
     tracer.config.ConfigError
-        For a setup without ``[scan]`` or a CSV row that is not numbers.
+        For a setup without ``[scan]``, or a CSV row that is not numbers, has a value outside the
+        range of its unit, sets a waveform part its rules refuse, or sets overlapping electrodes
+        or coils apart.
     """
     spec = setup.scan
     if spec is None:
@@ -85,34 +89,53 @@ def voltage_sets(setup):
     with open(spec.csv, newline="", encoding="utf-8") as handle:
         rows = [row for row in csv.reader(handle) if any(c.strip() for c in row)]
     columns = [c.strip() for c in rows[0]]
-    names = tuple(c[:-2] for c in columns)     # <electrode>_V, <coil>_A (the header was checked)
+    names = tuple(c if "[" in c else c[:-2] for c in columns)   # the header was checked on load
+    where = f"{spec.csv.name!r}"
     try:
         sets = np.array([[float(c) for c in row] for row in rows[1:]], dtype=np.float64)
     except ValueError as error:
-        raise ConfigError("scan.csv", f"{spec.csv.name!r}: a value is not a number ({error})") from None
+        raise ConfigError("scan.csv", f"{where}: a value is not a number ({error})") from None
     if sets.ndim != 2 or sets.shape[1] != len(names) or not len(sets):
-        raise ConfigError("scan.csv", f"{spec.csv.name!r}: every row needs {len(names)} value(s)")
+        raise ConfigError("scan.csv", f"{where}: every row needs {len(names)} value(s)")
     if not np.isfinite(sets).all():
-        raise ConfigError("scan.csv", f"{spec.csv.name!r}: voltages and currents must be finite numbers")
-    bounds = [BOUNDS[c[-2:]] for c in columns]
+        raise ConfigError("scan.csv", f"{where}: every value must be a finite number")
+    bounds = [BOUNDS["_" + c.rpartition("_")[2]] for c in columns]     # a column's suffix is its unit
     outside = np.argwhere(~np.column_stack([b.admits(sets[:, k]) for k, b in enumerate(bounds)]))
     if outside.size:
         row, column = outside[0]
-        raise ConfigError("scan.csv", f"{spec.csv.name!r} row {row + 2}, column {columns[column]}: "
+        raise ConfigError("scan.csv", f"{where} row {row + 2}, column {columns[column]}: "
                                       + bounds[column].problem(float(sets[row, column])))
+    _check_parameter_rows(setup, names, sets, where)
     _check_tied_rows(setup, names, sets)
     return names, sets
 
 
+def _check_parameter_rows(setup, names, sets, where):
+    """Refuse a CSV row whose waveform parameters (set together, as a scan sets them) make a part
+    its rules refuse."""
+    drives = setup.drives()
+    parameters = [k for k, n in enumerate(names) if "[" in n]
+    for row, values in enumerate(sets[:, parameters] if parameters else ()):
+        try:
+            with_parameters(drives, {names[k]: float(v) for k, v in zip(parameters, values)}, key=str)
+        except ConfigError as error:
+            raise ConfigError("scan.csv", f"{where} row {row + 2}, column {error.key}: {error.message}") from None
+
+
 def _check_tied_rows(setup, names, sets):
     """Refuse CSV rows that set overlapping electrodes (one conductor) to different voltages, or
-    overlapping coils (one winding) to different currents."""
+    overlapping coils (one winding) to different currents, and a column of a waveform parameter of
+    either of two overlapping electrodes."""
     electrodes = setup.electrodes
     pairs = overlapping_electrodes(shape_table(electrodes, setup.domain), setup.domain.cell_m)
     settings = setup.voltages() | setup.magnetic.currents()
     tied = [(electrodes[i].name, electrodes[j].name, "electrodes", "V") for i, j in pairs]
     tied += [(a, b, "coils", "A") for a, b in setup.magnetic.overlapping_coils()]
     for a, b, kind, unit in tied:
+        varied = next((n for n in names if "[" in n and waveform_parameter(n)[0] in (a, b)), None)
+        if varied is not None:
+            raise ConfigError("scan.csv", f"{setup.scan.csv.name!r} column {varied}: " + tied_message(
+                a, b, f"the file would set {varied!r} for one of them", kind))
         va, vb = (sets[:, names.index(n)] if n in names else np.full(len(sets), settings[n]) for n in (a, b))
         apart = np.flatnonzero(va != vb)
         if apart.size:

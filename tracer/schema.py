@@ -351,7 +351,7 @@ class ScanSpec:
         (:func:`scan_column`).
     csv : pathlib.Path or None
         Instead of ranges, a CSV file whose header names ``<electrode>_V`` and ``<coil>_A``
-        columns and whose rows are the sets.
+        columns and waveform parameters (as ``ranges`` name them) and whose rows are the sets.
     """
 
     ranges: tuple[tuple[str, float, float, int], ...]
