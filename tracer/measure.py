@@ -36,7 +36,7 @@ First one column ``<electrode>_V`` per varied electrode (:mod:`tracer.scans`), t
   ``energy_std_eV``, ``tof_mean_s``, ``tof_std_s`` (time of flight), ``tof_fwhm_s`` and
   ``resolving_power`` (the arrival times' width and t / (2 Δt_FWHM), :class:`PlaneStats`),
   ``d50_m``, ``d90_m`` (current-containing diameters), ``fwhm_x_m``, ``fwhm_y_m`` (the profiles'
-  FWHM), ``focus_z_m`` and ``focus_d50_z_m`` (the best focus of the rays continued in straight
+  full widths at half maximum), ``focus_z_m`` and ``focus_d50_z_m`` (the best focus of the rays continued in straight
   lines from the plane, by the rms radius and by the d50), ``rotation_rad`` (the beam's rotation
   about the axis from its start, :func:`beam_rotation`);
 * on each electrode: ``landed`` (fraction of the rays that landed on it), ``landing_mean_eV``,
@@ -191,8 +191,9 @@ class PlaneStats:
     rms_x_m, rms_y_m : float
         Standard deviations of x and y.
     fwhm_x_m, fwhm_y_m : float
-        FWHM of the x and y profiles (:func:`tracer.stats.fwhm`: the span of the central 76.1 %,
-        2 sqrt(2 ln 2) sigma for a Gaussian); NaN for fewer than two rows.
+        Full widths at half maximum of the x and y profiles, weighted by the rays' current when they
+        carry one (:func:`tracer.stats.fwhm`: a kernel density estimate's outermost half-maximum
+        crossings); NaN for fewer than ten rows.
     d50_m, d90_m : float
         Diameters about the centroid holding 50 % and 90 % of the current (of the rays when they
         carry none; :func:`tracer.stats.containing_diameter`).
@@ -210,9 +211,8 @@ class PlaneStats:
         Time of flight to the plane, mean and standard deviation (the time on the trace's clock;
         rays that start at t = 0 make it the flight time).
     time_fwhm_s : float
-        Width of the arrival times: their FWHM as :func:`tracer.stats.fwhm` defines it (the span of
-        their central 76.1 %, the FWHM of a Gaussian peak, unmoved by a few stragglers); NaN for
-        fewer than two rows.
+        Width of the arrival times: the full width at half maximum of their distribution (current
+        weighted, :func:`tracer.stats.fwhm`, as the profiles' widths); NaN for fewer than ten rows.
     resolving_power : float
         Mass-resolving power of a time-of-flight analyser at this plane, t / (2 Δt_FWHM), with t
         the mean arrival time counted from ``time_zero_s`` (the extraction pulse; common
@@ -347,7 +347,7 @@ def plane_stats(rows, species, records, time_zero_s=0.0, along_z=True, focus_win
     charged = weights.sum() > 0
     ray_weight = ray_weights(records, rows)
     t = rows["time_s"]
-    width = fwhm(t)
+    width = fwhm(t, ray_weight)
     z0 = mean(rows["z_m"]) if along_z else math.nan
     on = np.isfinite(xs) & np.isfinite(ys)        # a ray turning in the plane has no straight line
     line = (x[on], y[on], xs[on], ys[on])
@@ -379,8 +379,8 @@ def plane_stats(rows, species, records, time_zero_s=0.0, along_z=True, focus_win
         time_fwhm_s=width,
         resolving_power=(mean(t) - time_zero_s) / (2.0 * width) if width > 0.0 else math.nan,
         current_A=(float(weights[np.isin(records["ray"], rows["ray"])].sum()) if charged else math.nan),
-        fwhm_x_m=fwhm(x),
-        fwhm_y_m=fwhm(y),
+        fwhm_x_m=fwhm(x, ray_weight),
+        fwhm_y_m=fwhm(y, ray_weight),
         d50_m=containing_diameter(x - cx, y - cy, 0.5, ray_weight),
         d90_m=containing_diameter(x - cx, y - cy, 0.9, ray_weight),
         focus_z_m=z0 + s_rms,

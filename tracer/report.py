@@ -147,8 +147,8 @@ def _spots(s):
             + [_mm(d["d50_m"]), _mm(d["d90_m"])] for name, d in planes.items()]
     header = ["plane"] + [f"{k} {a} mm" for a in axes for k in ("sigma", "FWHM")] + ["d50 mm", "d90 mm"]
     what = "band across y" if s.get("symmetry") == "planar" else "circle about the centroid"
-    return format_table(header, rows, title=f"spot at each plane (FWHM: the central 76.1 %, exact for a "
-                                            f"Gaussian; d50, d90: the {what} holding 50 %, 90 % of the "
+    return format_table(header, rows, title=f"spot at each plane (FWHM: full width at half maximum of the "
+                                            f"profile; d50, d90: the {what} holding 50 %, 90 % of the "
                                             f"{'current' if math.isfinite(s.get('current_A', math.nan)) else 'rays'})")
 
 

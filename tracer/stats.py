@@ -29,11 +29,26 @@ weighted lower quantile of the rays' distances from the centroid (common practic
 optics; a uniformly filled disc of radius R has d_k = 2 R sqrt(k)).  In planar symmetry, where x
 does not vary, the circle is a band |y - <y>| <= d_k / 2.
 
-The FWHM of a distribution (:func:`fwhm`) is the span of its central erf(sqrt(ln 2)) = 76.1 %:
-the full width at half maximum of a normal distribution, 2 sqrt(2 ln 2) sigma, read from the
-quantiles, so it is unmoved by a few stragglers and needs no histogram bins.  For another shape it
-is that span, not the width where the histogram falls to half its peak (a uniform disc's x profile
-has a half-maximum width of sqrt(3) R = 1.73 R; this span is 1.29 R).
+The FWHM of a distribution (:func:`fwhm`) is its full width at half maximum: the distance between
+the outermost points where a smooth estimate of its density falls to half the density's peak.  The
+density is a kernel density estimate (Rosenblatt 1956, Parzen 1962): a Gaussian kernel of bandwidth
+h by Silverman's rule of thumb, h = 0.9 min(sigma, IQR / 1.34) n^(-1/5) (Silverman 1986, Density
+Estimation, eq. 3.31; sigma and the interquartile range IQR of the values), cut at 4 h, evaluated on
+a lattice of spacing h / 4 by binning the values to its nearest node (binned kernel estimation,
+Silverman 1982; the binning adds h^2 / 192 to the variance); the crossings of half the peak are
+interpolated linearly between lattice nodes.  Where the rays carry currents each value weighs by
+its current, sigma and the IQR are weighted, and n is Kish's effective count (sum w)^2 / sum w^2
+(Kish 1965).  Gaps wider than the kernel's reach are closed up in the lattice (the rays on either
+side do not meet in any node), so a few far stragglers cost nothing and cannot coarsen the lattice.
+The kernel widens a peak: a normal distribution of standard deviation sigma reads
+2 sqrt(2 ln 2) sqrt(sigma^2 + h^2), 0.6 % wide at 40,000 rays, 1.9 % at 2,000, 4.8 % at 200, and
+the estimate scatters from one set of rays to the next by a few per cent at a few thousand rays
+(it reads the density at the peak and at the shoulders, not a quantile).  Exact for no shape,
+it follows each: 2 sqrt(2 ln 2) sigma for a normal distribution, 2a for a uniform one on [-a, a]
+(the kernel halves a sharp edge where it stands), sqrt(3) R for the projected profile of a
+uniformly filled disc of radius R (half the peak at |x| = R sqrt(3) / 2), and the core's width when
+a wide halo surrounds it.  Fewer than :data:`FWHM_LEAST` values (rays of non-zero current) give
+NaN; values all equal give 0.
 
 Best focus of straight rays
 ---------------------------
@@ -108,17 +123,98 @@ def beta_gamma(rows, mass_kg):
     return mean(np.sqrt(px * px + py * py + pz * pz)) / (mass_kg * constants.c)
 
 
-FWHM_SHARE = math.erf(math.sqrt(math.log(2.0)))
-"""Share of a normal distribution within its full width at half maximum (0.761)."""
+FWHM_LEAST = 10
+"""The fewest values (of non-zero weight) :func:`fwhm` measures; fewer give NaN."""
+
+_REACH = 4.0
+"""The kernel is cut at this many bandwidths."""
+
+_NODES = 4
+"""Lattice nodes per bandwidth."""
 
 
-def fwhm(a):
-    """The FWHM of a distribution as the span of its central 76.1 % (module notes); NaN for fewer
-    than two values."""
-    if len(a) < 2:
+def weighted_quantile(a, weights, q):
+    """Quantiles of values with weights: the linear interpolation of the sorted values at the
+    midpoints of their cumulative weights (Hazen's plotting positions; the plain quantile of
+    ``numpy.quantile(method="hazen")`` when the weights are equal).
+
+    Parameters
+    ----------
+    a, weights : ndarray
+        Values and their weights (>= 0, summing above 0).
+    q : float or sequence of float
+        The quantiles, in [0, 1].
+    """
+    order = np.argsort(a, kind="stable")
+    w = weights[order]
+    position = (np.cumsum(w) - 0.5 * w) / np.sum(w)
+    return np.interp(q, position, a[order])
+
+
+def fwhm(a, weights=None):
+    """Full width at half maximum of a distribution (module notes: a kernel density estimate with
+    Silverman's bandwidth, the outermost half-maximum crossings).
+
+    Parameters
+    ----------
+    a : ndarray
+        The values; those not finite are left out.
+    weights : ndarray, optional
+        The weight (current) of each value; None weighs them equally.  Values of weight 0 are
+        left out.
+
+    Returns
+    -------
+    float
+        The width, in the values' unit; NaN for fewer than :data:`FWHM_LEAST` values, 0 when they
+        are all equal.
+    """
+    a = np.asarray(a, dtype=float)
+    w = np.ones(len(a)) if weights is None else np.asarray(weights, dtype=float)
+    keep = np.isfinite(a) & (w > 0)
+    a, w = a[keep], w[keep]
+    if len(a) < FWHM_LEAST:
         return math.nan
-    lo, hi = np.quantile(a, [0.5 - FWHM_SHARE / 2, 0.5 + FWHM_SHARE / 2])
-    return float(hi - lo)
+    order = np.argsort(a, kind="stable")
+    a, w = a[order], w[order] / np.sum(w)
+    centre = np.sum(w * a)
+    sigma = math.sqrt(np.sum(w * (a - centre) ** 2))
+    if not sigma > 0.0:
+        return 0.0
+    q1, q3 = weighted_quantile(a, w, [0.25, 0.75])
+    spread = min(sigma, (q3 - q1) / 1.34) if q3 > q1 else sigma
+    h = 0.9 * spread * (1.0 / np.sum(w * w)) ** -0.2
+    step = h / _NODES
+    reach = int(_REACH * _NODES)
+    # lattice positions, each gap wider than two kernels closed up to 2 reach + 1 nodes
+    gaps = np.diff(a) / step
+    wide = gaps > 2 * reach + 1
+    closed = np.where(wide, 2 * reach + 1, gaps)
+    position = np.concatenate([[0.0], np.cumsum(closed)]) + reach
+    node = np.rint(position).astype(np.int64)
+    mass = np.bincount(node, weights=w, minlength=node[-1] + reach + 1)
+    kernel = np.exp(-0.5 * (np.arange(-reach, reach + 1) / _NODES) ** 2)
+    density = np.convolve(mass, kernel, mode="same")
+    half = 0.5 * density.max()
+    above = np.flatnonzero(density >= half)
+    lo, hi = above[0], above[-1]
+    return float(_value_at(_crossing(density, half, hi, 1), node, position, a, step)
+                 - _value_at(_crossing(density, half, lo, -1), node, position, a, step))
+
+
+def _crossing(density, level, k, outward):
+    """Where ``density`` falls to ``level`` between node k (at or above it) and the node next
+    outward (below it), interpolated linearly, in lattice nodes."""
+    return k + outward * (density[k] - level) / (density[k] - density[k + outward])
+
+
+def _value_at(spot, node, position, a, step):
+    """The value at lattice position ``spot``: counted from the value binned nearest to it, which
+    lies on the same side of every closed gap."""
+    j = min(int(np.searchsorted(node, spot)), len(node) - 1)
+    if j > 0 and abs(node[j - 1] - spot) < abs(node[j] - spot):
+        j -= 1
+    return a[j] + (spot - position[j]) * step
 
 
 def containing_diameter(dx, dy, share, weights=None):
