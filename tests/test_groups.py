@@ -1,9 +1,12 @@
 """Tests of grouping electrodes by waveform: static + sum_k w_k(t) M_k equals BasisMaps.combine
 with every electrode's voltage at t (the potential is linear in the voltages: superposition)."""
 
+from dataclasses import replace
+
 import numpy as np
 import pytest
 
+from tracer import groups
 from tracer.fieldmap import BasisMaps
 from tracer.groups import group_maps
 from tracer.waveforms import Pulse, Sinusoid, Table, Waveform
@@ -84,3 +87,32 @@ def test_bad_drive():
         group_maps(basis, {"rign": 1.0})
     with pytest.raises(TypeError, match="'ring': expected volts or a Waveform, got str"):
         group_maps(basis, {"ring": "1 kV"})
+
+
+def test_grouped_maps_of_an_earlier_set_are_reused_where_they_are_the_same(monkeypatch):
+    """A set that changes only waveform parameters keeps the static and group maps of the set
+    before; a new DC part rebuilds the static map alone; a changed grouping the group maps; other
+    basis maps nothing.  Every result equals a fresh build bit for bit."""
+    basis = random_basis()
+    builds = []
+    summed = groups.summed
+    monkeypatch.setattr(groups, "summed", lambda w, h: builds.append(w.ndim) or summed(w, h))
+    first = group_maps(basis, DRIVE)
+    assert builds == [1, 2]                                    # the static map, the group maps
+    later_pulse = (replace(DRIVE["repeller"].pulses[0], delay_s=300e-9),)
+    cases = [  # (drive, builds it needs with the first set's maps at hand)
+        (DRIVE | {"repeller": replace(DRIVE["repeller"], pulses=later_pulse)}, []),
+        (DRIVE | {"ring": replace(DRIVE["ring"], dc_V=7.0)}, [1]),
+        (DRIVE | {"cap_b": Waveform(dc_V=12.0, sinusoids=(Sinusoid(500.0, 1e6, 0.2),))}, [2]),
+    ]
+    for drive, needs in cases:
+        del builds[:]
+        again = group_maps(basis, drive, like=first)
+        assert builds == needs
+        fresh = group_maps(basis, drive)
+        for key in ("static", "driven"):
+            assert getattr(again, key).tobytes() == getattr(fresh, key).tobytes()
+        assert again.waveforms == fresh.waveforms and again.group == fresh.group
+    del builds[:]
+    group_maps(random_basis(seed=2), DRIVE, like=first)
+    assert builds == [1, 2]

@@ -99,6 +99,9 @@ class Context:
     currents : tuple of str
         The varied names that are coils: their values are currents (A), combined from the coils'
         unit fields (:func:`tracer.magnetics.units.traced_sources`), not voltages.
+    grouped : dict
+        The grouped maps of the last set measured in this process, by ``id`` of the maps (fine or
+        coarse) they were grouped from: the next set reuses what it can of them (:meth:`field_of`).
     """
 
     maps: object
@@ -115,6 +118,7 @@ class Context:
     parameters: dict = field(default_factory=dict)
     magnetic: object = None
     currents: tuple = ()
+    grouped: dict = field(default_factory=dict, repr=False)
 
     @classmethod
     def of(cls, setup, maps, names, planes=None, beams=None, coarse=None):
@@ -148,12 +152,16 @@ class Context:
 
     def field_of(self, maps, drives, values):
         """The field of one set through ``maps``: combined at the ``values``, or grouped by
-        waveform with the set's ``drives`` (:meth:`drives_of`) when voltages change in time."""
+        waveform with the set's ``drives`` (:meth:`drives_of`) when voltages change in time, the
+        static map or group maps of this worker's previous set through the same maps reused
+        where they are the same (:func:`tracer.groups.group_maps`)."""
         if not drives:
             return maps.combine(values)
         from tracer.groups import group_maps
 
-        return group_maps(maps, drives)
+        grouped = group_maps(maps, drives, like=self.grouped.get(id(maps)))
+        self.grouped[id(maps)] = grouped
+        return grouped
 
     def run(self, voltages):
         """Measure one set of voltages (and currents, for the varied coils).

@@ -118,7 +118,8 @@ def with_voltages(drives: Mapping[str, float | Waveform], voltages: Mapping[str,
     return out
 
 
-def group_maps(basis, drive: Mapping[str, float | Waveform] | None = None) -> GroupedMaps:
+def group_maps(basis, drive: Mapping[str, float | Waveform] | None = None,
+               like: GroupedMaps | None = None) -> GroupedMaps:
     """Fold the constant electrodes into one map and group the others by waveform.
 
     Parameters
@@ -126,6 +127,11 @@ def group_maps(basis, drive: Mapping[str, float | Waveform] | None = None) -> Gr
     basis : tracer.fieldmap.BasisMaps
     drive : mapping of electrode name to volts or Waveform, optional
         Electrodes not named keep the setup's voltage (``basis.voltages``).
+    like : GroupedMaps, optional
+        Grouped maps of the same ``basis`` from before (another voltage set's): its static map is
+        taken as it is when the constant parts c_i are the same, its group maps when the groups
+        are (the same electrodes in each, with the same signs; the waveforms may differ), instead
+        of summing the basis maps again.  The result is the same, bit for bit.
 
     Raises
     ------
@@ -155,12 +161,24 @@ def group_maps(basis, drive: Mapping[str, float | Waveform] | None = None) -> Gr
                 waveforms.append(varying)
         group.append(k)
         sign.append(s)
-    herm = basis.hermite
-    static = np.tensordot(np.array(offsets), herm, axes=1)
-    members = np.zeros((len(waveforms), len(basis.names)))
-    for i, (k, s) in enumerate(zip(group, sign)):
-        if k >= 0:
-            members[k, i] = s
-    driven = np.tensordot(members, herm, axes=1)
-    return GroupedMaps(basis, tuple(offsets), tuple(group), tuple(sign), tuple(waveforms),
-                       static, driven, wave_arrays(waveforms))
+    offsets, group, sign = tuple(offsets), tuple(group), tuple(sign)
+    same = like is not None and like.basis is basis
+    if same and like.offsets == offsets:
+        static = like.static
+    else:
+        static = summed(np.array(offsets), basis.hermite)
+    if same and (like.group, like.sign) == (group, sign):
+        driven = like.driven
+    else:
+        members = np.zeros((len(waveforms), len(basis.names)))
+        for i, (k, s) in enumerate(zip(group, sign)):
+            if k >= 0:
+                members[k, i] = s
+        driven = summed(members, basis.hermite)
+    return GroupedMaps(basis, offsets, group, sign, tuple(waveforms), static, driven, wave_arrays(waveforms))
+
+
+def summed(weights, hermite):
+    """The node data of the basis maps ``hermite`` (float64[n, 4, nz, nr]) summed with ``weights``
+    (float64[n], or [K, n] for K sums): the one place grouped maps are built from the basis."""
+    return np.tensordot(weights, hermite, axes=1)
