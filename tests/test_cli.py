@@ -120,16 +120,18 @@ def test_the_tuner_prints_its_figure_in_the_reports_units():
 
 
 def test_cache_shows_and_clears_the_maps_files(cache, capsys):
-    """tracer cache lists the cached maps (entries, size, age) and --clear deletes them, and only them."""
+    """tracer cache lists the cached maps and coil fields (entries, size, age) and --clear deletes
+    them, and only them."""
     cache.mkdir()
     (cache / "maps-aaaa.h5").write_bytes(b"x" * 2_000_000)
-    (cache / "maps-bbbb.h5").write_bytes(b"x" * 500_000)
+    (cache / "maps-bbbb.h5").write_bytes(b"x" * 400_000)
+    (cache / "coil-cccc.h5").write_bytes(b"x" * 100_000)
     (cache / "notes.txt").write_text("not ours")
     assert main(["cache"]) == 0
     out = capsys.readouterr().out
-    assert f"cache {cache}: 2 maps file(s), 2.5 MB" in out
+    assert f"cache {cache}: 2 maps file(s), 1 coil field file(s), 2.5 MB" in out
     assert "maps-aaaa.h5" in out and " s ago" in out
     assert main(["cache", "--clear", "--quiet"]) == 0
-    assert "deleted 2 maps file(s), 2.5 MB" in capsys.readouterr().out
+    assert "deleted 2 maps file(s), 1 coil field file(s), 2.5 MB" in capsys.readouterr().out
     assert sorted(p.name for p in cache.iterdir()) == ["notes.txt"]
     assert main(["cache", "--no-cache"]) == 2

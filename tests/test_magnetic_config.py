@@ -198,9 +198,9 @@ def test_a_scan_varies_coil_currents_through_the_unit_fields(monkeypatch):
     from tracer.magnetics import units
 
     built = []
-    build = units.MagneticUnits.build.__func__
-    monkeypatch.setattr(units.MagneticUnits, "build", classmethod(lambda cls, *a: built.append(1) or build(cls, *a)))
-    units.unit_fields.cache_clear()
+    sampler = units.coil_sampler
+    monkeypatch.setattr(units, "coil_sampler", lambda *a: built.append(1) or sampler(*a))
+    units._SAMPLED.clear()
     setup = tracer.loads(SCANNED)
     result = tracer.scan(setup, workers=1)
     assert result.table.dtype.names[0] == "lens_A" and result.coils == ("lens",)

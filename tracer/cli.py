@@ -397,7 +397,7 @@ def cmd_optics(args, echo) -> int:
         raise InputError(f"{args.config}: no [optics] table (species, energy_eV, object_z_mm)")
     maps = solve(setup, cache_dir=_cache_dir(args), progress=_progress(args, "solving"))
     try:
-        props = lens(setup, maps.combine())
+        props = lens(setup, maps.combine(), _cache_dir(args))
     except OpticsError as exc:
         raise InputError(f"optics: {exc}") from exc
     echo(format_optics(props, optics_error_bars(setup, props, cache_dir=_cache_dir(args))))
@@ -419,17 +419,18 @@ def _age(seconds):
 def cmd_cache(args, echo) -> int:
     import time
 
-    from tracer.cache import cache_entries, clear_cache
+    from tracer.cache import ENTRY_FILES, cache_entries, clear_cache
 
     folder = _cache_dir(args)
     if folder is None:
         raise InputError("--no-cache: there is no cache to show")
     entries = clear_cache(folder) if args.clear else cache_entries(folder)
     total = sum(e.size_bytes for e in entries)
+    counts = ", ".join(f"{sum(e.kind == kind for e in entries)} {kind} file(s)" for kind in ENTRY_FILES)
     if args.clear:
-        echo(f"cache {folder}: deleted {len(entries)} maps file(s), {total / 1e6:.1f} MB")
+        echo(f"cache {folder}: deleted {counts}, {total / 1e6:.1f} MB")
         return 0
-    echo(f"cache {folder}: {len(entries)} maps file(s), {total / 1e6:.1f} MB")
+    echo(f"cache {folder}: {counts}, {total / 1e6:.1f} MB")
     now = time.time()
     for e in entries:
         echo(f"  {e.path.name}  {e.size_bytes / 1e6:8.1f} MB  written {_age(now - e.modified_s)} ago")
@@ -455,7 +456,7 @@ COMMANDS = {
     "optics": (cmd_optics, "paraxial lens properties and aberrations on the axis"),
     "gun": (cmd_gun, "iterate a gun's emission with its space charge until the current settles"),
     "warmup": (cmd_warmup, "compile the kernels ahead, for an install script or a cluster image"),
-    "cache": (cmd_cache, "show the cached basis maps (entries, size, age); --clear deletes them"),
+    "cache": (cmd_cache, "show the cached basis maps and coil fields (entries, size, age); --clear deletes them"),
 }
 
 # Commands that compile no kernel before they finish (no first-compile notice).

@@ -99,6 +99,8 @@ class Context:
     currents : tuple of str
         The varied names that are coils: their values are currents (A), combined from the coils'
         unit fields (:func:`tracer.magnetics.units.traced_sources`), not voltages.
+    cache_dir : str or os.PathLike or None
+        The maps cache, where each process reads the coils' unit fields (None: each samples them).
     grouped : dict
         The grouped maps of the last set measured in this process, by ``id`` of the maps (fine or
         coarse) they were grouped from: the next set reuses what it can of them (:meth:`field_of`).
@@ -118,10 +120,11 @@ class Context:
     parameters: dict = field(default_factory=dict)
     magnetic: object = None
     currents: tuple = ()
+    cache_dir: object = None
     grouped: dict = field(default_factory=dict, repr=False)
 
     @classmethod
-    def of(cls, setup, maps, names, planes=None, beams=None, coarse=None):
+    def of(cls, setup, maps, names, planes=None, beams=None, coarse=None, cache_dir=None):
         """The context of a setup (planes and beams default to the setup's)."""
         from tracer.config import waveform_parameter
 
@@ -131,7 +134,8 @@ class Context:
                    tuple(setup.planes if planes is None else planes), tuple(names),
                    setup.trace.rtol, setup.trace.max_time_s, coarse, setup.grid_error.rays,
                    setup.grid_error.safety, setup.drives() if setup.in_time or parameters else None,
-                   setup.trace.time_zero_s, parameters, setup.magnetic, tuple(n for n in names if n in coils))
+                   setup.trace.time_zero_s, parameters, setup.magnetic, tuple(n for n in names if n in coils),
+                   cache_dir)
 
     @property
     def columns(self):
@@ -184,7 +188,8 @@ class Context:
         coarse = None if self.coarse is None else self.field_of(self.coarse, drives, values)
         time_zero = first_pulse_s(drives.values()) if self.time_zero_s is None else self.time_zero_s
         magnetic, coarse_magnetic = (None if self.magnetic is None or f is None
-                                     else traced_sources(self.magnetic, f.grid, amps) for f in (field, coarse))
+                                     else traced_sources(self.magnetic, f.grid, amps, self.cache_dir)
+                                     for f in (field, coarse))
         figures, errors, trace_s = [], [], 0.0
         for beam in self.beams:
             with _TRACE_LOCK:

@@ -388,7 +388,7 @@ def _start_rays(sites, distance, symmetry, mass_kg):
     return rays_from(position, direction, rows["voltage_V"], rows["current_A"], mass_kg)
 
 
-def _trace(field, setup, sites, distance):
+def _trace(field, setup, sites, distance, cache_dir=None):
     from tracer.beam import trace
     from tracer.config import Beam
     from tracer.magnetics.units import traced_sources
@@ -401,7 +401,7 @@ def _trace(field, setup, sites, distance):
     return trace(field, beam, planes=setup.planes, rtol=opts.rtol, max_time_s=opts.max_time_s,
                  keep_paths=len(starts), max_path_points=max(4096, 4 * (grid.nz + grid.nr)),
                  ledger_threshold=opts.ledger_threshold, starts=starts,
-                 magnetic=traced_sources(setup.magnetic, grid))
+                 magnetic=traced_sources(setup.magnetic, grid, cache_dir=cache_dir))
 
 
 def _path_zrt(path, symmetry):
@@ -524,7 +524,7 @@ def gun(setup: Setup, *, maps: BasisMaps | None = None, cache_dir: str | os.Path
         The electrodes' basis maps if solved before; else they are solved (and cached in
         ``cache_dir`` when given).
     cache_dir : str or os.PathLike, optional
-        Folder of cached basis maps.
+        Folder of cached basis maps (and of the coils' unit fields).
     progress : callable, optional
         Called as ``progress(iteration, max_iterations)`` after each iteration, and with
         ``(max_iterations, max_iterations)`` when the iteration stops.
@@ -578,7 +578,7 @@ def gun(setup: Setup, *, maps: BasisMaps | None = None, cache_dir: str | os.Path
         history.append((total, change))
         converged = change < spec.tolerance
         if total > 0.0:
-            run = _trace(field, setup, sites, distance)
+            run = _trace(field, setup, sites, distance, cache_dir)
         if progress is not None and iteration < spec.max_iterations:
             progress(iteration, spec.max_iterations)
         # no current in the vacuum field: nothing to iterate; no current later: the space charge

@@ -165,8 +165,9 @@ def traced_field(setup, maps, voltages=None):
     return group_maps(maps, with_voltages(setup.drives(), voltages))
 
 
-def trace_beam(field, beam, setup, progress=None, starts=None):
-    """Trace one beam of a setup with its ``[trace]`` options, planes and magnetic sources; given
+def trace_beam(field, beam, setup, progress=None, starts=None, cache_dir=None):
+    """Trace one beam of a setup with its ``[trace]`` options, planes and magnetic sources (the
+    coils' unit fields read from or kept in the maps cache ``cache_dir`` when given); given
     ``starts`` (:data:`tracer.sources.START_DTYPE`), those rays instead of the beam's, keeping no
     paths."""
     from tracer.beam import trace
@@ -177,7 +178,7 @@ def trace_beam(field, beam, setup, progress=None, starts=None):
                  keep_paths=opts.keep_paths if starts is None else 0,
                  ledger_threshold=opts.ledger_threshold, progress=progress, starts=starts,
                  time_zero_s=setup.time_zero_s,
-                 magnetic=traced_sources(setup.magnetic, field.grid))
+                 magnetic=traced_sources(setup.magnetic, field.grid, cache_dir=cache_dir))
 
 
 def run(setup: Setup, *, maps: BasisMaps | None = None, voltages: Mapping[str, float] | None = None,
@@ -193,7 +194,7 @@ def run(setup: Setup, *, maps: BasisMaps | None = None, voltages: Mapping[str, f
     voltages : mapping of str to float, optional
         Voltages that replace the setup's.
     cache_dir : str or os.PathLike, optional
-        Passed to :func:`solve`.
+        Passed to :func:`solve`; the coils' unit fields are cached there too.
     progress : callable, optional
         ``progress(stage, done, total)``: stage is "solve", a beam's name, or "<beam> on cell 2h"
         (and the third grid) for the error bars.
@@ -212,22 +213,25 @@ def run(setup: Setup, *, maps: BasisMaps | None = None, voltages: Mapping[str, f
     if maps is None:
         maps = solve(setup, cache_dir=cache_dir, progress=stage("solve"))
     traced = traced_field(setup, maps, voltages)
-    beams = {b.name: trace_beam(traced, b, setup, progress=stage(b.name)) for b in setup.beams}
+    beams = {b.name: trace_beam(traced, b, setup, progress=stage(b.name), cache_dir=cache_dir)
+             for b in setup.beams}
     errors = errorbars.estimate(
         setup, beams, field=lambda other: traced_field(other, solve(other, cache_dir=cache_dir), voltages),
-        trace=lambda f, b, starts, p: trace_beam(f, b, setup, progress=p, starts=starts), progress=progress)
+        trace=lambda f, b, starts, p: trace_beam(f, b, setup, progress=p, starts=starts, cache_dir=cache_dir),
+        progress=progress)
     field = traced.at(0.0) if setup.in_time else traced
     return RunResult(setup, maps, field, beams, errors, traced if setup.in_time else None)
 
 
-def lens(setup, field):
+def lens(setup, field, cache_dir=None):
     """The paraxial properties ``[optics]`` asks for, in ``field``.
 
     The energy reference is the one of the beams: ``energy_eV`` is the kinetic energy at
     ``[optics] start_z_mm`` on the axis, by default the first beam's start (the z_min end of the
     map when there is no beam); see :func:`tracer.optics.paraxial`. The setup's coils and axial
     fields enter as ``magnetic=`` (their field on the axis, sampled on ``field``'s grid as the
-    rays see it); uniform fields are not round lenses and are left out.
+    rays see it; their unit fields read from or kept in the maps cache ``cache_dir`` when given);
+    uniform fields are not round lenses and are left out.
 
     Raises
     ------
@@ -240,7 +244,7 @@ def lens(setup, field):
     start = spec.start_z_m if spec.start_z_m is not None else (
         setup.beams[0].start_z_m if setup.beams else None)
     mag = setup.magnetic
-    magnetic = unit_fields(field.grid, mag.coils, mag.profiles).combine() if (
+    magnetic = unit_fields(field.grid, mag.coils, mag.profiles, cache_dir).combine() if (
         mag.coils or mag.profiles) else None
     return paraxial(field, spec.species, spec.energy_eV, object_z_m=spec.object_z_m, start_z_m=start,
                     magnetic=magnetic)
@@ -257,7 +261,7 @@ def optics_error_bars(setup, props, *, cache_dir=None):
     props : tracer.optics.LensProperties
         The properties on the config's cell.
     cache_dir : str or os.PathLike, optional
-        Passed to :func:`solve`.
+        Passed to :func:`solve` and :func:`lens`.
 
     Returns
     -------
@@ -274,7 +278,7 @@ def optics_error_bars(setup, props, *, cache_dir=None):
     for factor in factors:
         field = solve(errorbars.with_cell(setup, factor), cache_dir=cache_dir).combine()
         try:
-            others.append(lens(setup, field))
+            others.append(lens(setup, field, cache_dir))
         except OpticsError:
             others.append(None)
     spec, h = setup.grid_error, setup.domain.cell_m

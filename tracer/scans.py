@@ -241,7 +241,7 @@ def scan(setup: Setup, maps: BasisMaps | None = None, executor: Executor | None 
         ``progress(done, total)`` over the sets this call computes (sets resumed from ``out`` are
         not counted, so a rate or time left is right), after each finished set and once at the start.
     cache_dir : str or os.PathLike, optional
-        Cache of basis maps used when ``maps`` is None.
+        Cache of basis maps used when ``maps`` is None, and of the coils' unit fields.
     h5_interval_s : float
         Longest time between rewrites of ``scan.csv`` and ``scan.h5`` while scanning.
 
@@ -273,7 +273,7 @@ def scan(setup: Setup, maps: BasisMaps | None = None, executor: Executor | None 
         from tracer.pipeline import solve
 
         coarse = solve(with_cell(setup, 2.0), cache_dir=cache_dir)
-    context = Context.of(setup, maps, names, coarse=coarse)
+    context = Context.of(setup, maps, names, coarse=coarse, cache_dir=cache_dir)
     header = tuple(scan_column(n, context.currents) for n in names) + context.columns
     digest = config_hash(setup, names, sets)
     rows = Rows(None if out is None else Path(out), digest, header, sets)

@@ -123,14 +123,14 @@ def _objective(spec, figures, figure, size):
 class _Trials:
     """Memoised trials in unit coordinates u in [0, 1]^n, with the record of every one traced."""
 
-    def __init__(self, setup, maps, spec):
+    def __init__(self, setup, maps, spec, cache_dir=None):
         self.spec = spec
         self.names = tuple(v[0] for v in spec.vary)
         self.lo = np.array([v[1] for v in spec.vary], dtype=np.float64)
         self.hi = np.array([v[2] for v in spec.vary], dtype=np.float64)
         plane, self.figure = _target(setup, spec)
         self.context = Context.of(setup, maps, self.names, planes=() if plane is None else (plane,),
-                                  beams=setup.beams[:1])
+                                  beams=setup.beams[:1], cache_dir=cache_dir)
         self.columns = self.context.columns
         g = maps.grid
         self.size = g.r1 - g.r0
@@ -191,7 +191,7 @@ def tune(setup: Setup, maps: BasisMaps | None = None, *, cache_dir: str | os.Pat
     maps : tracer.fieldmap.BasisMaps, optional
         The setup's basis maps (solved, or loaded from ``cache_dir``, when not given).
     cache_dir : str or os.PathLike, optional
-        Cache of basis maps used when ``maps`` is None.
+        Cache of basis maps used when ``maps`` is None, and of the coils' unit fields.
     grid_points : int
         One voltage: trials of the coarse grid before the Brent search (at least 3).
     popsize, maxiter : int
@@ -218,7 +218,7 @@ def tune(setup: Setup, maps: BasisMaps | None = None, *, cache_dir: str | os.Pat
         from tracer.pipeline import solve
 
         maps = solve(setup, cache_dir=cache_dir)
-    trials = _Trials(setup, maps, spec)
+    trials = _Trials(setup, maps, spec, cache_dir)
     if len(trials.names) == 1:
         method = _one(trials, max(3, int(grid_points)))
     else:

@@ -14,6 +14,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
+from typing import NamedTuple
 
 import numpy as np
 from numba import njit
@@ -22,6 +23,14 @@ from tracer.magnetics.loop import loop_unit, over_points
 
 ORDER = 12
 """Gauss-Legendre nodes per panel side."""
+
+
+class Winding(NamedTuple):
+    """What fixes a coil's unit field: its winding section (m) and turns, not its name or current."""
+
+    z_m: tuple
+    r_m: tuple
+    turns: int
 
 
 @dataclass(frozen=True)
@@ -48,6 +57,11 @@ class Coil:
     r_m: tuple[float, float]
     turns: int = 1
     current_A: float = 0.0
+
+    @property
+    def winding(self) -> Winding:
+        """The winding section and turns, as plain floats and int."""
+        return Winding(tuple(float(v) for v in self.z_m), tuple(float(v) for v in self.r_m), int(self.turns))
 
     def nodes(self) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         """Quadrature nodes (z, r) over the cross-section and weights summing to one."""

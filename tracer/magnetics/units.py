@@ -1,7 +1,8 @@
 """Unit fields of coils on the map's grid, combined by current.
 
 B is linear in the coil currents as V is in the electrode voltages, so each coil's field at 1 A
-(its *unit field*) is sampled once per geometry onto the electric map's grid, and the field of any
+(its *unit field*) is sampled once per geometry onto the electric map's grid (once per process,
+and kept in the maps cache when there is one: :func:`coil_unit`), and the field of any
 set of currents is the weighted sum (the weights looked up by
 :func:`tracer.fieldmap.named_settings`, as for voltages).  Axial profiles are no coils: their sum
 is one fixed term added to every combination.
@@ -24,7 +25,9 @@ as its third.
 
 from __future__ import annotations
 
+import dataclasses
 import functools
+from collections import OrderedDict
 from collections.abc import Mapping
 from dataclasses import dataclass
 
@@ -39,23 +42,22 @@ DZ_CELLS = 1e-4
 """Step of the central difference for d2A/dzdr, in cells."""
 
 
-def node_data(grid, source) -> np.ndarray:
-    """Hermite node data of A_theta from a source's closed form.
+def node_data(z, r, step, source) -> np.ndarray:
+    """Hermite node data of A_theta at points from a source's closed form.
 
     Parameters
     ----------
-    grid : tracer.grid.Grid
-        An axially symmetric grid.
+    z, r : ndarray
+        Points (m, r >= 0), of one shape.
+    step : float
+        Step of the central difference for d2A/dzdr (m).
     source : callable
         ``source(z, r) -> (A_phi, B_z, B_r)`` at arrays of points.
 
     Returns
     -------
-    float64[4, nz, nr]
+    float64[4, *z.shape]
     """
-    z, r = np.meshgrid(grid.z, grid.r, indexing="ij")
-    step = DZ_CELLS * grid.hz
-
     def slope_r(a, bz):
         with np.errstate(divide="ignore", invalid="ignore"):
             return np.where(r > 0.0, bz - a / r, 0.5 * bz)
@@ -64,6 +66,47 @@ def node_data(grid, source) -> np.ndarray:
     up = slope_r(*source(z + step, r)[:2])
     down = slope_r(*source(z - step, r)[:2])
     return np.stack([a, -br, slope_r(a, bz), (up - down) / (2.0 * step)])
+
+
+def grid_data(grid, source) -> np.ndarray:
+    """Hermite node data of A_theta at every node of an axially symmetric grid: float64[4, nz, nr]."""
+    return node_data(*np.meshgrid(grid.z, grid.r, indexing="ij"), DZ_CELLS * grid.hz, source)
+
+
+def coil_sampler(grid, coil):
+    """``sample(z, r)``: the node data of a coil's A_theta at 1 A at points, as on ``grid``."""
+    return lambda z, r: node_data(z, r, DZ_CELLS * grid.hz, lambda zz, rr: coil_field(coil, zz, rr, 1.0))
+
+
+_SAMPLED: OrderedDict = OrderedDict()
+"""Coils' unit fields sampled in this process, by grid and winding; the newest ``KEEP_SAMPLED``."""
+KEEP_SAMPLED = 16
+
+
+def coil_unit(grid, coil, cache_dir=None) -> np.ndarray:
+    """A coil's unit field on a grid: the node data of its A_theta at 1 A, float64[4, nz, nr]
+    (read-only).
+
+    Sampled once per grid and winding (section and turns; not the name or the current) in a
+    process; with a ``cache_dir``, read from the maps cache instead, or sampled and written there
+    (:func:`tracer.cache.cached_coil_field`).
+    """
+    key = (grid, coil.winding)
+    if key in _SAMPLED:
+        _SAMPLED.move_to_end(key)
+        return _SAMPLED[key]
+    sample = coil_sampler(grid, coil)
+    if cache_dir is None:
+        data = sample(*np.meshgrid(grid.z, grid.r, indexing="ij"))
+    else:
+        from tracer.cache import cached_coil_field
+
+        data = cached_coil_field(grid, coil, cache_dir, sample)
+    data.flags.writeable = False
+    _SAMPLED[key] = data
+    while len(_SAMPLED) > KEEP_SAMPLED:
+        _SAMPLED.popitem(last=False)
+    return data
 
 
 @njit(cache=True, error_model="numpy")
@@ -145,16 +188,17 @@ class MagneticUnits:
     fixed: np.ndarray
 
     @classmethod
-    def build(cls, grid, coils=(), profiles=()) -> MagneticUnits:
-        """Sample the coils' unit fields and the profiles onto an axially symmetric grid."""
+    def build(cls, grid, coils=(), profiles=(), cache_dir=None) -> MagneticUnits:
+        """The coils' unit fields (:func:`coil_unit`, with its cache) and the profiles sampled
+        onto an axially symmetric grid."""
         if grid.symmetry != "axial":
             raise ValueError(f"coils and axial profiles need an axially symmetric grid, "
                              f"not {grid.symmetry!r}")
-        unit = np.stack([node_data(grid, lambda z, r, c=c: coil_field(c, z, r, 1.0)) for c in coils]
+        unit = np.stack([coil_unit(grid, c, cache_dir) for c in coils]
                         ) if coils else np.zeros((0, 4, grid.nz, grid.nr))
         fixed = np.zeros((4, grid.nz, grid.nr))
         for p in profiles:
-            fixed += node_data(grid, p.field)
+            fixed += grid_data(grid, p.field)
         return cls(grid, tuple(c.name for c in coils), tuple(float(c.current_A) for c in coils),
                    unit, fixed)
 
@@ -172,13 +216,22 @@ class MagneticUnits:
 
 
 @functools.lru_cache(maxsize=8)
-def unit_fields(grid, coils, profiles) -> MagneticUnits:
-    """:meth:`MagneticUnits.build` of coils and axial profiles on a grid, computed once per grid
-    and sources in a process (a scan's rows and the error bars' grids reuse them)."""
-    return MagneticUnits.build(grid, coils, profiles)
+def profiles_field(grid, profiles) -> np.ndarray:
+    """The node data of the axial profiles' A_theta on a grid, computed once per grid in a process."""
+    return MagneticUnits.build(grid, (), profiles).fixed
 
 
-def traced_sources(spec, grid, currents: Mapping[str, float] | None = None):
+def unit_fields(grid, coils, profiles, cache_dir=None) -> MagneticUnits:
+    """:meth:`MagneticUnits.build` of coils and axial profiles on a grid: each coil's unit field
+    and the profiles' field computed once per grid in a process (a scan's rows and the error bars'
+    grids reuse them), the coils' also cached in ``cache_dir`` when given."""
+    if not profiles:
+        return MagneticUnits.build(grid, coils, (), cache_dir)
+    return dataclasses.replace(MagneticUnits.build(grid, coils, (), cache_dir),
+                               fixed=profiles_field(grid, profiles))
+
+
+def traced_sources(spec, grid, currents: Mapping[str, float] | None = None, cache_dir=None):
     """The magnetic sources of a setup as :func:`tracer.beam.trace` takes them, or None.
 
     Parameters
@@ -189,6 +242,8 @@ def traced_sources(spec, grid, currents: Mapping[str, float] | None = None):
         The grid of the potential map the rays are traced through.
     currents : mapping of str to float, optional
         Coil currents (A) that replace the setup's.
+    cache_dir : str or os.PathLike, optional
+        The maps cache, where the coils' unit fields are read or written (:func:`coil_unit`).
 
     Returns
     -------
@@ -198,7 +253,7 @@ def traced_sources(spec, grid, currents: Mapping[str, float] | None = None):
     """
     if not spec:
         return None
-    maps = (unit_fields(grid, spec.coils, spec.profiles).combine(currents),) if (
+    maps = (unit_fields(grid, spec.coils, spec.profiles, cache_dir).combine(currents),) if (
         spec.coils or spec.profiles) else ()
     return maps + tuple(spec.uniform)
 

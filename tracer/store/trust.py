@@ -8,7 +8,8 @@ storage (data in another local file) and virtual datasets are refused, and so ar
 declare gigabytes).  ``check_count`` bounds the lengths given by attributes (a constant record's
 shape, a species' particle count).  ``check_geometry`` checks the shape, dtype and index range of
 every array of the grid, shape table, raster and meshes against each other before the Hermite
-data are built from them.  ``check_dtype`` admits only plain numeric and text fields, ``check_name``
+data are built from them (``check_grid`` and ``check_array`` its parts, shared with the cached
+coil fields).  ``check_dtype`` admits only plain numeric and text fields, ``check_name``
 the names a config admits, and ``printable`` escapes control characters of text for the terminal.
 """
 
@@ -85,7 +86,8 @@ def check_name(name, what, path) -> str:
     return name
 
 
-def _array(array, shape, kinds, what, path):
+def check_array(array, shape, kinds, what, path) -> None:
+    """An array from a file has this shape and a dtype of these kinds (finite, when floating)."""
     if not isinstance(array, np.ndarray) or array.shape != shape or array.dtype.kind not in kinds:
         got = f"{array.dtype.str}{list(array.shape)}" if isinstance(array, np.ndarray) else type(array).__name__
         raise StoreError(f"{path}: {what} is {got}, expected shape {list(shape)}")
@@ -98,9 +100,8 @@ def _indices(array, low, high, what, path):
         raise StoreError(f"{path}: {what} holds indices outside {low}..{high - 1}")
 
 
-def check_geometry(path, grid, table, raster, names, voltages, meshes) -> None:
-    """The grid, shape table, raster, electrode names and voltages, and node meshes of a file agree
-    in shape, dtype and index range (every check a kernel relies on)."""
+def check_grid(path, grid) -> None:
+    """A grid from a file is one tracer writes: its symmetry, edges, node counts and spacing."""
     g = grid
     if (g.symmetry not in ("axial", "planar") or not isinstance(g.mirror, bool)
             or not all(isinstance(v, int) and not isinstance(v, bool) for v in (g.nz, g.nr))
@@ -109,37 +110,44 @@ def check_geometry(path, grid, table, raster, names, voltages, meshes) -> None:
             or not (g.hz > 0 and g.hr > 0)
             or not (isinstance(g.edges, tuple) and len(g.edges) == 4 and all(e in _EDGES for e in g.edges))):
         raise StoreError(f"{path}: the grid is not one tracer writes")
+
+
+def check_geometry(path, grid, table, raster, names, voltages, meshes) -> None:
+    """The grid, shape table, raster, electrode names and voltages, and node meshes of a file agree
+    in shape, dtype and index range (every check a kernel relies on)."""
+    check_grid(path, grid)
+    g = grid
     n_el = len(names)
     for name in names:
         check_name(name, "electrode", path)
     if len(set(names)) != n_el or tuple(table.names) != tuple(names):
         raise StoreError(f"{path}: the electrode names do not agree")
-    _array(np.asarray(voltages, dtype=float) if len(voltages) == n_el else np.zeros(0), (n_el,), "f",
-           "the voltages", path)
+    check_array(np.asarray(voltages, dtype=float) if len(voltages) == n_el else np.zeros(0), (n_el,), "f",
+                "the voltages", path)
     n = table.kind.shape[0] if isinstance(table.kind, np.ndarray) and table.kind.ndim == 1 else -1
     for key, shape, kinds in (("kind", (n,), "iu"), ("owner", (n,), "iu"), ("start", (n,), "iu"),
                               ("count", (n,), "iu"), ("sector", (n, 6), "f"), ("bbox", (n, 4), "f")):
-        _array(getattr(table, key), shape, kinds, f"the shape table's {key}", path)
+        check_array(getattr(table, key), shape, kinds, f"the shape table's {key}", path)
     points = table.points
-    _array(points, (points.shape[0] if isinstance(points, np.ndarray) and points.ndim == 2 else -1, 2), "f",
-           "the shape table's points", path)
+    check_array(points, (points.shape[0] if isinstance(points, np.ndarray) and points.ndim == 2 else -1, 2), "f",
+                "the shape table's points", path)
     _indices(table.kind, 0, 2, "the shape table's kind", path)
     _indices(table.owner, 0, n_el, "the shape table's owner", path)
     if n and ((table.start < 0).any() or (table.count < 0).any()
               or (table.start + table.count > len(points)).any()):
         raise StoreError(f"{path}: the shape table's polygons reach outside its points")
     nodes, cells = (g.nz, g.nr), (g.nz - 1, g.nr - 1)
-    _array(raster.owner, nodes, "iu", "the raster's owner", path)
-    _array(raster.arm, nodes + (4,), "f", "the raster's arm", path)
-    _array(raster.arm_owner, nodes + (4,), "iu", "the raster's arm_owner", path)
-    _array(raster.cell, cells, "iu", "the raster's cell", path)
+    check_array(raster.owner, nodes, "iu", "the raster's owner", path)
+    check_array(raster.arm, nodes + (4,), "f", "the raster's arm", path)
+    check_array(raster.arm_owner, nodes + (4,), "iu", "the raster's arm_owner", path)
+    check_array(raster.cell, cells, "iu", "the raster's cell", path)
     _indices(raster.owner, -1, n_el, "the raster's owner", path)
     _indices(raster.arm_owner, -1, n_el, "the raster's arm_owner", path)
     _indices(raster.cell, -2, n_el, "the raster's cell", path)
     if raster.arm.size and (raster.arm.min() < 0.0 or raster.arm.max() > 1.0):
         raise StoreError(f"{path}: the raster's arm holds fractions outside 0..1")
     for what, mesh in meshes.items():
-        _array(mesh, nodes, "f", what, path)
+        check_array(mesh, nodes, "f", what, path)
 
 
 def check_summaries(summaries, beams, path) -> dict:
