@@ -3,14 +3,18 @@
 import concurrent.futures
 import csv
 import dataclasses
+import json
+import math
 import multiprocessing
 import os
 import signal
 import subprocess
 import sys
 import time
+from decimal import Decimal
 from pathlib import Path
 
+import h5py
 import numpy as np
 import pytest
 
@@ -155,13 +159,13 @@ def test_an_interrupted_scan_resumed_yields_every_set_once(setup_maps, serial, t
     kept = _csv_sets(tmp_path)
     assert len(kept) >= 2 and len(kept) < 6 and len(set(kept)) == len(kept)
     table, index, _ = read_h5(tmp_path / "scan.h5")        # written on the interrupt
-    assert sorted(index.tolist()) == kept and table.tobytes() == serial.table[index].tobytes()
+    assert sorted(index.tolist()) == kept and table.tobytes() == in_file_units(serial.table[index]).tobytes()
     again = scan(setup, maps, workers=1, out=tmp_path)
     assert again.resumed == len(kept)
     assert _csv_sets(tmp_path) == list(range(6))
     assert again.table.tobytes() == serial.table.tobytes()
     table, index, digest = read_h5(tmp_path / "scan.h5")
-    assert index.tolist() == list(range(6)) and table.tobytes() == serial.table.tobytes()
+    assert index.tolist() == list(range(6)) and table.tobytes() == in_file_units(serial.table).tobytes()
     assert digest == again.config_hash
 
 
@@ -194,10 +198,24 @@ def test_read_scan_refuses_what_is_not_a_scan_table(tmp_path):
         read_scan(tmp_path / "other.csv")
 
 
+def in_file_units(table):
+    """An SI scan table as the scan files give it, read by numpy from the decimal text of the
+    values scaled to mm, ns and mrad (the names' suffixes say which)."""
+    names = [n.removesuffix("_m") + "_mm" if n.endswith("_m") else n.removesuffix("_s") + "_ns"
+             if n.endswith("_s") else n.removesuffix("_rad") + "_mrad" if n.endswith("_rad") else n
+             for n in table.dtype.names]
+    out = np.zeros(len(table), dtype=[(n, float) for n in names])
+    for si, name in zip(table.dtype.names, names):
+        power = {"_mm": 3, "_ns": 9, "_mrad": 3}.get("_" + name.rpartition("_")[2], 0)
+        out[name] = [float(Decimal(repr(float(v))).scaleb(power)) for v in table[si]]
+    return out
+
+
 def test_scan_csv_is_a_plain_table_in_set_order(setup_maps, serial, tmp_path):
     """scan.csv opens in any CSV reader as it is: the header first (set, the voltages and the
-    figures, each named with its unit as the suffix, as landings.csv), rows in voltage-set order
-    even when the sets finished in another order; its config hash is in scan.h5 and the journal."""
+    figures, each named with its unit as the suffix, in landings.csv's units: mm, ns, eV; angles
+    in mrad), rows in voltage-set order even when the sets finished in another order; its config
+    hash is in scan.h5 and the journal.  read_scan gives the SI table back bit for bit."""
     setup, maps = setup_maps
     names, sets = voltage_sets(setup)
     rows = Rows(tmp_path, "e" * 64, serial.table.dtype.names, sets)
@@ -208,13 +226,27 @@ def test_scan_csv_is_a_plain_table_in_set_order(setup_maps, serial, tmp_path):
     with open(tmp_path / CSV_NAME, newline="") as handle:
         table = list(csv.DictReader(handle))
     assert [int(r["set"]) for r in table] == [0, 1, 3, 5]
-    assert list(table[0]) == ["set"] + list(serial.table.dtype.names)
-    assert all(c.endswith(("_V", "_m", "_rad", "_eV", "_s")) or c.rpartition(".")[2] in BARE
-               for c in serial.table.dtype.names), serial.table.dtype.names
+    files = in_file_units(serial.table)
+    assert list(table[0]) == ["set"] + list(files.dtype.names)
+    assert all(c.endswith(("_V", "_mm", "_mrad", "_eV", "_ns")) or c.rpartition(".")[2] in BARE
+               for c in files.dtype.names), files.dtype.names
+    assert {"spot_rms_mm", "tof_mean_ns", "divergence_x_mrad", "landing_mean_eV"} <= set(table[0])
     assert [float(r["lens_V"]) for r in table] == serial.table["lens_V"][[0, 1, 3, 5]].tolist()
+    for name in files.dtype.names:
+        np.testing.assert_array_equal([float(r[name]) for r in table], files[name][[0, 1, 3, 5]])
+    spot = np.array([float(r["spot_rms_mm"]) for r in table])
+    assert np.allclose(spot, serial.table["spot_rms_m"][[0, 1, 3, 5]] * 1e3, rtol=1e-15, atol=0)
+    tof = np.array([float(r["tof_mean_ns"]) for r in table])
+    assert np.allclose(tof, serial.table["tof_mean_s"][[0, 1, 3, 5]] * 1e9, rtol=1e-15, atol=0)
     back = read_scan(tmp_path / CSV_NAME)
     assert back.table.tobytes() == serial.table[[0, 1, 3, 5]].tobytes() and back.config_hash == "e" * 64
-    assert read_h5(tmp_path / "scan.h5")[2] == "e" * 64
+    h5, index, digest = read_h5(tmp_path / "scan.h5")
+    assert digest == "e" * 64 and h5.tobytes() == files[index].tobytes()
+    with h5py.File(tmp_path / "scan.h5") as f:
+        units = dict(zip(json.loads(f["tracer/scan"].attrs["columns"]), json.loads(f["tracer/scan"].attrs["units"])))
+    assert list(units) == list(files.dtype.names)
+    assert (units["lens_V"], units["spot_rms_mm"], units["tof_fwhm_ns"], units["divergence_y_mrad"],
+            units["energy_std_eV"], units["transmission"]) == ("V", "mm", "ns", "mrad", "eV", "")
     # a journal written as scan.csv by an earlier tracer is taken over and resumes
     (tmp_path / CSV_NAME).unlink()
     old = (tmp_path / JOURNAL_NAME).read_text().replace("# tracer scan journal;", "# tracer scan table;")
@@ -223,6 +255,48 @@ def test_scan_csv_is_a_plain_table_in_set_order(setup_maps, serial, tmp_path):
     again = Rows(tmp_path, "e" * 64, serial.table.dtype.names, sets)
     again.close()
     assert sorted(again.done) == [0, 1, 3, 5] and (tmp_path / JOURNAL_NAME).is_file()
+
+
+def test_an_si_journal_of_an_earlier_tracer_resumes(setup_maps, serial, tmp_path):
+    """A journal an earlier tracer wrote in SI units (spot_rms_m, tof_mean_s) resumes bit for bit and
+    is rewritten in the files' units; an earlier SI scan.csv reads back as it is."""
+    setup, _ = setup_maps
+    _, sets = voltage_sets(setup)
+    si = serial.table.dtype.names
+    rows = "".join(f"{i}," + ",".join(repr(float(v)) for v in serial.table[i].tolist()) + "\n" for i in (0, 2))
+    (tmp_path / JOURNAL_NAME).write_text(f"# tracer scan journal; config sha256 {'e' * 64}\n" + ",".join(("set",) + si)
+                                         + "\n" + rows)
+    again = Rows(tmp_path, "e" * 64, si, sets)
+    again.close()
+    assert again.resumed == 2 and again.table()[0].tobytes() == serial.table[[0, 2]].tobytes()
+    lines = (tmp_path / JOURNAL_NAME).read_text().splitlines()
+    assert lines[1] == ",".join(("set",) + in_file_units(serial.table).dtype.names) and len(lines) == 4
+    assert read_scan(tmp_path).table.tobytes() == serial.table[[0, 2]].tobytes()
+    (tmp_path / "old").mkdir()
+    (tmp_path / "old" / CSV_NAME).write_text(",".join(("set",) + si) + "\n" + rows)
+    assert read_scan(tmp_path / "old" / CSV_NAME).table.tobytes() == serial.table[[0, 2]].tobytes()
+
+
+def test_file_units_read_back_bit_for_bit():
+    """A value in mm or ns is the SI value's shortest decimal (Python's repr, round-trip by Steele &
+    White 1990 / Gay's dtoa) with the point moved: it reads as the value times 1e3 or 1e9 within
+    two roundings (float() of the text against the product), and moving the point back gives
+    the SI float bit for bit, over 40 decades, subnormals, signed zeros and NaN."""
+    from tracer.journal import _text, _value
+
+    rng = np.random.default_rng(6)
+    values = np.r_[rng.standard_normal(5000) * 10.0 ** rng.integers(-20, 20, 5000), 0.0, -0.0, 5e-324, 1e290]
+    for power in (3, 9):
+        texts = [_text(v, power) for v in values]
+        normal = np.abs(values) >= np.finfo(float).tiny       # a subnormal's shortest decimal is coarse
+        assert np.allclose(np.array([float(t) for t in texts])[normal], values[normal] * 10.0 ** power,
+                           rtol=4e-16, atol=0)
+        back = np.array([_value(t, power) for t in texts])
+        assert back.tobytes() == values.tobytes()
+    assert math.isnan(_value(_text(math.nan, 3), 3)) and _text(1.5, 0) == "1.5"
+    assert _text(1.2345e-05, 3) == "0.012345" and _text(2.5e-9, 9) == "2.5" and _text(1e-20, 3) == "1e-17"
+    with pytest.raises(ValueError):
+        _value("1.2.3", 3)
 
 
 BARE = ("transmission", "resolving_power", "landed", "left")

@@ -318,6 +318,7 @@ def cmd_scan(args, echo) -> int:
     from tracer import footprint
     from tracer.executors import ClusterError, ClusterLost, cluster_executor
     from tracer.pipeline import solve
+    from tracer.measure import file_column
     from tracer.plot import plot_scan
     from tracer.scans import scan, voltage_sets
     from tracer.schema import scan_column, scan_unit
@@ -354,7 +355,7 @@ def cmd_scan(args, echo) -> int:
         best = result.smallest(figure)
         if best is not None:
             at = ", ".join(f"{n} = {v:g} {scan_unit(n, result.coils)}" for n, v in best[1].items())
-            echo(f"  smallest {figure}: {best[0] * 1e3:.4g} mm at {at}")
+            echo(f"  smallest {file_column(figure)[0]}: {best[0] * 1e3:.4g} mm at {at}")
     for f in result.files + tuple(plot_scan(table, result.names, out, title=setup.title, coils=result.coils)):
         echo(f"wrote {f}")
     _caution(_volts(setup) + [v for n in result.names if scan_unit(n, result.coils) == "V"

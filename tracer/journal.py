@@ -3,20 +3,29 @@
 ``scan.journal``
     One line per finished set, appended, flushed and fsynced as each set completes (in completion
     order), after a first line ``# tracer scan journal; config sha256 <hash>`` and a header row
-    ``set,<columns>`` (``set`` is the set's index in the scan order).  Numbers are written in
-    Python's shortest round-trip form, so rows read back are bit for bit those computed.  This is
-    what a scan resumes from; nothing finished is lost when the process is killed.
+    ``set,<columns>`` (``set`` is the set's index in the scan order).  This is what a scan resumes
+    from; nothing finished is lost when the process is killed.
 ``scan.csv``
-    The table to read: the header row ``set,<columns>`` first (every column named with its unit
-    as the suffix, as in ``landings.csv``: ``lens_V``, ``spot_rms_m``, ``tof_mean_s``; fractions
-    and counts bare), then the finished rows in scan order, numbers as in the journal; no comment
-    line, so any CSV reader takes it as it is.  Rewritten atomically with ``scan.h5``.
+    The table to read: the header row ``set,<columns>`` first, then the finished rows in scan
+    order, as in the journal; no comment line, so any CSV reader takes it as it is.  Rewritten
+    atomically with ``scan.h5``.
 ``scan.h5``
     The finished rows in scan order (``tracer/scan/table``, with their indices in
-    ``tracer/scan/set``) and the config hash (attribute ``config_sha256``), rewritten atomically
+    ``tracer/scan/set``; the attribute ``columns`` names the columns and ``units`` gives each
+    column's unit, "" for a bare one) and the config hash (attribute ``config_sha256``), rewritten atomically
     (temporary file renamed into place) when asked (:meth:`Rows.write_tables`): at least every
     ``h5_interval_s`` seconds of a scan, on an interrupt and at the end.  After a kill, the two
     tables may lack the last sets; the journal has them and the next run rewrites both.
+
+The three files give the figures in landings.csv's units, each column's unit its name's suffix
+(:func:`tracer.measure.file_column`): lengths in mm (``spot_rms_mm``), times in ns
+(``tof_mean_ns``), angles in mrad (``divergence_x_mrad``), energies in eV, voltages in V, currents
+in A; shares of the rays and ratios bare.  A scan's own table (``ScanResult.table``) is SI, as
+the rest of the Python API (``spot_rms_m``).  A value is written as the shortest decimal that reads
+back as the SI float (Python's ``repr``) with its decimal point moved (1.2345e-05 m is 0.012345
+mm), so moving the point back reads every row bit for bit as it was computed.  The files of an
+earlier tracer, in SI units (``spot_rms_m``), are read and resumed as they are; a resumed journal
+is rewritten in these units.
 
 Opening the journal of a folder again reads ``scan.journal`` and keeps the finished sets; a last
 line cut short by a killed process is dropped.  (A folder of an earlier tracer, whose ``scan.csv``
@@ -36,12 +45,16 @@ import dataclasses
 import hashlib
 import itertools
 import json
+import math
 import os
+from decimal import Decimal, InvalidOperation
 from pathlib import Path
 
 import numpy as np
 
 from tracer import __version__
+from tracer.bounds import BOUNDS
+from tracer.measure import FILE_UNITS, SCAN_UNITS, file_column, si_column
 from tracer.store.atomic import atomic_path
 
 TABLE_FORMAT = "tracer-scan-1"
@@ -93,8 +106,41 @@ def config_hash(setup, names, sets) -> str:
     return hashlib.sha256(text.encode()).hexdigest()
 
 
-def _number(value) -> str:
-    return repr(float(value))
+def _text(value, power) -> str:
+    """A value in a file's unit: the shortest decimal that reads back as the SI float (``repr``)
+    with its point moved ``power`` places (exact); without a power, and for NaN and infinities,
+    ``repr`` itself."""
+    value = float(value)
+    if power == 0 or not math.isfinite(value):
+        return repr(value)
+    moved = Decimal(repr(value)).scaleb(power)
+    return format(moved, "f" if -6 <= moved.adjusted() < 16 else "e")
+
+
+def _value(text, power) -> float:
+    """The SI float of a file's number given in a unit ``power`` places of ten above SI (the
+    inverse of :func:`_text`, bit for bit).
+
+    Raises
+    ------
+    ValueError
+        When the text is not a number.
+    """
+    if power == 0:
+        return float(text)
+    try:
+        return float(Decimal(text.strip()).scaleb(-power))
+    except InvalidOperation:
+        raise ValueError(f"not a number: {text!r}") from None
+
+
+_UNITS = {u for _, u, _ in FILE_UNITS} | set(SCAN_UNITS) | {k for k in BOUNDS if k.startswith("_")}
+
+
+def _unit(column) -> str:
+    """The unit a files' column is given in, from its name's suffix ("" for a bare one)."""
+    suffix = "_" + column.rpartition("_")[2]
+    return suffix[1:] if "_" in column and suffix in _UNITS else ""
 
 
 class Rows:
@@ -114,7 +160,10 @@ class Rows:
 
     def __init__(self, folder, digest, header, sets):
         self.folder, self.digest, self.header, self.sets = folder, digest, tuple(header), sets
+        self.file_header = tuple(file_column(c)[0] for c in self.header)
+        self.powers = tuple(file_column(c)[1] for c in self.header)
         self.done = {}
+        self._lines = {}
         self.resumed = 0
         self.moved = []
         self._handle = None
@@ -125,22 +174,22 @@ class Rows:
         self.csv = folder / CSV_NAME
         self.h5 = folder / H5_NAME
         _adopt_old_journal(folder)
-        lines = self._read()
-        if lines is None:
+        found = self._read()
+        if found is None:
             self._start_fresh()
         else:
-            self._resume(lines)
+            self._resume(*found)
         self._handle = open(self.journal, "ab", buffering=0)   # unbuffered: a failed write is not retried on closing
 
     def _read(self):
-        """Lines of an existing journal of this config, or None.
+        """Lines of an existing journal of this config and the powers of ten of its columns, or None.
 
         The files of another config (or tables without a journal) are set aside first; this
         config's own archive, when there is one, is then taken back (module notes)."""
         if self.journal.exists():
             lines = self.journal.read_bytes().decode("utf-8", errors="replace").split("\n")
-            if self._ours(lines):
-                return lines
+            if self._layout(lines) is not None:
+                return lines, self._layout(lines)
             first = lines[0]
             self._set_aside(first.removeprefix(_FIRST_LINE)[:12] if first.startswith(_FIRST_LINE) else "unknown")
         elif self.csv.exists() or self.h5.exists():
@@ -149,16 +198,21 @@ class Rows:
             if not self.journal.with_name(f"{stem}.journal").exists():
                 return None
             lines = self.journal.with_name(f"{stem}.journal").read_bytes().decode("utf-8", errors="replace").split("\n")
-            if self._ours(lines):
+            if self._layout(lines) is not None:
                 for path in (self.journal, self.csv, self.h5):
                     with contextlib.suppress(FileNotFoundError):
                         self._move(path.with_name(f"{stem}{path.suffix}"), path)
-                return lines
+                return lines, self._layout(lines)
         return None
 
-    def _ours(self, lines):
-        """Whether a journal's first two lines are this config's (its hash and columns)."""
-        return lines[:2] == self._prologue().split("\n")[:2]
+    def _layout(self, lines):
+        """The powers of ten of a journal's columns when its first two lines are this config's (its
+        hash, and its columns in the files' units or, written by an earlier tracer, in SI); else None."""
+        if lines[:1] != [f"{_FIRST_LINE}{self.digest}"] or len(lines) < 2:
+            return None
+        if lines[1] == ",".join(("set",) + self.file_header):
+            return self.powers
+        return (0,) * len(self.header) if lines[1] == ",".join(("set",) + self.header) else None
 
     def _set_aside(self, tag):
         """Move the journal and tables to the first archive names of ``tag`` that none of them
@@ -178,33 +232,34 @@ class Rows:
         return f"{_FIRST_LINE}{self.digest}\n" + self._header()
 
     def _header(self):
-        return ",".join(("set",) + self.header) + "\n"
+        return ",".join(("set",) + self.file_header) + "\n"
 
     def _start_fresh(self):
         with atomic_path(self.journal) as tmp:
             _write_synced(tmp, self._prologue())
 
-    def _resume(self, lines):
-        """Take the valid rows; rewrite the file atomically when a line is cut short or bad.
+    def _resume(self, lines, powers):
+        """Take the valid rows; rewrite the file atomically when a line is cut short or bad, or
+        when it gives the figures in SI units (an earlier tracer's).
 
         Only lines ended by a newline count: the text after the last newline (empty for an intact
         file) is what a killed process may have left half written.
         """
-        clean = lines[-1] == ""
+        clean = lines[-1] == "" and powers == self.powers
         for line in lines[2:-1]:
-            row = self._parse(line)
+            row = self._parse(line, powers)
             if row is None or row[0] in self.done:
                 clean = False
                 continue
             self.done[row[0]] = row[1]
+            self._lines[row[0]] = self._line(*row)
         self.resumed = len(self.done)
         if not clean:
             with atomic_path(self.journal) as tmp:
-                _write_synced(tmp, self._prologue() + "".join(
-                    self._line(i, v) for i, v in sorted(self.done.items())))
+                _write_synced(tmp, self._prologue() + "".join(self._lines[i] for i in sorted(self.done)))
 
-    def _parse(self, line):
-        row = _parse_line(line, len(self.header))
+    def _parse(self, line, powers):
+        row = _parse_line(line, powers)
         if row is None:
             return None
         index, values = row
@@ -214,7 +269,7 @@ class Rows:
         return row
 
     def _line(self, index, values):
-        return ",".join([str(index)] + [_number(v) for v in values]) + "\n"
+        return ",".join([str(index)] + [_text(v, p) for v, p in zip(values, self.powers)]) + "\n"
 
     def add(self, index, values):
         """Record a finished row: appended, flushed and fsynced before returning.
@@ -226,8 +281,9 @@ class Rows:
             recorded before stay in the file; a part of this one is dropped when it is read back.
         """
         self.done[index] = values
+        self._lines[index] = self._line(index, values)
         if self._handle is not None:
-            line = memoryview(self._line(index, values).encode("utf-8"))
+            line = memoryview(self._lines[index].encode("utf-8"))
             try:
                 while line:
                     line = line[self._handle.write(line):]
@@ -236,24 +292,28 @@ class Rows:
                 raise OSError(exc.errno, exc.strerror, str(self.journal)) from None
 
     def table(self):
-        """The finished rows in scan order, as a structured array, and their set indices."""
+        """The finished rows in scan order, as a structured array (SI), and their set indices."""
         return _as_table(self.header, self.done)
 
     def write_tables(self):
-        """Rewrite ``scan.csv`` and ``scan.h5`` atomically with the finished rows, in scan order."""
+        """Rewrite ``scan.csv`` and ``scan.h5`` atomically with the finished rows, in scan order, in
+        the files' units (module notes)."""
         if self.folder is None:
             return
         from tracer.store.hdf5 import new_file
 
+        lines = [self._lines[i] for i in sorted(self.done)]
         with atomic_path(self.csv) as tmp:
-            _write_synced(tmp, self._header() + "".join(self._line(i, v) for i, v in sorted(self.done.items())))
-        table, index = self.table()
+            _write_synced(tmp, self._header() + "".join(lines))
+        table, index = _as_table(self.file_header, {int(line.partition(",")[0]): np.array(
+            line.rstrip("\n").split(",")[1:], dtype=float) for line in lines})
         with new_file(self.h5) as f:
             group = f.create_group(H5_GROUP)
             group.attrs["format"] = TABLE_FORMAT
             group.attrs["config_sha256"] = self.digest
             group.attrs["sets_total"] = len(self.sets)
-            group.attrs["columns"] = json.dumps(list(self.header))
+            group.attrs["columns"] = json.dumps(list(self.file_header))
+            group.attrs["units"] = json.dumps([_unit(c) for c in self.file_header])
             group.create_dataset("table", data=table)
             group.create_dataset("set", data=index)
 
@@ -263,13 +323,14 @@ class Rows:
             self._handle = None
 
 
-def _parse_line(line, width):
-    """``(set index, values)`` of a table line with ``width`` values, or None when it is not one."""
+def _parse_line(line, powers):
+    """``(set index, SI values)`` of a table line with a value in each column given ``powers``
+    places of ten above SI, or None when it is not one."""
     fields = line.split(",")
-    if len(fields) != width + 1:
+    if len(fields) != len(powers) + 1:
         return None
     try:
-        return int(fields[0]), np.array([float(f) for f in fields[1:]])
+        return int(fields[0]), np.array([_value(f, p) for f, p in zip(fields[1:], powers)])
     except ValueError:
         return None
 
@@ -323,6 +384,8 @@ def read_csv(path):
     Returns
     -------
     table : numpy structured array
+        In SI units, as ``ScanResult.table`` (``spot_rms_m``): the files' mm, ns and mrad read back
+        bit for bit as the values computed (module notes).
     index : int64[n]
     digest : str
         The config hash: from the journal's first line, else from the ``scan.journal`` or
@@ -345,9 +408,10 @@ def read_csv(path):
     body = lines[1:] if first else lines
     if len(body) < 2 or not body[0].startswith("set,"):
         raise StoreError(f"{path}: not a tracer scan table (its header does not start with 'set,')")
-    header = body[0].split(",")[1:]
+    columns = [si_column(c) for c in body[0].split(",")[1:]]
+    header, powers = [c for c, _ in columns], [-p for _, p in columns]
     # the text after the last newline may be half written; a bad line is skipped as on resuming
-    rows = [_parse_line(line, len(header)) for line in body[1:-1]]
+    rows = [_parse_line(line, powers) for line in body[1:-1]]
     table, index = _as_table(header, dict(row for row in rows if row is not None))
     return table, index, digest if digest is not None else _digest_beside(path)
 
@@ -374,6 +438,7 @@ def read_h5(path):
     Returns
     -------
     table : numpy structured array
+        As stored: in the files' units (module notes; ``spot_rms_mm``), or SI from an earlier tracer.
     index : int64[n]
     digest : str
     """

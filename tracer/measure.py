@@ -50,7 +50,9 @@ several beams; ``where`` is the plane's name only when there are several planes,
 name always for a figure on one electrode, and nothing for a whole-beam figure.  Figure names have
 no dot, so the part after the last dot is always the figure.  With one beam and one plane the
 columns read ``transmission``, ``spot_rms_m``, ..., ``focus.landed``, ..., ``landed``, ...
-A figure of no rays (nothing crossed a plane, nothing landed) is NaN.
+A figure of no rays (nothing crossed a plane, nothing landed) is NaN.  These names and their values
+are SI (``ScanResult.table``); the scan files give them in landings.csv's units, mm, ns and mrad
+(:func:`file_column`: ``spot_rms_mm``, ``tof_mean_ns``, ``divergence_x_mrad``).
 """
 
 from __future__ import annotations
@@ -570,6 +572,34 @@ def columns(beams, planes, electrodes):
 
 SCAN_UNITS = ("_m", "_rad", "_eV", "_s", "_A", "_V")
 """The unit suffixes of scan columns (SI; a share of the rays or a ratio has none)."""
+
+FILE_UNITS = (("_m", "_mm", 3), ("_s", "_ns", 9), ("_rad", "_mrad", 3))
+"""How the scan files (``scan.csv``, ``scan.journal``, ``scan.h5``) and pictures give the SI figure
+columns: in landings.csv's units, mm and ns, and angles in mrad (the SI suffix, the file's suffix,
+the power of ten between them); eV, V, A and bare figures as they are."""
+
+
+def file_column(name):
+    """The scan files' name of an SI scan column and the power of ten from its value to theirs
+    (:data:`FILE_UNITS`: ``spot_rms_m`` -> (``spot_rms_mm``, 3), ``tof_mean_s`` -> (``tof_mean_ns``,
+    9), ``lens_V`` -> (``lens_V``, 0)); a waveform parameter's column (``<electrode>.<part>[i].<key>``,
+    in its config unit already) as it is."""
+    if "[" not in name:
+        for si, unit, power in FILE_UNITS:
+            if name.endswith(si):
+                return name.removesuffix(si) + unit, power
+    return name, 0
+
+
+def si_column(name):
+    """The SI name of a scan files' column and the power of ten from its value to the SI one
+    (the inverse of :func:`file_column`; a name already SI, as in the files of an earlier tracer,
+    as it is)."""
+    if "[" not in name:
+        for si, unit, power in FILE_UNITS:
+            if name.endswith(unit):
+                return name.removesuffix(unit) + si, -power
+    return name, 0
 
 
 def grid_column(figure):

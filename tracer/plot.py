@@ -34,7 +34,7 @@ from matplotlib import ticker
 from matplotlib.collections import LineCollection
 from matplotlib.figure import Figure
 
-from tracer.measure import counted, frame, grid_column, plane_figures, ray_weights
+from tracer.measure import FILE_UNITS, counted, frame, grid_column, plane_figures, ray_weights
 from tracer.schema import scan_column, scan_unit
 from tracer.stats import beta_gamma, radius, rms_emittance
 from tracer.store.atomic import atomic_path
@@ -487,8 +487,9 @@ def run_figures(field, runs, out, title=None) -> list[Path]:
     return [f for f in files if f is not None]
 
 
-_UNITS = (("_mrad", 1.0, "mrad"), ("_rad", 1e3, "mrad"), ("_m", MM, "mm"), ("_s", 1e6, "µs"),
-          ("_eV", 1.0, "eV"), ("_V", 1.0, "V"), ("_A", 1.0, "A"))
+_UNITS = ((("_mrad", 1.0, "mrad"),) + tuple((si, 10.0 ** power, unit[1:]) for si, unit, power in FILE_UNITS)
+          + (("_eV", 1.0, "eV"), ("_V", 1.0, "V"), ("_A", 1.0, "A")))
+"""(SI suffix, factor, unit shown) of a scan column: the scan files' units (mm, ns, mrad)."""
 
 
 _WORDS = {"transmission": "transmission (share of the rays)", "spot_rms": "rms spot radius",
