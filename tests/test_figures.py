@@ -11,7 +11,10 @@ from matplotlib.figure import Figure
 from tracer import plot
 from tracer.beam import trace
 from tracer.measure import plane_figures
+from tracer.optics import paraxial
+from tracer.tuning import TuneResult
 
+from test_optics import OMEGA, R, TanhLens, stand_in
 from test_trace import plates
 
 PLANE = '[[plane]]\nname = "mid"\nz_mm = 5.0\n'
@@ -128,3 +131,85 @@ def test_the_spot_figure_in_planar_symmetry_is_the_profile_across_y():
     data = profile.patches[0].get_data()
     assert np.sum(data.values * 2 * np.diff(data.edges)) == pytest.approx(plane_figures(run, "mid").count)
     assert share.get_lines()[0].get_ydata()[-1] == pytest.approx(1.0)
+
+
+# ------------------------------------------------------------------ the tune and optics figures
+
+
+def _points(names, values, objective):
+    points = np.zeros(len(values), dtype=[(f"{n}_V", float) for n in names] + [("value", float), ("objective", float)])
+    points["value"], points["objective"] = values, objective
+    return points
+
+
+def test_the_tune_figure_draws_every_trial_and_marks_the_best():
+    """One varied electrode: every trial's figure against its voltage, in the figure's display unit
+    (mm for a spot in m), the best trial (smallest objective) starred and named in the legend."""
+    volts = np.array([600.0, 900.0, 750.0, 700.0, 720.0])
+    spot = 1e-4 * (1 + (volts - 710.0) ** 2 / 1e4)
+    points = _points(["lens"], spot, spot)
+    points["lens_V"] = volts
+    result = TuneResult({"lens": 710.0}, float(spot[3]), float(spot[3]), "smallest_spot", "spot_rms_m", points,
+                        "Nelder-Mead")
+    fig = plot.tune_figure(result)
+    [ax] = fig.axes
+    trials, best = ax.collections
+    assert np.array_equal(trials.get_offsets(), np.column_stack([volts, spot * 1e3]))
+    assert np.array_equal(best.get_offsets(), [[700.0, spot[3] * 1e3]])
+    assert ax.get_xlabel() == "lens (V)" and ax.get_ylabel() == "rms spot radius (mm)"
+    assert ax.get_title() == "tune: smallest_spot"
+    assert [t.get_text() for t in ax.get_legend().get_texts()] == ["trials", "best: lens = 710 V"]
+
+
+def test_the_tune_figure_of_several_voltages_runs_over_the_trials():
+    """Two varied electrodes: the figure against the trial number (1, 2, ...); a time figure in ns,
+    as the scan files give it."""
+    width = np.array([3e-9, 2e-9, 2.5e-9, 1.5e-9])
+    points = _points(["lens", "ring"], width, -np.array([1.0, 2.0, 5.0, 3.0]))
+    result = TuneResult({"lens": 1.0, "ring": 2.0}, float(width[2]), -5.0, "custom", "tof_fwhm_s", points, "x")
+    [ax] = plot.tune_figure(result).axes
+    trials, best = ax.collections
+    assert np.allclose(trials.get_offsets(), np.column_stack([[1, 2, 3, 4], width * 1e9]), rtol=1e-15, atol=0)
+    assert np.allclose(best.get_offsets(), [[3, 2.5]], rtol=1e-15, atol=0)   # the objective's smallest, not the value's
+    assert ax.get_xlabel() == "trial" and ax.get_ylabel() == "time-of-flight FWHM (ns)"
+
+
+def test_the_optics_figure_draws_the_axial_potential_and_the_fundamental_rays():
+    """Protons of 1 keV through the two-tube lens of the tanh model (Harting & Read 1976, omega = 1.318),
+    accelerated by 3 kV: the drawn axial
+    potential is the model's on the axis, its derivatives on the twin axis, the ray g entering
+    parallel at unit height, and the image focus and principal plane marked where LensProperties
+    puts them; the title gives f, Cs and Cc in mm."""
+    props = paraxial(stand_in(TanhLens(0.0, -3000.0).potential, half=0.1), "p+", 1000.0)
+    fig = plot.optics_figure(props)
+    top, bottom, twin = fig.axes
+    [v] = top.get_lines()
+    z = v.get_xdata() / 1e3
+    assert np.array_equal(v.get_xdata(), props.z_m * 1e3)
+    assert np.allclose(v.get_ydata(), -1500.0 - 1500.0 * np.tanh(OMEGA * z / R), rtol=0, atol=1e-3)
+    d1, d2 = twin.get_lines()
+    k = OMEGA / R
+    t = np.tanh(k * z)
+    assert np.allclose(d1.get_ydata(), -1500.0 * k * (1 - t * t), rtol=0, atol=1e-3 * 1500 * k)
+    assert np.array_equal(d2.get_ydata(), props.axial[2] * 1e-3)
+    assert top.get_ylabel() == "axial potential V (V)" and twin.get_ylabel() == "V' (V/m), V'' (kV/m²)"
+    assert bottom.get_xlabel() == "z (mm)" and bottom.get_ylabel() == "ray height (relative)"
+    g = bottom.get_lines()[0]
+    assert g.get_label().startswith("g:") and g.get_ydata()[0] == pytest.approx(1.0)
+    marks = {a.get_text(): a.xy[0] for a in bottom.texts}
+    assert set(marks) == {"F_o", "P_o", "P_i", "F_i"}
+    assert marks["F_o"] == pytest.approx(props.focus_object_z_m * 1e3)
+    assert marks["F_i"] == pytest.approx(props.focus_image_z_m * 1e3)
+    assert marks["P_i"] == pytest.approx(props.principal_image_z_m * 1e3)
+    assert f"f = {props.f_image_m * 1e3:.4g} mm" in top.get_title() and "Cs = " in top.get_title()
+
+
+def test_the_optics_figure_of_a_mirror_marks_where_the_particle_turns():
+    """Protons of 300 eV against a tube 1000 V up turn back where the potential reaches 300 V: the
+    tanh model's z = (R / omega) artanh(2 * 300 / 1000 - 1) (Harting & Read 1976); no rays drawn."""
+    props = paraxial(stand_in(TanhLens(0.0, 1000.0).potential), "p+", 300.0)
+    top, bottom, _ = plot.optics_figure(props).axes
+    turn = R / OMEGA * math.atanh(2 * 300.0 / 1000.0 - 1) * 1e3
+    [line] = [l for l in top.get_lines() if l.get_linestyle() == "--"]
+    assert line.get_xdata()[0] == pytest.approx(turn, abs=1e-3)
+    assert "turns back" in top.get_title() and not bottom.get_lines()
