@@ -203,7 +203,8 @@ def test_command_line(pierce, tmp_path, capsys):
     out = capsys.readouterr().out
     assert code == 0
     for word in ("converged", "perveance", "crossover at z", "emission across the cathode",
-                 "plane exit", "emittance", "CAUTION", "X-rays"):
+                 "crossed planes", "exit", "emittance", "weighted by the rays' current", "d50",
+                 "CAUTION", "X-rays"):
         assert word in out
     assert (tmp_path / "rays.png").stat().st_size > 10_000
     # the emitted beam's result.h5 and landings.csv, as tracer run writes them: every ray, with the

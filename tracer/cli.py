@@ -230,9 +230,9 @@ def cmd_gun(args, echo) -> int:
     import numpy as np
 
     from tracer.guns import gun
-    from tracer.measure import plane_figures
     from tracer.pipeline import RunResult, write_run_outputs
     from tracer.plot import plot_field
+    from tracer.report import format_summary
 
     setup = _load(args)
     if setup.gun is None:
@@ -257,12 +257,9 @@ def cmd_gun(args, echo) -> int:
     else:
         echo(f"  crossover at z = {result.crossover_z_m * 1e3:.3f} mm, "
              f"rms radius {result.crossover_radius_m * 1e3:.4g} mm")
-    for plane in setup.planes if result.run is not None else ():
-        st = plane_figures(result.run, plane.name)
-        echo(f"  plane {plane.name} ({result.run.crossing_rule(plane.name).label}): {st.fraction:.1%} of rays, "
-             f"rms radius {st.rms_radius_m * 1e3:.4g} mm, "
-             f"emittance x {st.emittance_x_m_rad * 1e6:.4g} mm mrad "
-             f"(normalized {st.norm_emittance_x_m_rad * 1e6:.4g}); rays unweighted")
+    if result.run is not None:      # the emitted beam's summary, as tracer run prints it (weighted by current)
+        echo("")
+        echo(format_summary(result.run.summary()))
     if result.warning:
         echo(f"warning: {result.warning}")
     if result.run is None:          # nothing emitted: the field alone, to see why

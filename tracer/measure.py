@@ -19,7 +19,10 @@ per plane (``[[plane]]`` keys ``direction`` and ``crossing``, :class:`CrossingRu
    ``"all"`` (every one).
 
 The counted crossings are the rows of the plane's moments (a ray counted at two crossings, with
-``"all"``, adds two rows).  ``fraction`` (the scan tables' ``transmission``) is the share of the
+``"all"``, adds two rows).  Every figure of a plane weighs each row by its ray's current
+(:func:`ray_weights`) when the beam carries one, and counts the rows alike when it carries none: the
+centroid, the rms sizes, divergences and emittances, the FWHM, d50 and d90, the energy and time
+moments and the best focus (a ray of twice the current counts as two rays).  ``fraction`` (the scan tables' ``transmission``) is the share of the
 rays started that have a counted crossing, and ``current_A`` the current those rays carry, each ray
 once.  A ray that turns exactly at the plane (pn = 0 at the crossing) counts only in direction
 ``"any"``.  Labels such as ``"first crossing"`` or ``"2nd crossing, -z"`` (:attr:`CrossingRule.label`)
@@ -172,7 +175,8 @@ def counted(run, plane):
 
 @dataclass(frozen=True)
 class PlaneStats:
-    """The figures of a beam at a plane, over the crossings that count (module notes).
+    """The figures of a beam at a plane, over the crossings that count (module notes), each weighted
+    by the rays' current when the beam carries one.
 
     On a tilted plane x, y, px, py and pz stand for the plane's own u, v, pu, pv and pn
     (:func:`tracer.beam.plane_coordinates`, :func:`frame`).
@@ -341,50 +345,49 @@ def plane_stats(rows, species, records, time_zero_s=0.0, along_z=True, focus_win
     """
     x, y, pu, pv, pn = frame(rows)
     xs, ys = pu / pn, pv / pn
-    cx, cy = mean(x), mean(y)
-    bg = beta_gamma(rows, species.mass_kg)
-    ex, ey = rms_emittance(x, xs), rms_emittance(y, ys)
     n = len(records)
     weights = records["weight_A"] if "weight_A" in records.dtype.names else np.zeros(n)
     charged = weights.sum() > 0
-    ray_weight = ray_weights(records, rows)
+    w = ray_weights(records, rows)
+    cx, cy = mean(x, w), mean(y, w)
+    bg = beta_gamma(rows, species.mass_kg, w)
+    ex, ey = rms_emittance(x, xs, w), rms_emittance(y, ys, w)
     t = rows["time_s"]
-    width = fwhm(t, ray_weight)
+    width = fwhm(t, w)
     z0 = mean(rows["z_m"]) if along_z else math.nan
     on = np.isfinite(xs) & np.isfinite(ys)        # a ray turning in the plane has no straight line
-    line = (x[on], y[on], xs[on], ys[on])
+    line = (x[on], y[on], xs[on], ys[on], None if w is None else w[on])
     s_rms, focus_rms = straight_waist(*line)
     if not focus_window_m[0] <= z0 + s_rms <= focus_window_m[1]:
         s_rms, focus_rms = math.nan, math.nan
-    s_d50, focus_d50 = straight_d50_waist(*line, None if ray_weight is None else ray_weight[on],
-                                          window=(focus_window_m[0] - z0, focus_window_m[1] - z0))
+    s_d50, focus_d50 = straight_d50_waist(*line, window=(focus_window_m[0] - z0, focus_window_m[1] - z0))
     return PlaneStats(
         count=len(rows),
         fraction=len(np.unique(rows["ray"])) / n if n else math.nan,
         centroid_x_m=cx,
         centroid_y_m=cy,
-        rms_radius_m=math.sqrt(mean((x - cx) ** 2 + (y - cy) ** 2)),
-        rms_radius_axis_m=math.sqrt(mean(x * x + y * y)),
-        rms_x_m=std(x),
-        rms_y_m=std(y),
-        rms_divergence_x_rad=std(xs),
-        rms_divergence_y_rad=std(ys),
+        rms_radius_m=math.sqrt(mean((x - cx) ** 2 + (y - cy) ** 2, w)),
+        rms_radius_axis_m=math.sqrt(mean(x * x + y * y, w)),
+        rms_x_m=std(x, w),
+        rms_y_m=std(y, w),
+        rms_divergence_x_rad=std(xs, w),
+        rms_divergence_y_rad=std(ys, w),
         emittance_x_m_rad=ex,
         emittance_y_m_rad=ey,
         norm_emittance_x_m_rad=bg * ex,
         norm_emittance_y_m_rad=bg * ey,
         beta_gamma=bg,
-        energy_mean_eV=mean(rows["energy_eV"]),
-        energy_std_eV=std(rows["energy_eV"]),
-        time_mean_s=mean(t),
-        time_std_s=std(t),
+        energy_mean_eV=mean(rows["energy_eV"], w),
+        energy_std_eV=std(rows["energy_eV"], w),
+        time_mean_s=mean(t, w),
+        time_std_s=std(t, w),
         time_fwhm_s=width,
-        resolving_power=(mean(t) - time_zero_s) / (2.0 * width) if width > 0.0 else math.nan,
+        resolving_power=(mean(t, w) - time_zero_s) / (2.0 * width) if width > 0.0 else math.nan,
         current_A=(float(weights[np.isin(records["ray"], rows["ray"])].sum()) if charged else math.nan),
-        fwhm_x_m=fwhm(x, ray_weight),
-        fwhm_y_m=fwhm(y, ray_weight),
-        d50_m=containing_diameter(x - cx, y - cy, 0.5, ray_weight),
-        d90_m=containing_diameter(x - cx, y - cy, 0.9, ray_weight),
+        fwhm_x_m=fwhm(x, w),
+        fwhm_y_m=fwhm(y, w),
+        d50_m=containing_diameter(x - cx, y - cy, 0.5, w),
+        d90_m=containing_diameter(x - cx, y - cy, 0.9, w),
         focus_z_m=z0 + s_rms,
         focus_rms_m=focus_rms if along_z else math.nan,
         focus_d50_z_m=z0 + s_d50,
@@ -395,10 +398,12 @@ def plane_stats(rows, species, records, time_zero_s=0.0, along_z=True, focus_win
 
 def ray_weights(records, rows):
     """The current each of ``rows`` carries (its ray's ``weight_A`` in ``records``, the rays started
-    in ray order), or None when the rays carry no current."""
+    in ray order), or None when they carry none: the weights of every figure of a plane (module
+    notes)."""
     if "weight_A" not in records.dtype.names or not records["weight_A"].sum() > 0:
         return None
-    return records["weight_A"][np.searchsorted(records["ray"], rows["ray"])]
+    w = records["weight_A"][np.searchsorted(records["ray"], rows["ray"])]
+    return w if w.sum() > 0 else None
 
 
 def plane_figures(run, plane):

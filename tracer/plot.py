@@ -36,7 +36,7 @@ from matplotlib.figure import Figure
 
 from tracer.measure import FILE_UNITS, counted, frame, grid_column, plane_figures, ray_weights
 from tracer.schema import scan_column, scan_unit
-from tracer.stats import beta_gamma, radius, rms_emittance
+from tracer.stats import mean, radius
 from tracer.store.atomic import atomic_path
 
 MM = 1e3
@@ -292,7 +292,8 @@ def phase_space_figure(run, plane, symmetry="axial") -> Figure | None:
     plane the summary's emittance is quoted in), (y, y') in planar, (v, v') along a tilted plane's
     line (:func:`tracer.beam.plane_coordinates`), of the crossings that count for the plane's
     figures (:func:`tracer.measure.counted`).  The legend gives the rms emittance in mm mrad, π not
-    in the unit, and the normalised one, βγ times it.
+    in the unit, and the normalised one, βγ times it: the plane's figures (:mod:`tracer.measure`,
+    weighted by the rays' current when they carry one, as the ellipse).
 
     ``run`` is a BeamRun (traced, or read back from a result file).  None when no crossing counts."""
     rows = counted(run, plane)
@@ -311,12 +312,14 @@ def phase_space_figure(run, plane, symmetry="axial") -> Figure | None:
     # and stroking 10^4 outlines would double the drawing time
     dots = ax.scatter(u * MM, slope * 1e3, s=10.5, c=rows["energy_eV"], cmap="viridis", linewidths=0)
     fig.colorbar(dots, ax=ax, label="kinetic energy (eV)")
-    eps = rms_emittance(u, slope)
-    ellipse = rms_ellipse(u, slope)
+    stats = plane_figures(run, plane)
+    eps, norm = ((stats.emittance_x_m_rad, stats.norm_emittance_x_m_rad) if side == "x"
+                 else (stats.emittance_y_m_rad, stats.norm_emittance_y_m_rad))
+    ellipse = rms_ellipse(u, slope, ray_weights(run.records, rows))
     if ellipse is not None:
         ax.plot(ellipse[0] * MM, ellipse[1] * 1e3, color="crimson", lw=1.2,
                 label=f"rms ellipse: ε = {eps * 1e6:.4g} mm mrad (π not in the unit),\n"
-                      f"normalised βγε = {beta_gamma(rows, run.species.mass_kg) * eps * 1e6:.4g} mm mrad")
+                      f"normalised βγε = {norm * 1e6:.4g} mm mrad")
         ax.legend(fontsize=7, loc="upper left")
     ax.set_xlabel(f"{side} (mm)")
     ax.set_ylabel(f"{side}' (mrad)")
@@ -390,20 +393,21 @@ def spot_figure(run, plane, symmetry="axial") -> Figure | None:
     return fig
 
 
-def rms_ellipse(u, slope, points=181):
+def rms_ellipse(u, slope, weights=None, points=181):
     """The rms ellipse of a phase-space distribution: the points (u, u') with
     d^T S^-1 d = 1, d the offset from the centroid and S the covariance of (u, u') (its area is
-    π times the rms emittance; Lapostolle 1971).  None for fewer than two rays or a degenerate S."""
+    π times the rms emittance; Lapostolle 1971), both weighted by ``weights`` (the rays' currents)
+    when given.  None for fewer than two rays or a degenerate S."""
     if len(u) < 2:
         return None
-    cov = np.cov(np.stack([u, slope]), bias=True)
+    cov = np.cov(np.stack([u, slope]), bias=True, aweights=weights)
     try:
         root = np.linalg.cholesky(cov)
     except np.linalg.LinAlgError:
         return None
     angle = np.linspace(0.0, 2.0 * np.pi, points)
     circle = np.stack([np.cos(angle), np.sin(angle)])
-    return root @ circle + np.array([[np.mean(u)], [np.mean(slope)]])
+    return root @ circle + np.array([[mean(u, weights)], [mean(slope, weights)]])
 
 
 def waveforms_figure(grouped, runs, points=20_001) -> Figure | None:

@@ -271,7 +271,9 @@ def format_summary(summary: dict) -> str:
         parts.append(format_table(
             ["plane", "fraction", "current A"] + [label for label, _, _ in cols]
             + ["E mean eV", "E std eV", "tof ns", "tof std ns"], rows,
-            title="crossed planes (emittances rms, pi not in the unit)"))
+            title="crossed planes (emittances rms, pi not in the unit"
+                  + ("; every figure weighted by the rays' current)" if math.isfinite(s.get("current_A", math.nan))
+                     else ")")))
         parts += [t for t in (_spots(s), _focus(s), _rotation(s)) if t]
         timed = {name: d for name, d in s["planes"].items() if "resolving_power" in d}
         if timed:

@@ -2,8 +2,10 @@
 
 Pure functions of arrays, or of the rows of a traced beam (fields ``x_m``,
 ``y_m``, ``px``, ``py``, ``pz``, ...); :mod:`tracer.measure` builds the figures
-from them.  Moments are population moments (divided by N).  An empty selection
-gives NaN for every moment, without a warning.
+from them.  Moments are population moments (divided by N), or with weights (the rays' currents)
+weighted ones, sum w a / sum w: a ray of twice the current counts as two rays.  Weights of no total
+(None, or summing to 0) count the rays alike.  An empty selection gives NaN for every moment,
+without a warning.
 
 Emittance
 ---------
@@ -68,14 +70,20 @@ import numpy as np
 from scipy import constants, optimize
 
 
-def mean(a):
-    """Mean of an array, NaN when empty."""
-    return float(np.mean(a)) if len(a) else math.nan
+def mean(a, weights=None):
+    """Mean of an array (weighted, module notes), NaN when empty."""
+    if not len(a):
+        return math.nan
+    if weights is None or not np.sum(weights) > 0:
+        return float(np.mean(a))
+    return float(np.average(a, weights=weights))
 
 
-def std(a):
-    """Population standard deviation, NaN when empty."""
-    return float(np.std(a)) if len(a) else math.nan
+def std(a, weights=None):
+    """Population standard deviation (weighted, module notes), NaN when empty."""
+    if weights is None or not len(a) or not np.sum(weights) > 0:
+        return float(np.std(a)) if len(a) else math.nan
+    return math.sqrt(mean((a - mean(a, weights)) ** 2, weights))
 
 
 def extreme(a, fn):
@@ -88,7 +96,7 @@ def radius(rows, symmetry="axial"):
     return rows["y_m"] if symmetry == "planar" else np.hypot(rows["x_m"], rows["y_m"])
 
 
-def rms_emittance(u, slope):
+def rms_emittance(u, slope, weights=None):
     """Statistical rms emittance sqrt(<du^2><du'^2> - <du du'>^2).
 
     Parameters
@@ -97,6 +105,8 @@ def rms_emittance(u, slope):
         Transverse positions (m).
     slope : ndarray
         The slopes u' (rad) of the same rays.
+    weights : ndarray, optional
+        The rays' currents: weighted moments (module notes).
 
     Returns
     -------
@@ -106,21 +116,22 @@ def rms_emittance(u, slope):
     """
     if not len(u):
         return math.nan
-    du = u - u.mean()
-    ds = slope - slope.mean()
+    du = u - mean(u, weights)
+    ds = slope - mean(slope, weights)
     # <du^2><ds^2> - <du ds>^2 = <du^2> <(ds - k du)^2> with k = <du ds>/<du^2>: the
     # residual of the linear fit keeps its precision where the difference would cancel.
-    var_u = np.mean(du * du)
+    var_u = mean(du * du, weights)
     if var_u == 0.0:
         return 0.0
-    residual = ds - (np.mean(du * ds) / var_u) * du
-    return math.sqrt(var_u * np.mean(residual * residual))
+    residual = ds - (mean(du * ds, weights) / var_u) * du
+    return math.sqrt(var_u * mean(residual * residual, weights))
 
 
-def beta_gamma(rows, mass_kg):
-    """<|p|> / (m c) of the rows: the factor from the rms to the normalized emittance; NaN for none."""
+def beta_gamma(rows, mass_kg, weights=None):
+    """<|p|> / (m c) of the rows (weighted, module notes): the factor from the rms to the normalized
+    emittance; NaN for none."""
     px, py, pz = rows["px"], rows["py"], rows["pz"]
-    return mean(np.sqrt(px * px + py * py + pz * pz)) / (mass_kg * constants.c)
+    return mean(np.sqrt(px * px + py * py + pz * pz), weights) / (mass_kg * constants.c)
 
 
 FWHM_LEAST = 10
@@ -245,7 +256,7 @@ def containing_diameter(dx, dy, share, weights=None):
     return 2.0 * float(r[order][k])
 
 
-def straight_waist(x, y, xs, ys):
+def straight_waist(x, y, xs, ys, weights=None):
     """The waist of rays that go on in straight lines: where their rms radius is smallest.
 
     Parameters
@@ -254,6 +265,8 @@ def straight_waist(x, y, xs, ys):
         Positions in a plane (m).
     xs, ys : ndarray
         Slopes dx/ds, dy/ds along the plane's normal (rad).
+    weights : ndarray, optional
+        The rays' currents: weighted moments (module notes).
 
     Returns
     -------
@@ -263,10 +276,10 @@ def straight_waist(x, y, xs, ys):
     """
     if not len(x):
         return math.nan, math.nan
-    dx, dy, dxs, dys = (a - np.mean(a) for a in (x, y, xs, ys))
-    spread = float(np.mean(dx * dx + dy * dy))
-    tilt = float(np.mean(dx * dxs + dy * dys))
-    opening = float(np.mean(dxs * dxs + dys * dys))
+    dx, dy, dxs, dys = (a - mean(a, weights) for a in (x, y, xs, ys))
+    spread = mean(dx * dx + dy * dy, weights)
+    tilt = mean(dx * dxs + dy * dys, weights)
+    opening = mean(dxs * dxs + dys * dys, weights)
     if not opening > 0.0:
         return math.nan, math.nan
     s = -tilt / opening
@@ -296,11 +309,11 @@ def straight_d50_waist(x, y, xs, ys, weights=None, window=(-math.inf, math.inf),
         NaN for no rays, rays all parallel, an rms waist outside ``window`` or a smallest d50 at an
         end of the range searched (no waist found in it).
     """
-    s0, _ = straight_waist(x, y, xs, ys)
+    s0, _ = straight_waist(x, y, xs, ys, weights)
     if not window[0] <= s0 <= window[1]:
         return math.nan, math.nan
-    dx, dy, dxs, dys = (a - np.mean(a) for a in (x, y, xs, ys))
-    reach = max(math.sqrt(np.mean(dx * dx + dy * dy) / np.mean(dxs * dxs + dys * dys)), abs(s0))
+    dx, dy, dxs, dys = (a - mean(a, weights) for a in (x, y, xs, ys))
+    reach = max(math.sqrt(mean(dx * dx + dy * dy, weights) / mean(dxs * dxs + dys * dys, weights)), abs(s0))
 
     def d50(s):
         return containing_diameter(dx + dxs * s, dy + dys * s, 0.5, weights)
