@@ -81,6 +81,25 @@ def test_the_spot_figure_holds_the_spot_its_circles_and_its_profile(drift):
     assert profile.get_ylabel() == "ray density (rays / mm²)"
 
 
+def test_the_phase_space_figure_weighs_the_rays_by_their_current(drift):
+    """With uneven currents the phase-space figure is the plane's weighted figures: its rms ellipse
+    has the area pi eps (Lapostolle 1971) of the current-weighted rms emittance, which the legend
+    quotes with the normalised one; counting the rays alike gives another emittance."""
+    field, run = drift
+    records = run.records.copy()
+    records["weight_A"] = np.where(records["ray"] % 3 == 0, 5e-9, 1e-9)
+    weighted = dataclasses.replace(run, records=records)
+    stats = plane_figures(weighted, "mid")
+    assert stats.emittance_x_m_rad != pytest.approx(plane_figures(run, "mid").emittance_x_m_rad, rel=1e-3)
+    ax = plot.phase_space_figure(weighted, "mid").axes[0]
+    [ellipse] = ax.get_lines()
+    u, s = ellipse.get_xdata(), ellipse.get_ydata()
+    area = 0.5 * abs(np.dot(u[:-1], s[1:]) - np.dot(u[1:], s[:-1]))      # shoelace, mm mrad
+    assert area == pytest.approx(math.pi * stats.emittance_x_m_rad * 1e6, rel=1e-3)
+    assert f"ε = {stats.emittance_x_m_rad * 1e6:.4g} mm mrad" in ellipse.get_label()
+    assert f"βγε = {stats.norm_emittance_x_m_rad * 1e6:.4g} mm mrad" in ellipse.get_label()
+
+
 def test_every_picture_of_a_run_is_a_figure_or_none_when_empty(drift):
     field, run = drift
     assert isinstance(plot.landing_energy_figure([run]), Figure)
