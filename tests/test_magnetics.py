@@ -17,7 +17,7 @@ from scipy.integrate import quad
 import tracer.magnetics.coil as coil_module
 from tracer.grid import Grid
 from tracer.magnetics.coil import Coil, coil_field
-from tracer.magnetics.loop import ellip_ke, loop_field
+from tracer.magnetics.loop import ellip_ke, loop_field, loop_unit
 from tracer.magnetics.profile import AxialProfile
 from tracer.magnetics.uniform import Box, Sector, UniformField
 from tracer.magnetics.units import MagneticUnits
@@ -320,3 +320,54 @@ def test_map_field_is_the_exact_curl_and_odd_across_the_axis():
     assert -(a(z + h, r) - a(z - h, r)) / (2 * h) == pytest.approx(float(br), rel=1e-7)
     neg = m.evaluate(z, -r)
     assert float(neg[0]) == -a(z, r) and float(neg[1]) == float(bz) and float(neg[2]) == -float(br)
+
+
+# ---------------------------------------------------------------- the analytic slope of the unit fields
+
+
+@pytest.mark.parametrize("z, r", [(0.0, 0.0), (0.013, 0.0), (0.013, 0.007), (-0.04, 0.05),
+                                  (0.002, 0.0195), (0.3, 0.2), (0.001, 1e-4)])
+def test_loop_slope_is_the_derivative_of_its_closed_form(z, r):
+    """dB_z/dz of the loop (the derivative of Jackson's closed form, §5.5, through the elliptic
+    integrals' derivatives, Abramowitz & Stegun 1964 17.3) against a five-point difference of B_z
+    itself (error ~ h^4), and on the axis against d/dz of mu0 I a^2 / (2 (a^2 + z^2)^(3/2))."""
+    a = 0.02
+    h = 1e-3 * min(math.hypot(z, r - a), a)     # the difference's error ~ (h / distance to the wire)^4
+    bz = lambda z: float(loop_field(a, 0.0, 1.0, z, r)[1])  # noqa: E731
+    difference = (bz(z - 2 * h) - 8 * bz(z - h) + 8 * bz(z + h) - bz(z + 2 * h)) / (12 * h)
+    got = loop_unit(a, z, r)[3]
+    assert got == pytest.approx(difference, rel=1e-9, abs=1e-10 * abs(bz(z)) / a)
+    if r == 0.0:
+        assert got == pytest.approx(-3 * MU0 * a * a * z / (2 * (a * a + z * z) ** 2.5), rel=1e-14, abs=0)
+
+
+def test_unit_field_nodes_agree_with_differences_and_threads():
+    """The node data of a coil's unit field (A, dA/dz, dA/dr, d2A/dzdr from the closed form and its
+    analytic slope) against central differences of the closed form's A (steps 1e-6 m; on the axis
+    of B_z / 2, as A = r B_z / 2 there), on and off the axis; and the same bits on one thread as on
+    numba's threads."""
+    import numba
+
+    from tracer.magnetics.units import coil_sampler
+
+    c = Coil("sol", (0.02, 0.06), (0.02, 0.024), 200, 1.0)
+    z = np.array([0.0, 0.031, 0.045, 0.07, 0.01])
+    r = np.array([0.0, 0.0, 0.005, 0.012, 0.018])
+    data = coil_sampler(None, c)(z, r)
+    h = 1e-6
+    a = lambda z, r: coil_field(c, z, r, 1.0)[0]  # noqa: E731
+    dadz = (a(z + h, r) - a(z - h, r)) / (2 * h)
+    ar = lambda z: np.where(r > 0, (a(z, r + h) - a(z, np.abs(r - h))) / (2 * h),  # noqa: E731
+                            coil_field(c, z, 0.0, 1.0)[1] / 2)    # on the axis A = r B_z / 2
+    cross = (ar(z + h) - ar(z - h)) / (2 * h)
+    scale = np.abs(data).max(axis=1)
+    np.testing.assert_allclose(data[1], dadz, atol=1e-7 * scale[1])
+    np.testing.assert_allclose(data[2], ar(z), atol=1e-7 * scale[2])
+    np.testing.assert_allclose(data[3], cross, atol=1e-5 * scale[3])
+    threads = numba.get_num_threads()
+    try:
+        numba.set_num_threads(1)
+        single = coil_sampler(None, c)(z, r)
+    finally:
+        numba.set_num_threads(threads)
+    assert single.tobytes() == data.tobytes()

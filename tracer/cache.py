@@ -48,7 +48,7 @@ from tracer.store.coil_file import read_coil_field, write_coil_field
 from tracer.store.maps_file import read_maps, read_tags, write_maps
 
 CACHE_FORMAT = "tracer-cache-1"
-COIL_FORMAT = "tracer-coil-sampling-1"
+COIL_FORMAT = "tracer-coil-sampling-2"
 """The sampling of coils' unit fields; part of their cache key."""
 COIL_SPOT_CHECKS = 32
 """Nodes of a cached coil field drawn at random and sampled afresh when it is read."""

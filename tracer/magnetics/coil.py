@@ -17,7 +17,7 @@ from dataclasses import dataclass
 from typing import NamedTuple
 
 import numpy as np
-from numba import njit
+from numba import njit, prange
 
 from tracer.magnetics.loop import loop_unit, over_points
 
@@ -81,25 +81,29 @@ class Coil:
         return (np.repeat(zn, rn.size), np.tile(rn, zn.size), np.outer(wz, wr).ravel())
 
 
-@njit(cache=True, error_model="numpy")
-def _coil_unit(zn, rn, wn, z, r, aphi, bz, br):
-    """Mean loop field over the nodes at every point (per ampere-turn)."""
-    for k in range(z.size):
+@njit(cache=True, parallel=True, error_model="numpy")
+def _coil_unit(zn, rn, wn, z, r, aphi, bz, br, bz_z):
+    """Mean loop field and dB_z/dz over the nodes at every point (per ampere-turn), the points
+    shared among numba's threads (each point's sum in the same order on any thread count)."""
+    for k in prange(z.size):
         sa = 0.0
         sz = 0.0
         sr = 0.0
+        sd = 0.0
         rk = abs(r[k])
         for j in range(zn.size):
-            a, b, c = loop_unit(rn[j], z[k] - zn[j], rk)
+            a, b, c, d = loop_unit(rn[j], z[k] - zn[j], rk)
             sa += wn[j] * a
             sz += wn[j] * b
             sr += wn[j] * c
+            sd += wn[j] * d
         aphi[k] = sa
         bz[k] = sz
         br[k] = sr
+        bz_z[k] = sd
 
 
-def coil_field(coil: Coil, z, r, current_A: float | None = None):
+def coil_field(coil: Coil, z, r, current_A: float | None = None, slope=False):
     """Vector potential and field of a coil at points.
 
     Parameters
@@ -109,12 +113,15 @@ def coil_field(coil: Coil, z, r, current_A: float | None = None):
         Points (m), broadcast together.
     current_A : float, optional
         The current in each turn; the coil's own when not given.
+    slope : bool
+        Also return dB_z/dz.
 
     Returns
     -------
-    (A_phi, B_z, B_r) : tuple of ndarray
-        T m and T.
+    (A_phi, B_z, B_r) or (A_phi, B_z, B_r, dB_z/dz) : tuple of ndarray
+        T m, T and T/m.
     """
     current = coil.current_A if current_A is None else float(current_A)
     scale = coil.turns * current
-    return tuple(scale * o for o in over_points(_coil_unit, coil.nodes(), z, r))
+    out = over_points(_coil_unit, coil.nodes(), z, r, outputs=4)
+    return tuple(scale * o for o in out[:4 if slope else 3])

@@ -13,7 +13,9 @@ and B = curl A::
     s = sqrt((a + r)^2 + dz^2),
 
 with K and E the complete elliptic integrals of the first and second kind in the parameter
-m = k^2 (scipy.special.ellipk's convention).  They are computed here by the arithmetic-geometric
+m = k^2 (scipy.special.ellipk's convention).  dB_z/dz, which the unit fields need
+(:mod:`tracer.magnetics.units`), is the derivative of the closed form for B_z, with
+dK/dm = (E - (1 - m) K) / (2 m (1 - m)), dE/dm = (E - K) / (2 m) and dm/dz = -2 m dz / s^2.  They are computed here by the arithmetic-geometric
 mean (Abramowitz & Stegun 1964, 17.6), which numba compiles and which reaches full double
 precision in a few iterations.  On the axis the limits A_phi = B_r = 0 are taken exactly.
 """
@@ -56,7 +58,11 @@ def ellip_ke(m):
 
 @njit(cache=True, error_model="numpy")
 def loop_unit(a, dz, r):
-    """A_phi, B_z, B_r of a loop of radius a at axial distance dz and radius r, per ampere.
+    """A_phi, B_z, B_r and dB_z/dz of a loop of radius a at axial distance dz and radius r, per ampere.
+
+    dB_z/dz is the closed form's own derivative (module docstring), through
+    dK/dm = (E - (1 - m) K) / (2 m (1 - m)) and dE/dm = (E - K) / (2 m) (Abramowitz & Stegun 1964,
+    17.3) with dm/dz = -2 m dz / s^2; on the axis, d/dz of mu0 I a^2 / (2 (a^2 + dz^2)^(3/2)).
 
     Parameters
     ----------
@@ -68,26 +74,35 @@ def loop_unit(a, dz, r):
 
     Returns
     -------
-    (A_phi, B_z, B_r) : tuple of float
-        T m and T for 1 A.
+    (A_phi, B_z, B_r, dB_z/dz) : tuple of float
+        T m, T and T/m for 1 A.
     """
+    c = 0.5 * MU0_OVER_PI
     if r == 0.0:
-        return 0.0, 0.5 * MU0_OVER_PI * math.pi * a * a / (a * a + dz * dz) ** 1.5, 0.0
+        q = a * a + dz * dz
+        bz = c * math.pi * a * a / q ** 1.5
+        return 0.0, bz, 0.0, -3.0 * dz * bz / q
     s2 = (a + r) ** 2 + dz * dz
     m = 4.0 * a * r / s2
     kk, ee = ellip_ke(m)
     s = math.sqrt(s2)
     d2 = (a - r) ** 2 + dz * dz
+    n = a * a - r * r - dz * dz
     aphi = MU0_OVER_PI / math.sqrt(m) * math.sqrt(a / r) * ((1.0 - 0.5 * m) * kk - ee)
-    bz = 0.5 * MU0_OVER_PI / s * (kk + (a * a - r * r - dz * dz) / d2 * ee)
-    br = 0.5 * MU0_OVER_PI * dz / (r * s) * (-kk + (a * a + r * r + dz * dz) / d2 * ee)
-    return aphi, bz, br
+    f = kk + n / d2 * ee
+    bz = c / s * f
+    br = c * dz / (r * s) * (-kk + (a * a + r * r + dz * dz) / d2 * ee)
+    m_z = -2.0 * m * dz / s2
+    k_z = (ee - (1.0 - m) * kk) / (2.0 * m * (1.0 - m)) * m_z
+    e_z = (ee - kk) / (2.0 * m) * m_z
+    f_z = k_z + (-2.0 * dz * ee + n * e_z) / d2 - n * ee * 2.0 * dz / (d2 * d2)
+    return aphi, bz, br, c / s * (f_z - f * dz / s2)
 
 
 @njit(cache=True, error_model="numpy")
 def _loop_many(a, z_loop, z, r, aphi, bz, br):
     for k in range(z.size):
-        aphi[k], bz[k], br[k] = loop_unit(a, z[k] - z_loop, abs(r[k]))
+        aphi[k], bz[k], br[k], _ = loop_unit(a, z[k] - z_loop, abs(r[k]))
 
 
 def loop_field(radius_m: float, z_m: float, current_A: float, z, r):
@@ -110,13 +125,14 @@ def loop_field(radius_m: float, z_m: float, current_A: float, z, r):
     return tuple(current_A * o for o in over_points(_loop_many, (float(radius_m), float(z_m)), z, r))
 
 
-def over_points(kernel, args, z, r):
-    """Run ``kernel(*args, z, r, out_0, out_1, out_2)`` over points z, r broadcast together.
+def over_points(kernel, args, z, r, outputs=3):
+    """Run ``kernel(*args, z, r, out_0, ..., out_n)`` over points z, r broadcast together.
 
-    The shared wrapper of the magnetic kernels that fill three arrays (A_phi, B_z, B_r) point by
-    point; returns the three arrays in the points' shape.
+    The shared wrapper of the magnetic kernels that fill arrays (A_phi, B_z, B_r, and for the
+    coils' node data dB_z/dz: ``outputs`` of them) point by point; returns the arrays in the
+    points' shape.
     """
     z, r = np.broadcast_arrays(np.asarray(z, dtype=float), np.asarray(r, dtype=float))
-    out = [np.empty(z.size) for _ in range(3)]
+    out = [np.empty(z.size) for _ in range(outputs)]
     kernel(*args, np.ascontiguousarray(z).ravel(), np.ascontiguousarray(r).ravel(), *out)
     return tuple(o.reshape(z.shape) for o in out)

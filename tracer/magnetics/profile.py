@@ -84,14 +84,17 @@ class AxialProfile:
         """B(z) on the axis (T)."""
         return self.derivatives(z)[0]
 
-    def field(self, z, r):
-        """A_phi (T m), B_z and B_r (T) at points by the series (module docstring)."""
+    def field(self, z, r, slope=False):
+        """A_phi (T m), B_z and B_r (T) at points by the series (module docstring); with
+        ``slope``, also dB_z/dz = B' - (r^2/4) B^(3) + (r^4/64) B^(5) (T/m)."""
         z, r = np.broadcast_arrays(np.asarray(z, dtype=float), np.asarray(r, dtype=float))
         d = self.derivatives(z.ravel()).reshape((ORDERS,) + z.shape)
         r = np.abs(r)
         aphi = r / 2 * d[0] - r ** 3 / 16 * d[2] + r ** 5 / 384 * d[4]
         bz = d[0] - r ** 2 / 4 * d[2] + r ** 4 / 64 * d[4]
         br = -r / 2 * d[1] + r ** 3 / 16 * d[3] - r ** 5 / 384 * d[5]
+        if slope:
+            return aphi, bz, br, d[1] - r ** 2 / 4 * d[3] + r ** 4 / 64 * d[5]
         return aphi, bz, br
 
 

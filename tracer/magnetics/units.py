@@ -11,7 +11,10 @@ What is sampled is the azimuthal vector potential A_theta, as node data (A, dA/d
 d2A/dzdr) of the bicubic Hermite patch of :mod:`tracer.fieldmap`, with::
 
     dA/dz = -B_r,   dA/dr = B_z - A/r  (B_z/2 on the axis),
-    d2A/dzdr = d/dz (dA/dr)  (a central difference of the closed forms, step 1e-4 cells).
+    d2A/dzdr = d/dz (dA/dr) = dB_z/dz + B_r/r  (dB_z/dz / 2 on the axis),
+
+each from the source's closed form (dB_z/dz too: :func:`tracer.magnetics.loop.loop_unit`, the
+profiles' series), the nodes shared among numba's threads for coils.
 
 The field is then the exact curl of the interpolated A_theta::
 
@@ -38,44 +41,35 @@ from tracer.fieldmap import hermite_eval, named_settings
 from tracer.magnetics.coil import coil_field
 from tracer.magnetics.loop import over_points
 
-DZ_CELLS = 1e-4
-"""Step of the central difference for d2A/dzdr, in cells."""
-
-
-def node_data(z, r, step, source) -> np.ndarray:
-    """Hermite node data of A_theta at points from a source's closed form.
+def node_data(z, r, source) -> np.ndarray:
+    """Hermite node data of A_theta at points from a source's closed form (module docstring).
 
     Parameters
     ----------
     z, r : ndarray
         Points (m, r >= 0), of one shape.
-    step : float
-        Step of the central difference for d2A/dzdr (m).
     source : callable
-        ``source(z, r) -> (A_phi, B_z, B_r)`` at arrays of points.
+        ``source(z, r) -> (A_phi, B_z, B_r, dB_z/dz)`` at arrays of points.
 
     Returns
     -------
     float64[4, *z.shape]
     """
-    def slope_r(a, bz):
-        with np.errstate(divide="ignore", invalid="ignore"):
-            return np.where(r > 0.0, bz - a / r, 0.5 * bz)
-
-    a, bz, br = source(z, r)
-    up = slope_r(*source(z + step, r)[:2])
-    down = slope_r(*source(z - step, r)[:2])
-    return np.stack([a, -br, slope_r(a, bz), (up - down) / (2.0 * step)])
+    a, bz, br, bz_z = source(z, r)
+    off = r > 0.0
+    with np.errstate(divide="ignore", invalid="ignore"):
+        return np.stack([a, -br, np.where(off, bz - a / r, 0.5 * bz),
+                         np.where(off, bz_z + br / r, 0.5 * bz_z)])
 
 
 def grid_data(grid, source) -> np.ndarray:
     """Hermite node data of A_theta at every node of an axially symmetric grid: float64[4, nz, nr]."""
-    return node_data(*np.meshgrid(grid.z, grid.r, indexing="ij"), DZ_CELLS * grid.hz, source)
+    return node_data(*np.meshgrid(grid.z, grid.r, indexing="ij"), source)
 
 
 def coil_sampler(grid, coil):
-    """``sample(z, r)``: the node data of a coil's A_theta at 1 A at points, as on ``grid``."""
-    return lambda z, r: node_data(z, r, DZ_CELLS * grid.hz, lambda zz, rr: coil_field(coil, zz, rr, 1.0))
+    """``sample(z, r)``: the node data of a coil's A_theta at 1 A at points (of ``grid``)."""
+    return lambda z, r: node_data(z, r, lambda zz, rr: coil_field(coil, zz, rr, 1.0, slope=True))
 
 
 _SAMPLED: OrderedDict = OrderedDict()
@@ -198,7 +192,7 @@ class MagneticUnits:
                         ) if coils else np.zeros((0, 4, grid.nz, grid.nr))
         fixed = np.zeros((4, grid.nz, grid.nr))
         for p in profiles:
-            fixed += grid_data(grid, p.field)
+            fixed += grid_data(grid, functools.partial(p.field, slope=True))
         return cls(grid, tuple(c.name for c in coils), tuple(float(c.current_A) for c in coils),
                    unit, fixed)
 
