@@ -543,31 +543,43 @@ def solved():
     return field, paraxial(field, PROTON, 1000.0)
 
 
+def trace_rows(field, rows, path, planes, energy_eV=1000.0, z_start=0.5e-3):
+    """Protons parallel to the axis from ``z_start`` by tracer.beam.trace, one per row (height x,
+    energy offset dE) with energy_eV + dE at the map's z_min; their crossings of each plane (by
+    name), in ray order."""
+    from tracer.beam import trace
+    from tracer.config import Beam
+
+    v = field.potential(np.array([field.grid.z0, z_start]), np.zeros(2))
+    e_start = energy_eV - (v[1] - v[0])               # kinetic energy at z_start
+    path.write_text("x_m,y_m,z_m,dx/dz,dy/dz,energy_eV\n"
+                    + "".join(f"{float(x)!r},0,{z_start!r},0,0,{float(e_start + de)!r}\n" for x, de in rows))
+    beam = Beam(name="protons", species=PROTON, energy_eV=None, start_z_m=None, count=None,
+                rays_csv=path)
+    run = trace(field, beam, planes=planes, rtol=1e-10, max_time_s=1e-5)
+    at = {plane.name: np.sort(run.at_plane(plane.name), order="ray") for plane in planes}
+    assert all(len(a) == len(rows) for a in at.values())
+    return at
+
+
+def axis_crossing(ray, exit_z):
+    """Where straight rays recorded at the plane z = exit_z cross the axis."""
+    return exit_z - ray["x_m"] / (ray["px"] / ray["pz"])
+
+
 @pytest.fixture(scope="module")
 def traced(solved, tmp_path_factory):
     """Rays traced through the solved map by tracer.beam.trace: one near-axis ray, five parallel
     rays at 0.2..0.5 R for Cs, two at 0.05 R with the energy -+1 eV for Cc, three at 0.1, 0.2 and
     0.4 of a cell from the axis."""
-    from tracer.beam import trace
-    from tracer.config import Beam, Plane
+    from tracer.config import Plane
 
     field, p = solved
-    z_start = 0.5e-3
-    v = field.potential(np.array([0.0, z_start]), np.zeros(2))
-    e_start = 1000.0 - (v[1] - v[0])               # kinetic energy at z_start for 1 keV at z_min
-    rows = ([(1e-3 * TUBE_R, e_start)] + [(h * TUBE_R, e_start) for h in np.linspace(0.2, 0.5, 5)]
-            + [(0.05 * TUBE_R, e_start - 1.0), (0.05 * TUBE_R, e_start + 1.0)]
-            + [(f * CELL, e_start) for f in (0.1, 0.2, 0.4)])
-    path = tmp_path_factory.mktemp("optics") / "rays.csv"
-    path.write_text("x_m,y_m,z_m,dx/dz,dy/dz,energy_eV\n"
-                    + "".join(f"{float(x)!r},0,{z_start!r},0,0,{float(e)!r}\n" for x, e in rows))
-    beam = Beam(name="protons", species=PROTON, energy_eV=None, start_z_m=None, count=None,
-                rays_csv=path)
+    rows = ([(1e-3 * TUBE_R, 0.0)] + [(h * TUBE_R, 0.0) for h in np.linspace(0.2, 0.5, 5)]
+            + [(0.05 * TUBE_R, -1.0), (0.05 * TUBE_R, 1.0)] + [(f * CELL, 0.0) for f in (0.1, 0.2, 0.4)])
     exit_z = field.grid.z1 - 1e-3
-    run = trace(field, beam, planes=[Plane("focus", p.focus_image_z_m), Plane("exit", exit_z)],
-                rtol=1e-10, max_time_s=1e-5)
-    at = {name: np.sort(run.at_plane(name), order="ray") for name in ("focus", "exit")}
-    assert len(at["focus"]) == len(rows) and len(at["exit"]) == len(rows)
+    at = trace_rows(field, rows, tmp_path_factory.mktemp("optics") / "rays.csv",
+                    [Plane("focus", p.focus_image_z_m), Plane("exit", exit_z)])
     return np.array([x for x, _ in rows]), at, exit_z
 
 
@@ -587,8 +599,8 @@ def test_real_rays_focus_at_the_paraxial_focus(solved, traced):
     focus says, to 1 % of f (the issue's check)."""
     _, p = solved
     heights, at, exit_z = traced
-    x, slope = at["exit"]["x_m"][0], at["exit"]["px"][0] / at["exit"]["pz"][0]
-    assert abs(exit_z - x / slope - p.focus_image_z_m) < 0.01 * p.f_image_m
+    slope = at["exit"]["px"][0] / at["exit"]["pz"][0]
+    assert abs(axis_crossing(at["exit"][0], exit_z) - p.focus_image_z_m) < 0.01 * p.f_image_m
     assert -heights[0] / slope == pytest.approx(p.f_image_m, rel=0.01)
 
 
@@ -606,49 +618,90 @@ def test_real_rays_cs_cc_match_the_integrals(solved, traced):
     assert p.cc_m == pytest.approx(cc, rel=0.15)
 
 
-def test_rays_inside_the_first_cell_have_an_even_field(solved, traced):
-    """Parallel rays at 0.1, 0.2 and 0.4 of a cell from the axis: in a field even in r (Hawkes &
-    Kasper, Principles of Electron Optics: V(z) - V''(z) r^2 / 4 + ...) their axis crossings move
-    from the near-axis ray's as h^2 (shifts in the ratio 1 : 4 : 16); an r^3 term in the first
-    cell's patch adds a shift linear in h.  The shift is third-order spherical aberration,
-    -Cs (h / f)^2 with Cs from tracer.optics (Hawkes & Kasper's aberration integral), to 50 %
-    (the r^4 term of the first cell rests on the slope one row off the axis: with the central
-    difference it was three times too large).  The near-axis ray (0.02 cell) crosses at the
-    paraxial focus to 1e-4 f."""
-    _, p = solved
-    heights, at, exit_z = traced
-    x, slope = at["exit"]["x_m"], at["exit"]["px"] / at["exit"]["pz"]
-    crossing = exit_z - x / slope
-    shift = crossing[8:] - crossing[0]
-    assert heights[8] == pytest.approx(0.1 * CELL)
+def check_first_cell_rays(p, heights, crossing, cell):
+    """The first-cell checks of issue 16 on a near-axis ray (0.02 cell) and rays at 0.1, 0.2 and
+    0.4 of a cell from the axis: in a field even in r (Hawkes & Kasper, Principles of Electron
+    Optics: V(z) - V''(z) r^2 / 4 + ...) their axis crossings move from the near-axis ray's as h^2
+    (shifts in the ratio 1 : 4 : 16; an r^3 term in the first cell's patch adds a shift linear in
+    h), the shift is third-order spherical aberration, -Cs (h / f)^2 with Cs from tracer.optics
+    (Hawkes & Kasper's aberration integral), to 50 %, and the near-axis ray crosses at the
+    paraxial focus of the same map to 1e-4 f."""
+    shift = crossing[1:] - crossing[0]
+    assert heights[0] == pytest.approx(0.02 * cell) and heights[1] == pytest.approx(0.1 * cell)
     assert abs(crossing[0] - p.focus_image_z_m) < 1e-4 * p.f_image_m   # the issue's figure
     assert shift[1] / shift[0] == pytest.approx(4.0, rel=0.1)
     assert shift[2] / shift[1] == pytest.approx(4.0, rel=0.1)
-    third_order = -p.cs_m * (heights[8:] / p.f_image_m) ** 2
+    third_order = -p.cs_m * (heights[1:] / p.f_image_m) ** 2
     assert np.all(np.abs(shift / third_order - 1.0) < 0.5), shift / third_order
 
 
-def test_first_cell_focus_converges_to_the_paraxial_focus(solved, traced):
+def test_rays_inside_the_first_cell_have_an_even_field(solved, traced):
+    """``check_first_cell_rays`` in the two-tube lens at 20 cells per tube radius.  The r^2 term of
+    the first cell's patch obeys Laplace's equation on the axis to fourth order (the solver's
+    fourth-order axis rows), its r^4 term only to a fraction of itself (the rows off the axis are
+    second order): the shifts are 1.3 Cs (h / f)^2 here."""
+    _, p = solved
+    heights, at, exit_z = traced
+    rays = [0, 8, 9, 10]
+    check_first_cell_rays(p, heights[rays], axis_crossing(at["exit"][rays], exit_z), CELL)
+
+
+APERTURES_TOML = """
+title = "three apertures of 2 mm bore radius, 1 kV on the middle one (illustrative)"
+[domain]
+symmetry = "axial"
+z_mm = [0.0, 80.0]
+r_mm = 16.0
+cell_mm = 0.1
+edges = { z_min = "open", z_max = "open", r_max = "ground" }
+[[electrode]]
+name = "outer"
+voltage_V = 0.0
+[[electrode.rect]]
+z_mm = [20.0, 21.0]
+r_mm = [2.0, 16.0]
+[[electrode.rect]]
+z_mm = [29.0, 30.0]
+r_mm = [2.0, 16.0]
+[[electrode]]
+name = "middle"
+voltage_V = 1000.0
+[[electrode.rect]]
+z_mm = [24.5, 25.5]
+r_mm = [2.0, 12.0]
+"""
+
+
+def test_rays_inside_the_first_cell_of_a_three_aperture_lens(tmp_path):
+    """``check_first_cell_rays`` in a three-aperture einzel lens at 20 cells per bore radius, where
+    the second-order axis equation left the near-axis ray 6.3e-4 f beyond the paraxial focus."""
+    from tracer.config import Plane, loads
+    from tracer.pipeline import solve
+
+    cell = 0.1e-3
+    field = solve(loads(APERTURES_TOML)).combine()
+    p = paraxial(field, PROTON, 1500.0)
+    heights = np.array([0.02, 0.1, 0.2, 0.4]) * cell
+    exit_z = p.focus_image_z_m - 5e-3
+    at = trace_rows(field, [(h, 0.0) for h in heights], tmp_path / "rays.csv",
+                    [Plane("exit", exit_z)], energy_eV=1500.0)
+    check_first_cell_rays(p, heights, axis_crossing(at["exit"], exit_z), cell)
+
+
+def test_first_cell_focus_converges_to_the_paraxial_focus(solved, traced, tmp_path):
     """A ray at 0.02 cell from the axis against the paraxial focus (tracer.paraxial) of the same
     map: the difference falls at least as the cell squared from 0.5 mm to 0.25 mm cells (the
     map's interpolant is second order, common practice)."""
-    from tracer.beam import trace
-    from tracer.config import Beam, Plane, loads
+    from tracer.config import Plane, loads
     from tracer.pipeline import solve
 
     _, fine = solved
     heights, at, exit_z = traced
-    slope = at["exit"]["px"][0] / at["exit"]["pz"][0]
-    fine_miss = abs(exit_z - at["exit"]["x_m"][0] / slope - fine.focus_image_z_m)
+    fine_miss = abs(axis_crossing(at["exit"][0], exit_z) - fine.focus_image_z_m)
     field = solve(loads(TUBES_TOML.replace("cell_mm = 0.25", "cell_mm = 0.5"))).combine()
     p = paraxial(field, PROTON, 1000.0)
-    z_start = 0.5e-3
-    v = field.potential(np.array([0.0, z_start]), np.zeros(2))
-    beam = Beam(name="protons", species=PROTON, energy_eV=float(1000.0 - (v[1] - v[0])),
-                start_z_m=z_start, count=1, radius_m=0.0, start_r_m=0.02 * 2 * CELL)
-    run = trace(field, beam, planes=[Plane("exit", exit_z)], rtol=1e-10, max_time_s=1e-5)
-    ray = run.at_plane("exit")
-    coarse_miss = abs(exit_z - ray["x_m"][0] / (ray["px"][0] / ray["pz"][0]) - p.focus_image_z_m)
+    ray = trace_rows(field, [(0.02 * 2 * CELL, 0.0)], tmp_path / "rays.csv", [Plane("exit", exit_z)])
+    coarse_miss = abs(axis_crossing(ray["exit"][0], exit_z) - p.focus_image_z_m)
     assert fine_miss < coarse_miss / 3.5, (fine_miss / fine.f_image_m, coarse_miss / p.f_image_m)
 
 

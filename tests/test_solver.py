@@ -75,6 +75,43 @@ def test_axis_and_open_edge_limits():
         assert cn == 0.0 and cs * (t * hr) ** 2 == pytest.approx(2.0)
 
 
+@pytest.mark.parametrize("symmetry, fold", [("axial", 4.0), ("planar", 2.0)])
+def test_axis_rows_are_fourth_order(symmetry, fold):
+    """The rows on the axis (mirror plane) away from surfaces are exact for u = P(z) + Q(z) r^2 +
+    c r^4 with P of degree 5 and Q of degree 3: the five-point second difference along z is exact
+    to degree 5 and the even quartic through the first three rows to r^4 (Taylor, common
+    practice), giving P'' + fold Q (fold 4 about an axis, 2 about a plane).  At an open z edge the
+    rows use the mirror image (u even about the edge).  Kernel and sparse matrix alike; a node two
+    nodes from a ground edge or beside a conductor keeps the second-order row."""
+    rng = np.random.default_rng(5)
+    nz, nr, hz, hr = 12, 6, 0.7e-3, 0.45e-3
+    grid = Grid(symmetry, symmetry == "planar", 0.0, 0.0, hz, hr, nz, nr, ("open", "ground", "axis", "ground"))
+    owner = np.full((nz, nr), -1, dtype=np.int64)
+    owner[6, 2:] = 0  # a plate that stops two rows short of the axis
+    raster = Raster(owner=owner, arm=np.ones((nz, nr, 4)), arm_owner=np.full((nz, nr, 4), -1),
+                    cell=np.full((nz - 1, nr - 1), -1))
+    op, _ = operator(grid, raster)
+    system = assemble(grid, raster)
+    z, r = np.arange(nz)[:, None] * hz, np.arange(nr)[None, :] * hr
+    for even in (False, True):  # even about the open z edge (z = 0) or not
+        p, q = rng.normal(size=6), rng.normal(size=4)
+        if even:
+            p[0::2] = q[0::2] = 0.0  # the odd powers (np.polyval: highest first)
+        c = rng.normal()
+        u = np.polyval(p, z) + np.polyval(q, z) * r**2 + c * r**4
+        u = np.where(system.free, u, 0.0)  # the unknown is zero on fixed nodes
+        out = np.zeros((nz, nr))
+        for iz in range(nz):
+            residual_row(iz, u, np.zeros((nz, nr)), out[iz], *op)
+        au = system.matrix @ system.gather(u)
+        np.testing.assert_allclose(-system.gather(out), au, rtol=0, atol=1e-12 * np.abs(au).max())
+        exact = np.polyval(np.polyder(p, 2), z[:, 0]) + fold * np.polyval(q, z[:, 0])
+        for iz in [iz for iz in range(0 if even else 2, 9) if iz != 6]:
+            assert out[iz, 0] == pytest.approx(exact[iz], rel=1e-9, abs=1e-9 * np.abs(exact).max()), iz
+    fourth = op[2][op[0][:, 0], 8] != 0.0
+    np.testing.assert_array_equal(np.flatnonzero(fourth), [0, 1, 2, 3, 4, 5, 7, 8])
+
+
 def test_kernels_and_sparse_matrix_are_one_operator():
     """A hand-made raster (a box with ground edges, a conductor block with cut arms around it):
     the residual kernel and the assembled CSR matrix apply the same operator."""
@@ -123,9 +160,10 @@ def _transfer_matrix(t, n_coarse):
 def test_fused_passes_equal_the_operations_one_by_one():
     """A fused pass (correction, red–black sweeps, residual and restriction in one wavefront over
     the rows) against the same steps done one at a time with the assembled CSR matrix A = D - N:
-    a half-sweep is u_c += (b - A u)_c / d_c on the nodes of one colour (they do not couple), the
-    prolongation is P_z U P_r^T and the restriction R_z res R_r^T with R the row-normalized P^T
-    (common practice for multigrid transfers)."""
+    a half-sweep is u_i += (b - A u)_i / d_i node by node over the nodes of one colour in row order
+    (they couple only along the fourth-order axis rows, two nodes apart), the prolongation is
+    P_z U P_r^T and the restriction R_z res R_r^T with R the row-normalized P^T (common practice
+    for multigrid transfers)."""
     grid, table = _lens(0.5 * MM)
     coarse = grid.coarsen()
     fine_op = operator(grid, rasterize(table, grid))[0]
@@ -143,12 +181,13 @@ def test_fused_passes_equal_the_operations_one_by_one():
     colour = np.add.outer(np.arange(grid.nz), np.arange(grid.nr)) % 2
 
     expected = u + np.where(free, pz @ cu @ pr.T, 0.0)
+    x, rhs, node_colour = system.gather(expected), system.gather(b), system.gather(colour)
+    ptr, cols, vals = matrix.indptr, matrix.indices, matrix.data
     for _ in range(2):
         for c in (0, 1):
-            x = system.gather(expected)
-            res = system.gather(b) - matrix @ x
-            x = x + np.where(system.gather(colour) == c, res / d, 0.0)
-            expected = system.scatter(x)
+            for i in np.flatnonzero(node_colour == c):
+                x[i] += (rhs[i] - vals[ptr[i]:ptr[i + 1]] @ x[cols[ptr[i]:ptr[i + 1]]]) / d[i]
+    expected = system.scatter(x)
     res = system.scatter(system.gather(b) - matrix @ system.gather(expected))
     restricted = np.where(coarse_index != FIXED, rz @ res @ rr.T, 0.0)
 

@@ -47,7 +47,7 @@ from tracer.store import StoreError
 from tracer.store.coil_file import read_coil_field, write_coil_field
 from tracer.store.maps_file import read_maps, read_tags, write_maps
 
-CACHE_FORMAT = "tracer-cache-1"
+CACHE_FORMAT = "tracer-cache-2"  # 2: the solver's fourth-order rows on the axis and mirror plane
 COIL_FORMAT = "tracer-coil-sampling-2"
 """The sampling of coils' unit fields; part of their cache key."""
 COIL_SPOT_CHECKS = 32

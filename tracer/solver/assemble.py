@@ -40,10 +40,10 @@ def _csr(rows, index, table, cuts):
     nz, nr = index.shape
     n_free = rows.max() + 1
     ptr = np.zeros(n_free + 1, dtype=np.int64)
-    cols = np.empty(5 * n_free, dtype=np.int64)
-    vals = np.empty(5 * n_free)
-    dz = (1, -1, 0, 0)
-    dr = (0, 0, 1, -1)
+    cols = np.empty(8 * n_free, dtype=np.int64)
+    vals = np.empty(8 * n_free)
+    dz = (1, -1, 0, 0, 0, 2, -2, 0)
+    dr = (0, 0, 1, -1, 0, 0, 0, 2)
     n = 0
     for iz in range(nz):
         for ir in range(nr):
@@ -52,13 +52,14 @@ def _csr(rows, index, table, cuts):
                 continue
             j = index[iz, ir]
             if j == REGULAR:
-                c = (table[0, ir], table[0, ir], table[1, ir], table[2, ir], table[3, ir])
-            else:
-                c = (cuts[j, 0], cuts[j, 1], cuts[j, 2], cuts[j, 3], cuts[j, 4])
+                c = (table[0, ir], table[0, ir], table[1, ir], table[2, ir], table[3, ir], 0.0, 0.0, 0.0)
+            else:  # the cut table's columns without 1 / d
+                c = (cuts[j, 0], cuts[j, 1], cuts[j, 2], cuts[j, 3], cuts[j, 4], cuts[j, 6], cuts[j, 7],
+                     cuts[j, 8])
             cols[n] = row
             vals[n] = c[4]
             n += 1
-            for k in range(4):
+            for k in (0, 1, 2, 3, 5, 6, 7):
                 if c[k] != 0.0:
                     col = rows[iz + dz[k], ir + dr[k]]
                     if col >= 0:

@@ -1,17 +1,17 @@
 """Fused multigrid passes: a prolongation, red–black sweeps and a residual in one pass over the rows.
 
-A pass applies a sequence of row stages, each of which reads the three rows around the one it
-writes as left by the stage before:
+A pass applies a sequence of row stages, each of which reads the rows up to two away from the one
+it writes (two for the fourth-order axis rows of ``stencil.py``) as left by the stage before:
 
 1. optionally ``u += P coarse_u`` (the coarse-grid correction),
 2. ``sweeps`` red–black Gauss–Seidel sweeps (red: iz + ir even), two half-sweep stages each,
 3. optionally the residual ``b - A u``, adding up its diagonally scaled norm and, on request,
    restricting it onto the coarse level (``coarse_b = R (b - A u)``).
 
-Stage q runs on row i right after stage q - 1 ran on row i + 1 (a wavefront), so the few rows a
+Stage q runs on row i right after stage q - 1 ran on row i + 2 (a wavefront), so the few rows a
 pass works on stay in cache and every array is read once per pass instead of once per stage.
-Nodes of one colour do not couple, so the result is the same, to the last bit, as running each
-stage over the whole grid in turn.
+The result is the same, to the last bit, as running each stage over the whole grid in turn, rows
+in order (nodes of one colour couple only along the axis rows, two nodes apart).
 """
 
 import numpy as np
@@ -59,9 +59,9 @@ def fused_pass(sweeps, u, b, index, table, cuts, prolong, mode, coarse_u, coarse
     if mode == RESTRICT:
         coarse_b[...] = 0.0
     total = 0.0
-    for t in range(nz + n_stages - 1):
-        for q in range(max(0, t - nz + 1), min(n_stages, t + 1)):
-            i = t - q
+    for t in range(nz + 2 * (n_stages - 1)):
+        for q in range(max(0, (t - nz + 2) // 2), min(n_stages, t // 2 + 1)):
+            i = t - 2 * q
             if q < first:
                 prolong_row(i, coarse_u, u, index, zlo, zw, rlo, rw)
             elif q < first + 2 * sweeps:

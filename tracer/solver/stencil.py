@@ -18,10 +18,26 @@ missing outward one, so the outward coefficient is folded into the inward one.
 Nodes inside electrodes and on "ground" edges are fixed; all kernels keep them at zero in the
 homogeneous unknown, so a neighbour that is a fixed node contributes only through the right-hand side.
 
+On the axis (and a planar mirror plane) a node whose neighbours two nodes along z (mirrored at an
+open z edge) and two rows off the axis are free and joined by whole arms takes the fourth-order
+equation instead,
+
+    (-u_-2z + 16 u_-z - 30 u_0 + 16 u_+z - u_+2z) / (12 h_z^2) + F (16 u_1 - u_2 - 15 u_0) / (12 h_r^2) = -f,
+
+F = 4 about an axis (2 u_rr) and 2 about a mirror plane (u_yy): the fourth-order second difference
+along z, and the r^2 coefficient of the quartic even in r through the first three rows,
+b = (16 u_1 - u_2 - 15 u_0) / (12 h^2) for u = a + b r^2 + c r^4.  That b is the r^2 coefficient
+of the map's even patch in the first cell (tracer.fieldmap), so the patch obeys Laplace's equation
+on the axis, b = -V''/4 (-V''/2 about a plane), to fourth order in the cell, and rays thinner than
+a cell focus where the paraxial equation over the same axis potential says.  The second-order
+equation, 4 (u_1 - u_0) / h^2 + (central u_zz) = 0, left b off by (7/192) V'''' h^2.
+
 For the solver kernels the stencil is tabulated once per grid (``operator``): free nodes away from
 edges and surfaces (REGULAR) share coefficients that depend only on the radial index, and the few
 CUT nodes (on an edge, or with an arm ending on a surface) get a row each in a compact cut table,
-so the sweeps never read the Raster's arm arrays.
+so the sweeps never read the Raster's arm arrays.  The cut table's last three columns hold the
+coefficients of the far neighbours (two nodes along +z, -z and +r) of the fourth-order axis rows,
+zero elsewhere.
 """
 
 import numpy as np
@@ -193,22 +209,89 @@ def node_index(owner, arm, arm_owner, edges):
     return out
 
 
+CUT_COLUMNS = 9
+"""Columns of the cut table: c_+z, c_-z, c_+r, c_-r, d, 1 / d, c_+2z, c_-2z, c_+2r."""
+
+
+FOURTH_Z = (-1.0 / 12.0, 16.0 / 12.0, -30.0 / 12.0, 16.0 / 12.0, -1.0 / 12.0)
+"""The fourth-order second difference along z at offsets -2..2, times h_z^2."""
+
+
+@njit(cache=True)
+def _mirror(jz, nz, edges):
+    """Node index along z of offset position ``jz``, folded at an open z edge; -1 if it lies beyond
+    any other edge."""
+    if jz < 0:
+        return -jz if edges[0] == OPEN else -1
+    if jz > nz - 1:
+        return 2 * (nz - 1) - jz if edges[1] == OPEN else -1
+    return jz
+
+
+@njit(cache=True)
+def _whole(arm, arm_owner, index, iz, ir, k):
+    """True when arm k of node (iz, ir) reaches a free neighbour node."""
+    jz, jr = neighbour(iz, ir, k)
+    return not on_surface(arm, arm_owner, iz, ir, k) and index[jz, jr] != FIXED
+
+
+@njit(cache=True)
+def fourth_order_axis(iz, ir, nz, nr, index, arm, arm_owner, edges):
+    """True for a free node on the axis or mirror plane whose fourth-order equation has its seven
+    nodes: two along each way of z (mirrored at an open z edge) and two rows off the axis, free and
+    joined by whole arms."""
+    if ir != 0 or edges[2] != AXIS or nr < 3 or index[iz, ir] == FIXED:
+        return False
+    hi = lo = iz
+    for d in (-2, -1, 1, 2):
+        jz = _mirror(iz + d, nz, edges)
+        if jz < 0:
+            return False
+        hi = max(hi, jz)
+        lo = min(lo, jz)
+    for jz in range(iz, hi):
+        if not _whole(arm, arm_owner, index, jz, 0, 0):
+            return False
+    for jz in range(lo + 1, iz + 1):
+        if not _whole(arm, arm_owner, index, jz, 0, 1):
+            return False
+    return _whole(arm, arm_owner, index, iz, 0, 2) and _whole(arm, arm_owner, index, iz, 1, 2)
+
+
 @njit(cache=True)
 def cut_table(index, owner, arm, arm_owner, geo, edges):
-    """Rows (c_+z, c_-z, c_+r, c_-r, d, 1 / d) of the CUT nodes: the coefficients of the neighbour
-    nodes (0 for arms that end on a surface or are folded away) and the diagonal d = sum of all arms."""
+    """Rows (c_+z, c_-z, c_+r, c_-r, d, 1 / d, c_+2z, c_-2z, c_+2r) of the CUT nodes: the
+    coefficients of the neighbour nodes (0 for arms that end on a surface or are folded away), the
+    diagonal d = sum of all coefficients, and those of the far neighbours of a fourth-order axis
+    row (``fourth_order_axis``, see the module notes; 0 elsewhere)."""
     nz, nr = owner.shape
-    out = np.zeros((max(index.max() + 1, 0), 6))
+    out = np.zeros((max(index.max() + 1, 0), CUT_COLUMNS))
+    hz2, hr2 = geo[0] ** 2, geo[1] ** 2
+    fold = 4.0 if geo[3] > 0.0 else 2.0
+    column = (7, 1, -1, 0, 6)  # the cut-table column of offsets -2..2 along z (the node: -1)
     for iz in range(nz):
         for ir in range(nr):
             j = index[iz, ir]
             if j < 0:
                 continue
-            c = arm_coefficients(iz, ir, nz, nr, arm, arm_owner, geo, edges)
-            for k in range(4):
-                if not on_surface(arm, arm_owner, iz, ir, k):
-                    out[j, k] = c[k]
-            out[j, 4] = c[0] + c[1] + c[2] + c[3]
+            if fourth_order_axis(iz, ir, nz, nr, index, arm, arm_owner, edges):
+                diagonal = 15.0 * fold / (12.0 * hr2)
+                for d in range(-2, 3):
+                    w = FOURTH_Z[d + 2] / hz2
+                    k = column[_mirror(iz + d, nz, edges) - iz + 2]
+                    if k < 0:  # the node itself (its own mirror image, or the centre)
+                        diagonal -= w
+                    else:
+                        out[j, k] += w
+                out[j, 2] = 16.0 * fold / (12.0 * hr2)
+                out[j, 8] = -fold / (12.0 * hr2)
+                out[j, 4] = diagonal
+            else:
+                c = arm_coefficients(iz, ir, nz, nr, arm, arm_owner, geo, edges)
+                for k in range(4):
+                    if not on_surface(arm, arm_owner, iz, ir, k):
+                        out[j, k] = c[k]
+                out[j, 4] = c[0] + c[1] + c[2] + c[3]
             out[j, 5] = 1.0 / out[j, 4]
     return out
 
