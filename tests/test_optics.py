@@ -793,11 +793,19 @@ def glaser_cut_ray(k2, a, cut):
     sin(w (phi - phi_1)); returns its height and slope dr/dz = -(y' sin(phi) - y cos(phi)) / a
     where the field ends (phi_2 = arctan(a/cut)).
     """
+    r, slope = glaser_ray(k2, a, cut, cut)
+    return float(r), float(slope)
+
+
+def glaser_ray(k2, a, cut, z):
+    """Glaser's exact ray of ``glaser_cut_ray`` (Glaser 1941): height and slope at points z of the
+    cut field."""
     w = math.sqrt(1 + k2)
-    p1, p2 = math.pi - math.atan(a / cut), math.atan(a / cut)
-    y = math.sin(p1) * math.cos(w * (p2 - p1)) + math.cos(p1) / w * math.sin(w * (p2 - p1))
-    dy = -w * math.sin(p1) * math.sin(w * (p2 - p1)) + math.cos(p1) * math.cos(w * (p2 - p1))
-    return y / math.sin(p2), -(dy * math.sin(p2) - y * math.cos(p2)) / a
+    p1 = math.pi - math.atan(a / cut)
+    phi = np.arctan2(a, z)
+    y = np.sin(p1) * np.cos(w * (phi - p1)) + np.cos(p1) / w * np.sin(w * (phi - p1))
+    dy = -w * np.sin(p1) * np.sin(w * (phi - p1)) + np.cos(p1) * np.cos(w * (phi - p1))
+    return y / np.sin(phi), -(dy * np.sin(phi) - y * np.cos(phi)) / a
 
 
 @pytest.mark.parametrize("energy, k2", [(10e3, 0.5), (100e3, 1.2), (2e3, 0.05)])
@@ -828,7 +836,7 @@ def test_glaser_bell_lens_focal_length_and_rotation(energy, k2):
     assert props.focus_object_z_m == pytest.approx(-z_cut, abs=1e-6 * f)
     # electrons (q < 0) in B_z > 0 turn the image right-handed about +z
     assert props.rotation_rad == pytest.approx(math.sqrt(k2) * 2 * math.atan(cut / a), rel=1e-7)
-    assert math.isnan(props.cs_m) and math.isnan(props.cc_m)
+    assert props.cs_m > 0 and props.cc_m > 0          # Scherzer 1936: round lenses
 
 
 @pytest.mark.parametrize("current", [0.5, 1.0])
@@ -879,3 +887,56 @@ def test_energy_reference_is_the_start_point_as_for_a_beam():
     assert at_start.cs_m == pytest.approx(at_end.cs_m, rel=1e-9)
     with pytest.raises(OpticsError, match=r"start_z_m = .* lies outside the map"):
         paraxial(m, PROTON, 1000.0, start_z_m=2 * HALF)
+
+
+@pytest.mark.parametrize("energy, k2", [(10e3, 0.5), (100e3, 1.2), (2e3, 0.05)])
+def test_glaser_bell_lens_cs_and_cc(energy, k2):
+    """Cs and Cc of Glaser's bell-shaped field B0 / (1 + (z/a)^2) (Glaser 1941), object at infinity,
+    image side (the asymptotic image, not the objective's focal plane).
+
+    Against the classic integrals of a magnetic round lens (Hawkes & Kasper, Principles of Electron
+    Optics 1989; recalled, with V* for V and the rest mass m)
+    Cs = e / (128 m V* g_i'^4) int [3 e B^4 g^4 / (m V*) + 8 B'^2 g^4 - 8 B^2 g^2 g'^2] dz and
+    Cc = (1 + 2 eps V) / (1 + eps V) * e / (8 m V* g_i'^2) int B^2 g^2 dz (eps = e / (2 m c^2)),
+    evaluated by scipy.integrate.quad along Glaser's exact ray g through the field cut at L = 60 a
+    (glaser_ray; tracer integrates its own form of the aberration, by Runge-Kutta), to 1e-6.  The
+    Cs integral comes from integrations by parts whose end terms vanish only where the field
+    falls faster than the ray grows; cut at L they are -8 [g^4 B B' - 2 g^3 g' B^2] at +-L inside
+    the brackets (about a / L of the whole), and are added here.
+    And Cc of the uncut field in closed form: in Glaser's variable z = a cot(phi) the ray is
+    g = sin(w (pi - phi)) / (w sin(phi)) and B^2 g^2 dz = (B0^2 a / w^2) sin^2(w (pi - phi)) dphi,
+    so Cc = (1 + 2 eps V) / (1 + eps V) * a k^2 (pi/2 - sin(2 pi w) / (4 w)) / sin^2(pi w)
+    (derived here from the integral above), which the cut field meets within a / L (the share of
+    B^2 g^2 beyond L, about (2 / pi) sin^2(pi w) a / L)."""
+    from scipy.integrate import quad
+
+    from tracer.magnetics.profile import AxialProfile
+
+    a, cut = 0.004, 0.24
+    e, m = constants.e, constants.m_e
+    eps = e / (2 * m * constants.c ** 2)
+    v_star = energy * (1.0 + eps * energy)
+    b0 = math.sqrt(k2 * 8 * m * v_star / e) / a
+    props = paraxial(field_free(cut, a / 10), "e-", energy,
+                     magnetic=AxialProfile.glaser("lens", b0, a, 0.0))
+    b = lambda z: b0 / (1 + (z / a) ** 2)  # noqa: E731
+    db = lambda z: -2 * b0 * z / a ** 2 / (1 + (z / a) ** 2) ** 2  # noqa: E731
+
+    def integral(f):
+        return quad(lambda z: f(z, *glaser_ray(k2, a, cut, z)), -cut, cut, points=[0.0], limit=800,
+                    epsabs=0.0, epsrel=1e-12)[0]
+
+    slope = glaser_ray(k2, a, cut, cut)[1]
+    ends = sum(side * (g ** 4 * b(z) * db(z) - 2 * g ** 3 * dg * b(z) ** 2)
+               for side, z in ((1, cut), (-1, -cut)) for g, dg in [glaser_ray(k2, a, cut, z)])
+    cs = e / (128 * m * v_star * slope ** 4) * (integral(
+        lambda z, g, dg: 3 * e * b(z) ** 4 * g ** 4 / (m * v_star) + 8 * db(z) ** 2 * g ** 4
+        - 8 * b(z) ** 2 * g * g * dg * dg) - 8 * ends)
+    factor = (1 + 2 * eps * energy) / (1 + eps * energy)
+    cc = factor * e / (8 * m * v_star * slope ** 2) * integral(lambda z, g, dg: b(z) ** 2 * g * g)
+    w = math.sqrt(1 + k2)
+    closed = factor * a * k2 * (math.pi / 2 - math.sin(2 * math.pi * w) / (4 * w)) / math.sin(math.pi * w) ** 2
+    assert cc == pytest.approx(closed, rel=a / cut)
+    assert props.cs_m > 0 and props.cc_m > 0          # Scherzer 1936: round lenses
+    assert props.cs_m == pytest.approx(cs, rel=1e-6)
+    assert props.cc_m == pytest.approx(cc, rel=1e-6)

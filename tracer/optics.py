@@ -1,4 +1,4 @@
-"""Paraxial optics of round electrostatic and magnetic lenses: cardinal elements, Cs and Cc.
+"""Paraxial optics of round electrostatic, magnetic and combined lenses: cardinal elements, Cs and Cc.
 
 Method
 ------
@@ -71,13 +71,36 @@ axial object point (u = g for an object at infinity) and u'_i its image slope:
   follows from differentiating the paraxial equation above with respect to the
   energy.
 
-*Magnetic lenses.*  With a magnetic field the aberration integrals above miss
-its terms, so ``cs_m``, ``cc_m``, ``image_cs_m`` and ``image_cc_m`` are NaN: they are not
-computed for magnetic or combined lenses.  The focal lengths are the asymptotic ones; for
-Glaser's bell-shaped field (Glaser 1941), k^2 = q B0^2 a^2 / (8 m Phi*) and w^2 = 1 + k^2,
-they are f = -a w / sin(pi w) with the focus at z_F = a w cot(pi w) from the centre, and the
-total rotation is k pi (checked in tests/test_optics.py); Glaser's objective focal length
-a / sin(pi / w) is another quantity and is not what ``f_image_m`` holds.
+*Magnetic and combined lenses.*  A ray through the axial object point has no canonical
+angular momentum about the axis, so its azimuth can be eliminated (Routh's procedure): what
+is left is the variational function sqrt(Phi*(z, r) - |q| A_theta(z, r)^2 / (2 m)) sqrt(1 + r'^2)
+of the radius alone, the meridional ray of the turning frame (the radius is the true one, and
+this holds beyond the paraxial order).  With A_theta = r B/2 - r^3 B''/16 + ... (the series of
+:mod:`tracer.magnetics.profile`) the magnetic field adds to Phi*(z, r) the terms
+-beta r^2 + beta_2 r^4, beta = |q| B^2 / (8 m), beta_2 = |q| B B'' / (32 m): the paraxial
+equation above, and the fourth-order term M4 the magnetic terms written in ``_slope``.  Cs and
+Cc are then the same perturbation integrals, Cc's integrand gaining gamma beta u^2 / Phi*^(3/2):
+
+    Cc = Phi_i / (sqrt(Phi*_i) u'_i^2) * integral [(1 + 2 eps Phi*) (Phi' u u' / 2
+         + Phi'' u^2 / 4) + gamma beta u^2] Phi*^(-3/2) dz.
+
+For a purely magnetic lens they reduce (by parts, boundary terms vanishing at the object, the
+image and field-free ends) to the classic integrals (Hawkes & Kasper 1989, recalled and
+re-derived from M4; the nonrelativistic forms with Phi* for Phi, rest mass m)::
+
+    Cs = |q| / (128 m Phi* u'_i^4) * integral [3 |q| B^4 u^4 / (m Phi*) + 8 B'^2 u^4
+         - 8 B^2 u^2 u'^2] dz,
+    Cc = gamma Phi / Phi* * |q| / (8 m Phi* u'_i^2) * integral B^2 u^2 dz,
+
+checked in tests/test_optics.py against Glaser's bell-shaped field.  B comes from the field
+itself and B'' from the degree-7 spline fit of B on the axis nodes (as Phi'' from the
+potential's fit).  The ends of the axis used are taken as field-free for B too: a coil's field
+not yet faded there is cut, and the lens quantities are those of the field between the ends.
+The focal lengths are the asymptotic ones; for Glaser's bell-shaped field (Glaser 1941),
+k^2 = q B0^2 a^2 / (8 m Phi*) and w^2 = 1 + k^2, they are f = -a w / sin(pi w) with the focus
+at z_F = a w cot(pi w) from the centre, and the total rotation is k pi (checked in
+tests/test_optics.py); Glaser's objective focal length a / sin(pi / w) is another quantity and
+is not what ``f_image_m`` holds.
 
 *Mirrors.*  If Phi falls to zero on the axis the particle turns back: the result
 comes with ``mirror = True``, ``turning_z_m`` where Phi = 0, and NaN for every
@@ -96,7 +119,7 @@ from numba import njit
 from scipy import constants
 from scipy.optimize import brentq
 
-from tracer.axial import AxialPotential, axial_potential
+from tracer.axial import AxialPotential, axial_potential, fit_axial
 from tracer.display import Shown, number
 from tracer.fieldmap import PotentialMap
 from tracer.species import Species
@@ -197,13 +220,16 @@ class _Kinetics:
     eps: float      # |q| / (2 m c^2) (1/V)
     q_over_m: float = 0.0       # |q| / m (C/kg)
     magnetic: object = None     # the axial magnetic field: on_axis(z) -> B (T), or None
+    magnetic_fit: AxialPotential | None = None   # B(z) fitted on the axis nodes, for B''
 
-    def magnetic_term(self, z) -> np.ndarray:
-        """q B^2 / (8 m) at z (V/m^2), zeros without a magnetic field."""
+    def magnetic_terms(self, z) -> tuple[np.ndarray, np.ndarray]:
+        """|q| B^2 / (8 m) and |q| B B'' / (32 m) at z (V/m^2 and V/m^4), zeros without a
+        magnetic field; B from the field itself, B'' from its fit on the axis nodes."""
         z = np.asarray(z, dtype=float)
         if self.magnetic is None:
-            return np.zeros(z.shape)
-        return self.q_over_m / 8.0 * self.magnetic.on_axis(z.ravel()).reshape(z.shape) ** 2
+            return np.zeros(z.shape), np.zeros(z.shape)
+        b = self.magnetic.on_axis(z.ravel()).reshape(z.shape)
+        return self.q_over_m / 8.0 * b ** 2, self.q_over_m / 32.0 * b * self.magnetic_fit(z, 2)
 
     def phi(self, z):
         """The accelerating potential Phi at z (V)."""
@@ -251,13 +277,16 @@ def _quartic_weight(phi, d1, d2, eps):
 
 
 @njit(cache=True)
-def _slope(z, y, n, z0, width, taylor, phi0, v0, sign, eps, mag, out):
+def _slope(z, y, n, z0, width, taylor, phi0, v0, sign, eps, mag, mag2, out):
     """d/dz of the state of n rays: heights, slopes, Cs and Cc integrands (module docstring).
 
     The Cs integrand is M4 = sqrt(Phi*) [-r'^4/8 - gamma Phi'' r^2 r'^2 / (16 Phi*)
     + r^4 (gamma Phi'''' / (128 Phi*) + eps Phi''^2 / (32 Phi*) - gamma^2 Phi''^2 / (128 Phi*^2))]
-    with its Phi'''' term A r^4 Phi'''' replaced by (A r^4)'' Phi'' (two integrations by
-    parts), r'' taken from the paraxial equation.  ``mag`` is q B^2 / (8 m) at z (V/m^2).
+    plus the magnetic terms sqrt(Phi*) [-beta r^2 r'^2 / (4 Phi*) + r^4 (beta_2 / (2 Phi*)
+    - gamma Phi'' beta / (16 Phi*^2) - beta^2 / (8 Phi*^2))], with its Phi'''' term A r^4 Phi''''
+    replaced by (A r^4)'' Phi'' (two integrations by parts), r'' taken from the paraxial
+    equation.  ``mag`` is beta = |q| B^2 / (8 m) at z (V/m^2), ``mag2`` beta_2 = |q| B B'' / (32 m)
+    (V/m^4).
     """
     phi, d1, d2 = _phi_at(z, z0, width, taylor, phi0, v0, sign)
     ps = phi * (1.0 + eps * phi)
@@ -267,7 +296,9 @@ def _slope(z, y, n, z0, width, taylor, phi0, v0, sign, eps, mag, out):
     b = gam * d2 / (4.0 * ps) + mag / ps
     a0, a1, a2 = _quartic_weight(phi, d1, d2, eps)
     quartic = eps * d2 * d2 / (32.0 * ps) - gam * gam * d2 * d2 / (128.0 * ps * ps)
+    quartic_b = mag2 / (2.0 * ps) - (gam * d2 / 16.0 + mag / 8.0) * mag / (ps * ps)
     chrom = (1.0 + 2.0 * eps * ps) / (ps * root)
+    chrom_b = gam * mag / (ps * root)
     for k in range(n):
         r = y[k]
         p = y[n + k]
@@ -276,18 +307,19 @@ def _slope(z, y, n, z0, width, taylor, phi0, v0, sign, eps, mag, out):
         out[n + k] = acc
         w2 = a2 * r ** 4 + 8.0 * a1 * r ** 3 * p + 4.0 * a0 * (3.0 * r * r * p * p + r ** 3 * acc)
         out[2 * n + k] = (root * (-p ** 4 / 8.0 - gam * d2 * r * r * p * p / (16.0 * ps)
-                                  + r ** 4 * quartic) + w2 * d2)
-        out[3 * n + k] = chrom * (d1 * r * p / 2.0 + d2 * r * r / 4.0)
+                                  + r ** 4 * quartic) + w2 * d2
+                          + root * (r ** 4 * quartic_b - mag * r * r * p * p / (4.0 * ps)))
+        out[3 * n + k] = chrom * (d1 * r * p / 2.0 + d2 * r * r / 4.0) + chrom_b * r * r
 
 
 @njit(cache=True)
-def paraxial_rays(points, y0, n, z0, width, taylor, phi0, v0, sign, eps, mag):
+def paraxial_rays(points, y0, n, z0, width, taylor, phi0, v0, sign, eps, mag, mag2):
     """Classical 4th-order Runge-Kutta through the given z points; the state at every point.
 
     The state of n rays holds 4 n values: heights, slopes, Cs integrals, Cc
     integrals.  One step between consecutive points; the points may decrease
-    (backward integration).  ``mag[j]`` holds q B^2 / (8 m) at the start, middle
-    and end of step j.
+    (backward integration).  ``mag[j]`` and ``mag2[j]`` hold |q| B^2 / (8 m) and
+    |q| B B'' / (32 m) at the start, middle and end of step j.
     """
     m = points.size
     out = np.empty((m, y0.size))
@@ -300,10 +332,12 @@ def paraxial_rays(points, y0, n, z0, width, taylor, phi0, v0, sign, eps, mag):
     for j in range(m - 1):
         za = points[j]
         h = points[j + 1] - za
-        _slope(za, y, n, z0, width, taylor, phi0, v0, sign, eps, mag[j, 0], k1)
-        _slope(za + 0.5 * h, y + 0.5 * h * k1, n, z0, width, taylor, phi0, v0, sign, eps, mag[j, 1], k2)
-        _slope(za + 0.5 * h, y + 0.5 * h * k2, n, z0, width, taylor, phi0, v0, sign, eps, mag[j, 1], k3)
-        _slope(za + h, y + h * k3, n, z0, width, taylor, phi0, v0, sign, eps, mag[j, 2], k4)
+        _slope(za, y, n, z0, width, taylor, phi0, v0, sign, eps, mag[j, 0], mag2[j, 0], k1)
+        _slope(za + 0.5 * h, y + 0.5 * h * k1, n, z0, width, taylor, phi0, v0, sign, eps, mag[j, 1],
+               mag2[j, 1], k2)
+        _slope(za + 0.5 * h, y + 0.5 * h * k2, n, z0, width, taylor, phi0, v0, sign, eps, mag[j, 1],
+               mag2[j, 1], k3)
+        _slope(za + h, y + h * k3, n, z0, width, taylor, phi0, v0, sign, eps, mag[j, 2], mag2[j, 2], k4)
         y = y + (h / 6.0) * (k1 + 2.0 * k2 + 2.0 * k3 + k4)
         out[j + 1] = y
     return out
@@ -320,7 +354,7 @@ def _rays(kin: _Kinetics, points: np.ndarray, r0, p0) -> np.ndarray:
     y0 = np.concatenate([r0, p0, np.zeros(2 * n)]).astype(float)
     z0, width, taylor = kin.axial.pieces()
     return paraxial_rays(points, y0, n, z0, width, taylor, kin.phi0, kin.v0, kin.sign, kin.eps,
-                         kin.magnetic_term(_step_points(points)))
+                         *kin.magnetic_terms(_step_points(points)))
 
 
 def _rotation(kin: _Kinetics, points: np.ndarray) -> float:
@@ -403,8 +437,8 @@ def paraxial(field: PotentialMap, species: str | Species, energy_eV: float,
     magnetic : object, optional
         An axial magnetic field: any object with ``on_axis(z) -> B_z`` (tesla at an array of
         z), such as a :class:`tracer.magnetics.profile.AxialProfile` or a
-        :class:`tracer.magnetics.units.MagneticMap`.  Adds its focusing and the image
-        rotation; Cs and Cc are then NaN (not computed for magnetic lenses).
+        :class:`tracer.magnetics.units.MagneticMap`.  Adds its focusing, its aberrations
+        and the image rotation (module docstring).
     start_z_m : float, optional
         Where on the axis the particle has ``energy_eV`` (a beam's ``start_z_m``);
         default the map's z_min end.
@@ -444,7 +478,8 @@ def paraxial(field: PotentialMap, species: str | Species, energy_eV: float,
     kin = _Kinetics(axial=ax, phi0=energy_eV * constants.e / q, v0=v_ref,
                     sign=math.copysign(1.0, sp.charge_C),
                     eps=q / (2.0 * sp.mass_kg * constants.c ** 2), q_over_m=q / sp.mass_kg,
-                    magnetic=magnetic)
+                    magnetic=magnetic,
+                    magnetic_fit=None if magnetic is None else fit_axial(z, magnetic.on_axis(z), knot_cells))
     nan = math.nan
     nan_ray = np.full_like(z, nan)
     common = dict(object_z_m=nan if object_z_m is None else float(object_z_m),
@@ -476,9 +511,6 @@ def paraxial(field: PotentialMap, species: str | Species, energy_eV: float,
         image = dict(image_z_m=z_img, magnification=float(end[1] + end[3] * (z_img - z1)),
                      image_cs_m=i_cs, image_cc_m=i_cc,
                      ray_h=np.interp(z, obj_points, obj[:, 0], left=nan))
-    if magnetic is not None:
-        cs = cc = nan
-        image.update(image_cs_m=nan, image_cc_m=nan)
     return LensProperties(
         f_image_m=f_i, f_object_m=f_o, focus_image_z_m=z_fi, focus_object_z_m=z_fo,
         principal_image_z_m=z_fi - f_i, principal_object_z_m=z_fo + f_o, cs_m=cs, cc_m=cc,
