@@ -65,8 +65,11 @@ EMIT_CELLS = 2.0
 OUTLINE_CELLS = 0.1
 """Length of the pieces the cathode outline is walked in, in cells."""
 
-LAYER_POINTS = 9
-"""Path points of the charge layer between the surface and each ray's start."""
+LAYER_POINTS = 65
+"""Path points of the charge layer between the surface and each ray's start.  The deposit takes
+the charge between two points as spread evenly along the segment, while the layer's density goes
+as x^(-2/3): with 9 points a planar Child-Langmuir diode (5 mm gap, 0.1 mm cells) drew 0.21 %
+too little current, with 33 points 0.04 %, with 65 points 0.03 %."""
 
 POISSON_RTOL = 1e-8
 """Relative residual of each space-charge solve."""
