@@ -3,8 +3,10 @@
 1. Tracing: 1000 protons through the tests' solved three-tube lens (0.25 mm grid) with
    tracer.trace, without a magnetic field, with a coil around the lens (its unit field sampled onto
    the map's grid), and with a uniform field in a box: each timed as the best of a few runs in this
-   one process, and the ratios printed (the aim: a run with a coil no slower than 1.5x the same run
-   without). The first run of each also shows the kernel's compile time when numba's cache is cold.
+   one process, the three taking turns, on numba's threads and on one thread, and the ratios
+   printed (the aim: a run with a coil no slower than 1.5x the same run without; on a machine
+   shared with other work the one-thread ratio is the steadier). The first run of each also shows
+   the kernel's compile time when numba's cache is cold.
 2. Sampling a coil's unit field: the bundled configs/solenoid_focus.toml on a 0.5 mm cell (its
    coil onto 401 x 41 nodes), best of a few, on numba's threads and on one thread; when a second
    source tree TREE is given (e.g. a checkout of the revision before the analytic derivative), the
@@ -20,7 +22,7 @@ import time
 from pathlib import Path
 
 HERE = Path(__file__).resolve().parents[2]
-REPEATS = 3
+REPEATS = 5
 
 SAMPLE = """
 import dataclasses, time
@@ -101,22 +103,11 @@ def sampling(reference):
               f"in its own process): {min(there) / min(here):.1f}x faster")
 
 
-def timed(trace, field, beam, planes, magnetic):
-    """(first run's time, best of REPEATS after it, the run)."""
-    t0 = time.perf_counter()
-    run = trace(field, beam, planes, magnetic=magnetic)
-    first = time.perf_counter() - t0
-    best = float("inf")
-    for _ in range(REPEATS):
-        t0 = time.perf_counter()
-        run = trace(field, beam, planes, magnetic=magnetic)
-        best = min(best, time.perf_counter() - t0)
-    return first, best, run
-
-
 def tracing():
     sys.path.insert(0, str(HERE / "tests"))
     from test_trace import three_tube  # the lens of the tests, finer grid
+
+    import numba
 
     from tracer.beam import trace
     from tracer.magnetics.coil import Coil
@@ -134,14 +125,26 @@ def tracing():
           f"{abs(coil.on_axis(field.grid.z)).max():.3f} T")
     box = UniformField("box", (0.0, 0.0, 0.05), Box(z_m=(0.02, 0.04)))
     rows = [("electric only", None), ("with the coil", coil), ("with a uniform B in a box", box)]
-    base = None
-    for name, magnetic in rows:
-        first, best_s, run = timed(trace, field, beam, planes, magnetic)
-        base = best_s if base is None else base
-        steps = run.records["steps"].mean()
-        print(f"{name:28s} first run {first:7.2f} s, best of {REPEATS} {best_s:.3f} s "
-              f"({best_s / base:.2f}x electric only), {steps:.0f} steps/ray, "
-              f"ledger worst {run.ledger.worst_eV:.2e} eV")
+    first, runs = [], []
+    for _, magnetic in rows:
+        t0 = time.perf_counter()
+        runs.append(trace(field, beam, planes, magnetic=magnetic))
+        first.append(time.perf_counter() - t0)
+    threads = numba.get_num_threads()
+    for count in (threads, 1):
+        numba.set_num_threads(count)
+        best_s = [float("inf")] * len(rows)
+        for _ in range(REPEATS):          # the rows in turn, so that a change of the machine's load
+            for k, (_, magnetic) in enumerate(rows):   # falls on all of them alike
+                t0 = time.perf_counter()
+                trace(field, beam, planes, magnetic=magnetic)
+                best_s[k] = min(best_s[k], time.perf_counter() - t0)
+        print(f"on {count} thread(s):")
+        for (name, _), t1, t, run in zip(rows, first, best_s, runs):
+            print(f"  {name:28s} first run {t1:7.2f} s, best of {REPEATS} {t:.3f} s "
+                  f"({t / best_s[0]:.2f}x electric only), {run.records['steps'].mean():.0f} steps/ray, "
+                  f"ledger worst {run.ledger.worst_eV:.2e} eV")
+    numba.set_num_threads(threads)
 
 
 def main():
