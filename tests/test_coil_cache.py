@@ -174,3 +174,43 @@ def test_an_unusable_cache_folder_warns_and_samples(tmp_path, samplings):
         data = units.coil_unit(GRID, COIL, blocker)
     assert samplings == [GRID.nz * GRID.nr] and data.shape == (4, GRID.nz, GRID.nr)
     assert blocker.read_text() == "not a folder"
+
+
+def test_the_entry_is_locked_while_it_is_sampled(tmp_path, monkeypatch):
+    """A coil entry is sampled and written under an exclusive flock of coil-<key>.lock, as maps
+    are (a second process waits and reads it instead of sampling it too): while the sampler runs
+    a second lock on the file is refused, and afterwards it is granted."""
+    import fcntl
+    import os
+
+    lock = cache.coil_file(tmp_path, GRID, COIL).with_suffix(".lock")
+    seen = []
+    make = units.coil_sampler
+
+    def probing(grid, coil):
+        sample = make(grid, coil)
+
+        def probe(z, r):
+            fd = os.open(lock, os.O_RDWR)
+            try:
+                fcntl.flock(fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
+                seen.append("free")
+            except BlockingIOError:
+                seen.append("held")
+            finally:
+                os.close(fd)
+            return sample(z, r)
+        return probe
+
+    monkeypatch.setattr(units, "coil_sampler", probing)
+    units._SAMPLED.clear()
+    try:
+        units.coil_unit(GRID, COIL, tmp_path)
+    finally:
+        units._SAMPLED.clear()
+    assert seen == ["held"]
+    fd = os.open(lock, os.O_RDWR)
+    try:
+        fcntl.flock(fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
+    finally:
+        os.close(fd)
