@@ -426,7 +426,7 @@ def _layer_paths(sites, distance, mass_kg, charge_C):
     return paths
 
 
-def space_charge_density(grid, run, sites, distance, species):
+def space_charge_density(grid, run, sites, distance, species, raster=None):
     """Charge density (C/m^3) of the emitted rays: their paths plus the layers below the starts.
 
     Parameters
@@ -439,6 +439,9 @@ def space_charge_density(grid, run, sites, distance, species):
     distance : float
         Distance of the ray starts from the surface, metres.
     species : tracer.species.Species
+    raster : tracer.geometry.Raster, optional
+        The electrodes on the grid: the deposit's weights and volumes follow their surfaces
+        (:mod:`tracer.deposit`).
 
     Returns
     -------
@@ -447,7 +450,7 @@ def space_charge_density(grid, run, sites, distance, species):
     current = math.copysign(1.0, species.charge_C) * sites["current_A"][sites["ray"] >= 0]
     paths = [_path_zrt(p, grid.symmetry) for p in run.paths]
     paths += _layer_paths(sites, distance, species.mass_kg, species.charge_C)
-    return charge_density(grid, paths, np.concatenate([current, current]))
+    return charge_density(grid, paths, np.concatenate([current, current]), raster)
 
 
 def _space_charge_map(field, phi):
@@ -589,7 +592,7 @@ def gun(setup: Setup, *, maps: BasisMaps | None = None, cache_dir: str | os.Path
         if converged or (total == 0.0 and iteration == 1) or iteration == spec.max_iterations:
             break
         if total > 0.0:
-            rho = space_charge_density(grid, run, sites, distance, sp)
+            rho = space_charge_density(grid, run, sites, distance, sp, vacuum.raster)
             fresh = solve_poisson(grid, vacuum.table, rho, vacuum.raster, rtol=POISSON_RTOL)
             before = phi
         else:
