@@ -371,3 +371,20 @@ def test_unit_field_nodes_agree_with_differences_and_threads():
     finally:
         numba.set_num_threads(threads)
     assert single.tobytes() == data.tobytes()
+    serial = np.stack(coil_field(c, z, r, 1.0, slope=True))          # the one-thread kernel
+    assert serial.tobytes() == np.stack(coil_field(c, z, r, 1.0, slope=True, threads=True)).tobytes()
+
+
+def test_a_forked_child_evaluates_a_coil_after_threads_sampled_one():
+    """The run's pictures are drawn in a forked child (tracer.beside) and numba's OpenMP pool ends
+    a forked child that uses it; coil_field stays on this thread unless asked, so a child computes
+    B on the axis after this process sampled a coil on threads (common practice: numba's docs on
+    fork safety)."""
+    from tracer.beside import beside
+    from tracer.magnetics.units import coil_sampler
+
+    c = Coil("sol", (0.02, 0.06), (0.02, 0.024), 200, 1.0)
+    coil_sampler(None, c)(np.linspace(0.0, 0.08, 200), np.full(200, 0.01))
+    with beside(lambda: float(coil_field(c, 0.04, 0.0)[1])) as got:
+        pass
+    assert got == [float(coil_field(c, 0.04, 0.0)[1])]

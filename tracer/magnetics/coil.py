@@ -81,29 +81,39 @@ class Coil:
         return (np.repeat(zn, rn.size), np.tile(rn, zn.size), np.outer(wz, wr).ravel())
 
 
-@njit(cache=True, parallel=True, error_model="numpy")
+@njit(cache=True, error_model="numpy", inline="always")
+def _coil_point(zn, rn, wn, z, r):
+    """Mean loop field and dB_z/dz over the nodes at one point (per ampere-turn)."""
+    sa = 0.0
+    sz = 0.0
+    sr = 0.0
+    sd = 0.0
+    r = abs(r)
+    for j in range(zn.size):
+        a, b, c, d = loop_unit(rn[j], z - zn[j], r)
+        sa += wn[j] * a
+        sz += wn[j] * b
+        sr += wn[j] * c
+        sd += wn[j] * d
+    return sa, sz, sr, sd
+
+
+@njit(cache=True, error_model="numpy")
 def _coil_unit(zn, rn, wn, z, r, aphi, bz, br, bz_z):
-    """Mean loop field and dB_z/dz over the nodes at every point (per ampere-turn), the points
-    shared among numba's threads (each point's sum in the same order on any thread count)."""
+    """:func:`_coil_point` at every point, on this thread (safe in a forked child process)."""
+    for k in range(z.size):
+        aphi[k], bz[k], br[k], bz_z[k] = _coil_point(zn, rn, wn, z[k], r[k])
+
+
+@njit(cache=True, parallel=True, error_model="numpy")
+def _coil_unit_threads(zn, rn, wn, z, r, aphi, bz, br, bz_z):
+    """:func:`_coil_point` at every point, the points shared among numba's threads (each point's
+    sum in the same order on any thread count)."""
     for k in prange(z.size):
-        sa = 0.0
-        sz = 0.0
-        sr = 0.0
-        sd = 0.0
-        rk = abs(r[k])
-        for j in range(zn.size):
-            a, b, c, d = loop_unit(rn[j], z[k] - zn[j], rk)
-            sa += wn[j] * a
-            sz += wn[j] * b
-            sr += wn[j] * c
-            sd += wn[j] * d
-        aphi[k] = sa
-        bz[k] = sz
-        br[k] = sr
-        bz_z[k] = sd
+        aphi[k], bz[k], br[k], bz_z[k] = _coil_point(zn, rn, wn, z[k], r[k])
 
 
-def coil_field(coil: Coil, z, r, current_A: float | None = None, slope=False):
+def coil_field(coil: Coil, z, r, current_A: float | None = None, slope=False, threads=False):
     """Vector potential and field of a coil at points.
 
     Parameters
@@ -115,6 +125,10 @@ def coil_field(coil: Coil, z, r, current_A: float | None = None, slope=False):
         The current in each turn; the coil's own when not given.
     slope : bool
         Also return dB_z/dz.
+    threads : bool
+        Share the points among numba's threads (for many points: a map's grid).  Not in a process
+        forked from one that used them (:func:`tracer.beside.beside`'s child): numba's OpenMP pool
+        ends such a process.
 
     Returns
     -------
@@ -123,5 +137,5 @@ def coil_field(coil: Coil, z, r, current_A: float | None = None, slope=False):
     """
     current = coil.current_A if current_A is None else float(current_A)
     scale = coil.turns * current
-    out = over_points(_coil_unit, coil.nodes(), z, r, outputs=4)
+    out = over_points(_coil_unit_threads if threads else _coil_unit, coil.nodes(), z, r, outputs=4)
     return tuple(scale * o for o in out[:4 if slope else 3])

@@ -69,7 +69,8 @@ def grid_data(grid, source) -> np.ndarray:
 
 def coil_sampler(grid, coil):
     """``sample(z, r)``: the node data of a coil's A_theta at 1 A at points (of ``grid``)."""
-    return lambda z, r: node_data(z, r, lambda zz, rr: coil_field(coil, zz, rr, 1.0, slope=True))
+    return lambda z, r: node_data(z, r, lambda zz, rr: coil_field(coil, zz, rr, 1.0, slope=True,
+                                                                    threads=True))
 
 
 _SAMPLED: OrderedDict = OrderedDict()
