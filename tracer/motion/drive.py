@@ -112,7 +112,7 @@ def cell_group_potential(dw, l, k, pz, pr, nodes, sym, x, y, z):
     return patch_field(a, pz, pr, nodes, sym, x, y, z)[0]
 
 
-@njit(cache=True, error_model="numpy")
+@njit(cache=True, error_model="numpy", inline="always")
 def step_work(waves, dw, l, pz, pr, m, t0, h, points, nodes, sym, phi):
     """The dV/dt work over [t0, t0 + h] on piece m (:func:`tracer.ledger.time_work`) of lane l,
     the group maps taken from the polynomials of its cell (first corner pz, pr) that its step's
