@@ -61,18 +61,26 @@ def _small(setup, rays=8):
     return with_grids(with_rays(with_cell(setup, 2.0), rays), 1)
 
 
-def warmup(echo=print) -> float:
+#: The parts of :func:`warmup`, in the order it runs them: each runs one bundled example small and
+#: compiles the kernels it names.
+PARTS = ("field", "gun", "time", "magnetic")
+
+
+def warmup(echo=print, parts=PARTS) -> float:
     """Compile every kernel into numba's cache by running the bundled examples small.
 
-    Runs the demo lens (solve, trace, paraxial optics), the Pierce gun (two space-charge
-    iterations), the delayed-extraction source (voltages in time) and the solenoid (the ray kernel
-    with a magnetic field, a kernel of its own), each on twice its cell with a few rays and no map
-    cache, and writes nothing else.
+    Runs the demo lens (``"field"``: solve, trace, paraxial optics), the Pierce gun (``"gun"``: two
+    space-charge iterations), the delayed-extraction source (``"time"``: voltages in time) and the
+    solenoid (``"magnetic"``: the ray kernel with a magnetic field, a kernel of its own), each on
+    twice its cell with a few rays and no map cache, and writes nothing else.
 
     Parameters
     ----------
     echo : callable
         Called with one line per example and the total time.
+    parts : sequence of str
+        The examples to run, of :data:`PARTS` (all by default; each also compiles the solver and
+        field kernels it needs).
 
     Returns
     -------
@@ -84,21 +92,27 @@ def warmup(echo=print) -> float:
     from tracer.optics import paraxial
     from tracer.pipeline import CONFIGS, DEMO_CONFIG, run, solve
 
+    unknown = sorted(set(parts) - set(PARTS))
+    if unknown:
+        raise ValueError(f"warmup parts are {', '.join(PARTS)}, not {', '.join(unknown)}")
     t0 = time.perf_counter()
-    demo = _small(load(DEMO_CONFIG))
-    maps = solve(demo)
-    run(demo, maps=maps)
-    spec = demo.optics
-    paraxial(maps.combine(), spec.species, spec.energy_eV, object_z_m=spec.object_z_m)
-    echo(f"compiled the solver, field and ray kernels ({time.perf_counter() - t0:.0f} s)")
-    source = _small(load(CONFIGS / "pierce_gun.toml"))
-    with warnings.catch_warnings():       # two iterations do not converge, nor need to
-        warnings.simplefilter("ignore")
-        gun(dataclasses.replace(source, gun=dataclasses.replace(source.gun, max_iterations=2)))
-    echo(f"compiled the gun kernels ({time.perf_counter() - t0:.0f} s)")
-    run(_small(load(CONFIGS / "tof_delayed_extraction.toml")))
-    echo(f"compiled the kernels of voltages in time ({time.perf_counter() - t0:.0f} s)")
-    run(_small(load(CONFIGS / "solenoid_focus.toml")))
-    total = time.perf_counter() - t0
-    echo(f"compiled the magnetic ray kernel ({total:.0f} s)")
-    return total
+    if "field" in parts:
+        demo = _small(load(DEMO_CONFIG))
+        maps = solve(demo)
+        run(demo, maps=maps)
+        spec = demo.optics
+        paraxial(maps.combine(), spec.species, spec.energy_eV, object_z_m=spec.object_z_m)
+        echo(f"compiled the solver, field and ray kernels ({time.perf_counter() - t0:.0f} s)")
+    if "gun" in parts:
+        source = _small(load(CONFIGS / "pierce_gun.toml"))
+        with warnings.catch_warnings():       # two iterations do not converge, nor need to
+            warnings.simplefilter("ignore")
+            gun(dataclasses.replace(source, gun=dataclasses.replace(source.gun, max_iterations=2)))
+        echo(f"compiled the gun kernels ({time.perf_counter() - t0:.0f} s)")
+    if "time" in parts:
+        run(_small(load(CONFIGS / "tof_delayed_extraction.toml")))
+        echo(f"compiled the kernels of voltages in time ({time.perf_counter() - t0:.0f} s)")
+    if "magnetic" in parts:
+        run(_small(load(CONFIGS / "solenoid_focus.toml")))
+        echo(f"compiled the magnetic ray kernel ({time.perf_counter() - t0:.0f} s)")
+    return time.perf_counter() - t0
