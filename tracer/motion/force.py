@@ -10,10 +10,13 @@ computed once per cell for all of its steps, turned into a 3-D field by the map'
 the magnetic term q v x B and the time-dependent weights of several maps (the ∂V/∂t work rate it
 returns, :func:`tracer.ledger.time_work`) go there, without touching the stepper or the events.
 
-The magnetic field (:class:`tracer.motion.bundles.Magnet`, :func:`magnetic_field`) is the curl of
-the interpolated A_theta of the coils and axial profiles, from the polynomial of the same cell as
-the potential's, plus uniform fields in their regions. It does no work, so the ledger is unchanged.
-Without a magnet (``None``) numba compiles none of this: an electric-only force is qE.
+The magnetic field (:class:`tracer.motion.bundles.Magnet`) is the curl of the interpolated A_theta
+of the coils and axial profiles, from the polynomial of the same cell as the potential's
+(:func:`magnetic_field`, in :func:`force`), plus uniform fields in their regions
+(:func:`uniform_force`, added after it by every caller: its loop over the regions, kept out of
+:func:`force`, would stop the stepper's loop over lanes from compiling to SIMD instructions even
+where there are no regions). It does no work, so the ledger is unchanged. Without a magnet
+(``None``) numba compiles none of this: an electric-only force is qE.
 """
 
 import math
@@ -100,7 +103,8 @@ def patch_field(a, pz, pr, nodes, sym, x, y, z):
 
 @njit(cache=True, error_model="numpy", inline="always")
 def magnetic_field(magnet, b, pz, pr, nodes, x, y, z):
-    """The magnetic field at a 3-D point (see :class:`tracer.motion.bundles.Magnet`).
+    """The magnetic field of the coils and axial profiles at a 3-D point (see
+    :class:`tracer.motion.bundles.Magnet`; the uniform fields are :func:`uniform_force`'s).
 
     Parameters
     ----------
@@ -131,17 +135,27 @@ def magnetic_field(magnet, b, pz, pr, nodes, x, y, z):
         br = -au * iz / r if r > 0.0 else 0.0
         bx = br * x
         by = br * y
+    return bx, by, bz
+
+
+@njit(cache=True, error_model="numpy", inline="always")
+def uniform_force(magnet, x, y, z, vx, vy, vz, charge):
+    """q v x B of the uniform fields of a :class:`tracer.motion.bundles.Magnet` whose regions hold
+    the point (x, y, z) (metres; velocity in m/s, charge in coulomb), newtons: the part of the
+    magnetic force :func:`force` leaves out."""
+    bx, by, bz = 0.0, 0.0, 0.0
     for k in range(magnet.kinds.shape[0]):
         if inside(magnet.kinds[k], magnet.regions[k], x, y, z):
             bx += magnet.fields[k, 0]
             by += magnet.fields[k, 1]
             bz += magnet.fields[k, 2]
-    return bx, by, bz
+    return charge * (vy * bz - vz * by), charge * (vz * bx - vx * bz), charge * (vx * by - vy * bx)
 
 
 @njit(cache=True, error_model="numpy", inline="always")
 def force(a, pz, pr, nodes, sym, t, x, y, z, vx, vy, vz, charge, magnet, b):
-    """The force on a charge at a 3-D point in the field of one cell (see :func:`patch_field`).
+    """The force on a charge at a 3-D point in the field of one cell (see :func:`patch_field`),
+    without the uniform magnetic fields (:func:`uniform_force`, which its callers add).
 
     Parameters
     ----------
@@ -194,4 +208,10 @@ def rate(a, pz, pr, nodes, sym, mass, charge, s, ks, row, magnet, b):
     ks[row, 3] = fx
     ks[row, 4] = fy
     ks[row, 5] = fz
+    if magnet is not None:
+        ux, uy, uz = uniform_force(magnet, s[0], s[1], s[2], ks[row, 0], ks[row, 1], ks[row, 2],
+                                   charge)
+        ks[row, 3] += ux
+        ks[row, 4] += uy
+        ks[row, 5] += uz
     return v

@@ -31,8 +31,8 @@ from tracer.motion.events import (EV_LINE, MAX_HALVINGS, TOUCH, bend, bow, elect
                                   find_landing, locate, outside, past_line, plane_crossings,
                                   r_line, touches_surface, z_line)
 from tracer.motion.force import field_at, rate, speed
-from tracer.motion.stepper import (dense, lane_next_rates, lane_rate, lane_step, propose,
-                                   put_magnet_patch, put_patch, step_cap)
+from tracer.motion.stepper import (dense, lane_next_rates, lane_rate, lane_step, lane_uniform,
+                                   propose, put_magnet_patch, put_patch, step_cap)
 from tracer.motion.symmetry import map_r
 from tracer.motion.walls import (KINK_FRACTION, SNAP, STRETCH, cell_ahead, cell_box, cell_of,
                                  excursion, exit_time, hold, kink_error, reach, wall_theta,
@@ -70,6 +70,7 @@ def first_rate(w, l, y, t, dw, waves, m, nodes, sym, mass, charge, k, magnet):
     for i in range(6):
         w[W_Y1 + i, l] = y[i]
     lane_rate(w, l, t, nodes, sym, mass, charge, W_PATCH, W_V1, magnet, W_BPATCH)
+    lane_uniform(w, l, magnet, charge)
     for i in range(6):
         k[0, i] = w[W_RATE + i, l]
     return w[W_V1, l]

@@ -24,7 +24,7 @@ from tracer.fieldmap import patch_coefficients
 from tracer.motion.bundles import (LANES, W_BNEXT, W_BPATCH, W_DENSE, W_ERR, W_ATOL, W_H, W_K,
                                    W_NEXT, W_PATCH, W_RATE, W_T, W_V1, W_VN, W_Y0, W_Y1)
 from tracer.motion.drive import D_CELL, D_NEXT, weigh_lanes
-from tracer.motion.force import force, gamma_mass, inverse_gamma_mass
+from tracer.motion.force import force, gamma_mass, inverse_gamma_mass, uniform_force
 from tracer.motion.tableau import DP_A, DP_C, DP_D, DP_E
 
 SAFETY, FAC_MIN, FAC_MAX = 0.9, 0.2, 5.0
@@ -68,6 +68,29 @@ def lane_rate(w, l, t, nodes, sym, mass, charge, patch, v_row, magnet, bpatch):
 
 
 @njit(cache=True, error_model="numpy", inline="always")
+def lane_uniform(w, l, magnet, charge):
+    """Add the uniform magnetic fields' q v x B (:func:`tracer.motion.force.uniform_force`) at lane
+    l's point ``W_Y1`` with its velocity ``W_RATE`` to its force in ``W_RATE``, after
+    :func:`lane_rate` (which leaves it out, so that its loops over lanes stay SIMD)."""
+    if magnet is None or magnet.kinds.shape[0] == 0:
+        return
+    fx, fy, fz = uniform_force(magnet, w[W_Y1, l], w[W_Y1 + 1, l], w[W_Y1 + 2, l], w[W_RATE, l],
+                               w[W_RATE + 1, l], w[W_RATE + 2, l], charge)
+    w[W_RATE + 3, l] += fx
+    w[W_RATE + 4, l] += fy
+    w[W_RATE + 5, l] += fz
+
+
+@njit(cache=True, error_model="numpy", inline="always")
+def lanes_uniform(w, magnet, charge):
+    """:func:`lane_uniform` in every lane, a loop of its own (none without uniform fields)."""
+    if magnet is None or magnet.kinds.shape[0] == 0:
+        return
+    for l in range(LANES):
+        lane_uniform(w, l, magnet, charge)
+
+
+@njit(cache=True, error_model="numpy", inline="always")
 def lane_stage(w, st, nodes, sym, mass, charge, magnet):
     """Stage st of the step in every lane: the stage point into ``W_Y1``, its rate into row
     ``W_K + 6 st`` and its potential into ``W_V1`` (see :func:`lane_rate`).
@@ -85,6 +108,7 @@ def lane_stage(w, st, nodes, sym, mass, charge, magnet):
             w[W_Y1 + i, l] = w[W_Y0 + i, l] + h * acc
         lane_rate(w, l, w[W_T, l] + DP_C[st] * h, nodes, sym, mass, charge, W_PATCH, W_V1, magnet,
                   W_BPATCH)
+    lanes_uniform(w, magnet, charge)
     for i in range(6):
         for l in range(LANES):
             w[W_K + 6 * st + i, l] = w[W_RATE + i, l]
@@ -106,7 +130,8 @@ def lane_step(w, nodes, sym, mass, charge, rtol, atol_x, dw, waves, pieces, magn
     cell polynomial of each stage is first weighed at the stage's time on the waveform piece
     ``pieces[l]``; with K = 0 the stages read ``W_PATCH`` as it is. With a ``magnet``
     (:class:`tracer.motion.bundles.Magnet`, else None) the force adds q v x B, A_theta's
-    polynomial read from ``W_BPATCH``.
+    polynomial read from ``W_BPATCH``, and the uniform fields' in a loop of their own
+    (:func:`lanes_uniform`).
 
     Each loop over lanes holds only loops of constant length and branches the compiler turns into
     selects, so it compiles to SIMD instructions over the lanes (when w is a workspace allocated
@@ -150,6 +175,7 @@ def lane_next_rates(w, nodes, sym, mass, charge, dw, waves, pieces, magnet):
     for l in range(LANES):
         lane_rate(w, l, w[W_T, l] + w[W_H, l], nodes, sym, mass, charge, W_NEXT, W_VN, magnet,
                   W_BNEXT)
+    lanes_uniform(w, magnet, charge)
 
 
 @njit(cache=True, error_model="numpy", inline="always")
