@@ -621,7 +621,7 @@ def test_waveform_keys_in_si(tmp_path):
 def test_a_static_setup_is_not_in_time():
     """No waveform parts, or parts that do not vary (zero amplitude), leave the setup static."""
     setup = check(base())
-    assert not setup.in_time and setup.beams[0].start_time_s == 0.0 and setup.time_zero_s == 0.0
+    assert not setup.in_time and setup.beams[0].start_time_s == 0.0 and setup.time_zero_s is None
     document = base()
     document["electrode"][1]["sine"] = [{"amplitude_V": 0.0, "frequency_MHz": 1.0}]
     assert not check(document).in_time

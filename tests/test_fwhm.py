@@ -107,6 +107,11 @@ def test_few_values_and_degenerate_ones():
     assert math.isfinite(fwhm(x)) and fwhm(x) > 0
     assert math.isnan(fwhm(x, weights=np.r_[np.ones(9), 0.0]))
     assert fwhm(np.full(50, 2.5)) == 0.0
+    # values that differ by round-off only (a few units in the last place) are equal; a spread of
+    # 1e-11 of their magnitude is a width
+    ulps = 3.3e-7 + np.spacing(3.3e-7) * rng.integers(-8, 9, 50)
+    assert np.ptp(ulps) > 0 and fwhm(ulps) == 0.0
+    assert fwhm(3.3e-7 * (1.0 + 1e-11 * rng.normal(0, 1, 50))) > 0.0
     assert fwhm(np.r_[x, np.nan, np.inf]) == fwhm(x)
 
 

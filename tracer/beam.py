@@ -130,9 +130,10 @@ class BeamRun(Shown):
         With voltages that change in time, each ray's energy from them, q (∫∂V/∂t dt + jumps), eV:
         the ledger's second term, ΔKE = −qΔV + work_eV (:mod:`tracer.ledger`); None in a static
         field.
-    time_zero_s : float
-        The clock time the planes' resolving power counts flight times from (the extraction
-        pulse; :class:`tracer.measure.PlaneStats`).
+    time_zero_s : float or None
+        The clock time the planes' resolving power counts arrival times from (the extraction
+        pulse; :class:`tracer.measure.PlaneStats`); None: the planes' arrival times are each ray's
+        flight time from its own start (:func:`tracer.measure.arrival_times`).
     bounds_m : tuple of float
         The domain (z_min, z_max, transverse_min, transverse_max) in metres, and ``mirror`` whether
         the transverse minimum is the axis or a mirror plane: where rays that left went
@@ -164,7 +165,7 @@ class BeamRun(Shown):
     start_potential_V: np.ndarray = dataclass_field(default_factory=lambda: np.zeros(0), repr=False)
     electrode_voltages: dict = dataclass_field(default_factory=dict)
     work_eV: np.ndarray | None = dataclass_field(default=None, repr=False)
-    time_zero_s: float = 0.0
+    time_zero_s: float | None = None
     tilted_planes: tuple = ()
 
     def _facts(self):
@@ -203,7 +204,9 @@ class BeamRun(Shown):
             ``status`` {status: count} for every status; ``transmission`` {plane: fraction of the
             rays counted at it}; ``planes`` {plane: :class:`tracer.measure.PlaneStats` fields as a
             dict over the crossings that count, plus ``counted``, the label of the plane's
-            :class:`tracer.measure.CrossingRule`}; ``landing`` {electrode:
+            :class:`tracer.measure.CrossingRule`}; ``time_zero_s``, the clock time the planes'
+            arrival times and resolving power count from (NaN: each ray's flight time from its own
+            start, :func:`tracer.measure.arrival_times`); ``landing`` {electrode:
             :class:`tracer.measure.LandingStats` fields as a dict, plus ``energy_expected_eV``, the
             mean landing energy the start's energy reference implies}; ``left`` {edge: where and
             with what energy rays left, :func:`tracer.endings.left_summary`};
@@ -236,6 +239,7 @@ class BeamRun(Shown):
             "status": status,
             "transmission": {p: planes[p]["fraction"] for p in self.planes},
             "planes": planes,
+            "time_zero_s": math.nan if self.time_zero_s is None else self.time_zero_s,
             "landing": landing,
             "left": endings.left_summary(rec, self.bounds_m, self.symmetry, self.mirror),
             "energy_reference": endings.energy_reference(self.starts, self.start_potential_V),
@@ -263,7 +267,7 @@ def trace(field: PotentialMap | GroupedMaps, beam: Beam, planes: Sequence[Plane]
           ledger_threshold: float = ledger.DEFAULT_THRESHOLD, max_step_cells: float = 1.0,
           sample_cells: float = 0.5, fine_cells: float = 1 / 32, max_steps: int = 10_000_000,
           max_crossings: int = 16, progress: Callable[[int, int], object] | None = None,
-          starts: np.ndarray | None = None, time_zero_s: float = 0.0,
+          starts: np.ndarray | None = None, time_zero_s: float | None = None,
           magnetic: MagneticMap | UniformField | Sequence[MagneticMap | UniformField] | None = None
           ) -> BeamRun:
     """Trace a beam through a potential map, and a magnetic field when given.
@@ -306,8 +310,10 @@ def trace(field: PotentialMap | GroupedMaps, beam: Beam, planes: Sequence[Plane]
     starts : numpy.ndarray, optional
         Start states (:data:`tracer.sources.START_DTYPE`) to trace instead of drawing the beam's;
         the beam then gives only its name and species.
-    time_zero_s : float
-        The clock time the planes' resolving power counts flight times from (the extraction pulse).
+    time_zero_s : float or None
+        The clock time the planes' resolving power counts arrival times from (the extraction
+        pulse); None (the default): the planes' arrival times are each ray's flight time from its
+        own start (:func:`tracer.measure.arrival_times`).
     magnetic : MagneticMap, UniformField or a sequence of them, optional
         Static magnetic fields: the force is then q (E + v x B). At most one
         :class:`tracer.magnetics.units.MagneticMap` (coils and axial profiles, on the field's grid)
@@ -438,7 +444,7 @@ def trace(field: PotentialMap | GroupedMaps, beam: Beam, planes: Sequence[Plane]
                    symmetry=grid.symmetry,
                    crossing_rules=rules,
                    work_eV=spent[:, 0] * sp.charge_C / constants.e if in_time else None,
-                   time_zero_s=float(time_zero_s),
+                   time_zero_s=None if time_zero_s is None else float(time_zero_s),
                    tilted_planes=tuple(p.name for p in planes if p.tilted), **run_context(field, starts))
 
 

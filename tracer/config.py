@@ -43,7 +43,8 @@ Keys (defaults in brackets; "r" stands for "y" in a domain with y_mm)::
                  (from 1) ["first"]
     [trace]      max_time_us or max_time_ns [100 us] (each ray's, from its start), rtol [1e-9],
                  ledger_threshold [1e-6], keep_paths [50], time_zero_ns|us [the earliest pulse's
-                 start, else 0] (flight times of the resolving power count from it)
+                 start, else each ray's own start] (arrival times and the resolving power count
+                 from it)
     [scan]       <electrode> = [from_V, to_V, count], "<electrode>.pulse[i].<key>" = [from, to, count]
                  (a waveform parameter in its key's unit; also .sine[i]), ...;  or csv = "sets.csv"
                  (<electrode>_V columns, and waveform parameters named as the keys)

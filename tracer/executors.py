@@ -89,8 +89,9 @@ class Context:
         parameters (``parameters``) the waveforms' parts, and the beams are traced through the
         maps grouped by waveform; None when every voltage is constant.
     time_zero_s : float or None
-        The clock time flight times count from for the resolving power (``[trace] time_zero``);
-        None: each set's earliest pulse (:func:`tracer.waveforms.first_pulse_s`).
+        The clock time arrival times count from for the resolving power (``[trace] time_zero``);
+        None: each set's earliest pulse (:func:`tracer.waveforms.first_pulse_s`), else each ray's
+        own start.
     parameters : dict
         The varied waveform parameters by name (:func:`tracer.config.waveform_parameter`).
     magnetic : tracer.schema.MagneticSpec

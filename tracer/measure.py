@@ -28,6 +28,16 @@ once.  A ray that turns exactly at the plane (pn = 0 at the crossing) counts onl
 ``"any"``.  Labels such as ``"first crossing"`` or ``"2nd crossing, -z"`` (:attr:`CrossingRule.label`)
 say which rule a figure follows.
 
+Arrival times
+-------------
+The time figures of a plane (``time_mean_s``, ``time_std_s``, ``time_fwhm_s``,
+``resolving_power``) take the crossings' times by one rule (:func:`arrival_times`).  A run with a
+time zero (the extraction pulse: the earliest pulse on any electrode, or ``[trace] time_zero``)
+keeps the clock, and its resolving power counts the mean arrival time from that time zero.  A run
+with neither (static electrodes, an RF-only run) counts each crossing from its own ray's start:
+flight times, whatever the rays' start times, and the resolving power is the mean flight time
+over twice their FWHM.  Rays that all start at t = 0 read the same either way.
+
 Scan columns
 ------------
 First one column ``<electrode>_V`` per varied electrode (:mod:`tracer.scans`), then for each beam
@@ -36,7 +46,7 @@ First one column ``<electrode>_V`` per varied electrode (:mod:`tracer.scans`), t
 * at each plane (the crossings that count): ``transmission`` (the plane's ``fraction``),
   ``spot_rms_m`` (rms radius about the centroid), ``centroid_x_m``, ``centroid_y_m``,
   ``divergence_x_rad``, ``divergence_y_rad`` (rms slopes px/pz, py/pz), ``energy_mean_eV``,
-  ``energy_std_eV``, ``tof_mean_s``, ``tof_std_s`` (time of flight), ``tof_fwhm_s`` and
+  ``energy_std_eV``, ``tof_mean_s``, ``tof_std_s`` (the arrival times, Arrival times above), ``tof_fwhm_s`` and
   ``resolving_power`` (the arrival times' width and t / (2 Δt_FWHM), :class:`PlaneStats`),
   ``d50_m``, ``d90_m`` (current-containing diameters), ``fwhm_x_m``, ``fwhm_y_m`` (the profiles'
   full widths at half maximum), ``focus_z_m`` and ``focus_d50_z_m`` (the best focus of the rays continued in straight
@@ -214,15 +224,17 @@ class PlaneStats:
     energy_mean_eV, energy_std_eV : float
         Kinetic energy mean and standard deviation.
     time_mean_s, time_std_s : float
-        Time of flight to the plane, mean and standard deviation (the time on the trace's clock;
-        rays that start at t = 0 make it the flight time).
+        Arrival time at the plane, mean and standard deviation, by the run's time origin
+        (:func:`arrival_times`): the clock time when a run counts from a clock time zero (the
+        extraction pulse), each ray's flight time from its own start when it does not.
     time_fwhm_s : float
         Width of the arrival times: the full width at half maximum of their distribution (current
         weighted, :func:`tracer.stats.fwhm`, as the profiles' widths); NaN for fewer than ten rows.
     resolving_power : float
         Mass-resolving power of a time-of-flight analyser at this plane, t / (2 Δt_FWHM), with t
-        the mean arrival time counted from ``time_zero_s`` (the extraction pulse; common
-        practice, m / Δm = t / (2 Δt) since t ∝ sqrt(m)).
+        the mean arrival time counted from ``time_zero_s`` (the extraction pulse), or the mean
+        flight time when the run counts from each ray's start (common practice, m / Δm =
+        t / (2 Δt) since t ∝ sqrt(m)).
     current_A : float
         The current of the rays counted, each ray once (NaN when the rays carry none).
     focus_z_m, focus_rms_m : float
@@ -317,7 +329,7 @@ def beam_rotation(rows, starts) -> float:
 
 
 def plane_stats(rows, species, records, time_zero_s=0.0, along_z=True, focus_window_m=(-math.inf, math.inf),
-                starts=None):
+                starts=None, times=None):
     """The figures of the given crossing rows.
 
     Parameters
@@ -331,13 +343,16 @@ def plane_stats(rows, species, records, time_zero_s=0.0, along_z=True, focus_win
         The rays started (``BeamRun.records``): the denominator of ``fraction``, and their
         ``weight_A`` (when the field is there and sums above 0) the current.
     time_zero_s : float
-        The clock time the resolving power counts flight times from (the extraction pulse).
+        The time the resolving power counts ``times`` from (the extraction pulse on the clock; 0
+        for flight times).
     along_z : bool
         Whether the plane is z = const (the best focus is a z only there).
     focus_window_m : (float, float)
         The z range a best focus is looked for in (:func:`focus_window`); a waist beyond it is NaN.
     starts : numpy.ndarray, optional
         The rays' start states in axial symmetry, for ``rotation_rad`` (NaN without them).
+    times : numpy.ndarray, optional
+        The rows' arrival times (:func:`arrival_times`); their clock times ``time_s`` when not given.
 
     Returns
     -------
@@ -352,7 +367,7 @@ def plane_stats(rows, species, records, time_zero_s=0.0, along_z=True, focus_win
     cx, cy = mean(x, w), mean(y, w)
     bg = beta_gamma(rows, species.mass_kg, w)
     ex, ey = rms_emittance(x, xs, w), rms_emittance(y, ys, w)
-    t = rows["time_s"]
+    t = rows["time_s"] if times is None else times
     width = fwhm(t, w)
     z0 = mean(rows["z_m"]) if along_z else math.nan
     on = np.isfinite(xs) & np.isfinite(ys)        # a ray turning in the plane has no straight line
@@ -417,9 +432,42 @@ def plane_figures(run, plane):
     -------
     PlaneStats
     """
-    return plane_stats(counted(run, plane), run.species, run.records, run.time_zero_s,
+    rows = counted(run, plane)
+    times, zero = arrival_times(run, rows)
+    return plane_stats(rows, run.species, run.records, zero,
                        along_z=plane not in getattr(run, "tilted_planes", ()), focus_window_m=focus_window(run),
-                       starts=getattr(run, "starts", None) if getattr(run, "symmetry", None) == "axial" else None)
+                       starts=getattr(run, "starts", None) if getattr(run, "symmetry", None) == "axial" else None,
+                       times=times)
+
+
+def arrival_times(run, rows):
+    """The arrival times of crossing rows of a run, by the run's time origin, and the time its
+    resolving power counts them from.
+
+    A run with a time zero (``run.time_zero_s``: the extraction pulse, the earliest pulse on any
+    electrode, or ``[trace] time_zero``) keeps the clock: the rows' ``time_s``, counted from that
+    time zero.  A run without one (``time_zero_s`` None: no pulse and no ``[trace] time_zero``; a
+    static run, an RF-only run) counts each row from its own ray's start: the flight times
+    ``time_s`` minus the ray's start time (``run.starts``), counted from 0.  Rays that all start at
+    t = 0 read the same either way.
+
+    Parameters
+    ----------
+    run : tracer.beam.BeamRun
+    rows : numpy.ndarray
+        Crossing rows of the run (``ray``, ``time_s``).
+
+    Returns
+    -------
+    times : numpy.ndarray
+        One time per row, seconds.
+    zero : float
+        The time ``times`` are counted from by the resolving power.
+    """
+    if run.time_zero_s is not None:
+        return rows["time_s"], run.time_zero_s
+    starts = run.starts
+    return rows["time_s"] - starts["time_s"][np.searchsorted(starts["ray"], rows["ray"])], 0.0
 
 
 def focus_window(run):

@@ -34,7 +34,7 @@ from matplotlib import ticker
 from matplotlib.collections import LineCollection
 from matplotlib.figure import Figure
 
-from tracer.measure import FILE_UNITS, counted, frame, grid_column, plane_figures, ray_weights
+from tracer.measure import FILE_UNITS, arrival_times, counted, frame, grid_column, plane_figures, ray_weights
 from tracer.schema import scan_column, scan_unit
 from tracer.stats import mean, radius
 from tracer.store.atomic import atomic_path
@@ -437,17 +437,19 @@ def waveforms_figure(grouped, runs, points=20_001) -> Figure | None:
 
 
 def arrival_times_figure(run, plane) -> Figure | None:
-    """Histogram of the arrival times at a plane (the crossings that count for its figures), with
-    the width Δt_FWHM and the resolving power t / (2 Δt_FWHM) of :class:`tracer.measure.PlaneStats`.
-    None for fewer than two crossings."""
+    """Histogram of the arrival times at a plane (the crossings that count for its figures; on the
+    clock, or each ray's flight time from its start when the run has no time zero,
+    :func:`tracer.measure.arrival_times`), with the width Δt_FWHM and the resolving power
+    t / (2 Δt_FWHM) of :class:`tracer.measure.PlaneStats`.  None for fewer than two crossings."""
     rows = counted(run, plane)
     if len(rows) < 2:
         return None
     stats = plane_figures(run, plane)
+    times, _ = arrival_times(run, rows)
     fig = new_figure((6, 3.5))
     ax = fig.subplots()
-    ax.hist(rows["time_s"] * 1e9, bins=min(80, max(10, len(rows) // 10)), histtype="step", lw=1.2)
-    ax.set_xlabel("arrival time (ns)")
+    ax.hist(times * 1e9, bins=min(80, max(10, len(rows) // 10)), histtype="step", lw=1.2)
+    ax.set_xlabel("arrival time (ns)" if run.time_zero_s is not None else "flight time from each ray's start (ns)")
     ax.set_ylabel("rays")
     ax.set_title(f"beam {run.name} at plane {plane}: FWHM {stats.time_fwhm_s * 1e9:.4g} ns, "
                  f"t / (2 FWHM) = {stats.resolving_power:.4g}", fontsize=10)

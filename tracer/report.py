@@ -180,6 +180,26 @@ def _rotation(s):
                               "modulo 180 deg, an inverted image being a half turn)")
 
 
+def _arrivals(s):
+    """The arrival times at each plane, their width and the resolving power, saying what they count
+    from (``time_zero_s``, :func:`tracer.measure.arrival_times`); "" without planes."""
+    timed = {name: d for name, d in s["planes"].items() if "resolving_power" in d}
+    if not timed:
+        return ""
+    zero = s.get("time_zero_s")
+    if zero is None:            # a summary stored before the key
+        mean, title = "arrival mean ns", "arrival times (resolving power counted from the extraction pulse)"
+    elif math.isnan(zero):
+        mean, title = ("flight mean ns", "arrival times: each ray's flight time from its own start (no pulse "
+                                         "and no [trace] time_zero; t / (2 FWHM) with t the mean flight time)")
+    else:
+        mean, title = ("arrival mean ns", f"arrival times on the clock (t / (2 FWHM) with t counted from "
+                                          f"{zero * 1e9:.6g} ns: the extraction pulse, or [trace] time_zero)")
+    return format_table(["plane", mean, "FWHM ns", "t / (2 FWHM)"],
+                        [[_plane(name, d), d["time_mean_s"] * 1e9, d["time_fwhm_s"] * 1e9, d["resolving_power"]]
+                         for name, d in timed.items()], title=title)
+
+
 def _energy_reference(s):
     """The line that says where ``energy_eV`` is measured from ("" for summaries stored before)."""
     ref = s.get("energy_reference") or {}
@@ -275,13 +295,7 @@ def format_summary(summary: dict) -> str:
                   + ("; every figure weighted by the rays' current)" if math.isfinite(s.get("current_A", math.nan))
                      else ")")))
         parts += [t for t in (_spots(s), _focus(s), _rotation(s)) if t]
-        timed = {name: d for name, d in s["planes"].items() if "resolving_power" in d}
-        if timed:
-            parts.append(format_table(
-                ["plane", "arrival mean ns", "FWHM ns", "t / (2 FWHM)"],
-                [[_plane(name, d), d["time_mean_s"] * 1e9, d["time_fwhm_s"] * 1e9, d["resolving_power"]]
-                 for name, d in timed.items()],
-                title="arrival times (resolving power counted from the extraction pulse)"))
+        parts += [t for t in (_arrivals(s),) if t]
     if "ledger_time_work_eV" in s:
         parts.append(f"energy ledger in time: dKE = -q dV + q W (W = integral of dV/dt + jumps); "
                      f"|q dV| up to {s['ledger_potential_eV']:.4g} eV, |q W| up to "

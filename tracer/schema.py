@@ -312,8 +312,9 @@ class TraceOptions:
     keep_paths : int
         Number of rays whose path points are kept for plots.
     time_zero_s : float or None
-        The clock time flight times count from for the resolving power (the extraction pulse);
-        None: the start of the earliest pulse on any electrode, else 0 (:meth:`Setup.time_zero_s`).
+        The clock time arrival times count from for the resolving power (the extraction pulse);
+        None: the start of the earliest pulse on any electrode, else each ray's own start
+        (:meth:`Setup.time_zero_s`).
     """
 
     max_time_s: float = 1e-4
@@ -589,10 +590,11 @@ class Setup:
         return {e.name: e.drive for e in self.electrodes}
 
     @property
-    def time_zero_s(self) -> float:
-        """The clock time flight times count from for the resolving power: ``[trace]
+    def time_zero_s(self) -> float | None:
+        """The clock time arrival times count from for the resolving power: ``[trace]
         time_zero``, else the start of the earliest pulse on any electrode (the extraction pulse),
-        else 0."""
+        else None: with no pulse each ray's arrival times count from its own start (flight times,
+        :func:`tracer.measure.arrival_times`)."""
         if self.trace.time_zero_s is not None:
             return self.trace.time_zero_s
         return first_pulse_s(self.drives().values())

@@ -50,7 +50,9 @@ it follows each: 2 sqrt(2 ln 2) sigma for a normal distribution, 2a for a unifor
 (the kernel halves a sharp edge where it stands), sqrt(3) R for the projected profile of a
 uniformly filled disc of radius R (half the peak at |x| = R sqrt(3) / 2), and the core's width when
 a wide halo surrounds it.  Fewer than :data:`FWHM_LEAST` values (rays of non-zero current) give
-NaN; values all equal give 0.
+NaN; values all equal give 0, and so do values whose standard deviation is below
+:data:`FWHM_ROUND_OFF` of their largest magnitude: equal to round-off (rays of one energy through
+a uniform field arrive at one time, to a few units in the last place).
 
 Best focus of straight rays
 ---------------------------
@@ -137,6 +139,10 @@ def beta_gamma(rows, mass_kg, weights=None):
 FWHM_LEAST = 10
 """The fewest values (of non-zero weight) :func:`fwhm` measures; fewer give NaN."""
 
+FWHM_ROUND_OFF = 1e-12
+"""The relative spread below which :func:`fwhm` reads values as equal (0): round-off of the
+integration, far below any tolerance it is run at."""
+
 _REACH = 4.0
 """The kernel is cut at this many bandwidths."""
 
@@ -178,7 +184,7 @@ def fwhm(a, weights=None):
     -------
     float
         The width, in the values' unit; NaN for fewer than :data:`FWHM_LEAST` values, 0 when they
-        are all equal.
+        are all equal (to :data:`FWHM_ROUND_OFF` of their magnitude).
     """
     a = np.asarray(a, dtype=float)
     w = np.ones(len(a)) if weights is None else np.asarray(weights, dtype=float)
@@ -190,7 +196,7 @@ def fwhm(a, weights=None):
     a, w = a[order], w[order] / np.sum(w)
     centre = np.sum(w * a)
     sigma = math.sqrt(np.sum(w * (a - centre) ** 2))
-    if not sigma > 0.0:
+    if not sigma > FWHM_ROUND_OFF * np.abs(a).max():
         return 0.0
     q1, q3 = weighted_quantile(a, w, [0.25, 0.75])
     spread = min(sigma, (q3 - q1) / 1.34) if q3 > q1 else sigma

@@ -411,10 +411,11 @@ class Waveform:
         return sample(self.arrays(), 0, np.asarray(t, dtype=float).ravel())[1].reshape(np.shape(t))
 
 
-def first_pulse_s(drives) -> float:
+def first_pulse_s(drives) -> float | None:
     """The start of the earliest pulse among ``drives`` (Waveforms; constant voltages are skipped),
-    seconds; 0 when there is no pulse (the time zero of flight times: the extraction pulse)."""
-    return min((p.delay_s for d in drives if isinstance(d, Waveform) for p in d.pulses), default=0.0)
+    seconds: the time zero of arrival times, the extraction pulse; None when there is no pulse
+    (arrival times then count from each ray's start, :func:`tracer.measure.arrival_times`)."""
+    return min((p.delay_s for d in drives if isinstance(d, Waveform) for p in d.pulses), default=None)
 
 
 def _check(obj, at):

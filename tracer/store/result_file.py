@@ -333,6 +333,13 @@ _NEEDED = ("ray", "status", "time_s", "x_m", "y_m", "z_m", "px", "py", "pz", "en
 """Fields every state record of a result file has."""
 
 
+def _time_zero(about):
+    """The beam's ``time_zero_s`` (:class:`tracer.beam.BeamRun`): None when the file says null (the
+    arrival times count from each ray's start), 0 in a file written before the key."""
+    value = about.get("time_zero_s", 0.0)
+    return None if value is None else float(value)
+
+
 def _read_beam(group, particles, k, about, symmetry) -> BeamRun:
     """The k-th beam of a result file, ``about`` its entry in the beams JSON; its names, record
     types and ray indices checked as a file from elsewhere needs (:mod:`tracer.store.trust`)."""
@@ -369,7 +376,7 @@ def _read_beam(group, particles, k, about, symmetry) -> BeamRun:
                    symmetry=symmetry,
                    crossing_rules=tuple(CrossingRule(*r) for r in about.get("crossing_rules", ())),
                    work_eV=read_array(group[f"work_eV/{k}"]) if f"work_eV/{k}" in group else None,
-                   time_zero_s=float(about.get("time_zero_s", 0.0)),
+                   time_zero_s=_time_zero(about),
                    tilted_planes=tuple(about.get("tilted_planes", ())))
 
 
