@@ -6,6 +6,8 @@ import subprocess
 import sys
 from pathlib import Path
 
+import pytest
+
 from tracer import warmup
 from tracer.cli import main
 
@@ -64,3 +66,89 @@ def test_no_notice_once_compiled(monkeypatch, capsys):
     _terminal(monkeypatch, cached=True)
     assert main(["run", str(DEMO), "--rays", "0"]) == 2
     assert "first run" not in capsys.readouterr().err
+
+
+CONFIGS = ROOT / "configs"
+VARIANTS = [DEMO,                                       # axial, electric
+            CONFIGS / "solenoid_focus.toml",            # a coil: the magnetic kernel
+            CONFIGS / "tof_delayed_extraction.toml"]    # voltages in time
+
+
+def _kernel_signatures():
+    from tracer.motion import lanes      # the dispatcher itself (tests/conftest.py may wrap motion's)
+
+    return set(lanes.trace_rays.signatures)
+
+
+def test_zero_maps_are_a_solve_without_solving():
+    """The maps the ray kernel is compiled on ahead have the solved maps' shapes and types."""
+    from tracer.config import load
+    from tracer.pipeline import solve
+
+    setup = warmup._small(load(DEMO))
+    zero, solved = warmup.zero_maps(setup), solve(setup)
+    assert zero.names == solved.names and zero.voltages == solved.voltages
+    for a, b in ((zero.unit, solved.unit), (zero.hermite, solved.hermite)):
+        assert a.shape == b.shape and a.dtype == b.dtype and a.flags.c_contiguous == b.flags.c_contiguous
+    assert not zero.unit.any()
+    assert (zero.raster.cell == solved.raster.cell).all()
+
+
+def test_the_kernel_compiled_ahead_is_the_one_the_run_uses():
+    """compile_rays traces with the very argument types of the config's run: the run afterwards
+    adds no signature of the ray kernel (a kernel compiled beside the solve is found in numba's
+    cache, not compiled again)."""
+    from tracer.config import load
+    from tracer.pipeline import run
+
+    for config in VARIANTS:
+        warmup.compile_rays(config)
+        ahead = _kernel_signatures()
+        run(warmup._small(load(config)))
+        assert _kernel_signatures() == ahead, config.name
+
+
+class _Child:
+    """A stand-in for the second process: records how it was started and ended."""
+
+    started = []
+
+    def __init__(self, args, **kwargs):
+        self.args, self.kwargs, self.ended = args, kwargs, []
+        _Child.started.append(self)
+
+    def wait(self):
+        self.ended.append("waited")
+
+    def kill(self):
+        self.ended.append("killed")
+
+
+def _beside(monkeypatch, pending, cores=2, env="1"):
+    _Child.started = []
+    monkeypatch.setattr(warmup.subprocess, "Popen", _Child)
+    monkeypatch.setattr(warmup, "pending", lambda: pending)
+    monkeypatch.setattr(warmup, "_cores", lambda: cores)
+    monkeypatch.setenv(warmup.BESIDE_ENV, env)
+
+
+def test_the_ray_kernel_compiles_beside_the_solve_on_a_first_run(monkeypatch):
+    _beside(monkeypatch, pending=True)
+    with warmup.rays_beside(DEMO):
+        (child,) = _Child.started
+        assert child.ended == []                      # running while the block runs
+    assert child.ended == ["waited"]
+    assert child.args[-1] == str(DEMO) and "compile_rays" in child.args[2]
+    assert child.kwargs["start_new_session"]          # a Ctrl-C at the terminal reaches this process only
+    with pytest.raises(KeyboardInterrupt):
+        with warmup.rays_beside(DEMO):
+            raise KeyboardInterrupt
+    assert _Child.started[-1].ended == ["killed", "waited"]
+
+
+@pytest.mark.parametrize("pending, cores, env", [(False, 2, "1"), (True, 1, "1"), (True, 2, "0")])
+def test_no_second_process_when_compiled_on_one_core_or_turned_off(monkeypatch, pending, cores, env):
+    _beside(monkeypatch, pending, cores, env)
+    with warmup.rays_beside(DEMO):
+        pass
+    assert _Child.started == []

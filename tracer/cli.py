@@ -184,14 +184,21 @@ def _stage_progress(args):
     return update
 
 
-def _run_config(setup, args, out: Path, echo) -> int:
-    from tracer.pipeline import run, with_grids, with_rays, write_run_outputs
+def _run_config(setup, config, args, out: Path, echo) -> int:
+    from tracer import footprint
+    from tracer.pipeline import run, solve, with_grids, with_rays, write_run_outputs
     from tracer.report import format_summary
+    from tracer.warmup import rays_beside
 
     if args.rays is not None and args.rays < 1:
         raise InputError(f"--rays: {args.rays} must be a positive number of rays")
     setup = with_grids(with_rays(setup, args.rays), args.grids)
-    result = run(setup, cache_dir=_cache_dir(args), progress=_stage_progress(args))
+    footprint.check(setup)
+    progress = _stage_progress(args)
+    with rays_beside(config):     # on a first run, the ray kernel compiles beside the solve
+        maps = solve(setup, cache_dir=_cache_dir(args),
+                     progress=None if progress is None else lambda done, total: progress("solve", done, total))
+    result = run(setup, maps=maps, cache_dir=_cache_dir(args), progress=progress)
     for summary in result.summary().values():
         echo(format_summary(summary))
         echo("")
@@ -207,7 +214,7 @@ def cmd_run(args, echo) -> int:
         what = "; tracer gun traces its [gun]" if setup.gun is not None else ""
         raise InputError(f"{args.config}: no [[beam]] to trace (give one, or use tracer solve for the "
                          f"maps alone{what})")
-    return _run_config(setup, args, _out_dir(args), echo)
+    return _run_config(setup, args.config, args, _out_dir(args), echo)
 
 
 def cmd_demo(args, echo) -> int:
@@ -221,7 +228,7 @@ def cmd_demo(args, echo) -> int:
     _compile_notice(args)
     echo(f"demo: {setup.title}")
     echo(f"config: {DEMO_CONFIG}")
-    code = _run_config(setup, args, out, echo)
+    code = _run_config(setup, DEMO_CONFIG, args, out, echo)
     echo(f"demo outputs are in {out.resolve()}/ (result.h5, landings.csv, *.png)")
     return code
 

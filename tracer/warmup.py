@@ -10,13 +10,22 @@ once (:data:`FIRST_COMPILE`, measured by ``tests/bench/bench_coldstart.py``), an
 so on one line with the expected wait); :func:`warmup` compiles every kernel a run, a gun, a run
 with voltages in time, a run with coils and the paraxial optics use, by running the bundled
 examples small.
+
+:func:`rays_beside` shortens the first run itself on a machine with two cores: while the run's
+process solves the maps (compiling the solver's kernels), a second process compiles the ray kernel
+the run will use (:func:`compile_rays`), and the trace then loads it from numba's cache.
 """
 
 from __future__ import annotations
 
+import contextlib
 import dataclasses
+import os
+import subprocess
+import sys
 import time
 import warnings
+from pathlib import Path
 
 #: The first compile of every kernel on two cores, as measured by tests/bench/bench_coldstart.py.
 FIRST_COMPILE = "about three minutes on two cores"
@@ -51,6 +60,77 @@ def notice() -> str | None:
         return None
     return (f"first run of this install: compiling the field and ray kernels, {FIRST_COMPILE} "
             "(once; 'tracer warmup' does it ahead)")
+
+
+#: Set this environment variable to "0" to compile everything in the run's own process.
+BESIDE_ENV = "TRACER_COMPILE_BESIDE"
+
+
+def _cores() -> int:
+    """The cores this process may run on."""
+    try:
+        return len(os.sched_getaffinity(0))
+    except AttributeError:       # no affinity on this platform
+        return os.cpu_count() or 1
+
+
+def zero_maps(setup):
+    """The basis maps of a setup's geometry with every unit map zero: what a solve returns, in
+    types and shapes, without solving (:class:`tracer.fieldmap.BasisMaps`)."""
+    import numpy as np
+
+    from tracer.fieldmap import basis_maps
+    from tracer.geometry import rasterize, shape_table
+    from tracer.grid import Grid
+    from tracer.solver.unit import UnitSolution
+
+    grid = Grid.from_domain(setup.domain)
+    table = shape_table(setup.electrodes, setup.domain)
+    unit = np.zeros((len(setup.electrodes), grid.nz, grid.nr))
+    history = tuple(np.zeros(1) for _ in setup.electrodes)
+    return basis_maps(setup, UnitSolution(unit, rasterize(table, grid), history))
+
+
+def compile_rays(config) -> None:
+    """Compile the ray kernel a config's run traces with (its symmetry, voltages in time, magnetic
+    sources) into numba's cache, by tracing a few rays of its first beam through zero maps on
+    twice its cell: no solve, so it can run beside one."""
+    from tracer.config import load
+    from tracer.pipeline import trace_beam, traced_field
+
+    setup = _small(load(config))
+    if setup.beams:
+        trace_beam(traced_field(setup, zero_maps(setup)), setup.beams[0], setup)
+
+
+@contextlib.contextmanager
+def rays_beside(config):
+    """While the block runs, compile the ray kernel of ``config`` in a second process.
+
+    Only when the kernels are still to compile (:func:`pending`), the machine has two cores or
+    more and ``TRACER_COMPILE_BESIDE`` is not "0"; otherwise the block just runs. Meant around a
+    run's solve: the solve compiles the solver's kernels on one core while the second process
+    compiles the ray kernel on the other. The end of the block waits for the second process (a
+    failed one is only time lost: the trace then compiles its kernel itself); a block that raises
+    (Ctrl-C included) stops it.
+    """
+    if os.environ.get(BESIDE_ENV, "1") == "0" or _cores() < 2 or not pending():
+        yield
+        return
+    root = str(Path(__file__).resolve().parents[1])
+    path = os.pathsep.join(p for p in (root, os.environ.get("PYTHONPATH", "")) if p)
+    child = subprocess.Popen(
+        [sys.executable, "-c", "import sys; from tracer.warmup import compile_rays; "
+         "compile_rays(sys.argv[1])", str(config)],
+        env=dict(os.environ, PYTHONPATH=path), stdin=subprocess.DEVNULL,
+        stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL, start_new_session=True)
+    try:
+        yield
+    except BaseException:
+        child.kill()
+        child.wait()
+        raise
+    child.wait()
 
 
 def _small(setup, rays=8):
