@@ -124,11 +124,11 @@ class _Child:
         self.ended.append("killed")
 
 
-def _beside(monkeypatch, pending, cores=2, env="1"):
+def _beside(monkeypatch, pending, spare=1, env="1"):
     _Child.started = []
     monkeypatch.setattr(warmup.subprocess, "Popen", _Child)
     monkeypatch.setattr(warmup, "pending", lambda: pending)
-    monkeypatch.setattr(warmup, "_cores", lambda: cores)
+    monkeypatch.setattr(warmup, "_spare_cores", lambda: spare)
     monkeypatch.setenv(warmup.BESIDE_ENV, env)
 
 
@@ -146,9 +146,20 @@ def test_the_ray_kernel_compiles_beside_the_solve_on_a_first_run(monkeypatch):
     assert _Child.started[-1].ended == ["killed", "waited"]
 
 
-@pytest.mark.parametrize("pending, cores, env", [(False, 2, "1"), (True, 1, "1"), (True, 2, "0")])
-def test_no_second_process_when_compiled_on_one_core_or_turned_off(monkeypatch, pending, cores, env):
-    _beside(monkeypatch, pending, cores, env)
+@pytest.mark.parametrize("pending, spare, env", [(False, 1, "1"), (True, 0, "1"), (True, 1, "0")])
+def test_no_second_process_when_compiled_no_core_free_or_turned_off(monkeypatch, pending, spare, env):
+    _beside(monkeypatch, pending, spare, env)
     with warmup.rays_beside(DEMO):
         pass
     assert _Child.started == []
+
+
+def test_spare_cores_count_the_load(monkeypatch):
+    """A core is spare when the machine's load leaves one beside this process's."""
+    monkeypatch.setattr(warmup.os, "sched_getaffinity", lambda pid: {0, 1}, raising=False)
+    for load, spare in ((0.0, 1), (1.0, 1), (1.4, 1), (1.6, 0), (4.0, 0)):
+        monkeypatch.setattr(warmup.os, "getloadavg", lambda load=load: (load, load, load))
+        assert warmup._spare_cores() == spare, load
+    monkeypatch.setattr(warmup.os, "sched_getaffinity", lambda pid: {0}, raising=False)
+    monkeypatch.setattr(warmup.os, "getloadavg", lambda: (0.0, 0.0, 0.0))
+    assert warmup._spare_cores() == 0

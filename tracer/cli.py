@@ -326,6 +326,7 @@ def cmd_scan(args, echo) -> int:
     from tracer.plot import plot_scan
     from tracer.scans import scan, voltage_sets
     from tracer.schema import scan_column, scan_unit
+    from tracer.warmup import rays_beside
 
     setup = _load(args)
     if setup.scan is None:
@@ -335,7 +336,8 @@ def cmd_scan(args, echo) -> int:
     out = _out_dir(args)
     footprint.check(setup, scan=True, workers=None if args.scheduler else args.workers or os.cpu_count() or 1)
     voltage_sets(setup)   # a bad row of a CSV of sets is refused before any work
-    maps = solve(setup, cache_dir=_cache_dir(args), progress=_progress(args, "solving"))
+    with rays_beside(args.config):   # a first scan's workers then load the ray kernel compiled
+        maps = solve(setup, cache_dir=_cache_dir(args), progress=_progress(args, "solving"))
     try:
         with cluster_executor(args.scheduler) if args.scheduler else contextlib.nullcontext() as executor:
             result = scan(setup, maps, executor, out=out, workers=args.workers,
@@ -373,12 +375,14 @@ def cmd_tune(args, echo) -> int:
     from tracer.report import figure_text
     from tracer.schema import scan_unit
     from tracer.tuning import tune
+    from tracer.warmup import rays_beside
 
     setup = _load(args)
     if setup.tune is None:
         raise InputError(f"{args.config}: no [tune] section")
     out = _out_dir(args)
-    maps = solve(setup, cache_dir=_cache_dir(args), progress=_progress(args, "solving"))
+    with rays_beside(args.config):   # on a first run, the ray kernel compiles beside the solve
+        maps = solve(setup, cache_dir=_cache_dir(args), progress=_progress(args, "solving"))
     result = tune(setup, maps)
     where = f" at {setup.tune.at}" if setup.tune.at else ""
     echo(f"{setup.title}\n  goal {result.goal}{where}: {figure_text(result.figure, result.value)} "

@@ -66,12 +66,18 @@ def notice() -> str | None:
 BESIDE_ENV = "TRACER_COMPILE_BESIDE"
 
 
-def _cores() -> int:
-    """The cores this process may run on."""
+def _spare_cores() -> int:
+    """The cores this process may run on, less those busy (the last minute's load average, which
+    counts this process too); 0 when none is free for a second process."""
     try:
-        return len(os.sched_getaffinity(0))
+        cores = len(os.sched_getaffinity(0))
     except AttributeError:       # no affinity on this platform
-        return os.cpu_count() or 1
+        cores = os.cpu_count() or 1
+    try:
+        busy = os.getloadavg()[0]
+    except (AttributeError, OSError):
+        busy = 1.0
+    return max(0, int(cores - max(busy, 1.0) + 0.5))
 
 
 def zero_maps(setup):
@@ -107,14 +113,15 @@ def compile_rays(config) -> None:
 def rays_beside(config):
     """While the block runs, compile the ray kernel of ``config`` in a second process.
 
-    Only when the kernels are still to compile (:func:`pending`), the machine has two cores or
-    more and ``TRACER_COMPILE_BESIDE`` is not "0"; otherwise the block just runs. Meant around a
+    Only when the kernels are still to compile (:func:`pending`), a core beside this process's is
+    free (two cores or more, not all busy) and ``TRACER_COMPILE_BESIDE`` is not "0"; otherwise the
+    block just runs (on a busy machine a second process would only take turns with the first). Meant around a
     run's solve: the solve compiles the solver's kernels on one core while the second process
     compiles the ray kernel on the other. The end of the block waits for the second process (a
     failed one is only time lost: the trace then compiles its kernel itself); a block that raises
     (Ctrl-C included) stops it.
     """
-    if os.environ.get(BESIDE_ENV, "1") == "0" or _cores() < 2 or not pending():
+    if os.environ.get(BESIDE_ENV, "1") == "0" or _spare_cores() < 1 or not pending():
         yield
         return
     root = str(Path(__file__).resolve().parents[1])
