@@ -1,13 +1,20 @@
-"""Benchmark of voltages in time (run as a script: python tests/bench/bench_waveforms.py [TREE]).
+"""Benchmark of voltages in time (run as a script:
+python tests/bench/bench_waveforms.py [--cpu] [TREE]).
 
 1. All-static runs as fast as before: 1000 protons through the tests' three-tube lens (0.25 mm
    grid) traced by this tree and, when a second source tree TREE is given (e.g. a checkout of the
-   revision before voltages in time), by that tree, each in its own process, alternating, the
-   best of REPEATS kept; prints the ratio (goal: within the machine's noise of 1).
+   revision before voltages in time), by that tree, each in its own process started in its own
+   tree (so that it imports that tree's tracer), alternating, the best of REPEATS kept; prints the
+   ratio (goal: within the machine's noise of 1).
 2. The cost of a waveform: the same rays with the lens electrode's voltage carrying a small 1 MHz
-   sinusoid (one group map), against the static run in this process: time and field
+   sinusoid (one group map) and with a pulse that never switches in the traced time (a group with
+   no cosine), against the static run in this process, the three taking turns: time and field
    evaluations per ray (goal: at most one more map sum per stage per group).
 3. A quadrupole ion trap (the tests' trap) holding an ion for 1000 RF periods (goal: seconds).
+
+``--cpu`` times CPU seconds (time.process_time) on one numba thread instead of wall-clock
+seconds on numba's threads: on a machine shared with other work the wall clock follows the
+others' load, the CPU time of one thread far less.
 """
 
 import os
@@ -23,44 +30,68 @@ RAYS = 1000
 STATIC = """
 import sys, time
 sys.path.insert(0, {tests!r})
+import tracer
 from test_trace import three_tube
 from tracer.beam import trace
 field, setup = three_tube(count={rays}, cell=0.25)
 trace(field, setup.beams[0])
-t0 = time.perf_counter()
+t0 = time.{clock}()
 run = trace(field, setup.beams[0])
-print(time.perf_counter() - t0, run.records["evaluations"].sum())
+print(tracer.__file__, time.{clock}() - t0, run.records["evaluations"].sum())
 """
 
 
-def static_seconds(tree):
+def clock(cpu):
+    """The clock's name in the time module: CPU seconds of this process, or the wall clock."""
+    return "process_time" if cpu else "perf_counter"
+
+
+def static_seconds(tree, cpu=False):
     """One static trace of the lens in a fresh process running ``tree``'s tracer (after a
-    warm-up trace): (seconds, field evaluations)."""
+    warm-up trace), on one numba thread timed by CPU seconds when ``cpu``: (seconds, field
+    evaluations)."""
     env = dict(os.environ, PYTHONPATH=str(tree))
-    code = STATIC.format(tests=str(Path(tree) / "tests"), rays=RAYS)
+    if cpu:
+        env["NUMBA_NUM_THREADS"] = "1"
+    code = STATIC.format(tests=str(Path(tree) / "tests"), rays=RAYS, clock=clock(cpu))
+    # in the tree's own folder: `python -c` puts the working folder first on sys.path
     out = subprocess.run([sys.executable, "-c", code], env=env, capture_output=True, text=True,
-                         check=True).stdout.split()
-    return float(out[0]), int(out[1])
+                         check=True, cwd=tree).stdout.split()
+    if not Path(out[-3]).resolve().is_relative_to(Path(tree).resolve()):
+        raise RuntimeError(f"the process for {tree} imported {out[-3]}")
+    return float(out[-2]), int(out[-1])
 
 
 def main():
     sys.path.insert(0, str(HERE / "tests"))
+    import numba
     import numpy as np
 
     from test_trace import three_tube
     from test_trace_time import RF_HZ, trap_run
     from tracer.beam import trace
     from tracer.config import loads
-    from tracer.fieldmap import solve_basis
+    from tracer.fieldmap import basis_maps, solve_basis
+    from tracer.geometry import shape_table
+    from tracer.grid import Grid
     from tracer.groups import group_maps
-    from tracer.waveforms import Sinusoid, Waveform
+    from tracer.solver import solve_unit_maps
+    from tracer.waveforms import Pulse, Sinusoid, Waveform
 
-    reference = sys.argv[1] if len(sys.argv) > 1 else None
+    args = sys.argv[1:]
+    cpu = "--cpu" in args
+    args = [a for a in args if a != "--cpu"]
+    reference = args[0] if args else None
+    if cpu:
+        numba.set_num_threads(1)
+    now = getattr(time, clock(cpu))
+    unit = "CPU s on 1 thread" if cpu else f"s wall clock on {numba.get_num_threads()} thread(s)"
+    print(f"times in {unit}, best of {REPEATS}")
     here, there = [], []
     for _ in range(REPEATS):
-        here.append(static_seconds(HERE))
+        here.append(static_seconds(HERE, cpu))
         if reference:
-            there.append(static_seconds(reference))
+            there.append(static_seconds(reference, cpu))
     best = min(here)
     print(f"1. static lens, {RAYS} protons: this tree {best[0]:.3f} s ({best[1]} field evaluations)")
     if reference:
@@ -69,31 +100,26 @@ def main():
               f"ratio this / reference = {best[0] / ref[0]:.3f}")
 
     field, setup = three_tube(count=RAYS, cell=0.25)
-    from tracer.fieldmap import basis_maps
-    from tracer.geometry import shape_table
-    from tracer.grid import Grid
-    from tracer.solver import solve_unit_maps
-
     grid = Grid.from_domain(setup.domain)
     maps = basis_maps(setup, solve_unit_maps(grid, shape_table(setup.electrodes, setup.domain)))
     lens = dict(zip(maps.names, maps.voltages))["lens"]
     rf = Waveform(dc_V=lens, sinusoids=(Sinusoid(0.01 * lens, 1e6),))
-    grouped = group_maps(maps, {"lens": rf})
+    held = Waveform(dc_V=lens, pulses=(Pulse(0.01 * lens, 1.0),))      # switches at 1 s: never here
+    rows = [("static", field), ("one sinusoid group", group_maps(maps, {"lens": rf})),
+            ("one pulse group", group_maps(maps, {"lens": held}))]
     beam = setup.beams[0]
-    times = {}
-    for name, f in (("static", field), ("one waveform", grouped)):
-        trace(f, beam)
-        best = None
-        for _ in range(REPEATS):
-            t0 = time.perf_counter()
-            run = trace(f, beam)
-            dt = time.perf_counter() - t0
-            best = dt if best is None else min(best, dt)
+    runs = [trace(f, beam) for _, f in rows]
+    best_s = [float("inf")] * len(rows)
+    for _ in range(REPEATS):              # the rows in turn: a change of the machine's load falls on all
+        for k, (_, f) in enumerate(rows):
+            t0 = now()
+            trace(f, beam)
+            best_s[k] = min(best_s[k], now() - t0)
+    for (name, _), t, run in zip(rows, best_s, runs):
         steps = run.records["steps"].sum()
-        times[name] = best
-        print(f"2. {name}: {best:.3f} s, {steps / RAYS:.0f} steps and "
-              f"{run.records['evaluations'].sum() / steps:.2f} evaluations a step per ray")
-    print(f"   ratio one waveform / static = {times['one waveform'] / times['static']:.2f}")
+        print(f"2. {name}: {t:.3f} s ({t / steps * 1e6:.3f} us a ray step, {t / best_s[0]:.2f}x static), "
+              f"{steps / RAYS:.0f} steps and {run.records['evaluations'].sum() / steps:.2f} evaluations a "
+              "step per ray")
 
     from test_trace_time import trap_toml
 
@@ -103,10 +129,10 @@ def main():
     phi = tmaps.combine({"ring": 1.0, "cap_a": 0.0, "cap_b": 0.0}).potential(z, 0 * z)
     kappa = 2.0 * np.polynomial.polynomial.polyfit(z * z, phi, 3)[1]
     trap_run((tsetup, tmaps, kappa), 0.6, 10)
-    t0 = time.perf_counter()
+    t0 = now()
     run, _ = trap_run((tsetup, tmaps, kappa), 0.6, 1000)
     print(f"3. trap, q_z = 0.6, 1000 RF periods ({1000 / RF_HZ * 1e3:g} ms of flight): "
-          f"{time.perf_counter() - t0:.2f} s, {run.records['steps'][0]} steps, "
+          f"{now() - t0:.2f} s, {run.records['steps'][0]} steps, "
           f"status {run.records['status'][0]}")
 
 
