@@ -236,6 +236,31 @@ def test_an_interrupted_block_interrupts_the_child_and_leaves_no_temporary_file(
     assert list(tmp_path.iterdir()) == []
 
 
+
+def test_ctrl_c_held_back_while_forking_stops_the_child(tmp_path, monkeypatch):
+    """A Ctrl-C that comes while beside holds the signals back around its fork is raised where the
+    child is stopped and waited for: the job does not run on in a child nobody waits for."""
+    fork, done = os.fork, tmp_path / "done"
+
+    def fork_then_ctrl_c():
+        pid = fork()
+        if pid:                                    # the parent, SIGINT still held back
+            os.kill(os.getpid(), signal.SIGINT)
+        return pid
+
+    def job():
+        time.sleep(0.5)
+        done.write_text("the job ran on")
+
+    monkeypatch.setattr(os, "fork", fork_then_ctrl_c)
+    with pytest.raises(KeyboardInterrupt):
+        with beside(job):
+            pass
+    monkeypatch.undo()
+    time.sleep(1.0)
+    assert not done.exists()
+
+
 CTRL_C = """
 import sys, time
 from pathlib import Path

@@ -15,8 +15,8 @@ def beside(job):
     Yields a list that holds the job's return value (a JSON value) once the block has ended.  An
     exception of the job is raised again at the end of the block: a built-in exception as its own
     type (an ``OSError`` with its ``errno`` and ``filename``), any other as a RuntimeError that
-    names it.  When the block raises (Ctrl-C included),
-    the child is stopped, exactly once, by a KeyboardInterrupt raised inside it (so that its
+    names it.  When the block raises (Ctrl-C included, also one that came while the fork held
+    the signals back), the child is stopped, exactly once, by a KeyboardInterrupt raised inside it (so that its
     atomic writes remove their temporary files), and waited for.  The child ignores Ctrl-C of its
     own: it hears of it through this process.  Without ``os.fork`` the job runs at the end of
     the block.
@@ -41,10 +41,11 @@ def beside(job):
         raise
     if pid == 0:
         _child(job, read_end, write_end, mask)
-    signal.pthread_sigmask(signal.SIG_SETMASK, mask)
     os.close(write_end)
     reader = os.fdopen(read_end, "rb")
     try:
+        # a signal held back while forking arrives here, where the child is stopped and waited for
+        signal.pthread_sigmask(signal.SIG_SETMASK, mask)
         yield done
         reply = reader.read()
     except BaseException:
