@@ -10,6 +10,7 @@ import os
 import signal
 import subprocess
 import sys
+import threading
 import time
 from decimal import Decimal
 from pathlib import Path
@@ -186,6 +187,61 @@ def test_a_resumed_scan_counts_only_the_sets_it_computes(setup_maps, serial, tmp
     whole = read_scan(tmp_path / CSV_NAME)
     assert whole.table.tobytes() == again.table.tobytes() == serial.table.tobytes()
     assert whole.config_hash == again.config_hash and whole.figures == serial.figures
+
+
+
+HOLD_FOLDER = """
+import sys, time
+from tracer.store import atomic
+with atomic.locked_folder(sys.argv[1], "run-files.txt"):
+    print("locked", flush=True)
+    time.sleep(60)
+"""
+
+
+def test_a_second_scan_into_a_folder_being_written_is_refused(setup_maps, serial, tmp_path, capsys):
+    """tracer.scan locks its out folder for the whole scan, as the command line locks --out: a
+    second scan into it (from the first one's own thread, another thread or the command line) or
+    a scan into a folder another process holds stops at once with FolderBusy, before any work."""
+    from tracer.cli import main
+    from tracer.store.atomic import FolderBusy
+
+    setup, maps = setup_maps
+    out, config = tmp_path / "out", _config_file(tmp_path)
+    refused, codes = [], []
+
+    def second():
+        try:
+            scan(setup, maps, workers=1, out=out)
+        except FolderBusy as exc:
+            refused.append(str(exc))
+
+    def progress(done, total):
+        if done == 2:
+            second()                                     # this thread
+            other = threading.Thread(target=second)
+            other.start()
+            other.join()
+            codes.append(main(["scan", str(config), "--out", str(out), "--quiet", "--workers", "1"]))
+
+    first = scan(setup, maps, workers=1, out=out, progress=progress)
+    assert refused == [f"[Errno 11] another tracer command or scan is writing to this folder: '{out}'"] * 2
+    assert codes == [2] and "another tracer process is writing to this folder" in capsys.readouterr().err
+    assert _csv_sets(out) == list(range(6))                 # each set once, from the first scan
+    assert first.table.tobytes() == serial.table.tobytes()
+    assert scan(setup, maps, workers=1, out=out).resumed == 6     # free again once it returned
+
+    held = tmp_path / "held"
+    holder = subprocess.Popen([sys.executable, "-c", HOLD_FOLDER, str(held)], stdout=subprocess.PIPE,
+                              text=True, env=ENV)
+    try:
+        assert holder.stdout.readline() == "locked\n"
+        with pytest.raises(FolderBusy, match="writing to this folder"):
+            scan(setup, maps, workers=1, out=held)
+    finally:
+        holder.kill()
+        holder.wait()
+    assert list(held.iterdir()) == []
 
 
 def test_read_scan_refuses_what_is_not_a_scan_table(tmp_path):

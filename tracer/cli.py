@@ -53,7 +53,7 @@ def _lock_out(args, stack) -> None:
 
     out = _out_dir(args)
     try:
-        stack.enter_context(locked_folder(out, RUN_FILES))
+        stack.enter_context(locked_folder(out, RUN_FILES, reenter=True))
     except FolderBusy:
         raise InputError(f"--out {out}: another tracer process is writing to this folder; "
                          "wait for it to end or choose another --out") from None

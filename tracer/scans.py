@@ -21,7 +21,9 @@ Files (when ``out`` is given)
 ``scan.journal`` gets each finished set as it completes; ``scan.csv`` (header first, rows in scan
 order) and ``scan.h5`` are rewritten atomically at least every ``h5_interval_s`` seconds, on an
 interrupt and at the end (:mod:`tracer.journal` describes the three).  Running a scan again skips
-the finished sets found in ``scan.journal``; when the config hash
+the finished sets found in ``scan.journal``.  The folder is locked for the whole scan
+(:func:`tracer.store.atomic.locked_folder`, as the command line locks ``--out``): a second scan or
+command writing there stops at once with :class:`tracer.store.atomic.FolderBusy`.  When the config hash
 (:func:`tracer.journal.config_hash`) differs, the old files are set aside (never over an earlier
 archive) and the config's own archived journal, if any, is resumed; else a fresh table starts.
 """
@@ -234,7 +236,8 @@ def scan(setup: Setup, maps: BasisMaps | None = None, executor: Executor | None 
         fork its workers from this process (:func:`tracer.executors.refuse_forking_pool`).
     out : str or os.PathLike, optional
         Folder for ``scan.journal``, ``scan.csv`` and ``scan.h5``; finished sets found there are
-        skipped.  None: no files.
+        skipped.  It is locked while the scan runs (:func:`tracer.store.atomic.locked_folder`):
+        a second scan into it, from this process or another, is refused.  None: no files.
     workers : int, optional
         Processes of the default pool (default: the machine's CPU count).
     progress : callable, optional
@@ -256,9 +259,24 @@ def scan(setup: Setup, maps: BasisMaps | None = None, executor: Executor | None 
         and the sets not started are cancelled; running again continues where it stopped.
     ValueError
         For a process pool that forks its workers, before any work.
+    tracer.store.atomic.FolderBusy
+        When another scan or tracer command (in this process or another) is writing to ``out``,
+        before any work: ``out`` is locked for the whole scan, as the command line locks its
+        ``--out``, so two scans never write into one folder at once.
     """
     refuse_forking_pool(executor)
     t_start = time.perf_counter()
+    if out is None:
+        return _scan(setup, maps, executor, None, workers, progress, cache_dir, h5_interval_s, t_start)
+    from tracer.pipeline import RUN_FILES
+    from tracer.store.atomic import locked_folder
+
+    with locked_folder(out, RUN_FILES):
+        return _scan(setup, maps, executor, Path(out), workers, progress, cache_dir, h5_interval_s, t_start)
+
+
+def _scan(setup, maps, executor, out, workers, progress, cache_dir, h5_interval_s, t_start):
+    """The body of :func:`scan`, with ``out`` (when given) locked."""
     footprint.check(setup, scan=True, workers=None if executor is not None else workers or os.cpu_count() or 1)
     names, sets = voltage_sets(setup)
     if maps is None:
@@ -276,7 +294,7 @@ def scan(setup: Setup, maps: BasisMaps | None = None, executor: Executor | None 
     context = Context.of(setup, maps, names, coarse=coarse, cache_dir=cache_dir)
     header = tuple(scan_column(n, context.currents) for n in names) + context.columns
     digest = config_hash(setup, names, sets)
-    rows = Rows(None if out is None else Path(out), digest, header, sets)
+    rows = Rows(out, digest, header, sets)
     todo = [i for i in range(len(sets)) if i not in rows.done]
     trace_s = 0.0
     last_h5 = time.monotonic()

@@ -22,6 +22,7 @@ import os
 import secrets
 import shutil
 import signal
+import threading
 from pathlib import Path
 
 STAGED = ".staged."
@@ -158,22 +159,37 @@ def recover(folder, manifest: str) -> None:
 
 
 class FolderBusy(OSError):
-    """Another process holds the lock of an output folder."""
+    """Another process, or another thread of this one, holds the lock of an output folder."""
+
+
+_HELD = threading.local()
+"""The output folders this thread holds locked: ``_HELD.folders`` maps (device, inode) to whether
+a block inside may take the lock once more (:func:`locked_folder`'s ``reenter``)."""
 
 
 @contextlib.contextmanager
-def locked_folder(folder, manifest: str):
+def locked_folder(folder, manifest: str, reenter: bool = False):
     """Hold an exclusive lock on an output folder (made if missing) while the block runs.
 
     The lock is ``flock`` on the folder itself (no lock file), released when the process ends,
-    however it ends.  A folder locked by another process raises :class:`FolderBusy` at once;
-    once locked, :func:`recover` cleans up after killed writers.  A folder made here and still
-    empty at the end is removed again.
+    however it ends.  A folder locked by another process, or by another thread of this process,
+    raises :class:`FolderBusy` at once; once locked, :func:`recover` cleans up after killed
+    writers.  A folder made here and still empty at the end is removed again.
+
+    Parameters
+    ----------
+    folder : path-like
+    manifest : str
+        The manifest of the folder's set of files (:func:`recover`).
+    reenter : bool
+        Whether one block inside, on this thread, may take the lock again (the command line's
+        lock on ``--out``, inside which ``tracer.scan`` takes it).  Otherwise the folder is
+        busy for this thread too.
 
     Raises
     ------
     FolderBusy
-        Another process holds the lock.
+        Another process or thread holds the lock, or this thread holds it without ``reenter``.
     OSError
         The folder cannot be made or opened (a file of that name, no permission).
     """
@@ -182,15 +198,32 @@ def locked_folder(folder, manifest: str):
     folder.mkdir(parents=True, exist_ok=True)
     if not os.access(folder, os.W_OK | os.X_OK):
         raise PermissionError(errno.EACCES, "Permission denied", str(folder))
+    held = _HELD.__dict__.setdefault("folders", {})
     fd = os.open(folder, os.O_RDONLY | os.O_DIRECTORY)
+    stat = os.fstat(fd)
+    key = (stat.st_dev, stat.st_ino)
+    if held.get(key):                     # this thread holds it and lends it to this block
+        os.close(fd)
+        held[key] = False
+        try:
+            yield folder
+        finally:
+            held[key] = True
+        return
     try:
         try:
+            if key in held:
+                raise BlockingIOError
             fcntl.flock(fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
         except BlockingIOError:
-            raise FolderBusy(errno.EWOULDBLOCK, "another tracer process is writing to this folder",
+            raise FolderBusy(errno.EWOULDBLOCK, "another tracer command or scan is writing to this folder",
                              str(folder)) from None
-        recover(folder, manifest)
-        yield folder
+        held[key] = reenter
+        try:
+            recover(folder, manifest)
+            yield folder
+        finally:
+            del held[key]
     finally:
         os.close(fd)
         if made:
