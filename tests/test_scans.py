@@ -391,11 +391,87 @@ def test_a_cluster_that_loses_its_workers_stops_the_scan_in_one_line(serial, tmp
     argv = ["scan", str(config), "--out", str(out), "--cache", str(tmp_path / "cache"), "--quiet"]
     assert main(argv + ["--scheduler", "tcp://127.0.0.1:1"]) == CLUSTER_LOST == 3
     err = capsys.readouterr().err.strip().splitlines()
-    assert err == [f"tracer: the cluster lost its workers; finished rows are kept, rerun to resume "
-                   f"({out / CSV_NAME})"]
+    assert err == [f"tracer: the executor cancelled voltage sets it had taken (a cluster that lost its "
+                   f"workers, or an executor shut down); finished rows are kept, rerun to resume ({out / CSV_NAME})"]
     assert len(_csv_sets(out)) == 2
     assert main(argv + ["--workers", "1"]) == 0
     assert read_scan(out).table.tobytes() == serial.table.tobytes()
+
+
+
+class _Held(concurrent.futures.Executor):
+    """Runs every set as it is submitted and completes the futures when the last set is in: in
+    reverse order, set 3 with an error of its own, or (``refuse``) refuses the fourth submit."""
+
+    def __init__(self, how):
+        self.how, self.held = how, []
+
+    def submit(self, fn, *args):
+        if self.how == "refuse" and len(self.held) == 3:
+            raise RuntimeError("cannot schedule new futures after shutdown")
+        future = concurrent.futures.Future()
+        self.held.append((future, fn, args))
+        if self.how == "refuse" or len(self.held) == 6:
+            for f, work, given in reversed(self.held) if self.how != "refuse" else self.held[-1:]:
+                if f.set_running_or_notify_cancel():
+                    if self.how == "raise" and given[1] == 3:
+                        f.set_exception(ValueError("a worker's own error"))
+                    else:
+                        f.set_result(work(*given))
+        return future
+
+
+@pytest.mark.parametrize("how, kept", [("reverse", [0, 1, 2, 3, 4, 5]), ("raise", [0, 1, 2, 4, 5]),
+                                       ("refuse", [0, 1, 2])])
+def test_an_executor_of_ones_own_finishes_or_stops_keeping_every_finished_row(setup_maps, serial, tmp_path,
+                                                                              how, kept):
+    """Sets completed in reverse give the serial table; a set's error stops the scan with that error,
+    naming the set, after the rows of every other finished set are kept (also of those completed
+    after it); a refused submit stops it after the sets run before; the same scan then resumes."""
+    setup, maps = setup_maps
+    if how == "reverse":
+        result = scan(setup, maps, _Held(how), out=tmp_path)
+        assert result.table.tobytes() == serial.table.tobytes()
+    else:
+        with pytest.raises((ValueError, RuntimeError)) as caught:
+            scan(setup, maps, _Held(how), out=tmp_path)
+        if how == "raise":
+            assert str(caught.value) == "a worker's own error"
+            assert caught.value.__notes__ == ["in voltage set 3 (700, 400)"]
+    assert _csv_sets(tmp_path) == kept
+    again = scan(setup, maps, workers=1, out=tmp_path)
+    assert again.resumed == len(kept) and again.table.tobytes() == serial.table.tobytes()
+
+
+def test_an_executor_shut_down_under_a_scan_stops_it_instead_of_hanging(setup_maps, serial, tmp_path):
+    """A ThreadPoolExecutor shut down with cancel_futures=True cancels the queued sets without telling
+    anyone waiting on them (the scan waited for ever on them before): the scan stops with ClusterLost
+    and keeps the finished rows, and resumes."""
+    from tracer.executors import ClusterLost
+
+    setup, maps = setup_maps
+    pool, outcome = concurrent.futures.ThreadPoolExecutor(1), []
+
+    def progress(done, total):
+        if done == 2:
+            pool.shutdown(wait=False, cancel_futures=True)
+
+    def scanning():
+        try:
+            scan(setup, maps, pool, out=tmp_path, progress=progress)
+        except ClusterLost as exc:
+            outcome.append(str(exc))
+
+    worker = threading.Thread(target=scanning, daemon=True)
+    worker.start()
+    worker.join(120)
+    assert not worker.is_alive(), "the scan hangs"
+    assert outcome == ["the executor cancelled voltage sets it had taken (a cluster that lost its workers, "
+                       "or an executor shut down); finished rows are kept, rerun to resume"]
+    kept = _csv_sets(tmp_path)
+    assert 2 <= len(kept) < 6
+    again = scan(setup, maps, workers=1, out=tmp_path)
+    assert again.resumed == len(kept) and again.table.tobytes() == serial.table.tobytes()
 
 
 def test_a_line_cut_short_by_a_kill_is_dropped_on_resume(setup_maps, serial, tmp_path):

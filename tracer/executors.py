@@ -9,6 +9,9 @@ a table is the same, bit for bit, whichever executor ran them.  :func:`run_sets`
 executor (:func:`cluster_executor`; the context is scattered once to every worker), or any other
 (the context goes with every set).  With its own pool, the calling process runs sets from the end
 of the queue until the workers deliver their first, so the pool's start-up is not idle time.
+Whatever the executor does (completes sets in any order, cancels them, raises in a worker or in
+``submit``), a scan finishes or stops with an error, and keeps the row of every set finished by
+then (:func:`run_sets`).
 """
 
 from __future__ import annotations
@@ -17,10 +20,11 @@ import contextlib
 import multiprocessing
 import multiprocessing.connection
 import os
+import queue
 import signal
 import threading
 import time
-from concurrent.futures import ProcessPoolExecutor, as_completed
+from concurrent.futures import ProcessPoolExecutor
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -286,12 +290,22 @@ def refuse_forking_pool(executor) -> None:
             "'spawn'), or pass no executor for tracer's own pool")
 
 
+_CANCELLED = ("the executor cancelled voltage sets it had taken (a cluster that lost its workers, or an "
+              "executor shut down); finished rows are kept, rerun to resume")
+
+
+def _cluster(executor):
+    """The dask.distributed client of a client's executor, else None."""
+    client = getattr(executor, "_client", None)
+    return client if client is not None and hasattr(client, "scatter") else None
+
+
 def _submitter(executor, context, own_pool):
     """A function (index, voltages) -> Future that hands the context over once per worker."""
     if own_pool:
         return lambda i, v: executor.submit(_task_in_worker, i, v)
-    client = getattr(executor, "_client", None)
-    if client is not None and hasattr(client, "scatter"):   # a dask.distributed client's executor
+    client = _cluster(executor)
+    if client is not None:
         shared = client.scatter(context, broadcast=True, hash=False)
         return lambda i, v: executor.submit(_task, shared, i, v)
     return lambda i, v: executor.submit(_task, context, i, v)
@@ -320,6 +334,15 @@ def run_sets(executor, context, workers, sets, todo, finish):
     """Submit voltage sets to an executor and hand each to ``finish`` as it completes; cancel the
     rest on any exit (also an interrupt).
 
+    Any :class:`concurrent.futures.Executor` serves: futures may complete in any order, or at
+    once inside ``submit``.  The scan never waits on a future the executor cancelled (a
+    ``ThreadPoolExecutor`` shut down with ``cancel_futures=True`` cancels futures without
+    notifying their waiters).  However the scan stops (a set raising, the executor refusing a
+    submit or cancelling a set, Ctrl-C), every set finished by then is handed to ``finish``
+    first, so its row is kept.  Sets still running on an executor of the caller are not waited
+    for (their rows are computed again on resuming); an own pool is shut down, its running sets
+    finished, and their rows kept too.
+
     Parameters
     ----------
     executor : concurrent.futures.Executor or None
@@ -338,30 +361,75 @@ def run_sets(executor, context, workers, sets, todo, finish):
     ------
     ClusterLost
         When the executor cancels a set this function did not cancel (a dask cluster does when
-        every worker holding the scattered context has died); the finished sets were handed to
-        ``finish`` before.
+        every worker holding the scattered context has died; any executor shut down with its
+        queue cancelled); the finished sets were handed to ``finish`` before.
+    Exception
+        A set's own error (raised in a worker, with a note naming the set), or the executor's
+        refusal of a submit, as it was raised.
     """
     own = executor is None
     if own:
         executor = process_pool(context, min(workers or os.cpu_count() or 1, len(todo)))
     submit = _submitter(executor, context, own)
-    futures = [submit(i, sets[i]) for i in todo]
+    ended = queue.SimpleQueue()           # every future as it ends: done, failed or cancelled
+    futures, handed, stop = {}, set(), None
     try:
+        for i in todo:
+            future = submit(i, sets[i])
+            futures[future] = i
+            future.add_done_callback(ended.put)
+        left = set(futures)
         if own:
-            futures = _while_workers_start(futures, context, sets, todo, finish)
-        handed = set()
-        for future in as_completed(futures):
+            left = set(_while_workers_start(list(futures), context, sets, todo, finish))
+        while left:
+            future = _next(ended)
+            if future not in left:        # a set taken back and run in this process
+                continue
+            left.discard(future)
             if future.cancelled():
-                # keep every set already delivered, then stop: the others will not come
-                for f in futures:
-                    if f.done() and not f.cancelled() and f not in handed:
-                        finish(*f.result())
-                raise ClusterLost("the cluster lost its workers; finished rows are kept, "
-                                  "rerun to resume")
+                raise ClusterLost(_CANCELLED)
+            _hand(future, futures[future], sets, finish)
             handed.add(future)
-            finish(*future.result())
+    except BaseException as exc:
+        stop = exc
+        raise
     finally:
         for future in futures:
             future.cancel()
         if own:
             executor.shutdown(wait=True, cancel_futures=True)
+        if stop is not None:
+            _hand_finished(futures, handed, finish, stop)
+
+
+def _next(ended):
+    """The next future to end (waiting in short slices, so that Ctrl-C is taken at once)."""
+    while True:
+        try:
+            return ended.get(timeout=0.5)
+        except queue.Empty:
+            continue
+
+
+def _hand(future, index, sets, finish):
+    """Hand a finished set to ``finish``; a set's own error gets a note naming the set."""
+    try:
+        result = future.result()
+    except Exception as exc:
+        exc.add_note(f"in voltage set {index} ({', '.join(f'{v:g}' for v in sets[index])})")
+        raise
+    finish(*result)
+
+
+def _hand_finished(futures, handed, finish, stop):
+    """On stopping: hand every set that finished without error and is not handed yet, so its row
+    is kept; a failure to keep them is noted on the exception that stops the scan."""
+    for future in futures:
+        if future in handed or not future.done() or future.cancelled() or future.exception() is not None:
+            continue
+        try:
+            finish(*future.result())
+        except Exception as exc:
+            stop.add_note(f"the finished rows could not all be kept: {type(exc).__name__}: {exc}")
+            return
+        handed.add(future)
