@@ -8,6 +8,7 @@ practice) for the peak field `tracer check` shows; the cyclotron radius p / (|q|
 """
 
 import math
+import warnings
 
 import numpy as np
 import pytest
@@ -149,6 +150,61 @@ def test_bad_magnetic_key_exits_2_with_one_line(tmp_path, capsys):
     assert main(["check", str(config)]) == 2
     err = capsys.readouterr().err.strip().splitlines()
     assert len(err) == 1 and "coil[0].turns" in err[0]
+
+
+
+def _loop(z_mm, radius_mm):
+    return (f'[[coil]]\nname = "loop"\nz_mm = [{z_mm}, {z_mm}]\nr_mm = [{radius_mm}, {radius_mm}]\n'
+            'current_A = 3.0\n')
+
+
+def _cut_warnings(text):
+    from tracer.magnetics.ends import CutFieldWarning
+
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        tracer.loads(text)
+    return [str(w.message) for w in caught if issubclass(w.category, CutFieldWarning)]
+
+
+@pytest.mark.parametrize("z_mm, radius_mm, cut_ends", [(50.0, 15.0, (0.0, 100.0)), (10.0, 3.0, (0.0,)),
+                                                       (50.0, 3.0, ())])
+def test_a_coil_cut_by_the_domain_ends_is_warned_of(z_mm, radius_mm, cut_ends):
+    """A loop's field on its axis falls as (R^2 / (R^2 + d^2))^(3/2) of its centre value at a
+    distance d (Jackson 1999 §5.5): the warning names each end of the domain (z 0..100 mm) where that
+    is above 1 % of the peak, with the share, and no other."""
+    found = _cut_warnings(AXIAL + _loop(z_mm, radius_mm))
+    if not cut_ends:
+        assert found == []
+        return
+    shares = [(radius_mm ** 2 / (radius_mm ** 2 + (end - z_mm) ** 2)) ** 1.5 for end in cut_ends]
+    where = " and ".join(f"{share:.1%} at z = {end:g} mm" for share, end in zip(shares, cut_ends))
+    assert found == [f"WARNING: coil[0] ('loop'): |B| on the axis is {where}, of its peak (at z = {z_mm:g} mm): "
+                     "the domain cuts the field there. Rays meet none of it beyond, and the paraxial optics "
+                     "take the ends as field-free (the focal lengths for an object at infinity are those of "
+                     "the cut lens); extend domain.z_mm until it is below 1% where that matters"]
+
+
+@pytest.mark.parametrize("half_width_mm, cut", [(10.0, True), (3.0, False)])
+def test_an_axial_field_cut_by_the_domain_ends_is_warned_of(half_width_mm, cut):
+    """Glaser's bell B0 / (1 + (d/a)^2) (Glaser 1941) is 3.8 % of its peak 50 mm from its centre
+    for a = 10 mm, 0.36 % for a = 3 mm."""
+    bell = (f'[[axial_field]]\nname = "bell"\npeak_T = 0.01\nhalf_width_mm = {half_width_mm}\n'
+            'center_z_mm = 50.0\n')
+    found = _cut_warnings(AXIAL + bell)
+    share = 1.0 / (1.0 + (50.0 / half_width_mm) ** 2)
+    assert len(found) == cut
+    if cut:
+        assert found[0].startswith(f"WARNING: axial_field[0] ('bell'): |B| on the axis is {share:.1%} at "
+                                   f"z = 0 mm and {share:.1%} at z = 100 mm, of its peak (at z = 50 mm)")
+
+
+def test_check_warns_of_a_cut_coil_in_one_line(tmp_path, capsys):
+    config = tmp_path / "coil.toml"
+    config.write_text(AXIAL + _loop(50.0, 15.0))
+    assert main(["check", str(config)]) == 0
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and err[0].startswith("WARNING: coil[0] ('loop'): |B| on the axis is 2.4% at z = 0 mm")
 
 
 def test_a_run_traces_through_the_uniform_field():

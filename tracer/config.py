@@ -71,6 +71,7 @@ import pathlib
 import re
 import sys
 import tomllib
+import warnings
 from dataclasses import dataclass
 
 from scipy import constants
@@ -455,6 +456,7 @@ def _setup(data, source):
                    electrodes=electrodes, coils=coils)
     _check_tied(tied, electrodes, magnetic, scan, tune)
     _check_output_names(beams, planes, electrodes, scan)
+    _warn_cut_fields(magnetic, domain)
     return Setup(
         title=title,
         author=author,
@@ -668,6 +670,16 @@ def _magnetic(top, domain, base, electrodes):
             raise ConfigError(f"coil[{list(amps).index(b)}].current_A", tied_message(
                 a, b, f"{b!r} carries {amps[b]:g} A and {a!r} {amps[a]:g} A", "coils"))
     return spec
+
+
+def _warn_cut_fields(magnetic, domain):
+    """Warn, once the config is read, of each round magnetic source cut by the domain's ends."""
+    if not (magnetic.coils or magnetic.profiles):
+        return
+    from tracer.magnetics.ends import CutFieldWarning, cut_fields
+
+    for message in cut_fields(magnetic, domain.z_m):
+        warnings.warn(f"WARNING: {message}", CutFieldWarning, stacklevel=4)
 
 
 def _axial_only(path, domain, what):
