@@ -43,6 +43,20 @@ def test_electron_positron_proton_are_codata():
     assert species("e-").describe() == f"e-: e⁻, {M_E_U:.9g} u (CODATA electron mass), charge -1 e"
 
 
+
+@pytest.mark.parametrize("word, same, key, charge", [
+    ("electron", "e-", "electron mass", -1), ("positron", "e+", "electron mass", 1),
+    ("proton", "p+", "proton mass", 1), ("deuteron", "D+", "deuteron mass", 1),
+    ("triton", "T+", "triton mass", 1), ("helion", "3He^2+", "helion mass", 2),
+    ("alpha", "4He^2+", "alpha particle mass", 2)])
+def test_particle_words_are_codata(word, same, key, charge):
+    # source: scipy.constants physical_constants (CODATA) particle masses, elementary charge
+    s = species(word)
+    assert s.mass_kg == constants.physical_constants[key][0] == species(same).mass_kg
+    assert s.charge_C == charge * E == species(same).charge_C
+    assert s.isotopic and s.mass_basis == f"CODATA {key}"
+    assert s.describe().startswith(f"{word}: ")
+
 @pytest.mark.parametrize(
     "name, nucleus, charge",
     [("1H+", "proton mass", 1), ("[1H]+", "proton mass", 1), ("D+", "deuteron mass", 1),
@@ -118,6 +132,8 @@ def test_nist_atom_minus_electrons_differs_from_the_nucleus_by_the_binding_energ
         ("197Au^79+", [("Au", 197, 1)], 79, True),      # bare gold: no CODATA nucleus mass
         ("N2^2+", [("N", None, 2)], 2, False),
         ("CO^2+", [("C", None, 1), ("O", None, 1)], 2, False),
+        ("CO2++", [("C", None, 1), ("O", None, 2)], 2, False),   # a repeated sign: the 2 is a count
+        ("CO2^2+", [("C", None, 1), ("O", None, 2)], 2, False),
         # clusters, large counts
         ("C60+", [("C", None, 60)], 1, False),
         ("12C60+", [("C", 12, 60)], 1, True),
@@ -314,6 +330,20 @@ def test_an_ambiguous_species_in_a_config_names_the_key_and_the_readings(tmp_pat
     assert caught.value.key == "beam[0].species"
     assert "⁴He₂⁺" in caught.value.message and "⁴He²⁺" in caught.value.message
 
+
+
+@pytest.mark.parametrize("name, words", [("Xx+", "unknown species 'Xx+': no element 'Xx'"),
+                                         ("Ar2+", "species 'Ar2+' is ambiguous: Ar₂⁺"),
+                                         ("Electron", "unknown species 'Electron'")])
+def test_a_bad_species_on_the_command_line_exits_2_naming_key_and_value(name, words, tmp_path, capsys):
+    text = (CONFIGS / "einzel_argon.toml").read_text().replace('species = "40Ar+"', f'species = "{name}"', 1)
+    config = tmp_path / "bad.toml"
+    config.write_text(text)
+    assert main(["check", str(config)]) == 2
+    captured = capsys.readouterr()
+    err = captured.err.splitlines()
+    assert len(err) == 1 and err[0].startswith(f"tracer: error: beam[0].species: {words}")
+    assert "Traceback" not in captured.err + captured.out
 
 def test_check_prints_each_beams_mass_charge_and_basis(capsys, tmp_path, monkeypatch):
     monkeypatch.setenv("TRACER_CACHE", str(tmp_path / "cache"))

@@ -2,8 +2,10 @@
 
 Names
 -----
-``"e-"``, ``"e+"`` and ``"p+"`` are the electron, the positron and the proton
-(scipy.constants, CODATA). Every other name is a formula followed by a charge:
+``"e-"``, ``"e+"`` and ``"p+"`` are the electron, the positron and the proton; the
+words ``"electron"``, ``"positron"``, ``"proton"``, ``"deuteron"``, ``"triton"``,
+``"helion"`` (³He²⁺) and ``"alpha"`` (⁴He²⁺) name those particles too (their masses
+from scipy.constants, CODATA). Every other name is a formula followed by a charge:
 
 ==========================  =====================================  =========================
 part                        how it is written                      examples
@@ -83,7 +85,15 @@ _NAMED = {
     "e-": ("e⁻", "electron mass", -1),
     "e+": ("e⁺", "electron mass", +1),
     "p+": ("p⁺", "proton mass", +1),
+    "electron": ("e⁻", "electron mass", -1),
+    "positron": ("e⁺", "electron mass", +1),
+    "proton": ("p⁺", "proton mass", +1),
+    "deuteron": ("d⁺", "deuteron mass", +1),
+    "triton": ("t⁺", "triton mass", +1),
+    "helion": ("h²⁺", "helion mass", +2),
+    "alpha": ("α²⁺", "alpha particle mass", +2),
 }
+"""The names of particles with a CODATA mass: formula, scipy.constants key, charge number."""
 
 # bare nuclei (atomic number, mass number) with a CODATA mass
 _NUCLEI = {
@@ -101,8 +111,9 @@ _SUPERSCRIPT = str.maketrans("0123456789+-", "⁰¹²³⁴⁵⁶⁷⁸⁹⁺⁻"
 _SUBSCRIPT = str.maketrans("0123456789", "₀₁₂₃₄₅₆₇₈₉")
 
 _ACCEPTED = (
-    "accepted: 'e-', 'e+', 'p+', or a formula and a charge such as 'Ar+', 'H2O+', 'SF5-', 'C60+', "
-    "'[13C]O+', '13C16O+', '40Ar^2+', 'Ar++', 'N2^+'; or give mass_u and charge_e"
+    "accepted: 'e-', 'e+', 'p+', the words 'electron', 'positron', 'proton', 'deuteron', 'triton', "
+    "'helion', 'alpha', or a formula and a charge such as 'Ar+', 'H2O+', 'SF5-', 'C60+', "
+    "'[13C]O+', '13C16O+', '40Ar^2+', 'Ar++', 'N2^+', 'D+'; or give mass_u and charge_e"
 )
 
 
@@ -210,8 +221,8 @@ def species(name: str) -> Species:
     if not isinstance(name, str):
         raise ValueError(f"species name must be a string, got {name!r}; {_ACCEPTED}")
     if name in _NAMED:
-        _, key, sign = _NAMED[name]
-        return Species(name, constants.physical_constants[key][0], sign * constants.e)
+        _, key, charge = _NAMED[name]
+        return Species(name, constants.physical_constants[key][0], charge * constants.e)
     reading = _read(name)
     return Species(name, _mass_kg(reading), reading.charge * constants.e)
 
