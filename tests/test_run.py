@@ -6,6 +6,7 @@ import os
 import signal
 import subprocess
 import sys
+import threading
 import time
 from pathlib import Path
 
@@ -239,8 +240,12 @@ def test_an_interrupted_block_interrupts_the_child_and_leaves_no_temporary_file(
 
 def test_ctrl_c_held_back_while_forking_stops_the_child(tmp_path, monkeypatch):
     """A Ctrl-C that comes while beside holds the signals back around its fork is raised where the
-    child is stopped and waited for: the job does not run on in a child nobody waits for."""
+    child is stopped and waited for: the job does not run on in a child nobody waits for.  Another
+    thread is alive meanwhile, as numba's are after a trace: the signal goes to it, and Python's
+    handler would interrupt this thread at once, before the child's pid is kept."""
     fork, done = os.fork, tmp_path / "done"
+    other = threading.Thread(target=threading.Event().wait, args=(30,), daemon=True)
+    other.start()
 
     def fork_then_ctrl_c():
         pid = fork()

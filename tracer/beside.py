@@ -7,6 +7,8 @@ import json
 import os
 import signal
 
+from tracer.interrupts import held_back
+
 
 @contextlib.contextmanager
 def beside(job):
@@ -30,31 +32,33 @@ def beside(job):
         done.append(job())
         return
     read_end, write_end = os.pipe()
-    # both signals are held until the child has its own handlers: it never runs the caller's code
-    mask = signal.pthread_sigmask(signal.SIG_BLOCK, {signal.SIGINT, signal.SIGTERM})
+    reader = pid = None
     try:
-        pid = os.fork()
-    except OSError:
-        signal.pthread_sigmask(signal.SIG_SETMASK, mask)
-        os.close(read_end)
+        # both signals are held until the child has its own handlers (it never runs the caller's
+        # code) and, here, until its pid is kept: one that came is raised on leaving the block,
+        # where the child is stopped and waited for
+        with held_back() as mask:
+            pid = os.fork()
+            if pid == 0:
+                _child(job, read_end, write_end, mask)
         os.close(write_end)
-        raise
-    if pid == 0:
-        _child(job, read_end, write_end, mask)
-    os.close(write_end)
-    reader = os.fdopen(read_end, "rb")
-    try:
-        # a signal held back while forking arrives here, where the child is stopped and waited for
-        signal.pthread_sigmask(signal.SIG_SETMASK, mask)
+        reader = os.fdopen(read_end, "rb")
         yield done
         reply = reader.read()
     except BaseException:
-        with contextlib.suppress(ProcessLookupError):
-            os.kill(pid, signal.SIGTERM)
+        if pid:
+            with contextlib.suppress(ProcessLookupError):
+                os.kill(pid, signal.SIGTERM)
         raise
     finally:
-        reader.close()           # a child still writing its reply gets a broken pipe
-        os.waitpid(pid, 0)
+        if reader is not None:
+            reader.close()       # a child still writing its reply gets a broken pipe
+        else:
+            for fd in (read_end, write_end):
+                with contextlib.suppress(OSError):
+                    os.close(fd)
+        if pid:
+            os.waitpid(pid, 0)
     try:
         reply = json.loads(reply)
     except ValueError:           # no reply: the child was killed

@@ -8,9 +8,9 @@ folder and moved into place together (``staged_folder``).  A set of files that b
 and moved into ``folder`` last, after the previous manifest and the files of the previous set
 that the new one does not have were removed.  A folder that holds a manifest therefore holds
 exactly the set it names; Ctrl-C and SIGTERM are held back while the set is moved (a few
-renames), and a set stopped half-way by a hard kill is finished by :func:`recover`, the first
-step of :func:`locked_folder`.  Only the standard library is used, so pictures and scan tables
-can write atomically without loading HDF5.
+renames; :func:`tracer.interrupts.held_back`), and a set stopped half-way by a hard kill is
+finished by :func:`recover`, the first step of :func:`locked_folder`.  Only the standard library
+is used, so pictures and scan tables can write atomically without loading HDF5.
 """
 
 from __future__ import annotations
@@ -21,9 +21,10 @@ import fcntl
 import os
 import secrets
 import shutil
-import signal
 import threading
 from pathlib import Path
+
+from tracer.interrupts import held_back
 
 STAGED = ".staged."
 """Prefix of the staging folders inside an output folder."""
@@ -100,11 +101,8 @@ def staged_folder(folder, manifest=None, heading=""):
             names = sorted(p.name for p in tmp.iterdir())
             with atomic_path(tmp / manifest) as path:
                 path.write_text("".join(f"{line}\n" for line in [f"# {heading}", *names]), encoding="utf-8")
-            mask = signal.pthread_sigmask(signal.SIG_BLOCK, {signal.SIGINT, signal.SIGTERM})
-            try:
+            with held_back():
                 _commit(tmp, folder, manifest)
-            finally:
-                signal.pthread_sigmask(signal.SIG_SETMASK, mask)
     except OSError as exc:
         if no_space(exc) and exc.filename and Path(exc.filename).parent == tmp:
             raise _naming(exc, folder / Path(exc.filename).name) from None
