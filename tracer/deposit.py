@@ -2,28 +2,52 @@
 
 A ray carrying the current I leaves the charge I dt on every stretch of its path it takes the time
 dt to cross (time weighting: a slow ray leaves more charge per length).  Each path segment is cut
-into pieces no longer than a tenth of a cell, and each piece's charge is shared among the four corner
-nodes of its cell by area (bilinear, "cloud in cell") weights.
+into pieces no longer than a tenth of a cell, and each piece's charge is shared among nodes.
 
-In a cell the surface of an electrode cuts, the weights follow the Shortley–Weller arms of the
-solver (tracer.solver.stencil): along each grid line of the cell, a free node's hat ends at the
-surface between it and a node inside the electrode (weight s / theta at the distance s from the
-surface, theta h the arm), and the node inside takes the rest, which the Poisson solve drops (it
-is the electrode's).  That is the load the Shortley–Weller row is exact for in one dimension (it
-is the linear finite element row scaled by 2 / (h+ + h-)), so the charge of the singular
-space-charge layer in front of a cathode lands where the rows expect it wherever the surface
-falls between nodes; the plain bilinear weights put a planar cathode's current 0.3-1.4 % low when
-its face lay between nodes (and on curved cathodes about 0.5 %).
+Weights: what the solver's rows expect
+    The solver's row at a node is a sum of one-dimensional second differences, one along the
+    grid row through the node and one along its column (Shortley–Weller, tracer.solver.stencil).
+    In one dimension that row is exact for the load of the node's hat, the charge density
+    averaged along the grid line with the linear weight that falls to zero at the neighbours or
+    at a surface between them (the linear finite element row scaled by 2 / (h+ + h-)).  Where the
+    density changes along a unit direction n = (n_z, n_r) and is constant across it, the
+    potential's second derivatives along z and r are n_z^2 and n_r^2 times the one along n, so
+    the load the row is exact for is n_z^2 times the hat average along the node's row plus
+    n_r^2 times the hat average along its column.  A piece of charge at p therefore gives the
+    part n_z^2 to a row: it slides along the curve of constant density through p onto the rows
+    r_j and r_j+1 on either side (shares 1 - f and f by its place between them), and on each
+    row it is shared between the two nodes around the point it lands on, with the hat weights;
+    the part n_r^2 likewise onto the columns.  For n along a grid line this is the bilinear
+    ("cloud in cell") weight; for other directions the tensor product of two hats is not the
+    load the rows expect, and space-charge layers at a curved cathode (density ~ x^(-2/3) at
+    the distance x) came out 0.5-1 % too dense there and their current 0.5-1 % low at 25-100
+    cells per radius, falling slower than the cell.
 
-The charge density at a node is its charge over the volume its weight covers:
+    n is the direction of the path segment (the density of a beam changes fastest along its
+    flight near a cathode, where it matters; for a smooth density any n gives a second-order
+    load).  The curve of constant density is the straight line across n, or, for paths that
+    give a curvature (the outline's, near a curved cathode), a circle through p with that
+    curvature, taken to second order in the slide.  A slide that would leave the grid folds
+    back at a mirroring edge, else the piece is not slid.
+
+    In a cell the surface of an electrode cuts, the hat of a free node along a grid line ends at
+    the surface between it and a node inside the electrode (weight s / theta at the distance s
+    from the surface, theta h the arm), and the node inside takes the rest, which the Poisson
+    solve drops (it is the electrode's): the load the Shortley–Weller row is exact for, so the
+    singular layer in front of a cathode lands where the rows expect it wherever the surface
+    falls between nodes (the plain bilinear weights put a planar cathode's current 0.3-1.4 % low
+    when its face lay between nodes).
+
+The charge density at a node is its charge over the volume its weight covers, the row shares
+and the column shares each over their own:
 
 * axial symmetry, the node at radius r_j with spacing h in r: the ring volume
   2 pi hz integral w_j(r) r dr, which is 2 pi r_j h hz off the axis; on the axis (r_0 = 0) the
   linear weight covers only the half cell [0, h] and the volume is pi h^2 hz / 3 (not the
   pi h^2 hz / 4 of the half cell's cylinder), so that a uniform density is deposited as uniform;
 * planar symmetry, per unit length in x: hz hr (half of that on a side of the grid);
-* next to a surface, times the Shortley–Weller box: (theta_+z + theta_-z) / 2 along z and the same
-  along r, the arms' fractions of the cell (1 for a whole arm).
+* next to a surface, times the Shortley–Weller box of the line the share went along:
+  (theta_+ + theta_-) / 2, the arms' fractions of the cell (1 for a whole arm).
 
 Charge sign: the deposit is q_sign * I * dt with the sign of the emitted particle's charge.
 """
@@ -34,6 +58,8 @@ import math
 
 import numpy as np
 from numba import njit
+
+from tracer.fieldmap import edge_reflection
 
 
 @njit(cache=True)
@@ -58,39 +84,103 @@ def _line(f, lo_inside, hi_inside, theta_lo, theta_hi):
 
 
 @njit(cache=True)
-def _scatter(charge, z, r, q, z0, r0, hz, hr, mirror, owner, arm, arm_owner):
-    """Share the charge q at (z, r) among the four nodes of its cell; nothing outside the grid.
-    Bilinear weights, cut at surfaces (module notes) when ``owner`` is not empty."""
-    nz, nr = charge.shape
+def _on_line(charge, u, line, along_z, q, owner, arm, arm_owner):
+    """Share q at the grid coordinate u along grid line ``line`` (a row of constant r when
+    ``along_z``, else a column of constant z) between the two nodes around it, the hat cut at
+    surfaces (module notes) when ``owner`` is not empty."""
+    n = charge.shape[0] if along_z else charge.shape[1]
+    i = min(int(u), n - 2)
+    f = u - i
+    if owner.shape[0] == 0:
+        w = (1.0 - f, f)
+    elif along_z:
+        w = _line(f, owner[i, line] >= 0, owner[i + 1, line] >= 0,
+                  _arm(arm, arm_owner, i, line, 0), _arm(arm, arm_owner, i + 1, line, 1))
+    else:
+        w = _line(f, owner[line, i] >= 0, owner[line, i + 1] >= 0,
+                  _arm(arm, arm_owner, line, i, 2), _arm(arm, arm_owner, line, i + 1, 3))
+    if along_z:
+        charge[i, line] += q * w[0]
+        charge[i + 1, line] += q * w[1]
+    else:
+        charge[line, i] += q * w[0]
+        charge[line, i + 1] += q * w[1]
+
+
+@njit(cache=True)
+def _slid(u, shift, n, reflect_lo, reflect_hi):
+    """The grid coordinate u + shift, folded at a mirroring end; u itself when that leaves the grid."""
+    w = u + shift
+    if w < 0.0 and reflect_lo:
+        w = -w
+    elif w > n - 1 and reflect_hi:
+        w = 2.0 * (n - 1) - w
+    return w if 0.0 <= w <= n - 1 else u
+
+
+@njit(cache=True)
+def _scatter(charge, z, r, q, nz_dir, nr_dir, bend, z0, r0, hz, hr, mirror, reflect, owner, arm, arm_owner):
+    """Share the charge q at (z, r), where the density changes along the direction (nz_dir,
+    nr_dir) and is constant along a curve of curvature ``bend`` across it, among the nodes: its
+    part nz_dir^2 along the grid rows and nr_dir^2 along the columns, each slid along that curve
+    onto the lines (module notes).  ``charge[0]`` takes the row shares, ``charge[1]`` the column
+    shares; nothing outside the grid."""
+    nz, nr = charge.shape[1], charge.shape[2]
     u = (z - z0) / hz
     v = (r - r0) / hr
     if mirror and v < 0.0:
         v = -v
+        nr_dir = -nr_dir
     if u < 0.0 or v < 0.0 or u > nz - 1 or v > nr - 1:
         return
     i = min(int(u), nz - 2)
     j = min(int(v), nr - 2)
     fu = u - i
     fv = v - j
-    if owner.shape[0] == 0:
-        charge[i, j] += q * (1.0 - fu) * (1.0 - fv)
-        charge[i + 1, j] += q * fu * (1.0 - fv)
-        charge[i, j + 1] += q * (1.0 - fu) * fv
-        charge[i + 1, j + 1] += q * fu * fv
-        return
+    norm = math.sqrt(nz_dir * nz_dir + nr_dir * nr_dir)
+    if norm == 0.0:
+        nz_dir, nr_dir, norm = 1.0, 0.0, 1.0
+    n_z = nz_dir / norm
+    n_r = nr_dir / norm
+    cz = n_z * n_z
+    for b in range(2):
+        share = q * cz * (fv if b else 1.0 - fv)
+        if share == 0.0:
+            continue
+        du = 0.0
+        if cz < 1.0:
+            # along the curve z(s) = z - s n_r - k s^2 n_z / 2, r(s) = r + s n_z - k s^2 n_r / 2 onto
+            # the row r_j+b, to second order in s
+            s = (j + b - v) * hr / n_z
+            k = _bounded(bend, s)
+            s += 0.5 * k * s * s * n_r / n_z
+            du = (-s * n_r - 0.5 * k * s * s * n_z) / hz
+        _on_line(charge[0], _slid(u, du, nz, reflect[0], reflect[1]), j + b, True, share, owner, arm,
+                 arm_owner)
     for a in range(2):
-        for b in range(2):
-            ii, jj = i + a, j + b
-            wz = _line(fu, owner[i, jj] >= 0, owner[i + 1, jj] >= 0,
-                       _arm(arm, arm_owner, i, jj, 0), _arm(arm, arm_owner, i + 1, jj, 1))
-            wr = _line(fv, owner[ii, j] >= 0, owner[ii, j + 1] >= 0,
-                       _arm(arm, arm_owner, ii, j, 2), _arm(arm, arm_owner, ii, j + 1, 3))
-            charge[ii, jj] += q * wz[a] * wr[b]
+        share = q * (1.0 - cz) * (fu if a else 1.0 - fu)
+        if share == 0.0:
+            continue
+        s = (u - i - a) * hz / n_r      # onto the column z_i+a
+        k = _bounded(bend, s)
+        s -= 0.5 * k * s * s * n_z / n_r
+        dv = (s * n_z - 0.5 * k * s * s * n_r) / hr
+        _on_line(charge[1], _slid(v, dv, nr, reflect[2], reflect[3]), i + a, False, share, owner, arm,
+                 arm_owner)
 
 
 @njit(cache=True)
-def deposit_paths(z, r, t, offsets, current, z0, r0, hz, hr, nz, nr, mirror, owner, arm, arm_owner,
-                  piece_cells=0.1):
+def _bounded(bend, s):
+    """The curvature bend, reduced where the slide s would turn the curve by more than half a
+    radian (the second-order slide holds no further)."""
+    if abs(bend * s) <= 0.5:
+        return bend
+    return math.copysign(0.5 / abs(s), bend)
+
+
+@njit(cache=True)
+def deposit_paths(z, r, t, offsets, current, bend, reach, z0, r0, hz, hr, nz, nr, mirror, reflect, owner,
+                  arm, arm_owner, piece_cells=0.1):
     """Charge (C, or C/m in planar symmetry) left on the nodes by rays along their paths.
 
     Parameters
@@ -101,12 +191,21 @@ def deposit_paths(z, r, t, offsets, current, z0, r0, hz, hr, nz, nr, mirror, own
         Ray k owns the points ``offsets[k]:offsets[k + 1]``.
     current : float64[n_rays]
         Signed current carried by each ray (A, or A/m): the charge per time it deposits.
+    bend : float64[n_rays]
+        Curvature (1/m) of the curve of constant density through each ray's first point, positive
+        where its centre lies behind the ray; along the ray it is bend / (1 + bend x) at the
+        distance x from that point (curves with a common centre) up to ``reach``, 0 beyond.
+    reach : float
+        Metres.
     z0, r0, hz, hr : float
         First node and spacings of the grid.
     nz, nr : int
         Node counts.
     mirror : bool
         r < r0 is reflected (the axis, or a mirror plane).
+    reflect : bool[4]
+        Whether each edge (z_min, z_max, r_min, r_max) mirrors the domain: a share slid past it is
+        folded back (tracer.fieldmap.edge_reflection).
     owner, arm, arm_owner : arrays
         The Raster of the electrodes on the grid (weights cut at surfaces), or empty arrays
         (plain bilinear weights).
@@ -115,14 +214,15 @@ def deposit_paths(z, r, t, offsets, current, z0, r0, hz, hr, nz, nr, mirror, own
 
     Returns
     -------
-    float64[nz, nr]
-        Charge per node.
+    float64[2, nz, nr]
+        Charge per node shared along the rows (``[0]``) and along the columns (``[1]``).
     """
-    charge = np.zeros((nz, nr))
+    charge = np.zeros((2, nz, nr))
     for k in range(offsets.size - 1):
         current_k = current[k]
         if current_k == 0.0:
             continue
+        z_k, r_k, bend_k = z[offsets[k]], r[offsets[k]], bend[k]
         for m in range(offsets[k], offsets[k + 1] - 1):
             dt = t[m + 1] - t[m]
             if dt <= 0.0:
@@ -134,7 +234,12 @@ def deposit_paths(z, r, t, offsets, current, z0, r0, hz, hr, nz, nr, mirror, own
             q = current_k * dt / pieces
             for s in range(pieces):
                 f = (s + 0.5) / pieces
-                _scatter(charge, z[m] + f * dz, r[m] + f * dr, q, z0, r0, hz, hr, mirror, owner, arm,
+                zp, rp = z[m] + f * dz, r[m] + f * dr
+                # the curve of constant density keeps its centre: bend / (1 + bend x) at the
+                # distance x from the path's first point, within reach of it
+                x = math.hypot(zp - z_k, rp - r_k)
+                level = bend_k / (1.0 + bend_k * x) if x <= reach and 1.0 + bend_k * x > 0.5 else 0.0
+                _scatter(charge, zp, rp, q, dz, dr, level, z0, r0, hz, hr, mirror, reflect, owner, arm,
                          arm_owner)
     return charge
 
@@ -146,15 +251,12 @@ def _side_weights(n, h):
     return w
 
 
-def node_volumes(grid, raster=None) -> np.ndarray:
-    """Volume each node's linear weight covers (m^3; m^2 per unit length in planar symmetry).
+def node_volumes(grid) -> np.ndarray:
+    """Volume each node's bilinear weight covers (m^3; m^2 per unit length in planar symmetry).
 
     Parameters
     ----------
     grid : tracer.grid.Grid
-    raster : tracer.geometry.Raster, optional
-        The electrodes on the grid: next to a surface the volume is the Shortley–Weller box
-        (module notes).
 
     Returns
     -------
@@ -170,14 +272,34 @@ def node_volumes(grid, raster=None) -> np.ndarray:
         wr *= 2.0 * math.pi
     else:
         wr = _side_weights(grid.nr, grid.hr)
-    volume = np.outer(wz, wr)
-    if raster is not None:
-        arm = np.where((raster.arm_owner >= 0) & (raster.arm < 1.0), raster.arm, 1.0)
-        volume *= 0.25 * (arm[..., 0] + arm[..., 1]) * (arm[..., 2] + arm[..., 3])
-    return volume
+    return np.outer(wz, wr)
 
 
-def charge_density(grid, paths, current, raster=None) -> np.ndarray:
+def line_volumes(grid, raster=None) -> np.ndarray:
+    """Volumes that the charge shared along the rows and along the columns is divided by.
+
+    The node volume (:func:`node_volumes`) times the Shortley–Weller box of the line the charge
+    was shared along, (theta_+ + theta_-) / 2 (module notes).
+
+    Parameters
+    ----------
+    grid : tracer.grid.Grid
+    raster : tracer.geometry.Raster, optional
+        The electrodes on the grid (without it both are the node volume).
+
+    Returns
+    -------
+    float64[2, nz, nr]
+        Along the rows (z), along the columns (r).
+    """
+    volume = node_volumes(grid)
+    if raster is None:
+        return np.stack([volume, volume])
+    arm = np.where((raster.arm_owner >= 0) & (raster.arm < 1.0), raster.arm, 1.0)
+    return np.stack([volume * 0.5 * (arm[..., 0] + arm[..., 1]), volume * 0.5 * (arm[..., 2] + arm[..., 3])])
+
+
+def charge_density(grid, paths, current, raster=None, bend=None, reach_cells=0.0) -> np.ndarray:
     """Charge density (C/m^3) at the nodes from ray paths.
 
     Parameters
@@ -189,20 +311,30 @@ def charge_density(grid, paths, current, raster=None) -> np.ndarray:
         Signed current of each ray (A; A/m in planar symmetry).
     raster : tracer.geometry.Raster, optional
         The electrodes on the grid: weights and volumes cut at their surfaces (module notes).
+    bend : float64[n_rays], optional
+        Curvature (1/m) of the curve of constant density through each path's first point, in the
+        (z, r) plane, positive where its centre lies behind the path; 0 (straight) if not given.
+    reach_cells : float
+        Distance from each path's first point, in cells, up to which the curves of constant
+        density are taken as concentric with that one (module notes); straight beyond.
 
     Returns
     -------
     float64[nz, nr]
     """
+    bend = np.zeros(len(paths)) if bend is None else np.asarray(bend, dtype=np.float64)
     counts = np.array([len(p) for p in paths], dtype=np.int64)
     offsets = np.concatenate(([0], np.cumsum(counts))).astype(np.int64)
     points = np.concatenate([np.asarray(p, dtype=np.float64).reshape(-1, 3) for p in paths]) \
         if len(paths) else np.zeros((0, 3))
     charge = deposit_paths(np.ascontiguousarray(points[:, 0]), np.ascontiguousarray(points[:, 1]),
                            np.ascontiguousarray(points[:, 2]), offsets,
-                           np.asarray(current, dtype=np.float64), grid.z0, grid.r0, grid.hz, grid.hr,
-                           grid.nz, grid.nr, grid.mirror, *_raster_arrays(raster))
-    return charge / node_volumes(grid, raster)
+                           np.asarray(current, dtype=np.float64), bend, reach_cells * min(grid.hz, grid.hr),
+                           grid.z0, grid.r0, grid.hz, grid.hr,
+                           grid.nz, grid.nr, grid.mirror, edge_reflection(grid.edges),
+                           *_raster_arrays(raster))
+    volume = line_volumes(grid, raster)
+    return charge[0] / volume[0] + charge[1] / volume[1]
 
 
 def _raster_arrays(raster):

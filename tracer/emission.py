@@ -172,12 +172,16 @@ def layer_exponent(density, limit):
     return 1.0 + np.clip(ratio, 0.0, 1.0) / 3.0
 
 
-def layer_transit(distance, speed, alpha, points):
+def layer_transit(distance, speed, alpha, points, curvature=(0.0, 0.0)):
     """Distances from the surface and times of a particle crossing the layer below its start point.
 
     Starting at rest in the potential V (x / d)^alpha, the speed grows as x^(alpha / 2), so
     x = d (t / t_d)^(1 / (1 - alpha / 2)) and t_d = d / ((1 - alpha / 2) v_d), with v_d the speed at
-    d (for the Child profile t_d = 3 d / v_d, Langmuir 1913).
+    d (for the Child profile t_d = 3 d / v_d, Langmuir 1913).  On a curved surface the limited
+    density J = J_CL(V(x), x) F(x) (:func:`curvature_factor`) is the same at every x of the layer,
+    so the Child profile becomes V(d) (x / d)^(4/3) (F(x) / F(d))^(-2/3); a layer between the
+    limits (alpha < 4/3) takes that factor to the power 3 (alpha - 1), and the times are then
+    integrated numerically (in s = (x / d)^(1 - alpha / 2), where the integrand is smooth).
 
     Parameters
     ----------
@@ -189,6 +193,8 @@ def layer_transit(distance, speed, alpha, points):
         Exponent of the potential profile, in [1, 4/3].
     points : int
         Number of path points (>= 2), equally spaced in time.
+    curvature : (float, float)
+        Sum and product of the surface's principal curvatures (1/m, 1/m^2); (0, 0) for a plane.
 
     Returns
     -------
@@ -199,4 +205,13 @@ def layer_transit(distance, speed, alpha, points):
     """
     power = 1.0 - 0.5 * alpha
     fraction = np.linspace(0.0, 1.0, points)
-    return distance * fraction ** (1.0 / power), fraction * distance / (power * speed)
+    if curvature[0] == 0.0 and curvature[1] == 0.0:
+        return distance * fraction ** (1.0 / power), fraction * distance / (power * speed)
+    s = np.linspace(0.0, 1.0, 16 * points + 1)
+    x = distance * s ** (1.0 / power)
+    slowness = (curvature_factor(x, *curvature) / curvature_factor(distance, *curvature)) ** (alpha - 1.0)
+    # dt/ds = d / (power v_d) * (F(x) / F(d))^((alpha - 1)): the speed goes as the potential's root
+    steps = 0.5 * (slowness[1:] + slowness[:-1]) * np.diff(s)
+    elapsed = np.concatenate(([0.0], np.cumsum(steps)))
+    at = np.interp(fraction * elapsed[-1], elapsed, s)
+    return distance * at ** (1.0 / power), fraction * elapsed[-1] * distance / (power * speed)

@@ -10,10 +10,13 @@ The emitting area
     cathode's voltage.
 
 Emission sites
-    ``rays`` sites divide the emitting area into equal parts (area 2 pi r ds in axial symmetry,
-    ds per unit length in planar), each site at its part's centre of area.  The ray of a site
-    starts at the distance d = ``EMIT_CELLS`` cells in front of the surface, along the normal,
-    with the kinetic energy it gained from the cathode, and carries J A / rays, J from
+    ``rays`` sites divide the emitting outline into parts of equal length, each site at its
+    part's centre of area and standing for the part's area A (2 pi r ds in axial symmetry, ds per
+    unit length in planar): equal lengths keep as many rays near the axis as elsewhere, where
+    equal areas left the few rings near the axis to sample the space charge there (on a
+    spherical diode at 50 cells per radius, 2 rays a cell, that cost 0.1 % of the current).  The
+    ray of a site starts at the distance d = ``EMIT_CELLS`` cells in front of the surface, along
+    the normal, with the kinetic energy it gained from the cathode, and carries J A, J from
     :func:`tracer.emission.emission_density` with the potential at d and the surface's local
     curvature there (:func:`tracer.emission.curvature_factor`): the in-plane curvature of the
     outline (1 / radius on an arc, positive where the cathode is convex, 0 on a polygon's edges)
@@ -71,6 +74,12 @@ the charge between two points as spread evenly along the segment, while the laye
 as x^(-2/3): with 9 points a planar Child-Langmuir diode (5 mm gap, 0.1 mm cells) drew 0.21 %
 too little current, with 33 points 0.04 %, with 65 points 0.03 %."""
 
+PARALLEL_CELLS = 8.0
+"""Distance from the cathode, in cells, up to which the deposit takes the curves of constant
+charge density as parallel to the cathode's outline (:func:`tracer.deposit.charge_density`).
+On the spherical diode at 50 cells per radius, with exact rays, the current came out within
+0.01 % with 4, 8 or any number of cells, and 0.08 % low with straight curves."""
+
 POISSON_RTOL = 1e-8
 """Relative residual of each space-charge solve."""
 
@@ -81,6 +90,7 @@ EMISSION_DTYPE = np.dtype([
     ("normal_z", np.float64), ("normal_r", np.float64),  # outward unit normal there
     ("area_m2", np.float64),                             # emitting area the site stands for (m per m in planar)
     ("curvature_per_m", np.float64),                     # k1 + k2 of the surface there, > 0 convex
+    ("outline_curvature_per_m", np.float64),             # the outline's own (in the z-r plane), > 0 convex
     ("gaussian_curvature_per_m2", np.float64),           # k1 k2
     ("voltage_V", np.float64),                           # accelerating potential at the ray start
     ("density_A_per_m2", np.float64),
@@ -285,7 +295,7 @@ def _accelerating_voltage(field, cathode_V, charge_C, z, r):
 
 
 def emission_sites(field, cathode, rays, distance, charge_C):
-    """Sites dividing the cathode's emitting area (module notes) into ``rays`` equal parts.
+    """Sites dividing the cathode's emitting outline (module notes) into ``rays`` parts of equal length.
 
     Parameters
     ----------
@@ -322,15 +332,16 @@ def emission_sites(field, cathode, rays, distance, charge_C):
                          "where the field pulls the emitted particles off")
     points, normals, lengths, bends = points[ok], normals[ok], lengths[ok], bends[ok]
     area = 2.0 * math.pi * points[:, 1] * lengths if grid.symmetry == "axial" else lengths
-    # the pieces follow the outline, so each equal-area part is a contiguous stretch of it
-    cumulative = np.cumsum(area)
-    total = cumulative[-1]
-    target = (np.arange(rays) + 0.5) * total / rays
-    k = np.minimum(np.searchsorted(cumulative, target), len(area) - 1)
+    # the pieces follow the outline, so each part of equal length is a contiguous stretch of it
+    along = np.concatenate(([0.0], np.cumsum(lengths)))
+    swept = np.concatenate(([0.0], np.cumsum(area)))
+    bounds = np.interp(np.arange(rays + 1) * along[-1] / rays, along, swept)
+    k = np.minimum(np.searchsorted(swept[1:], 0.5 * (bounds[1:] + bounds[:-1])), len(area) - 1)
     out = np.zeros(rays, dtype=EMISSION_DTYPE)
     out["z_m"], out["r_m"] = points[k].T
     out["normal_z"], out["normal_r"] = normals[k].T
-    out["area_m2"] = total / rays
+    out["area_m2"] = np.diff(bounds)
+    out["outline_curvature_per_m"] = bends[k]
     out["curvature_per_m"], out["gaussian_curvature_per_m2"] = surface_curvatures(
         points[k], normals[k], bends[k], grid.symmetry)
     out["ray"] = -1
@@ -421,7 +432,8 @@ def _layer_paths(sites, distance, mass_kg, charge_C):
     speed = np.sqrt(2.0 * abs(charge_C) * rows["voltage_V"] / mass_kg)
     paths = []
     for row, a, v in zip(rows, alpha, speed):
-        x, t = emission.layer_transit(distance, v, a, LAYER_POINTS)
+        x, t = emission.layer_transit(distance, v, a, LAYER_POINTS,
+                                      (row["curvature_per_m"], row["gaussian_curvature_per_m2"]))
         paths.append(np.column_stack([row["z_m"] + x * row["normal_z"], row["r_m"] + x * row["normal_r"], t]))
     return paths
 
@@ -447,10 +459,14 @@ def space_charge_density(grid, run, sites, distance, species, raster=None):
     -------
     float64[nz, nr]
     """
-    current = math.copysign(1.0, species.charge_C) * sites["current_A"][sites["ray"] >= 0]
+    rows = sites[sites["ray"] >= 0]
+    current = math.copysign(1.0, species.charge_C) * rows["current_A"]
     paths = [_path_zrt(p, grid.symmetry) for p in run.paths]
     paths += _layer_paths(sites, distance, species.mass_kg, species.charge_C)
-    return charge_density(grid, paths, np.concatenate([current, current]), raster)
+    # near the cathode the density is constant on curves parallel to its outline
+    bend = rows["outline_curvature_per_m"]
+    return charge_density(grid, paths, np.concatenate([current, current]), raster,
+                          np.concatenate([bend / (1.0 + bend * distance), bend]), PARALLEL_CELLS)
 
 
 def _space_charge_map(field, phi):
