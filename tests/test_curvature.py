@@ -57,9 +57,9 @@ def test_gun_on_curved_cathodes(case):
     # Langmuir & Blodgett (spheres 1924, cylinders 1923, their equations for alpha^2 and beta^2
     # integrated; the concave cathodes emit inwards, the converging flow of a Pierce-type gun):
     # every site carries the surface's curvatures (negative where concave), and the current is
-    # within 0.2 %.  Measured +0.002, -0.053, -0.011, -0.069 %; before the deposit followed the
-    # flow's direction and curvature and the layer the curvature, -1.2, -0.45, -0.8, -0.6 %
-    # (tests/bench/bench_cathode.py gives 25, 50 and 100 cells)
+    # within 0.2 %.  Measured +0.016, -0.013, +0.001, -0.048 %; before the deposit followed the
+    # flow's direction and curvature, the layer the curvature and the sites equal lengths,
+    # -1.2, -0.45, -0.8, -0.6 % (at 1 kV; tests/bench/bench_cathode.py gives 25, 50 and 100 cells)
     import numpy as np
 
     from diodes import CURVED_RADII_MM, curved_diode, curved_reference

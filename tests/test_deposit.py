@@ -89,7 +89,7 @@ def test_oblique_flow_gives_the_load_the_five_point_rows_are_exact_for(degrees):
         s = np.arange(-30 * h, 30 * h, 0.1 * h) + (0.618 * k % 1.0) * 0.1 * h  # points staggered
         t = spacing / current * (a * s + b * s**3 / 3)   # dt/ds = rho spacing / I
         paths.append(np.column_stack([*(centre[:, None] + c * across[:, None] + s * n[:, None]), t]))
-    rho = charge_density(g, paths, np.full(len(paths), current))
+    rho = charge_density(g, paths, np.full(len(paths), current), reach_cells=100.0)
 
     def potential(p):
         x = (p - centre) @ n

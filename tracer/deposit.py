@@ -23,12 +23,16 @@ Weights: what the solver's rows expect
     the distance x) came out 0.5-1 % too dense there and their current 0.5-1 % low at 25-100
     cells per radius, falling slower than the cell.
 
-    n is the direction of the path segment (the density of a beam changes fastest along its
-    flight near a cathode, where it matters; for a smooth density any n gives a second-order
-    load).  The curve of constant density is the straight line across n, or, for paths that
+    n is the direction of the path segment: near a cathode the density of the emitted flow
+    changes fastest along its flight, as x^(-2/3) at the distance x, and that is where the load
+    matters.  The curve of constant density is the straight line across n, or, for paths that
     give a curvature (the outline's, near a curved cathode), a circle through p with that
     curvature, taken to second order in the slide.  A slide that would leave the grid folds
-    back at a mirroring edge, else the piece is not slid.
+    back at a mirroring edge, else the piece is not slid.  This holds within a reach of each
+    path's first point (a few cells from the cathode); beyond it, where the density is smooth
+    and any of these weights gives a load right to second order, a piece goes whole along the
+    grid line nearer its direction without a slide (bilinear weights), which costs what the
+    plain bilinear deposit cost; the slid weights cost about four times that per piece.
 
     In a cell the surface of an electrode cuts, the hat of a free node along a grid line ends at
     the surface between it and a node inside the electrode (weight s / theta at the distance s
@@ -62,13 +66,13 @@ from numba import njit
 from tracer.fieldmap import edge_reflection
 
 
-@njit(cache=True)
+@njit(cache=True, inline="always")
 def _arm(arm, arm_owner, iz, ir, k):
     """Fraction of the cell that arm k of node (iz, ir) spans (1 unless it ends on a surface)."""
     return arm[iz, ir, k] if arm_owner[iz, ir, k] >= 0 and arm[iz, ir, k] < 1.0 else 1.0
 
 
-@njit(cache=True)
+@njit(cache=True, inline="always")
 def _line(f, lo_inside, hi_inside, theta_lo, theta_hi):
     """Weights (lo, hi) of a point at the fraction f of the way between two nodes of a grid line,
     with a surface between them when one of them is inside an electrode (module notes)."""
@@ -83,31 +87,32 @@ def _line(f, lo_inside, hi_inside, theta_lo, theta_hi):
     return w, 1.0 - w
 
 
-@njit(cache=True)
+@njit(cache=True, inline="always")
 def _on_line(charge, u, line, along_z, q, owner, arm, arm_owner):
     """Share q at the grid coordinate u along grid line ``line`` (a row of constant r when
-    ``along_z``, else a column of constant z) between the two nodes around it, the hat cut at
-    surfaces (module notes) when ``owner`` is not empty."""
-    n = charge.shape[0] if along_z else charge.shape[1]
+    ``along_z``, into ``charge[0]``; else a column of constant z, into ``charge[1]``) between the
+    two nodes around it, the hat cut at surfaces (module notes) when ``owner`` is not empty."""
+    n = charge.shape[1] if along_z else charge.shape[2]
     i = min(int(u), n - 2)
     f = u - i
-    if owner.shape[0] == 0:
-        w = (1.0 - f, f)
-    elif along_z:
-        w = _line(f, owner[i, line] >= 0, owner[i + 1, line] >= 0,
-                  _arm(arm, arm_owner, i, line, 0), _arm(arm, arm_owner, i + 1, line, 1))
-    else:
-        w = _line(f, owner[line, i] >= 0, owner[line, i + 1] >= 0,
-                  _arm(arm, arm_owner, line, i, 2), _arm(arm, arm_owner, line, i + 1, 3))
+    w0, w1 = 1.0 - f, f
+    if owner.shape[0] != 0:
+        if along_z:
+            if owner[i, line] >= 0 or owner[i + 1, line] >= 0:
+                w0, w1 = _line(f, owner[i, line] >= 0, owner[i + 1, line] >= 0,
+                               _arm(arm, arm_owner, i, line, 0), _arm(arm, arm_owner, i + 1, line, 1))
+        elif owner[line, i] >= 0 or owner[line, i + 1] >= 0:
+            w0, w1 = _line(f, owner[line, i] >= 0, owner[line, i + 1] >= 0,
+                           _arm(arm, arm_owner, line, i, 2), _arm(arm, arm_owner, line, i + 1, 3))
     if along_z:
-        charge[i, line] += q * w[0]
-        charge[i + 1, line] += q * w[1]
+        charge[0, i, line] += q * w0
+        charge[0, i + 1, line] += q * w1
     else:
-        charge[line, i] += q * w[0]
-        charge[line, i + 1] += q * w[1]
+        charge[1, line, i] += q * w0
+        charge[1, line, i + 1] += q * w1
 
 
-@njit(cache=True)
+@njit(cache=True, inline="always")
 def _slid(u, shift, n, reflect_lo, reflect_hi):
     """The grid coordinate u + shift, folded at a mirroring end; u itself when that leaves the grid."""
     w = u + shift
@@ -118,58 +123,60 @@ def _slid(u, shift, n, reflect_lo, reflect_hi):
     return w if 0.0 <= w <= n - 1 else u
 
 
-@njit(cache=True)
-def _scatter(charge, z, r, q, nz_dir, nr_dir, bend, z0, r0, hz, hr, mirror, reflect, owner, arm, arm_owner):
-    """Share the charge q at (z, r), where the density changes along the direction (nz_dir,
-    nr_dir) and is constant along a curve of curvature ``bend`` across it, among the nodes: its
-    part nz_dir^2 along the grid rows and nr_dir^2 along the columns, each slid along that curve
-    onto the lines (module notes).  ``charge[0]`` takes the row shares, ``charge[1]`` the column
-    shares; nothing outside the grid."""
+@njit(cache=True, inline="always")
+def _scatter(charge, u, v, q, n_z, n_r, per_nz, per_nr, bend, hz, hr, per_hz, per_hr, mirror, reflect, owner, arm,
+             arm_owner):
+    """Share the charge q at the grid coordinates (u, v), where the density changes along the
+    unit direction (n_z, n_r) (per_nz = 1 / n_z, per_nr = 1 / n_r, 0 where n_z or n_r is 0; per_hz
+    and per_hr the reciprocal spacings) and
+    is constant along a curve of curvature ``bend`` across it, among the nodes: its part n_z^2
+    along the grid rows and n_r^2 along the columns, each slid along that curve onto the lines
+    (module notes).  ``charge[0]`` takes the row shares, ``charge[1]`` the column shares;
+    nothing outside the grid.  (Reciprocals, not divisions: the nodes written depend on the
+    slide, and a division's latency there made the deposit several times slower.)"""
     nz, nr = charge.shape[1], charge.shape[2]
-    u = (z - z0) / hz
-    v = (r - r0) / hr
     if mirror and v < 0.0:
         v = -v
-        nr_dir = -nr_dir
+        n_r = -n_r
+        per_nr = -per_nr
     if u < 0.0 or v < 0.0 or u > nz - 1 or v > nr - 1:
         return
     i = min(int(u), nz - 2)
     j = min(int(v), nr - 2)
     fu = u - i
     fv = v - j
-    norm = math.sqrt(nz_dir * nz_dir + nr_dir * nr_dir)
-    if norm == 0.0:
-        nz_dir, nr_dir, norm = 1.0, 0.0, 1.0
-    n_z = nz_dir / norm
-    n_r = nr_dir / norm
     cz = n_z * n_z
+    if cz == 1.0 or cz == 0.0:    # along a grid line: no slide
+        if cz == 1.0:
+            _on_line(charge, u, j, True, q * (1.0 - fv), owner, arm, arm_owner)
+            _on_line(charge, u, j + 1, True, q * fv, owner, arm, arm_owner)
+        else:
+            _on_line(charge, v, i, False, q * (1.0 - fu), owner, arm, arm_owner)
+            _on_line(charge, v, i + 1, False, q * fu, owner, arm, arm_owner)
+        return
     for b in range(2):
         share = q * cz * (fv if b else 1.0 - fv)
         if share == 0.0:
             continue
-        du = 0.0
-        if cz < 1.0:
-            # along the curve z(s) = z - s n_r - k s^2 n_z / 2, r(s) = r + s n_z - k s^2 n_r / 2 onto
-            # the row r_j+b, to second order in s
-            s = (j + b - v) * hr / n_z
-            k = _bounded(bend, s)
-            s += 0.5 * k * s * s * n_r / n_z
-            du = (-s * n_r - 0.5 * k * s * s * n_z) / hz
-        _on_line(charge[0], _slid(u, du, nz, reflect[0], reflect[1]), j + b, True, share, owner, arm,
-                 arm_owner)
+        # along the curve z(s) = z - s n_r - k s^2 n_z / 2, r(s) = r + s n_z - k s^2 n_r / 2 onto
+        # the row r_j+b, to second order in s
+        s = (j + b - v) * hr * per_nz
+        k = _bounded(bend, s)
+        s += 0.5 * k * s * s * n_r * per_nz
+        du = (-s * n_r - 0.5 * k * s * s * n_z) * per_hz
+        _on_line(charge, _slid(u, du, nz, reflect[0], reflect[1]), j + b, True, share, owner, arm, arm_owner)
     for a in range(2):
         share = q * (1.0 - cz) * (fu if a else 1.0 - fu)
         if share == 0.0:
             continue
-        s = (u - i - a) * hz / n_r      # onto the column z_i+a
+        s = (u - i - a) * hz * per_nr      # onto the column z_i+a
         k = _bounded(bend, s)
-        s -= 0.5 * k * s * s * n_z / n_r
-        dv = (s * n_z - 0.5 * k * s * s * n_r) / hr
-        _on_line(charge[1], _slid(v, dv, nr, reflect[2], reflect[3]), i + a, False, share, owner, arm,
-                 arm_owner)
+        s -= 0.5 * k * s * s * n_z * per_nr
+        dv = (s * n_z - 0.5 * k * s * s * n_r) * per_hr
+        _on_line(charge, _slid(v, dv, nr, reflect[2], reflect[3]), i + a, False, share, owner, arm, arm_owner)
 
 
-@njit(cache=True)
+@njit(cache=True, inline="always")
 def _bounded(bend, s):
     """The curvature bend, reduced where the slide s would turn the curve by more than half a
     radian (the second-order slide holds no further)."""
@@ -194,9 +201,10 @@ def deposit_paths(z, r, t, offsets, current, bend, reach, z0, r0, hz, hr, nz, nr
     bend : float64[n_rays]
         Curvature (1/m) of the curve of constant density through each ray's first point, positive
         where its centre lies behind the ray; along the ray it is bend / (1 + bend x) at the
-        distance x from that point (curves with a common centre) up to ``reach``, 0 beyond.
+        distance x from that point (curves with a common centre).
     reach : float
-        Metres.
+        Distance from each ray's first point (m) within which the weights follow the flow's
+        direction and those curves; beyond it, the grid line nearer the direction (module notes).
     z0, r0, hz, hr : float
         First node and spacings of the grid.
     nz, nr : int
@@ -218,6 +226,7 @@ def deposit_paths(z, r, t, offsets, current, bend, reach, z0, r0, hz, hr, nz, nr
         Charge per node shared along the rows (``[0]``) and along the columns (``[1]``).
     """
     charge = np.zeros((2, nz, nr))
+    per_hz, per_hr = 1.0 / hz, 1.0 / hr
     for k in range(offsets.size - 1):
         current_k = current[k]
         if current_k == 0.0:
@@ -232,15 +241,24 @@ def deposit_paths(z, r, t, offsets, current, bend, reach, z0, r0, hz, hr, nz, nr
             cells = max(abs(dz) / hz, abs(dr) / hr)
             pieces = max(1, int(math.ceil(cells / piece_cells)))
             q = current_k * dt / pieces
+            length = math.sqrt(dz * dz + dr * dr)
+            n_z, n_r = (dz / length, dr / length) if length > 0.0 else (1.0, 0.0)
+            per_nz = 1.0 / n_z if n_z != 0.0 else 0.0
+            per_nr = 1.0 / n_r if n_r != 0.0 else 0.0
             for s in range(pieces):
                 f = (s + 0.5) / pieces
                 zp, rp = z[m] + f * dz, r[m] + f * dr
                 # the curve of constant density keeps its centre: bend / (1 + bend x) at the
                 # distance x from the path's first point, within reach of it
                 x = math.hypot(zp - z_k, rp - r_k)
-                level = bend_k / (1.0 + bend_k * x) if x <= reach and 1.0 + bend_k * x > 0.5 else 0.0
-                _scatter(charge, zp, rp, q, dz, dr, level, z0, r0, hz, hr, mirror, reflect, owner, arm,
-                         arm_owner)
+                if x <= reach:
+                    level = bend_k / (1.0 + bend_k * x) if 1.0 + bend_k * x > 0.5 else 0.0
+                    _scatter(charge, (zp - z0) * per_hz, (rp - r0) * per_hr, q, n_z, n_r, per_nz, per_nr, level,
+                             hz, hr, per_hz, per_hr, mirror, reflect, owner, arm, arm_owner)
+                else:   # beyond: along the grid line nearer the direction, no slide
+                    along = 1.0 if abs(n_z) >= abs(n_r) else 0.0
+                    _scatter(charge, (zp - z0) * per_hz, (rp - r0) * per_hr, q, along, 1.0 - along, along,
+                             1.0 - along, 0.0, hz, hr, per_hz, per_hr, mirror, reflect, owner, arm, arm_owner)
     return charge
 
 
@@ -315,8 +333,9 @@ def charge_density(grid, paths, current, raster=None, bend=None, reach_cells=0.0
         Curvature (1/m) of the curve of constant density through each path's first point, in the
         (z, r) plane, positive where its centre lies behind the path; 0 (straight) if not given.
     reach_cells : float
-        Distance from each path's first point, in cells, up to which the curves of constant
-        density are taken as concentric with that one (module notes); straight beyond.
+        Distance from each path's first point, in cells, within which the weights follow the
+        flow's direction and the curves of constant density (module notes); 0: bilinear
+        weights everywhere.
 
     Returns
     -------

@@ -180,38 +180,41 @@ def layer_transit(distance, speed, alpha, points, curvature=(0.0, 0.0)):
     d (for the Child profile t_d = 3 d / v_d, Langmuir 1913).  On a curved surface the limited
     density J = J_CL(V(x), x) F(x) (:func:`curvature_factor`) is the same at every x of the layer,
     so the Child profile becomes V(d) (x / d)^(4/3) (F(x) / F(d))^(-2/3); a layer between the
-    limits (alpha < 4/3) takes that factor to the power 3 (alpha - 1), and the times are then
-    integrated numerically (in s = (x / d)^(1 - alpha / 2), where the integrand is smooth).
+    limits (alpha < 4/3) takes that factor to the power 3 (alpha - 1).  The points are equally
+    spaced in s = (x / d)^(1 - alpha / 2), which is the time's fraction on a plane; on a curved
+    surface the times are integrated over s (the trapezoid rule; the integrand is smooth in s).
 
     Parameters
     ----------
     distance : float
         Layer thickness d, metres.
-    speed : float
+    speed : float or ndarray
         Speed at d, m/s (> 0).
-    alpha : float
+    alpha : float or ndarray
         Exponent of the potential profile, in [1, 4/3].
     points : int
-        Number of path points (>= 2), equally spaced in time.
-    curvature : (float, float)
+        Number of path points (>= 2).
+    curvature : (float or ndarray, float or ndarray)
         Sum and product of the surface's principal curvatures (1/m, 1/m^2); (0, 0) for a plane.
 
     Returns
     -------
     x : ndarray
-        Distance from the surface of each point, metres, from 0 to d.
+        Distance from the surface of each point, metres, from 0 to d; one row of ``points`` per
+        element of the arguments (their broadcast shape, then the points).
     t : ndarray
-        Time of each point, seconds, from 0 to t_d.
+        Time of each point, seconds, from 0 to t_d; the same shape.
     """
-    power = 1.0 - 0.5 * alpha
+    power = (1.0 - 0.5 * np.asarray(alpha, dtype=np.float64))[..., None]
+    scale = distance / (power * np.asarray(speed, dtype=np.float64)[..., None])
     fraction = np.linspace(0.0, 1.0, points)
-    if curvature[0] == 0.0 and curvature[1] == 0.0:
-        return distance * fraction ** (1.0 / power), fraction * distance / (power * speed)
-    s = np.linspace(0.0, 1.0, 16 * points + 1)
-    x = distance * s ** (1.0 / power)
-    slowness = (curvature_factor(x, *curvature) / curvature_factor(distance, *curvature)) ** (alpha - 1.0)
-    # dt/ds = d / (power v_d) * (F(x) / F(d))^((alpha - 1)): the speed goes as the potential's root
-    steps = 0.5 * (slowness[1:] + slowness[:-1]) * np.diff(s)
-    elapsed = np.concatenate(([0.0], np.cumsum(steps)))
-    at = np.interp(fraction * elapsed[-1], elapsed, s)
-    return distance * at ** (1.0 / power), fraction * elapsed[-1] * distance / (power * speed)
+    x = distance * fraction ** (1.0 / power)
+    if not (np.any(curvature[0]) or np.any(curvature[1])):
+        return np.broadcast_arrays(x, fraction * scale)
+    total, product = (np.asarray(c, dtype=np.float64)[..., None] for c in curvature)
+    # dt/ds = d / (power v_d) * (F(x) / F(d))^(alpha - 1): the speed goes as the potential's root
+    slowness = (curvature_factor(x, total, product) / curvature_factor(distance, total, product)) \
+        ** (1.0 - 2.0 * power)
+    steps = 0.5 * (slowness[..., 1:] + slowness[..., :-1]) * np.diff(fraction)
+    elapsed = np.concatenate([np.zeros(steps.shape[:-1] + (1,)), np.cumsum(steps, axis=-1)], axis=-1)
+    return np.broadcast_arrays(x, elapsed * scale)

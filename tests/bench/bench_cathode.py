@@ -5,12 +5,13 @@ Four diodes, each a half of the whole (an open edge through the centre mirrors t
 since a gun emits only from faces whose normal points downstream): a convex and a concave
 spherical cathode (axial symmetry; Langmuir & Blodgett 1924) and a convex and a concave
 cylindrical one (planar symmetry with the mirror plane; Langmuir & Blodgett 1923), radius ratio 2,
-1 kV electrons (the relativistic correction is under 0.05 %), two rays per cell of the
-cathode radius (fewer leave the deposited charge streaky on the finer grids), the gun iterated
-to a relative change of 1e-6 (at 1e-4 the current stopped up to 0.02 % short of its limit).  For 25, 50 and 100 cells per
-cathode radius it prints the gun's current against the reference (tests/diodes.py, their
-equations integrated), the relative error and the ratio of successive errors (4 for second
-order).  Goal (issue 16): within 0.5 % at 50 cells per radius, falling at second order.
+100 V electrons (the relativistic correction is 0.002 %; 0.02 % at 1 kV), two rays per cell of
+the cathode radius (fewer leave the deposited charge streaky on the finer grids), the gun
+iterated to a relative change of 1e-6 (at 1e-4 the current stopped up to 0.02 % short of its
+limit).  For 25, 50 and 100 cells per cathode radius it prints the gun's current against the
+reference (tests/diodes.py, their equations integrated), the relative error and the ratio of
+successive errors (4 for second order).  Goal (issue 16): within 0.5 % at 50 cells per radius,
+falling at second order.
 """
 
 import sys
