@@ -353,7 +353,7 @@ def test_tune_goals():
 def test_trace_in_nanoseconds():
     document = base()
     document["trace"] = {"max_time_ns": 250}
-    assert check(document).trace.max_time_s == pytest.approx(2.5e-7, rel=1e-15)
+    assert check(document).trace.max_time_s == pytest.approx(2.5e-7, rel=1e-15, abs=0)
 
 
 # ---------------------------------------------------------------- errors
@@ -606,7 +606,7 @@ def test_waveform_keys_in_si(tmp_path):
     assert (pulse.delay_s, pulse.rise_s, pulse.width_s, pulse.fall_s, pulse.period_s) == (
         2.5e-7, 2e-9, 1e-6, 3e-9, 5e-6)
     assert [(s.amplitude_V, s.frequency_Hz) for s in focus.waveform.sinusoids] == [(450.0, 1.5e6), (-3.0, 2e4)]
-    assert focus.waveform.sinusoids[0].phase_rad == pytest.approx(math.pi / 2, rel=1e-15)
+    assert focus.waveform.sinusoids[0].phase_rad == pytest.approx(math.pi / 2, rel=1e-15, abs=0)
     assert exit_.voltage_V == 0.0 and exit_.waveform.table.time_s == (0.0, 1.2e-8, 3e-8)
     assert exit_.waveform.table.voltage_V == (0.0, 180.0, 200.0)
     assert setup.electrodes[0].waveform is None and setup.electrodes[0].drive == 0.0

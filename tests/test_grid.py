@@ -17,12 +17,12 @@ def test_from_domain_cells_and_spacing():
     g = Grid.from_domain(_domain(z=(0.01, 0.1), r=(0.0, 0.0304), cell=1e-3))
     assert g.cells == (90, 30)  # round(90.0), round(30.4)
     assert g.shape == (91, 31)
-    assert g.hz == pytest.approx(0.09 / 90, rel=1e-15)
-    assert g.hr == pytest.approx(0.0304 / 30, rel=1e-15)
-    assert g.z1 == pytest.approx(0.1, rel=1e-15)
-    assert g.r1 == pytest.approx(0.0304, rel=1e-15)
+    assert g.hz == pytest.approx(0.09 / 90, rel=1e-15, abs=0)
+    assert g.hr == pytest.approx(0.0304 / 30, rel=1e-15, abs=0)
+    assert g.z1 == pytest.approx(0.1, rel=1e-15, abs=0)
+    assert g.r1 == pytest.approx(0.0304, rel=1e-15, abs=0)
     assert g.z[0] == 0.01 and g.z.shape == (91,)
-    assert g.r[-1] == pytest.approx(0.0304, rel=1e-15) and g.r.shape == (31,)
+    assert g.r[-1] == pytest.approx(0.0304, rel=1e-15, abs=0) and g.r.shape == (31,)
     assert g.mirror and g.symmetry == "axial"
     assert g.edges == ("ground", "open", "axis", "ground")
 
@@ -37,7 +37,7 @@ def test_planar_full_range_is_not_mirrored():
     d = Domain("planar", (0.0, 0.02), (-0.01, 0.01), 1e-3, ("ground", "ground", "ground", "ground"))
     g = Grid.from_domain(d)
     assert not g.mirror
-    assert g.r0 == -0.01 and g.r1 == pytest.approx(0.01, rel=1e-15)
+    assert g.r0 == -0.01 and g.r1 == pytest.approx(0.01, rel=1e-15, abs=0)
     assert g.cells == (20, 20)
 
 
@@ -48,8 +48,8 @@ def test_coarsen_halves_cells_over_the_same_extent(cells):
     c = g.coarsen()
     assert c.cells == (math.ceil(cells[0] / 2), math.ceil(cells[1] / 2))
     assert c.z0 == g.z0 and c.r0 == g.r0
-    assert c.z1 == pytest.approx(g.z1, rel=1e-14)
-    assert c.r1 == pytest.approx(g.r1, rel=1e-14)
+    assert c.z1 == pytest.approx(g.z1, rel=1e-14, abs=0)
+    assert c.r1 == pytest.approx(g.r1, rel=1e-14, abs=0)
     assert (c.symmetry, c.mirror, c.edges) == (g.symmetry, g.mirror, g.edges)
 
 

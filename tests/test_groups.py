@@ -64,7 +64,7 @@ def test_shared_and_opposite_waveforms_share_one_map():
     assert g.offsets[NAMES.index("cap_b")] == 12.0 and g.offsets[NAMES.index("repeller")] == 150.0
     herm = random_basis().hermite
     assert np.array_equal(g.driven[k], herm[2] - herm[3] + herm[4])
-    assert g.arrays.max_step_s == pytest.approx(1e-6 / 16)
+    assert g.arrays.max_step_s == pytest.approx(1e-6 / 16, rel=1e-6, abs=0)
 
 
 def test_all_constant_is_the_combined_map_bit_for_bit():

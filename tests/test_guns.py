@@ -70,7 +70,7 @@ def test_diode_draws_the_child_langmuir_current(symmetry, planar_diode):
     np.testing.assert_allclose(j, child_density(), rtol=0.02)
     area = 2 * 1e-3 if symmetry == "planar" else math.pi * 1e-6   # both halves / the disc
     assert result.current_A == pytest.approx(child_density() * area, rel=0.02)
-    assert result.perveance_A_per_V1p5 == pytest.approx(result.current_A / VOLTS**1.5, rel=1e-12)
+    assert result.perveance_A_per_V1p5 == pytest.approx(result.current_A / VOLTS**1.5, rel=1e-12, abs=0)
     assert set(result.run.records["status"]) == {"landed"}
     assert set(result.run.records["electrode"]) == {"anode"}
 
@@ -133,7 +133,7 @@ def test_deposited_charge_is_emitted_current_times_transit_time(planar_diode):
     layer = 3 * d / speed   # all sites are space-charge-limited: the Child layer (Langmuir 1913)
     assert sites["limited"].all()
     flight = result.run.records["time_s"] + layer
-    assert deposited == pytest.approx(-(sites["current_A"] * flight).sum(), rel=1e-9)
+    assert deposited == pytest.approx(-(sites["current_A"] * flight).sum(), rel=1e-9, abs=0)
 
 
 def test_temperature_limited_cathode_gives_the_richardson_dushman_density():
@@ -146,7 +146,7 @@ def test_temperature_limited_cathode_gives_the_richardson_dushman_density():
     expected = a0 * t**2 * math.exp(-w * constants.e / (constants.k * t))
     assert result.converged and not result.emission["limited"].any()
     np.testing.assert_allclose(result.emission["density_A_per_m2"], expected, rtol=1e-10)
-    assert result.current_A == pytest.approx(expected * 2e-3, rel=1e-10)
+    assert result.current_A == pytest.approx(expected * 2e-3, rel=1e-10, abs=0)
 
 
 def test_schottky_lowering_raises_the_temperature_limited_density():
@@ -160,7 +160,7 @@ def test_schottky_lowering_raises_the_temperature_limited_density():
     dw = math.sqrt(constants.e * e_field / (4 * math.pi * constants.epsilon_0))   # eV
     ratio = lowered.emission["density_A_per_m2"] / plain.emission["density_A_per_m2"]
     np.testing.assert_allclose(ratio, math.exp(dw * constants.e / (constants.k * t)), rtol=2e-3)
-    assert schottky_lowering_eV(e_field) == pytest.approx(dw, rel=1e-12)
+    assert schottky_lowering_eV(e_field) == pytest.approx(dw, rel=1e-12, abs=0)
 
 
 def test_hot_cathode_is_space_charge_limited(planar_diode):
@@ -217,7 +217,7 @@ def test_bundled_pierce_gun(pierce):
     centre = np.array([13e-3, 0.0])
     rho = np.hypot(result.emission["z_m"] - centre[0], result.emission["r_m"])
     np.testing.assert_allclose(rho, 10e-3, rtol=1e-3)
-    assert result.perveance_A_per_V1p5 == pytest.approx(result.current_A / 5000.0**1.5, rel=1e-12)
+    assert result.perveance_A_per_V1p5 == pytest.approx(result.current_A / 5000.0**1.5, rel=1e-12, abs=0)
 
 
 def test_command_line(pierce, tmp_path, capsys):
@@ -238,7 +238,7 @@ def test_command_line(pierce, tmp_path, capsys):
         rows = list(csv.DictReader(handle))
     assert [int(r["ray"]) for r in rows] == beam.records["ray"].tolist() and len(rows) > 10
     total = sum(float(r["weight_A"]) for r in rows)
-    assert total == pytest.approx(beam.summary()["current_A"], rel=1e-12)
+    assert total == pytest.approx(beam.summary()["current_A"], rel=1e-12, abs=0)
     printed = float(out.split("  current ")[1].split()[0])
     assert total == pytest.approx(printed, rel=1e-4)
 

@@ -27,8 +27,8 @@ def test_kinetic_energy_is_relativistic_and_precise(energy_eV):
     p = math.sqrt(k * (k + 2 * m * C * C)) / C
     got = kinetic_energy_J(0.3 * p, -0.4 * p, math.sqrt(0.75) * p, m)
     ref = math.expm1(0.5 * math.log1p((p / (m * C)) ** 2)) * m * C * C
-    assert got == pytest.approx(k, rel=1e-13)
-    assert got == pytest.approx(ref, rel=1e-14)
+    assert got == pytest.approx(k, rel=1e-13, abs=0)
+    assert got == pytest.approx(ref, rel=1e-14, abs=0)
 
 
 def test_energy_scale_definition():
@@ -88,7 +88,7 @@ def test_gauss_rule_is_exact_to_degree_seven():
     """The Gauss–Legendre rule on [0, 1] (Gauss 1814; library: numpy.polynomial.legendre.leggauss)
     integrates theta^j exactly for j <= 2 GAUSS_POINTS - 1 and not beyond."""
     for j in range(2 * GAUSS_POINTS):
-        assert GAUSS_WEIGHT @ GAUSS_THETA**j == pytest.approx(1.0 / (j + 1), rel=1e-15)
+        assert GAUSS_WEIGHT @ GAUSS_THETA**j == pytest.approx(1.0 / (j + 1), rel=1e-15, abs=0)
     j = 2 * GAUSS_POINTS
     assert abs(GAUSS_WEIGHT @ GAUSS_THETA**j - 1.0 / (j + 1)) > 1e-6
 

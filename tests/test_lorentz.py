@@ -140,7 +140,7 @@ def test_cyclotron_motion_in_a_uniform_field(symmetry, species, energy_eV):
                 rtol=1e-11, magnetic=UniformField("b", tuple(b * b_dir)))
     rec = run.records[0]
     assert rec["status"] == "plane"
-    assert rec["time_s"] == pytest.approx(t, rel=1e-8)
+    assert rec["time_s"] == pytest.approx(t, rel=1e-8, abs=0)
     want_x, want_p = helix(start[0], b * b_dir, sp.charge_C, sp.mass_kg, t)
     got_x = np.array([rec["x_m"], rec["y_m"], rec["z_m"]])
     got_p = np.array([rec["px"], rec["py"], rec["pz"]])

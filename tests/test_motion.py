@@ -156,18 +156,18 @@ def test_step_size_controller():
     from the earlier proposal when the step was shortened to reach a wall."""
     propose = stepper.propose
     h = 1e-9
-    assert propose(h, h, 32.0) == pytest.approx(h * 0.9 / 2.0, rel=1e-14)       # 32^-1/5 = 1/2
-    assert propose(h, h, 1e12) == pytest.approx(0.2 * h, rel=1e-14)
-    assert propose(h, h, np.nan) == pytest.approx(0.2 * h, rel=1e-14)       # a non-finite step
-    assert propose(h, h, np.inf) == pytest.approx(0.2 * h, rel=1e-14)
+    assert propose(h, h, 32.0) == pytest.approx(h * 0.9 / 2.0, rel=1e-14, abs=0)       # 32^-1/5 = 1/2
+    assert propose(h, h, 1e12) == pytest.approx(0.2 * h, rel=1e-14, abs=0)
+    assert propose(h, h, np.nan) == pytest.approx(0.2 * h, rel=1e-14, abs=0)       # a non-finite step
+    assert propose(h, h, np.inf) == pytest.approx(0.2 * h, rel=1e-14, abs=0)
     assert propose(h, 2 * h, 1.5) <= h                                          # never longer
-    assert propose(h, h, 1.0) == pytest.approx(0.9 * h, rel=1e-14)
-    assert propose(h, h, 1.0 / 32.0) == pytest.approx(1.8 * h, rel=1e-14)
-    assert propose(h, h, 0.0) == pytest.approx(5.0 * h, rel=1e-14)
-    assert propose(h, h, 1e-30) == pytest.approx(5.0 * h, rel=1e-14)
+    assert propose(h, h, 1.0) == pytest.approx(0.9 * h, rel=1e-14, abs=0)
+    assert propose(h, h, 1.0 / 32.0) == pytest.approx(1.8 * h, rel=1e-14, abs=0)
+    assert propose(h, h, 0.0) == pytest.approx(5.0 * h, rel=1e-14, abs=0)
+    assert propose(h, h, 1e-30) == pytest.approx(5.0 * h, rel=1e-14, abs=0)
     # a step shortened to a wall at a tenth of the proposal: the cap is five times the proposal
-    assert propose(0.1 * h, h, 0.0) == pytest.approx(5.0 * h, rel=1e-14)
-    assert propose(0.1 * h, h, 1.0) == pytest.approx(0.09 * h, rel=1e-14)
+    assert propose(0.1 * h, h, 0.0) == pytest.approx(5.0 * h, rel=1e-14, abs=0)
+    assert propose(0.1 * h, h, 1.0) == pytest.approx(0.09 * h, rel=1e-14, abs=0)
 
 
 def dense_of(poly):
@@ -368,9 +368,9 @@ def test_mirrored_planar_rays_are_mirror_images():
     down = dataclasses.replace(up, start_r_m=-1.5e-3)
     a = trace(field, up, max_time_s=1.0e-7).records[0]
     b = trace(field, down, max_time_s=1.0e-7).records[0]
-    assert a["y_m"] == pytest.approx(-b["y_m"], rel=1e-12)
-    assert a["py"] == pytest.approx(-b["py"], rel=1e-12)
-    assert a["z_m"] == pytest.approx(b["z_m"], rel=1e-12)
+    assert a["y_m"] == pytest.approx(-b["y_m"], rel=1e-12, abs=0)
+    assert a["py"] == pytest.approx(-b["py"], rel=1e-12, abs=0)
+    assert a["z_m"] == pytest.approx(b["z_m"], rel=1e-12, abs=0)
     assert abs(a["py"]) > 1e-3 * abs(a["pz"])  # the bump did deflect the ray
 
 

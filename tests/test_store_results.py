@@ -216,7 +216,7 @@ def test_weighting_is_particles_per_ray(result):
                            if g.attrs["beam"].decode() == run.name and b"start" in g.attrs["comment"])
             w = read_component(species["weighting"])
             expected = beam.current_A / beam.count / constants.e if beam.current_A else 1.0
-            assert np.allclose(w, expected, rtol=1e-15) and len(w) == beam.count
+            assert np.allclose(w, expected, rtol=1e-15, atol=0) and len(w) == beam.count
 
 
 def test_a_run_with_suspects_and_rays_traced_again_reads_back_whole(tmp_path_factory):
@@ -297,7 +297,7 @@ def test_landings_csv_round_trip(result, tmp_path):
             assert np.array_equal(rows[column], values, equal_nan=True), column   # 17 digits: exact
         u = np.stack([rows["ux"], rows["uy"], rows["uz"]])
         moving = np.hypot(np.hypot(rec["px"], rec["py"]), rec["pz"]) > 0
-        assert np.allclose(np.linalg.norm(u, axis=0)[moving], 1.0, rtol=1e-14)
+        assert np.allclose(np.linalg.norm(u, axis=0)[moving], 1.0, rtol=1e-14, atol=0)
     by_name = write_landings_csv(tmp_path / "by_name.csv", {r.name: r for r in runs})
     assert by_name.read_bytes() == path.read_bytes()
 
@@ -318,7 +318,7 @@ def test_landings_csv_reads_back_as_the_start_rays_of_a_next_stage(result, tmp_p
     for field in ("x_m", "y_m", "z_m", "energy_eV", "weight_A"):
         assert np.allclose(rays[field], stopped[field], rtol=1e-15, atol=0.0), field
     p = np.sqrt(stopped["px"] ** 2 + stopped["py"] ** 2 + stopped["pz"] ** 2)
-    assert np.allclose(rays["uz"], stopped["pz"] / p, rtol=1e-14)
+    assert np.allclose(rays["uz"], stopped["pz"] / p, rtol=1e-14, atol=0)
     write_landings_csv(tmp_path / "none.csv", runs[1:])   # no ray of it stopped on a plane
     with pytest.raises(ValueError, match="no ray stopped on a plane"):
         read_rays_csv(tmp_path / "none.csv")

@@ -56,9 +56,9 @@ def test_switched_field_against_the_equations_of_motion(kind, relativistic, t_af
         if t == 2e-9:
             continue
         z, p = integrate_switch(case, t)
-        assert float(case.distance(t)) == pytest.approx(z, rel=1e-10)
-        assert float(case.momentum(t)) == pytest.approx(p, rel=1e-12)
-        assert case.time_at(float(case.distance(t))) == pytest.approx(t, rel=1e-12)
+        assert float(case.distance(t)) == pytest.approx(z, rel=1e-10, abs=0)
+        assert float(case.momentum(t)) == pytest.approx(p, rel=1e-12, abs=0)
+        assert case.time_at(float(case.distance(t))) == pytest.approx(t, rel=1e-12, abs=0)
     assert float(case.distance(1.9e-9)) == 0.0 and float(case.energy_eV(1.9e-9)) == 0.0
 
 
@@ -87,7 +87,7 @@ def test_switched_field_ledger_terms_sum_to_the_energy(ramp_s):
     case = SwitchedField(2e5, 100e-9, ramp_s, ARGON, E)
     for t in (100e-9 + 0.4 * max(ramp_s, 1e-9), 100e-9 + ramp_s, 400e-9):
         pot, work, jump = case.ledger_terms_eV(3e-3, t)
-        assert pot + work + jump == pytest.approx(float(case.energy_eV(t)), rel=1e-10)
+        assert pot + work + jump == pytest.approx(float(case.energy_eV(t)), rel=1e-10, abs=0)
         assert (jump != 0.0) == (ramp_s == 0.0) and (work != 0.0) == (ramp_s > 0.0)
 
 
@@ -241,9 +241,9 @@ def test_flight_time_against_the_equations_of_motion(z0, v0, delay):
     """T(z0, v0) in closed form (Wiley & McLaren 1955) equals scipy's integration to 1e-10, and
     its closed-form dT/dv0 a central difference (step 1 m/s) to 1e-6."""
     assert SOURCE.flight_time(z0, v0, delay) == pytest.approx(integrate_source(SOURCE, z0, v0, delay),
-                                                              rel=1e-10)
+                                                              rel=1e-10, abs=0)
     fd = (SOURCE.flight_time(z0, v0 + 1.0, delay) - SOURCE.flight_time(z0, v0 - 1.0, delay)) / 2.0
-    assert SOURCE.dT_dv0(z0, v0, delay) == pytest.approx(fd, rel=1e-6)
+    assert SOURCE.dT_dv0(z0, v0, delay) == pytest.approx(fd, rel=1e-6, abs=0)
 
 
 @pytest.mark.parametrize("v_mean", [0.0, 400.0])
@@ -270,6 +270,6 @@ def test_focusing_delay_scales_with_the_root_of_the_mass():
 
     heavy = dataclasses.replace(SOURCE, mass_kg=4 * SOURCE.mass_kg)
     assert heavy.focusing_delay(0.5e-3) == pytest.approx(2 * SOURCE.focusing_delay(0.5e-3),
-                                                         rel=1e-14)
+                                                         rel=1e-14, abs=0)
     with pytest.raises(ValueError, match="no focusing delay"):
         dataclasses.replace(SOURCE, drift_m=1e-3).focusing_delay(0.5e-3)

@@ -63,7 +63,7 @@ def test_uniform_field_switched_on(species_name, volts, switch_s, ramp_s):
     rec = run.records
     assert (rec["status"] == "landed").all() and (rec["electrode"] == "front").all()
     gained = ref.energy_eV(t_land)
-    assert rec["time_s"] == pytest.approx(np.full(3, t_land), rel=1e-9)
+    assert rec["time_s"] == pytest.approx(np.full(3, t_land), rel=1e-9, abs=0)
     assert rec["energy_eV"] == pytest.approx(np.full(3, gained), rel=1e-9)
     potential, work, jump = ref.ledger_terms_eV(z0, t_land)
     assert run.work_eV == pytest.approx(np.full(3, work + jump), rel=1e-9, abs=1e-9 * abs(gained))
@@ -207,7 +207,7 @@ def test_trap_stability_edge(trap, factor, held):
     run, volts = trap_run(trap, factor * q_edge, 1000 if held else 100)
     (rec,) = run.records
     if held:
-        assert rec["status"] == "time" and rec["time_s"] == pytest.approx(1000 / RF_HZ, rel=1e-12)
+        assert rec["status"] == "time" and rec["time_s"] == pytest.approx(1000 / RF_HZ, rel=1e-12, abs=0)
         assert abs(rec["z_m"]) < Z0 and rec["steps"] < 200 * 1000
     else:
         assert rec["status"] == "landed" and rec["electrode"] in ("cap_a", "cap_b")
@@ -322,7 +322,7 @@ def test_delayed_extraction_focuses_the_initial_velocities():
         slopes[delay] = (rec["time_s"][2] - rec["time_s"][0]) / (2 * dv)
         assert run.ledger.suspects == 0
     prompt, focused = slopes.values()
-    assert prompt == pytest.approx(source.dT_dv0(z0, 0.0, 0.0), rel=1e-3)
+    assert prompt == pytest.approx(source.dT_dv0(z0, 0.0, 0.0), rel=1e-3, abs=0)
     assert abs(focused) < 1e-3 * abs(prompt)
     assert abs(run.work_eV[1]) == pytest.approx(pushed * (1 - z0 / g1), rel=1e-6)   # the jump at z0
 
@@ -383,7 +383,7 @@ def test_a_config_with_a_pulse_runs_to_its_reports(tmp_path):
     from tracer.report import format_summary
 
     setup = loads(PULSED)
-    assert setup.in_time and setup.time_zero_s == pytest.approx(100e-9)
+    assert setup.in_time and setup.time_zero_s == pytest.approx(100e-9, rel=1e-6, abs=0)
     result = tracer.run(setup)
     run = result.beams["ions"]
     starts = run.starts["time_s"]

@@ -130,7 +130,7 @@ def test_several_waveforms_share_one_list_of_corners():
     t = np.linspace(-1e-6, 3e-6, 101)
     for k, w in enumerate((w1, w2)):
         assert np.allclose(wf.sample(a, k, t)[0], w.value(t), rtol=0, atol=1e-13)
-    assert a.max_step_s == pytest.approx(1e-6 / wf.STEPS_PER_PERIOD)
+    assert a.max_step_s == pytest.approx(1e-6 / wf.STEPS_PER_PERIOD, rel=1e-6, abs=0)
     empty = wf.wave_arrays([])
     assert empty.level.shape == (0, 1) and wf.next_corner(empty, 0.0) == math.inf
 
@@ -138,7 +138,7 @@ def test_several_waveforms_share_one_list_of_corners():
 def test_max_step_resolves_the_fastest_sinusoid():
     """The step bound is the shortest period / STEPS_PER_PERIOD; without sinusoids, none."""
     w = Waveform(sinusoids=(Sinusoid(1.0, 1e6), Sinusoid(1.0, 4e6)))
-    assert w.max_step_s == pytest.approx(0.25e-6 / wf.STEPS_PER_PERIOD)
+    assert w.max_step_s == pytest.approx(0.25e-6 / wf.STEPS_PER_PERIOD, rel=1e-6, abs=0)
     assert Waveform(pulses=(Pulse(1.0, 0.0),)).max_step_s == math.inf
 
 
@@ -204,7 +204,7 @@ def test_read_table(tmp_path):
     f.write_text("# an illustrative extraction ramp\ntime_ns,voltage_V\n0,0\n\n100,2000.5\n"
                  "# held\n250, 2000.5\n")
     t = read_table(f)
-    assert t.time_s == pytest.approx((0.0, 100e-9, 250e-9)) and t.voltage_V == (0.0, 2000.5, 2000.5)
+    assert t.time_s == pytest.approx((0.0, 100e-9, 250e-9), rel=1e-6, abs=0) and t.voltage_V == (0.0, 2000.5, 2000.5)
     assert t.source == str(f)
     f.write_text("time_us,voltage_V\n0,1\n1.5,2\n")
     assert read_table(f).time_s == pytest.approx((0.0, 1.5e-6))
