@@ -72,9 +72,6 @@ def test_uniform_field_switched_on(species_name, volts, switch_s, ramp_s):
     assert run.ledger.suspects == 0 and run.ledger.worst_relative < 1e-8
 
 
-@pytest.mark.xfail(strict=True, reason="a step stretched to reach a cell wall runs past the waveform "
-                   "corner it was cut to (trace_lanes: h = h_wall may exceed t_corner - t); "
-                   "/work/notes/reports/waves-for-kernel.md")
 @pytest.mark.parametrize("delay_s, rise_s", [(40e-9, 5e-9), (100e-9, 0.5e-9)])
 def test_the_ledger_closes_when_a_pulse_rises_as_rays_cross_cell_walls(delay_s, rise_s):
     """A pulse on the solved three-tube lens rising while its rays cross cell walls: the ledger in

@@ -237,15 +237,17 @@ def trace_lanes(lo, hi, starts, t_start, herm, drive, nodes, sym, bounds, cell, 
                 h_cut[l] = 0.0
             else:
                 h = min(h_err[l], step_cap(y0[l], k0[l], mass, max_step), t_stop[l] - t[l])
+                hard = t_stop[l] - t[l]     # a step never passes these, stretched or not
                 if timed:   # end on the next waveform corner; resolve the RF period
                     m = pieces[l]
                     t_corner = waves.corner[m] if m < waves.corner.size else np.inf
                     h = min(h, waves.max_step_s, t_corner - t[l])
+                    hard = min(hard, t_corner - t[l])
                 cell_box(nodes, ci[l], cj[l], box)
                 reach(rc[l], hp[l], y0[l], k0[l], mass, STRETCH * h, ahead)
                 h_wall = exit_time(ahead, y0[l], k0[l], sym, box, STRETCH * h, 0.1 * snap)
                 if h_wall < STRETCH * h:
-                    h = h_wall
+                    h = min(h_wall, hard)
             if t[l] + h == t[l]:
                 code[l] = STALLED
                 continue
