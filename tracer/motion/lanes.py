@@ -30,7 +30,7 @@ from tracer.motion.drive import (D_CELL, D_NEXT, Drive, drive_workspace, group_p
 from tracer.motion.events import (EV_LINE, MAX_HALVINGS, TOUCH, bend, bow, electrode_of,
                                   find_landing, locate, outside, past_line, plane_crossings,
                                   r_line, touches_surface, z_line)
-from tracer.motion.force import field_at, rate, speed
+from tracer.motion.force import rate, speed
 from tracer.motion.stepper import (dense, lane_next_rates, lane_rate, lane_step, lane_uniform,
                                    propose, put_magnet_patch, put_patch, step_cap)
 from tracer.motion.symmetry import map_r
@@ -74,6 +74,18 @@ def first_rate(w, l, y, t, dw, waves, m, nodes, sym, mass, charge, k, magnet):
     for i in range(6):
         k[0, i] = w[W_RATE + i, l]
     return w[W_V1, l]
+
+
+@njit(cache=True, error_model="numpy")
+def corner_jump(drive, t, nodes, sym, x, y, z, at_x):
+    """The work (volts) of the waveforms' jumps at corner time t at the point (x, y, z): the
+    group maps there (into at_x) weighed by each group's jump (a function of its own, called once
+    a corner, to keep the group maps' interpolant out of the loop's first compile)."""
+    group_potentials(drive, nodes, sym, x, y, z, at_x)
+    jump = 0.0
+    for k in range(drive.driven.shape[0]):
+        jump += jump_at(drive.waves, k, t) * at_x[k]
+    return jump
 
 
 @njit(cache=True, error_model="numpy")
@@ -281,18 +293,16 @@ def trace_lanes(lo, hi, starts, t_start, herm, drive, nodes, sym, bounds, cell, 
             past = i1 != ci[l] or j1 != cj[l]
             if past and ni == ci[l] and nj == cj[l]:
                 ni, nj = i1, j1
-            th = 2.0
+            th = 2.0   # where to cut the step back to the wall (searched before it; > 1: nowhere)
             if abs(ni - ci[l]) > 1 or abs(nj - cj[l]) > 1:
-                th = wall_theta(rt[l], sym, box, 1.0, shapes, buf)
+                th = 1.0
             elif not past:
                 th = excursion(rt[l], sym, y0[l], k0[l], y1[l], k1[l], h, box, buf)
-                if th <= 1.0:
-                    th = wall_theta(rt[l], sym, box, th, shapes, buf)
             need[l] = False
             if th > 1.0 and (ni != ci[l] or nj != cj[l]):
                 dt[l] = wall_time(nodes, sym, y1[l], k1[l], ci[l], cj[l], ni, nj)
                 if past and dt[l] * speed(y1[l], mass) > snap:
-                    th = wall_theta(rt[l], sym, box, 1.0, shapes, buf)
+                    th = 1.0
                 else:
                     need[l] = True
                     patch = patch_coefficients(herm, ni, nj, hz, hr, sym != 1)
@@ -300,7 +310,7 @@ def trace_lanes(lo, hi, starts, t_start, herm, drive, nodes, sym, bounds, cell, 
                     put_magnet_patch(w, l, W_BNEXT, magnet, ni, nj, hz, hr, patch)
                     if timed:
                         load_cell(dw, D_NEXT, l, patch, drive, ni, nj, hz, hr, sym != 1)
-            theta[l] = th
+            theta[l] = wall_theta(rt[l], sym, box, th, shapes, buf) if th <= 1.0 else th
             past_cell[l] = past
             end_cell[l, 0] = i1
             end_cell[l, 1] = j1
@@ -364,18 +374,14 @@ def trace_lanes(lo, hi, starts, t_start, herm, drive, nodes, sym, bounds, cell, 
                 chord = math.sqrt((xb - xa) ** 2 + (yb - ya_) ** 2 + (zb - za) ** 2)
                 # leaving the domain
                 if outside(bounds, sym, zb, rb):
-                    if zb > bounds[1]:
-                        t_end = min(t_end, locate(rcl, sym, ta, tb, EV_LINE, z_line(bounds[1]), True,
-                                                  shapes, buf))
-                    if zb < bounds[0]:
-                        t_end = min(t_end, locate(rcl, sym, ta, tb, EV_LINE, z_line(bounds[0]), False,
-                                                  shapes, buf))
-                    if rb > bounds[3]:
-                        t_end = min(t_end, locate(rcl, sym, ta, tb, EV_LINE, r_line(bounds[3]), True,
-                                                  shapes, buf))
-                    if sym == 1 and rb < bounds[2]:
-                        t_end = min(t_end, locate(rcl, sym, ta, tb, EV_LINE, r_line(bounds[2]), False,
-                                                  shapes, buf))
+                    for e in range(4 if sym == 1 else 3):   # z_max, z_min, r_max, r_min
+                        c = zb if e < 2 else rb
+                        edge = bounds[(1, 0, 3, 2)[e]]
+                        rising = e % 2 == 0
+                        if (c > edge) if rising else (c < edge):
+                            line = z_line(edge) if e < 2 else r_line(edge)
+                            t_end = min(t_end, locate(rcl, sym, ta, tb, EV_LINE, line, rising,
+                                                      shapes, buf))
                     code[l] = LEFT
                 # landing on an electrode
                 pad = 0.5 * chord if sym == 0 else 0.0
@@ -406,18 +412,15 @@ def trace_lanes(lo, hi, starts, t_start, herm, drive, nodes, sym, bounds, cell, 
                                 dense(rcl, th, buf)
                                 cross_plane[r, nc] = q
                                 ke = kinetic_energy_J(buf[3], buf[4], buf[5], mass)
+                                vq = potential_at(herm, drive, pieces[l], t[l] + th * h, nodes,
+                                                  sym, buf[0], buf[1], buf[2])
+                                res = residual_J(ke_start[l], ke, charge, v_start[l], vq)
                                 if timed:
-                                    vq = potential_at(herm, drive, pieces[l], t[l] + th * h, nodes,
-                                                      sym, buf[0], buf[1], buf[2])
                                     wq = work[l] + work_along(w, dw, l, rcl, th, h, t[l], pieces[l],
                                                               waves, nodes, sym, points, phi,
                                                               buf)[0]
                                     dense(rcl, th, buf)
-                                    res = residual_J(ke_start[l], ke, charge, v_start[l], vq) \
-                                        - charge * wq
-                                else:
-                                    vq = field_at(herm, nodes, sym, buf[0], buf[1], buf[2])[0]
-                                    res = residual_J(ke_start[l], ke, charge, v_start[l], vq)
+                                    res -= charge * wq
                                 worst[l] = max(worst[l], abs(res))
                                 put_row(cross_state[r], nc, t[l] + th * h, buf, ke, worst[l])
                             n_cross[l] += 1
@@ -432,12 +435,9 @@ def trace_lanes(lo, hi, starts, t_start, herm, drive, nodes, sym, bounds, cell, 
                 if past:
                     if enter and i1 == ni and j1 == nj:
                         v1 = v_next
-                    elif timed:
+                    else:   # potential_at of a static field is field_at's potential
                         v1 = potential_at(herm, drive, pieces[l], t_new, nodes, sym, y1[l, 0],
                                           y1[l, 1], y1[l, 2])
-                        evals[l] += 1
-                    else:
-                        v1 = field_at(herm, nodes, sym, y1[l, 0], y1[l, 1], y1[l, 2])[0]
                         evals[l] += 1
                 ke1 = kinetic_energy_J(y1[l, 3], y1[l, 4], y1[l, 5], mass)
                 res = residual_J(ke_start[l], ke1, charge, v_start[l], v1)
@@ -453,10 +453,8 @@ def trace_lanes(lo, hi, starts, t_start, herm, drive, nodes, sym, bounds, cell, 
                         # the step ends on a corner: a jump's work, the next piece
                         corner = True
                         t_new = waves.corner[m]
-                        group_potentials(drive, nodes, sym, y1[l, 0], y1[l, 1], y1[l, 2], at_x)
-                        jump = 0.0
-                        for k in range(nk):
-                            jump += jump_at(waves, k, t_new) * at_x[k]
+                        jump = corner_jump(drive, t_new, nodes, sym, y1[l, 0], y1[l, 1], y1[l, 2],
+                                           at_x)
                         work[l] += jump
                         spread[l] += abs(jump)
                         pieces[l] = piece(waves, t_new)
@@ -507,13 +505,11 @@ def trace_lanes(lo, hi, starts, t_start, herm, drive, nodes, sym, bounds, cell, 
                     y0[l, i] = buf[i]
                 t[l] = t[l] + t_end * h
                 ke1 = kinetic_energy_J(y0[l, 3], y0[l, 4], y0[l, 5], mass)
+                v1 = potential_at(herm, drive, pieces[l], t[l], nodes, sym, y0[l, 0], y0[l, 1],
+                                  y0[l, 2])
+                res = residual_J(ke_start[l], ke1, charge, v_start[l], v1)
                 if timed:
-                    v1 = potential_at(herm, drive, pieces[l], t[l], nodes, sym, y0[l, 0], y0[l, 1],
-                                      y0[l, 2])
-                    res = residual_J(ke_start[l], ke1, charge, v_start[l], v1) - charge * work[l]
-                else:
-                    v1 = field_at(herm, nodes, sym, y0[l, 0], y0[l, 1], y0[l, 2])[0]
-                    res = residual_J(ke_start[l], ke1, charge, v_start[l], v1)
+                    res -= charge * work[l]
                 worst[l] = max(worst[l], abs(res))
                 if n_path_cap > 0:
                     put_row(paths[r], n_path[l], t[l], y0[l], ke1, res)
