@@ -45,8 +45,9 @@ changes at once and the kinetic energy does not). The ledger of such a ray is
 (:func:`time_ledger_J`), with V taken on the side of each switch the ray is on. Per step, W is
 summed from :func:`time_work`: the integral of dV/dt|_x = sum_k (dw_k/dt) phi_k(x(t)) along the
 step's dense output by Gauss–Legendre quadrature with ``GAUSS_POINTS`` nodes (exact for
-polynomials of degree 2 GAUSS_POINTS - 1 in time; on a sinusoid over a step of 1/16 of its
-period, the longest a step may be, its error is below 4e-13 of max |dw/dt| x step), and
+polynomials of degree 2 GAUSS_POINTS - 1 in time; on a sinusoid over a step of 1.1/16 of its
+period, the longest a step may be (1/16, stretched by up to a tenth to reach a cell wall), its
+error is below 7e-13 of max |dw/dt| x step), and
 :func:`jump_work` at the corners a step ends on. Steps never straddle a corner, so the integrand is smooth on every step.
 
 In a trap the net energy gained can be near zero while the charge exchanges much more with the
