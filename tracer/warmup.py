@@ -27,8 +27,9 @@ import time
 import warnings
 from pathlib import Path
 
-#: The first compile of every kernel on two cores, as measured by tests/bench/bench_coldstart.py.
-FIRST_COMPILE = "about three minutes on two cores"
+#: A first run's compile on two cores (a cold tracer demo took 103 s, 113 s in one process, in
+#: tests/bench/bench_coldstart.py).
+FIRST_COMPILE = "about two minutes on two cores"
 
 
 def _kernels():
