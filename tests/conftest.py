@@ -12,11 +12,7 @@ start.
 """
 
 import os
-import subprocess
-import sys
-from pathlib import Path
 
-ROOT = Path(__file__).resolve().parents[1]
 COMPILE = "from tracer.warmup import warmup; warmup(lambda line: None, parts=('magnetic',))"
 
 _background = []
@@ -32,15 +28,11 @@ def pytest_sessionstart(session):
     if os.environ.get("TRACER_TEST_BACKGROUND_COMPILE", "1") == "0":
         return
     from tracer import motion
-    from tracer.warmup import pending
+    from tracer.warmup import pending, second_process
 
     if not pending():
         return
-    path = os.pathsep.join(p for p in (str(ROOT), os.environ.get("PYTHONPATH", "")) if p)
-    _background.append(subprocess.Popen(
-        [sys.executable, "-c", COMPILE], env=dict(os.environ, PYTHONPATH=path),
-        stdin=subprocess.DEVNULL, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL,
-        start_new_session=True))
+    _background.append(second_process(COMPILE))
     kernel = motion.trace_rays
 
     def trace_rays(*args):

@@ -110,28 +110,35 @@ def compile_rays(config) -> None:
         trace_beam(traced_field(setup, zero_maps(setup)), setup.beams[0], setup)
 
 
+def second_process(statement, *args) -> subprocess.Popen:
+    """Start ``python -c statement *args`` beside this process, with this tracer importable (its
+    folder first on PYTHONPATH), no terminal input or output, and a session of its own (a Ctrl-C at
+    the terminal reaches this process only, which stops the child itself)."""
+    root = str(Path(__file__).resolve().parents[1])
+    path = os.pathsep.join(p for p in (root, os.environ.get("PYTHONPATH", "")) if p)
+    return subprocess.Popen([sys.executable, "-c", statement, *args],
+                            env=dict(os.environ, PYTHONPATH=path), stdin=subprocess.DEVNULL,
+                            stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL,
+                            start_new_session=True)
+
+
 @contextlib.contextmanager
 def rays_beside(config):
     """While the block runs, compile the ray kernel of ``config`` in a second process.
 
     Only when the kernels are still to compile (:func:`pending`), a core beside this process's is
     free (two cores or more, not all busy) and ``TRACER_COMPILE_BESIDE`` is not "0"; otherwise the
-    block just runs (on a busy machine a second process would only take turns with the first). Meant around a
-    run's solve: the solve compiles the solver's kernels on one core while the second process
-    compiles the ray kernel on the other. The end of the block waits for the second process (a
+    block just runs (on a busy machine a second process would only take turns with the first).
+    Meant around a run's solve: the solve compiles the solver's kernels on one core while the
+    second process (:func:`second_process`) compiles the ray kernel on the other. The end of the block waits for the second process (a
     failed one is only time lost: the trace then compiles its kernel itself); a block that raises
     (Ctrl-C included) stops it.
     """
     if os.environ.get(BESIDE_ENV, "1") == "0" or _spare_cores() < 1 or not pending():
         yield
         return
-    root = str(Path(__file__).resolve().parents[1])
-    path = os.pathsep.join(p for p in (root, os.environ.get("PYTHONPATH", "")) if p)
-    child = subprocess.Popen(
-        [sys.executable, "-c", "import sys; from tracer.warmup import compile_rays; "
-         "compile_rays(sys.argv[1])", str(config)],
-        env=dict(os.environ, PYTHONPATH=path), stdin=subprocess.DEVNULL,
-        stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL, start_new_session=True)
+    child = second_process("import sys; from tracer.warmup import compile_rays; "
+                           "compile_rays(sys.argv[1])", str(config))
     try:
         yield
     except BaseException:
