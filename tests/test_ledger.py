@@ -84,7 +84,7 @@ def test_a_loose_tolerance_is_flagged():
 # The ledger in time
 
 
-def test_gauss_rule_is_exact_to_degree_seven():
+def test_gauss_rule_is_exact_to_degree_2n_minus_1():
     """The Gauss–Legendre rule on [0, 1] (Gauss 1814; library: numpy.polynomial.legendre.leggauss)
     integrates theta^j exactly for j <= 2 GAUSS_POINTS - 1 and not beyond."""
     for j in range(2 * GAUSS_POINTS):
@@ -113,7 +113,7 @@ def steps_work(w, t_end, phi_of_t, n_per_step=None):
 
 def test_time_work_of_a_ramp_on_a_cubic_path_is_exact():
     """A pulse's ramp (slope 2000 V / 40 ns) times a map value cubic in time along the path: the
-    rule is exact (degree 3 < 8), one step per piece, to round-off of the closed form
+    rule is exact (degree 3 <= 5), one step per piece, to round-off of the closed form
     slope x ∫ phi dt."""
     w = wave_arrays([Waveform(pulses=(Pulse(2000.0, 10e-9, rise_s=40e-9, width_s=1e-6),))])
     c = (0.3, 2e6, -4e13, 7e20)
@@ -134,7 +134,9 @@ def test_time_work_of_rf_on_a_quadratic_path():
     """A sinusoid's rate times a map value quadratic in time, over 3.3 periods in steps of
     period / 16 (the step bound): against the closed form by integration by parts,
     ∫ w' p dt = [w p] - ∫ w p' dt with ∫ cos = sin / omega, ∫ t cos = t sin / omega + cos / omega^2,
-    to 1e-12 of amplitude x time."""
+    within the rule's bound on one step (test_one_rf_step_at_the_bound: 1.9e-9 of max |w'| x step)
+    summed over the steps and times the path's largest map value (the closed form's error: about
+    1e-10 of that, the steps' errors cancelling over each period)."""
     amp, f, ph = 500.0, 2e6, 0.7
     om = 2 * math.pi * f
     w = wave_arrays([Waveform(dc_V=30.0, sinusoids=(Sinusoid(amp, f, ph),))])
@@ -157,13 +159,15 @@ def test_time_work_of_rf_on_a_quadratic_path():
              - (c1 * (int_w(t_end) - int_w(0.0)) + 2 * c2 * (int_t_w(t_end) - int_t_w(0.0))))
     work, magnitude, steps = steps_work(w, t_end, lambda t: [p(t)])
     assert steps == math.ceil(3.3 * 16)
-    assert abs(work - exact) < 1e-12 * amp * t_end * om * max(abs(p(0)), abs(p(t_end)))
+    p_max = p(-c1 / (2 * c2))          # the vertex of the parabola, inside the interval
+    assert 0.0 < -c1 / (2 * c2) < t_end and p_max > max(abs(p(0)), abs(p(t_end)))
+    assert abs(work - exact) < 1.9e-9 * amp * t_end * om * p_max
     assert magnitude > abs(work)
 
 
 def test_one_rf_step_at_the_bound():
     """On one step of period / 16 (the longest a step may be) the rule's error on a sinusoid's
-    rate, at any phase, is below 4e-13 of max |dw/dt| x step, as tracer.ledger says (exact
+    rate, at any phase, is below 1.9e-9 of max |dw/dt| x step, as tracer.ledger says (exact
     integral: the change of w)."""
     amp, f = 500.0, 2e6
     worst = 0.0
@@ -173,7 +177,7 @@ def test_one_rf_step_at_the_bound():
         work, _ = time_work(w, 0, 0.0, h, np.ones((GAUSS_POINTS, 1)))
         exact = amp * (math.cos(2 * math.pi * f * h + ph) - math.cos(ph))
         worst = max(worst, abs(work - exact) / (amp * 2 * math.pi * f * h))
-    assert 1e-15 < worst < 4e-13
+    assert 1e-15 < worst < 1.9e-9
 
 
 def test_jump_work_is_the_jump_times_the_map():
@@ -237,13 +241,14 @@ def test_ledger_in_time_closes_along_a_trapped_ion():
     """The energy identity dKE = -q [V(x1, t1) - V(x0, t0)] + q ∫ dV/dt dt + q jump (the
     work-energy theorem dKE/dt = q E.v with E = -grad V and dV/dt = dV/dt|_x + v.grad V along the
     path; common practice) holds along an ion held 12 RF periods at q_z = 0.5 through a switch and a ramp, to
-    1e-10 of the energy scale, while the dV/dt term is of the order of the energy exchanged."""
+    1e-8 of the energy scale (the three-node rule's error, 1.7e-9 here, 600 times below the ledger's
+    threshold), while the dV/dt term is of the order of the energy exchanged."""
     r = trap_run(12e-6)
     q_e = r["q"] / constants.e
     scale = energy_scale_in_time_eV([r["ke"][0] / constants.e], r["q"], [r["peak"]],
                                     [r["magnitude"]])[0]
     assert scale == pytest.approx(q_e * r["magnitude"])          # the RF exchange sets the scale
-    assert abs(r["ledger"]) / constants.e < 1e-10 * scale
+    assert abs(r["ledger"]) / constants.e < 1e-8 * scale
     dke = (r["ke"][1] - r["ke"][0]) / constants.e
     assert abs(q_e * r["work"]) > 0.1 * abs(dke) and abs(q_e * r["work"]) > 1e-3 * scale
     # without the dV/dt term the static ledger would be off by the whole work

@@ -26,7 +26,6 @@ import numpy as np
 from numba import njit
 
 from tracer.fieldmap import patch_coefficients
-from tracer.ledger import GAUSS_POINTS, time_work
 from tracer.motion.bundles import LANES, W_H, W_T
 from tracer.motion.force import field_at, patch_field
 from tracer.waveforms import value, wave_arrays
@@ -110,17 +109,3 @@ def cell_group_potential(dw, l, k, pz, pr, nodes, sym, x, y, z):
          dw[D_CELL, 1 + k, 12, l], dw[D_CELL, 1 + k, 13, l], dw[D_CELL, 1 + k, 14, l],
          dw[D_CELL, 1 + k, 15, l])
     return patch_field(a, pz, pr, nodes, sym, x, y, z)[0]
-
-
-@njit(cache=True, error_model="numpy", inline="always")
-def step_work(waves, dw, l, pz, pr, m, t0, h, points, nodes, sym, phi):
-    """The dV/dt work over [t0, t0 + h] on piece m (:func:`tracer.ledger.time_work`) of lane l,
-    the group maps taken from the polynomials of its cell (first corner pz, pr) that its step's
-    force came from, the path's points at the Gauss nodes ``t0 + GAUSS_THETA[i] h`` given as
-    ``points[i] = (x, y, z)``; ``phi`` is float64[GAUSS_POINTS, K] scratch. Returns (work,
-    magnitude) in volts."""
-    for i in range(GAUSS_POINTS):
-        for k in range(phi.shape[1]):
-            phi[i, k] = cell_group_potential(dw, l, k, pz, pr, nodes, sym, points[i, 0],
-                                             points[i, 1], points[i, 2])
-    return time_work(waves, m, t0, h, phi)

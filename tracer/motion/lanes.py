@@ -19,14 +19,14 @@ import numpy as np
 from numba import njit, prange
 
 from tracer.fieldmap import patch_coefficients
-from tracer.ledger import GAUSS_POINTS, GAUSS_THETA, kinetic_energy_J, residual_J
+from tracer.ledger import GAUSS_POINTS, GAUSS_THETA, kinetic_energy_J, residual_J, time_work
 from tracer.motion.bundles import (C_CODE, C_CROSSINGS, C_ELECTRODE, C_EVALS, C_PATH,
                                    C_REJECTED, C_STEPS, COUNTS, INSIDE, LANDED, LANES, LEFT,
                                    PLANE, ROW_LEN, RUNNING, STALLED, TIME, W_ATOL, W_BNEXT,
                                    W_BPATCH, W_ERR, W_H, W_K, W_NEXT, W_PATCH, W_ROWS, W_T, W_V1,
                                    W_VN, W_Y0, W_Y1, W_DENSE, W_RATE, put_row)
-from tracer.motion.drive import (D_CELL, D_NEXT, Drive, drive_workspace, group_potentials, load_cell,
-                                 potential_at, step_work, weigh)
+from tracer.motion.drive import (D_CELL, D_NEXT, Drive, cell_group_potential, drive_workspace,
+                                 group_potentials, load_cell, potential_at, weigh)
 from tracer.motion.events import (EV_LINE, MAX_HALVINGS, TOUCH, bend, bow, electrode_of,
                                   find_landing, locate, outside, past_line, plane_crossings,
                                   r_line, touches_surface, z_line)
@@ -50,16 +50,17 @@ def thin_path(path, n):
 
 
 @njit(cache=True, error_model="numpy")
-def work_along(w, dw, l, rc, theta, h, t0, m, waves, nodes, sym, points, phi, buf):
+def work_along(w, dw, l, rc, theta, h, t0, m, waves, nodes, sym, phi, buf):
     """The dV/dt work (volts) and its magnitude along the first fraction theta of lane l's step of
-    length h from t0 on waveform piece m, from its dense output rc, in the lane's cell
-    (:func:`tracer.motion.drive.step_work`)."""
+    length h from t0 on waveform piece m (:func:`tracer.ledger.time_work`), the group maps taken
+    at the Gauss nodes of its dense output rc from the polynomials of the lane's cell that its
+    step's force came from; ``phi`` is float64[GAUSS_POINTS, K] scratch."""
+    pz, pr = w[W_PATCH + 16, l], w[W_PATCH + 17, l]
     for i in range(GAUSS_POINTS):
         dense(rc, theta * GAUSS_THETA[i], buf)
-        for c in range(3):
-            points[i, c] = buf[c]
-    return step_work(waves, dw, l, w[W_PATCH + 16, l], w[W_PATCH + 17, l], m, t0, theta * h,
-                     points, nodes, sym, phi)
+        for k in range(phi.shape[1]):
+            phi[i, k] = cell_group_potential(dw, l, k, pz, pr, nodes, sym, buf[0], buf[1], buf[2])
+    return time_work(waves, m, t0, theta * h, phi)
 
 
 @njit(cache=True, error_model="numpy")
@@ -127,7 +128,6 @@ def trace_lanes(lo, hi, starts, t_start, herm, drive, nodes, sym, bounds, cell, 
     spread = np.zeros(LANES)      # its magnitude, volts
     t_stop = np.zeros(LANES)      # when the ray's time is up
     phi = np.zeros((GAUSS_POINTS, nk))
-    points = np.zeros((GAUSS_POINTS, 3))
     at_x = np.zeros(nk)
     ray = np.full(LANES, -1)
     code = np.full(LANES, RUNNING)
@@ -417,8 +417,7 @@ def trace_lanes(lo, hi, starts, t_start, herm, drive, nodes, sym, bounds, cell, 
                                 res = residual_J(ke_start[l], ke, charge, v_start[l], vq)
                                 if timed:
                                     wq = work[l] + work_along(w, dw, l, rcl, th, h, t[l], pieces[l],
-                                                              waves, nodes, sym, points, phi,
-                                                              buf)[0]
+                                                              waves, nodes, sym, phi, buf)[0]
                                     dense(rcl, th, buf)
                                     res -= charge * wq
                                 worst[l] = max(worst[l], abs(res))
@@ -444,7 +443,7 @@ def trace_lanes(lo, hi, starts, t_start, herm, drive, nodes, sym, bounds, cell, 
                 corner = False
                 if timed:
                     dwk, mag = work_along(w, dw, l, rcl, 1.0, h, t[l], pieces[l], waves, nodes,
-                                          sym, points, phi, buf)
+                                          sym, phi, buf)
                     work[l] += dwk
                     spread[l] += mag
                     res -= charge * work[l]
@@ -497,7 +496,7 @@ def trace_lanes(lo, hi, starts, t_start, herm, drive, nodes, sym, bounds, cell, 
             else:
                 if timed:
                     dwk, mag = work_along(w, dw, l, rcl, t_end, h, t[l], pieces[l], waves, nodes,
-                                          sym, points, phi, buf)
+                                          sym, phi, buf)
                     work[l] += dwk
                     spread[l] += mag
                 dense(rcl, t_end, buf)
