@@ -67,7 +67,7 @@ _STEP_R = (0, 0, 1, -1)
 # Evaluation of the bicubic Hermite patch
 
 
-@njit(cache=True, error_model="numpy", inline="always")
+@njit(cache=True, error_model="numpy", forceinline=True)
 def cell_index(x, x0, h, n):
     """Index of the cell holding coordinate x on a line of n nodes, clamped to [0, n - 2].
 
@@ -81,21 +81,21 @@ def cell_index(x, x0, h, n):
     return 0
 
 
-@njit(cache=True, error_model="numpy", inline="always")
+@njit(cache=True, error_model="numpy", forceinline=True)
 def _to_power(v0, v1, s0, s1):
     """Power-form coefficients (1, u, u^2, u^3) of the cubic on u in [0, 1] with end values v0, v1
     and end slopes s0, s1 (per unit u): the cubic Hermite basis written out."""
     return v0, s0, 3.0 * (v1 - v0) - 2.0 * s0 - s1, 2.0 * (v0 - v1) + s0 + s1
 
 
-@njit(cache=True, error_model="numpy", inline="always")
+@njit(cache=True, error_model="numpy", forceinline=True)
 def even_row(mirror, j):
     """Whether the patches of cell row j are even in r: the first row of a map whose ``r = r0`` row
     is the axis or a mirror plane (``mirror``)."""
     return mirror and j == 0
 
 
-@njit(cache=True, error_model="numpy", inline="always")
+@njit(cache=True, error_model="numpy", forceinline=True)
 def _to_even(v0, v1, s1):
     """Power-form coefficients (1, s, s^2, s^3) of the quadratic in s = w^2, w in [0, 1], with
     value v0 at w = 0, value v1 and slope s1 (per unit w) at w = 1: the slope in s there is s1 / 2,
@@ -103,7 +103,7 @@ def _to_even(v0, v1, s1):
     return v0, 2.0 * (v1 - v0) - 0.5 * s1, 0.5 * s1 - (v1 - v0), 0.0
 
 
-@njit(cache=True, error_model="numpy", inline="always")
+@njit(cache=True, error_model="numpy", forceinline=True)
 def patch_coefficients(h, i, j, hz, hr, mirror):
     """The patch of cell (i, j) in power form.
 
@@ -137,7 +137,7 @@ def patch_coefficients(h, i, j, hz, hr, mirror):
             + _to_power(v0[2], v1[2], s0[2], s1[2]) + _to_power(v0[3], v1[3], s0[3], s1[3]))
 
 
-@njit(cache=True, error_model="numpy", inline="always")
+@njit(cache=True, error_model="numpy", forceinline=True)
 def patch_eval(a, u, w, even):
     """A patch in power form (:func:`patch_coefficients`) and its derivatives at (u, w).
 
@@ -165,13 +165,13 @@ def patch_eval(a, u, w, even):
     return v, vu, _cubic(d0, d1, d2, d3, u)[0] * (2.0 * w if even else 1.0)
 
 
-@njit(cache=True, error_model="numpy", inline="always")
+@njit(cache=True, error_model="numpy", forceinline=True)
 def _cubic(a0, a1, a2, a3, x):
     """``a0 + a1 x + a2 x^2 + a3 x^3`` and its derivative (Horner)."""
     return a0 + x * (a1 + x * (a2 + x * a3)), a1 + x * (2.0 * a2 + 3.0 * x * a3)
 
 
-@njit(cache=True, error_model="numpy", inline="always")
+@njit(cache=True, error_model="numpy", forceinline=True)
 def hermite_eval(h, z0, r0, hz, hr, nz, nr, mirror, z, r):
     """The map's interpolant (bicubic Hermite; even in r next to a mirror) and its gradient at one
     point.
@@ -400,7 +400,7 @@ def diff_z(g, extended, h, reflect_lo, reflect_hi):
     return out
 
 
-@njit(cache=True, error_model="numpy", inline="always")
+@njit(cache=True, error_model="numpy", forceinline=True)
 def even_slope(v0, v1, v2, h):
     """Slope one node off a mirror of a function even about it, from the values on the mirror
     (``v0``) and one and two nodes off it (``v1``, ``v2``; spacing ``h``).

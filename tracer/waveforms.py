@@ -583,7 +583,7 @@ def piece(w, t):
     return np.searchsorted(w.corner, t, side="right")
 
 
-@njit(cache=True, error_model="numpy", inline="always")
+@njit(cache=True, error_model="numpy", forceinline=True)
 def value(w, k, m, t):
     """Waveform k at time t on piece m (its straight line continued beyond the piece), volts."""
     v = w.dc[k] + w.level[k, m] + w.slope[k, m] * (t - w.origin[m])
@@ -592,7 +592,7 @@ def value(w, k, m, t):
     return v
 
 
-@njit(cache=True, error_model="numpy", inline="always")
+@njit(cache=True, error_model="numpy", forceinline=True)
 def rate(w, k, m, t):
     """dw/dt of waveform k at time t on piece m, V/s."""
     r = w.slope[k, m]

@@ -81,7 +81,7 @@ class Coil:
         return (np.repeat(zn, rn.size), np.tile(rn, zn.size), np.outer(wz, wr).ravel())
 
 
-@njit(cache=True, error_model="numpy", inline="always")
+@njit(cache=True, error_model="numpy", forceinline=True)
 def _coil_point(zn, rn, wn, z, r):
     """Mean loop field and dB_z/dz over the nodes at one point (per ampere-turn)."""
     sa = 0.0

@@ -50,7 +50,7 @@ def drive_workspace(drive):
     return np.zeros((2, 1 + drive.driven.shape[0], 16, LANES))
 
 
-@njit(cache=True, error_model="numpy", inline="always")
+@njit(cache=True, error_model="numpy", forceinline=True)
 def load_cell(dw, slot, l, a, drive, i, j, hz, hr, mirror):
     """Put the static polynomial ``a`` of cell (i, j) and the group polynomials of that cell
     (``mirror`` as for ``fieldmap.patch_coefficients``) into slot ``slot`` of lane l."""
@@ -62,7 +62,7 @@ def load_cell(dw, slot, l, a, drive, i, j, hz, hr, mirror):
             dw[slot, 1 + k, m, l] = b[m]
 
 
-@njit(cache=True, error_model="numpy", inline="always")
+@njit(cache=True, error_model="numpy", forceinline=True)
 def weigh(dw, slot, l, waves, m, t, w, row):
     """Write the polynomial of slot ``slot`` of lane l at time t on waveform piece m (static plus
     weighted groups) into rows row..row+15 of lane l of the workspace w."""
@@ -75,14 +75,14 @@ def weigh(dw, slot, l, waves, m, t, w, row):
             w[row + c, l] += wk * dw[slot, 1 + k, c, l]
 
 
-@njit(cache=True, error_model="numpy", inline="always")
+@njit(cache=True, error_model="numpy", forceinline=True)
 def weigh_lanes(dw, slot, w, row, waves, pieces, frac):
     """:func:`weigh` in every lane at the time ``W_T + frac * W_H`` of its step."""
     for l in range(LANES):
         weigh(dw, slot, l, waves, pieces[l], w[W_T, l] + frac * w[W_H, l], w, row)
 
 
-@njit(cache=True, error_model="numpy", inline="always")
+@njit(cache=True, error_model="numpy", forceinline=True)
 def group_potentials(drive, nodes, sym, x, y, z, out):
     """The group maps M_k at a 3-D point into out[k], volts per volt of waveform."""
     for k in range(drive.driven.shape[0]):
@@ -98,7 +98,7 @@ def potential_at(herm, drive, m, t, nodes, sym, x, y, z):
     return v
 
 
-@njit(cache=True, error_model="numpy", inline="always")
+@njit(cache=True, error_model="numpy", forceinline=True)
 def cell_group_potential(dw, l, k, pz, pr, nodes, sym, x, y, z):
     """Group map M_k at a 3-D point from the polynomial of lane l's cell (first corner pz, pr),
     continued beyond its walls as the force's is, volts per volt."""

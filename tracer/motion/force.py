@@ -31,27 +31,27 @@ from tracer.motion.symmetry import map_r
 C_LIGHT = constants.c
 
 
-@njit(cache=True, error_model="numpy", inline="always")
+@njit(cache=True, error_model="numpy", forceinline=True)
 def gamma_mass(mass, px, py, pz):
     """gamma m of a momentum (the velocity is p / (gamma m))."""
     mc = mass * C_LIGHT
     return mass * math.sqrt(1.0 + (px * px + py * py + pz * pz) / (mc * mc))
 
 
-@njit(cache=True, error_model="numpy", inline="always")
+@njit(cache=True, error_model="numpy", forceinline=True)
 def inverse_gamma_mass(mass, px, py, pz):
     """1 / (gamma m) of a momentum (see :func:`gamma_mass`)."""
     return 1.0 / gamma_mass(mass, px, py, pz)
 
 
-@njit(cache=True, error_model="numpy", inline="always")
+@njit(cache=True, error_model="numpy", forceinline=True)
 def speed(s, mass):
     """Speed of a state (x, y, z, px, py, pz), m/s."""
     p = math.sqrt(s[3] * s[3] + s[4] * s[4] + s[5] * s[5])
     return p / (mass * math.sqrt(1.0 + (p / (mass * C_LIGHT)) ** 2))
 
 
-@njit(cache=True, error_model="numpy", inline="always")
+@njit(cache=True, error_model="numpy", forceinline=True)
 def cell_of(nodes, sym, x, y, z):
     """Indices (i, j) of the interpolation cell holding a 3-D point (clamped onto the grid)."""
     i = cell_index(z, nodes.z0, nodes.hz, nodes.nz)
@@ -59,7 +59,7 @@ def cell_of(nodes, sym, x, y, z):
     return i, j
 
 
-@njit(cache=True, error_model="numpy", inline="always")
+@njit(cache=True, error_model="numpy", forceinline=True)
 def patch_field(a, pz, pr, nodes, sym, x, y, z):
     """Potential and field at a 3-D point from the polynomial of one interpolation cell.
 
@@ -101,7 +101,7 @@ def patch_field(a, pz, pr, nodes, sym, x, y, z):
     return v, (f * x if sym == 0 else 0.0), ey, ez
 
 
-@njit(cache=True, error_model="numpy", inline="always")
+@njit(cache=True, error_model="numpy", forceinline=True)
 def magnetic_field(magnet, b, pz, pr, nodes, x, y, z):
     """The magnetic field of the coils and axial profiles at a 3-D point (see
     :class:`tracer.motion.bundles.Magnet`; the uniform fields are :func:`uniform_force`'s).
@@ -152,7 +152,7 @@ def uniform_force(magnet, x, y, z, vx, vy, vz, charge):
     return charge * (vy * bz - vz * by), charge * (vz * bx - vx * bz), charge * (vx * by - vy * bx)
 
 
-@njit(cache=True, error_model="numpy", inline="always")
+@njit(cache=True, error_model="numpy", forceinline=True)
 def force(a, pz, pr, nodes, sym, t, x, y, z, vx, vy, vz, charge, magnet, b):
     """The force on a charge at a 3-D point in the field of one cell (see :func:`patch_field`),
     without the uniform magnetic fields (:func:`uniform_force`, which its callers add).
@@ -185,7 +185,7 @@ def force(a, pz, pr, nodes, sym, t, x, y, z, vx, vy, vz, charge, magnet, b):
             charge * (ez + vx * by - vy * bx), v, 0.0)
 
 
-@njit(cache=True, error_model="numpy", inline="always")
+@njit(cache=True, error_model="numpy", forceinline=True)
 def field_at(herm, nodes, sym, x, y, z):
     """Potential and field of the interpolant at a 3-D point (see :func:`patch_field`)."""
     i, j = cell_of(nodes, sym, x, y, z)
@@ -194,7 +194,7 @@ def field_at(herm, nodes, sym, x, y, z):
                        nodes.r0 + j * nodes.hr, nodes, sym, x, y, z)
 
 
-@njit(cache=True, error_model="numpy", inline="always")
+@njit(cache=True, error_model="numpy", forceinline=True)
 def rate(a, pz, pr, nodes, sym, mass, charge, s, ks, row, magnet, b):
     """Right-hand side of the equations of motion in the field of one cell (see
     :func:`patch_field`; ``magnet``, ``b`` as for :func:`force`) at state s (x, y, z, px, py, pz)
