@@ -29,7 +29,7 @@ from pathlib import Path
 
 #: A first run's compile on two cores (a cold tracer demo took 103 s, 113 s in one process, in
 #: tests/bench/bench_coldstart.py).
-FIRST_COMPILE = "about two minutes on two cores"
+FIRST_COMPILE = "a little over a minute on two cores"
 
 
 def _kernels():
