@@ -27,7 +27,7 @@ import time
 import warnings
 from pathlib import Path
 
-#: A first run's compile on two cores (a cold tracer demo took 103 s, 113 s in one process, in
+#: A first run's compile on two cores (a cold tracer demo took 70.5 s, 80.3 s in one process, in
 #: tests/bench/bench_coldstart.py).
 FIRST_COMPILE = "a little over a minute on two cores"
 
@@ -130,9 +130,9 @@ def rays_beside(config):
     free (two cores or more, not all busy) and ``TRACER_COMPILE_BESIDE`` is not "0"; otherwise the
     block just runs (on a busy machine a second process would only take turns with the first).
     Meant around a run's solve: the solve compiles the solver's kernels on one core while the
-    second process (:func:`second_process`) compiles the ray kernel on the other. The end of the block waits for the second process (a
-    failed one is only time lost: the trace then compiles its kernel itself); a block that raises
-    (Ctrl-C included) stops it.
+    second process (:func:`second_process`) compiles the ray kernel on the other. The end of the
+    block waits for the second process (a failed one is only time lost: the trace then compiles
+    its kernel itself); a block that raises (Ctrl-C included) stops it.
     """
     if os.environ.get(BESIDE_ENV, "1") == "0" or _spare_cores() < 1 or not pending():
         yield
