@@ -8,7 +8,8 @@ arrays, whose arrays the kernels may write), and caches kernels that take them.
 * the ray end codes;
 * the layout of a state row, shared by a ray's end, its plane crossings and its path points;
 * :class:`Magnet`: the static magnetic field (absent, ``None``, in an electric-only run);
-* the lane workspace of :mod:`tracer.motion.stepper` (one column a lane).
+* the lane workspace of :mod:`tracer.motion.stepper` (one column a lane);
+* the lane state of the lane loop (:mod:`tracer.motion.lanes`): named rows of three arrays.
 """
 
 from collections import namedtuple
@@ -141,3 +142,59 @@ W_T = 131       # the time the step starts at
 W_BPATCH = 132  # 16: the polynomial of A_theta in the cell (coils and axial profiles; Magnet)
 W_BNEXT = 148   # 16: that of the cell a step is about to enter
 W_ROWS = 164
+
+# The lane state of the lane loop (tracer.motion.lanes), kept beside the stepper's workspace in
+# three arrays with named rows (module constants, so numba folds them), which its phases take
+# whole: a call binding an array costs a reference count, and a bundle of a few arrays keeps a
+# round's phases cheap.
+# Float rows (float64[F_ROWS, LANES], one column a lane):
+F_T = 0         # the time the lane's next step starts at
+F_STOP = 1      # when its ray's time is up
+F_HP = 2        # the length of its last accepted step (0: none, no prediction from it)
+F_CUT = 3       # the length of a step cut back to a wall, to be redone (0: none)
+F_ERR = 4       # the step-size proposal of the error control
+F_WORST = 5     # the worst |ledger| of the ray so far, J
+F_KE = 6        # the ray's kinetic energy at its start, J
+F_V = 7         # the potential at its start, volts
+F_WORK = 8      # the dV/dt and jump work so far, volts
+F_SPREAD = 9    # its magnitude, volts
+F_THETA = 10    # the trial step is cut back to the first wall before this point (> 1: not)
+F_DT = 11       # the time between the trial step's end and the wall it is passing
+F_ROWS = 12
+# Int rows (int64[I_ROWS, LANES]): first the ray's counts, rows C_CODE..C_EVALS in the order of
+# the kernel's info columns, then:
+I_RAY = COUNTS        # the ray in the lane (-1: none)
+I_CI = COUNTS + 1     # the cell it is in, z index
+I_CJ = COUNTS + 2     # and r index
+I_STRIDE = COUNTS + 3  # a path point every this many steps
+I_PIECE = COUNTS + 4  # the waveform piece of its step
+I_CUT = COUNTS + 5    # 1: the trial step is one cut back to a wall
+I_PASSED = COUNTS + 6  # 1: it passed the error test
+I_NEED = COUNTS + 7   # 1: it needs the rate in the cell ahead
+I_PAST = COUNTS + 8   # 1: it ends outside its cell
+I_END = COUNTS + 9    # 4: the cell it ends in (z, r index), the cell ahead (z, r index)
+I_ENTER = COUNTS + 13  # 1: the lane enters the cell ahead
+I_TAKEN = COUNTS + 14  # 1: its step is accepted
+I_ROWS = COUNTS + 15
+# Vector rows (float64[LANES, V_ROWS, 6], lane first, so that each vector is contiguous):
+V_Y0 = 0        # the state the next step starts from
+V_K0 = 1        # its first stage rate
+V_Y1 = 2        # the trial step's end state
+V_K1 = 3        # the rate there
+V_RC = 4        # 5: the dense output of the last accepted step
+V_RT = 9        # 5: that of the trial step
+V_ROWS = 14
+
+
+@njit(cache=True, error_model="numpy", forceinline=True)
+def lane_state():
+    """The lane state, no lane holding a ray: (float rows, int rows, vectors), zeroed but for
+    the ray (-1), its code (``RUNNING``), its electrode (-1) and its path stride (1)."""
+    lf = np.zeros((F_ROWS, LANES))
+    li = np.zeros((I_ROWS, LANES), dtype=np.int64)
+    for l in range(LANES):
+        li[I_RAY, l] = -1
+        li[C_CODE, l] = RUNNING
+        li[C_ELECTRODE, l] = -1
+        li[I_STRIDE, l] = 1
+    return lf, li, np.zeros((LANES, V_ROWS, 6))

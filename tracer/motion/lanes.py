@@ -11,6 +11,25 @@ leaves its cell (:mod:`tracer.motion.walls`), so the Runge–Kutta stages cannot
 where the field changes; events are found on each accepted step's dense output
 (:mod:`tracer.motion.events`). The energy ledger (:func:`tracer.ledger.residual_J`) is kept at
 every accepted step and event.
+
+Phases. A round is a short sequence of phases, each a loop over the lanes in a module named for
+it: :func:`tracer.motion.rays.take_rays` (only when a lane is free and rays remain),
+:func:`tracer.motion.choose.choose_steps`, :func:`tracer.motion.stepper.lane_step`,
+:func:`tracer.motion.check.check_steps` (and :func:`tracer.motion.check.load_next_groups` with
+voltages in time), :func:`tracer.motion.stepper.lane_next_rates`,
+:func:`tracer.motion.settle.settle_steps` (and :func:`tracer.motion.settle.cut_back` when steps
+are cut back to a wall), the accepted steps (below) and :func:`tracer.motion.rays.hand_in`. They
+share the lane state of :func:`tracer.motion.bundles.lane_state` (named rows of three arrays)
+and the stepper's workspace. The stepper's two phases are copied into the loop by numba
+(``inline="always"``); the others are compiled on their own and inlined by LLVM
+(``forceinline=True``), which keeps the loop's first compile no longer than before the split
+(DEVELOPERS.md, "numba's cache").
+
+The accepted steps are the one block written in the loop itself, not a phase: their events, ledger
+and move call functions that are not inlined (the event search, ``potential_at``, the dV/dt
+work), and numba keeps a reference count pair of every array an inlined function takes whenever
+such a call lies inside it; this block would take some thirty arrays (the drive and the shapes
+among them), which made warm tracing 3-9 % slower as a phase.
 """
 
 import math
@@ -18,25 +37,27 @@ import math
 import numpy as np
 from numba import njit, prange
 
-from tracer.fieldmap import patch_coefficients
 from tracer.ledger import GAUSS_POINTS, GAUSS_THETA, kinetic_energy_J, residual_J, time_work
-from tracer.motion.bundles import (C_CODE, C_CROSSINGS, C_ELECTRODE, C_EVALS, C_PATH,
-                                   C_REJECTED, C_STEPS, COUNTS, INSIDE, LANDED, LANES, LEFT,
-                                   PLANE, ROW_LEN, RUNNING, STALLED, TIME, W_ATOL, W_BNEXT,
-                                   W_BPATCH, W_ERR, W_H, W_K, W_NEXT, W_PATCH, W_ROWS, W_T, W_V1,
-                                   W_VN, W_Y0, W_Y1, W_DENSE, W_RATE, put_row)
+from tracer.motion.bundles import (C_CODE, C_CROSSINGS, C_ELECTRODE, C_EVALS, C_PATH, C_STEPS,
+                                   COUNTS, F_ERR, F_KE, F_SPREAD, F_STOP, F_T, F_V, F_WORK,
+                                   F_WORST, I_CI, I_CJ, I_END, I_ENTER, I_PAST, I_PIECE, I_RAY,
+                                   I_STRIDE, I_TAKEN, LANDED, LANES, LEFT, PLANE, ROW_LEN,
+                                   RUNNING, TIME, V_K0, V_K1, V_RC, V_Y0, V_Y1, W_BNEXT,
+                                   W_BPATCH, W_ERR, W_H, W_K, W_NEXT, W_PATCH, W_RATE, W_ROWS,
+                                   W_T, W_V1, W_VN, W_Y0, lane_state, put_row)
+from tracer.motion.check import check_steps, load_next_groups
+from tracer.motion.choose import choose_steps
 from tracer.motion.drive import (D_CELL, D_NEXT, Drive, cell_group_potential, drive_workspace,
-                                 group_potentials, load_cell, potential_at, weigh)
-from tracer.motion.events import (EV_LINE, MAX_HALVINGS, TOUCH, bend, bow, electrode_of,
-                                  find_landing, locate, outside, past_line, plane_crossings,
-                                  r_line, touches_surface, z_line)
-from tracer.motion.force import rate, speed
-from tracer.motion.stepper import (dense, lane_next_rates, lane_rate, lane_step, lane_uniform,
-                                   propose, put_magnet_patch, put_patch, step_cap)
+                                 group_potentials, potential_at)
+from tracer.motion.events import (EV_LINE, MAX_HALVINGS, TOUCH, bend, bow, find_landing, locate,
+                                  outside, past_line, plane_crossings, r_line, touches_surface,
+                                  z_line)
+from tracer.motion.force import speed
+from tracer.motion.rays import hand_in, take_rays
+from tracer.motion.settle import cut_back, settle_steps
+from tracer.motion.stepper import dense, first_rate, lane_next_rates, lane_step, propose
 from tracer.motion.symmetry import map_r
-from tracer.motion.walls import (KINK_FRACTION, SNAP, STRETCH, cell_ahead, cell_box, cell_of,
-                                 excursion, exit_time, hold, kink_error, reach, wall_theta,
-                                 wall_time)
+from tracer.motion.walls import SNAP
 from tracer.waveforms import jump_at, piece
 
 
@@ -64,20 +85,6 @@ def work_along(w, dw, l, rc, theta, h, t0, m, waves, nodes, sym, phi, buf):
 
 
 @njit(cache=True, error_model="numpy")
-def first_rate(w, l, y, t, dw, waves, m, nodes, sym, mass, charge, k, magnet):
-    """The rate at state y at time t in lane l's cell, its polynomial weighed on waveform piece m
-    (:mod:`tracer.motion.drive`), into k[0]; returns the potential there."""
-    weigh(dw, D_CELL, l, waves, m, t, w, W_PATCH)
-    for i in range(6):
-        w[W_Y1 + i, l] = y[i]
-    lane_rate(w, l, t, nodes, sym, mass, charge, W_PATCH, W_V1, magnet, W_BPATCH)
-    lane_uniform(w, l, magnet, charge)
-    for i in range(6):
-        k[0, i] = w[W_RATE + i, l]
-    return w[W_V1, l]
-
-
-@njit(cache=True, error_model="numpy")
 def corner_jump(drive, t, nodes, sym, x, y, z, at_x):
     """The work (volts) of the waveforms' jumps at corner time t at the point (x, y, z): the
     group maps there (into at_x) weighed by each group's jump (a function of its own, called once
@@ -95,10 +102,11 @@ def trace_lanes(lo, hi, starts, t_start, herm, drive, nodes, sym, bounds, cell, 
                 final, info, cross_plane, cross_state, paths, quiet, spent, magnet):
     """Trace rays lo..hi-1 of ``starts`` on one thread, ``LANES`` at a time.
 
-    Every lane holds one ray; each round, every lane chooses its step, :func:`lane_step` takes all
-    the steps at once, and every lane checks its own: error and cell walls, then (after
-    :func:`lane_next_rates` has given the rates in the cells the steps are entering) the kink at
-    the wall, events and the ledger. A lane whose ray has ended takes the next ray.
+    Every lane holds one ray; each round, idle lanes take the next rays, every lane chooses its
+    step, :func:`lane_step` takes all the steps at once, and every lane checks its own: error and
+    cell walls, then (after :func:`lane_next_rates` has given the rates in the cells the steps are
+    entering) the kink at the wall, events and the ledger. Lanes whose ray has ended hand in its
+    results.
 
     Row r of ``final`` (a state row, ``ROW_*`` of :mod:`tracer.motion.bundles`, with the worst
     |ledger|) and of ``info`` (the ``C_*`` counts), and ``cross_plane``/``cross_state`` (state
@@ -119,51 +127,17 @@ def trace_lanes(lo, hi, starts, t_start, herm, drive, nodes, sym, bounds, cell, 
     electric-only kernel.
     """
     w = np.zeros((W_ROWS, LANES))
+    lf, li, vec = lane_state()
     waves = drive.waves
     nk = drive.driven.shape[0]
     timed = nk > 0
     dw = drive_workspace(drive)
-    pieces = np.zeros(LANES, dtype=np.int64)   # the waveform piece of each lane's step
-    work = np.zeros(LANES)        # the dV/dt and jump work so far, volts
-    spread = np.zeros(LANES)      # its magnitude, volts
-    t_stop = np.zeros(LANES)      # when the ray's time is up
     phi = np.zeros((GAUSS_POINTS, nk))
     at_x = np.zeros(nk)
-    ray = np.full(LANES, -1)
-    code = np.full(LANES, RUNNING)
-    electrode = np.full(LANES, -1)
-    ci = np.zeros(LANES, dtype=np.int64)
-    cj = np.zeros(LANES, dtype=np.int64)
-    steps = np.zeros(LANES, dtype=np.int64)
-    rejected = np.zeros(LANES, dtype=np.int64)
-    evals = np.zeros(LANES, dtype=np.int64)
-    n_cross = np.zeros(LANES, dtype=np.int64)
-    n_path = np.zeros(LANES, dtype=np.int64)
-    stride = np.ones(LANES, dtype=np.int64)
-    cut = np.zeros(LANES, dtype=np.bool_)
-    t = np.zeros(LANES)
-    hp = np.zeros(LANES)      # length of the last accepted step (0: none, no prediction from it)
-    h_cut = np.zeros(LANES)   # length of a step cut back to a wall, to be redone
-    h_err = np.zeros(LANES)   # the step-size proposal of the error control
-    worst = np.zeros(LANES)
-    ke_start = np.zeros(LANES)
-    v_start = np.zeros(LANES)
-    y0 = np.zeros((LANES, 6))
-    k0 = np.zeros((LANES, 6))     # the first stage rate of the lane's next step
-    y1 = np.zeros((LANES, 6))
-    k1 = np.zeros((LANES, 6))     # the rate at the end of the step
-    rc = np.zeros((LANES, 5, 6))  # dense output of the last accepted step
-    rt = np.zeros((LANES, 5, 6))  # dense output of the trial step
     k_new = np.empty((1, 6))      # a rate in a new cell
-    passed = np.zeros(LANES, dtype=np.bool_)      # the step passed the error test
-    need = np.zeros(LANES, dtype=np.bool_)        # the step needs the rate in the cell ahead
-    past_cell = np.zeros(LANES, dtype=np.bool_)   # the step ends outside its cell
-    end_cell = np.zeros((LANES, 4), dtype=np.int64)  # the cell it ends in, the cell ahead
-    theta = np.zeros(LANES)       # where on the step it is to be cut back (> 1: nowhere)
-    dt = np.zeros(LANES)          # time between the step's end and the wall it is passing
-    ahead = np.empty((3, 5))      # the predicted path of the next step (reach)
+    ahead = np.empty((3, 5))      # the predicted path of the next step (walls.reach)
     buf = np.empty(6)
-    hits = np.empty(2)            # plane crossings on a piece (plane_crossings)
+    hits = np.empty(2)            # plane crossings on a piece (events.plane_crossings)
     stack = np.empty((MAX_HALVINGS + 2, 8))   # pieces being halved (events.touch)
     pa = np.empty(2)
     box = np.empty(4)
@@ -171,204 +145,52 @@ def trace_lanes(lo, hi, starts, t_start, herm, drive, nodes, sym, bounds, cell, 
     touch_tol = TOUCH * min(nodes.hz, nodes.hr)
     snap = SNAP * min(nodes.hz, nodes.hr)
     max_cross = cross_plane.shape[1]
-    z0, r0, hz, hr = nodes.z0, nodes.r0, nodes.hz, nodes.hr
     nxt = lo
+    busy = 0
     while True:
-        # idle lanes take the next rays
-        active = 0
-        for l in range(LANES):
-            if ray[l] < 0 and nxt < hi:
-                r = nxt
-                nxt += 1
-                ray[l] = r
-                for i in range(6):
-                    y0[l, i] = starts[r, i]
-                i, j = cell_ahead(nodes, sym, y0[l], snap)
-                ci[l] = i
-                cj[l] = j
-                patch = patch_coefficients(herm, ci[l], cj[l], hz, hr, sym != 1)
-                put_patch(w, l, W_PATCH, patch, z0 + ci[l] * hz, r0 + cj[l] * hr)
-                bpatch = put_magnet_patch(w, l, W_BPATCH, magnet, ci[l], cj[l], hz, hr, patch)
-                if timed:
-                    pieces[l] = piece(waves, t_start[r])
-                    load_cell(dw, D_CELL, l, patch, drive, ci[l], cj[l], hz, hr, sym != 1)
-                    v_start[l] = first_rate(w, l, y0[l], t_start[r], dw, waves, pieces[l], nodes,
-                                            sym, mass, charge, k_new, magnet)
-                else:
-                    v_start[l] = rate(patch, z0 + ci[l] * hz, r0 + cj[l] * hr, nodes, sym, mass,
-                                      charge, y0[l], k_new, 0, magnet, bpatch)
-                for i in range(6):
-                    k0[l, i] = k_new[0, i]
-                    w[W_Y0 + i, l] = y0[l, i]
-                    w[W_K + i, l] = k_new[0, i]
-                w[W_ATOL, l] = atol_p[r]
-                ke_start[l] = kinetic_energy_J(y0[l, 3], y0[l, 4], y0[l, 5], mass)
-                evals[l] = 1
-                steps[l] = 0
-                rejected[l] = 0
-                n_cross[l] = 0
-                n_path[l] = 0
-                stride[l] = 1
-                t[l] = t_start[r]
-                w[W_T, l] = t_start[r]
-                t_stop[l] = t_start[r] + t_max
-                work[l] = 0.0
-                spread[l] = 0.0
-                hp[l] = 0.0
-                h_cut[l] = 0.0
-                worst[l] = 0.0
-                h_err[l] = min(step_cap(y0[l], k0[l], mass, max_step), t_max)
-                code[l] = RUNNING
-                electrode[l] = -1
-                r_start = map_r(sym, y0[l, 0], y0[l, 1])
-                if outside(bounds, sym, y0[l, 2], r_start):
-                    code[l] = LEFT
-                else:
-                    k_in = electrode_of(shapes, y0[l, 2], r_start)
-                    if k_in >= 0:
-                        code[l] = INSIDE
-                        electrode[l] = k_in
-                    elif r < paths.shape[0]:
-                        put_row(paths[r], 0, t[l], y0[l], ke_start[l], 0.0)
-                        n_path[l] = 1
-            if ray[l] >= 0:
-                active += 1
-        if active == 0:
+        if busy < LANES and nxt < hi:
+            taken = take_rays(nxt, hi, starts, t_start, atol_p, t_max, herm, drive, dw, nodes,
+                              sym, bounds, shapes, mass, charge, max_step, snap, paths, magnet, w,
+                              lf, li, vec, k_new)
+            busy += taken - nxt
+            nxt = taken
+        if busy == 0:
             break
+        choose_steps(timed, waves.corner, waves.max_step_s, nodes, sym, mass, max_step,
+                     max_steps, snap, w, lf, li, vec, box, ahead)
+        lane_step(w, nodes, sym, mass, charge, rtol, atol_x, dw, waves, li[I_PIECE], magnet)
+        check_steps(herm, nodes, sym, mass, snap, magnet, w, lf, li, vec, box, buf)
+        if nk > 0:
+            load_next_groups(drive, dw, nodes, sym, w, li)
+        lane_next_rates(w, nodes, sym, mass, charge, dw, waves, li[I_PIECE], magnet)
+        if settle_steps(rtol, atol_p, w, lf, li, vec, k_new) > 0:
+            cut_back(nodes, sym, shapes, w, lf, li, vec, box, buf)
 
-        # each lane chooses its step
+        # the accepted steps: events on each one's dense output, piece by piece (none looked for
+        # in the cells marked quiet), the first ending the ray; plane crossings before it with
+        # the ledger there; then the lane moves to the step's end (into the cell ahead if it
+        # enters it; onto the next waveform piece at a corner, with the jump's work) or to the
+        # event that ended its ray, with the ledger, the dV/dt work, the path point and the next
+        # step's proposal (written here, not as a phase: see the module's docstring)
         for l in range(LANES):
-            if ray[l] < 0 or code[l] != RUNNING:
+            if not li[I_TAKEN, l]:
                 continue
-            if steps[l] + rejected[l] >= max_steps:
-                code[l] = STALLED
-                continue
-            cut[l] = h_cut[l] > 0.0
-            if cut[l]:
-                h = min(h_cut[l], t_stop[l] - t[l])
-                h_cut[l] = 0.0
-            else:
-                h = min(h_err[l], step_cap(y0[l], k0[l], mass, max_step), t_stop[l] - t[l])
-                hard = t_stop[l] - t[l]     # a step never passes these, stretched or not
-                if timed:   # end on the next waveform corner; resolve the RF period
-                    m = pieces[l]
-                    t_corner = waves.corner[m] if m < waves.corner.size else np.inf
-                    h = min(h, waves.max_step_s, t_corner - t[l])
-                    hard = min(hard, t_corner - t[l])
-                cell_box(nodes, ci[l], cj[l], box)
-                reach(rc[l], hp[l], y0[l], k0[l], mass, STRETCH * h, ahead)
-                h_wall = exit_time(ahead, y0[l], k0[l], sym, box, STRETCH * h, 0.1 * snap)
-                if h_wall < STRETCH * h:
-                    h = min(h_wall, hard)
-            if t[l] + h == t[l]:
-                code[l] = STALLED
-                continue
-            w[W_H, l] = h
-
-        lane_step(w, nodes, sym, mass, charge, rtol, atol_x, dw, waves, pieces, magnet)
-
-        # each lane checks its step: error, then the cell it ends in and the one it is entering
-        for l in range(LANES):
-            passed[l] = False
-            if ray[l] < 0 or code[l] != RUNNING:
-                continue
+            r = li[I_RAY, l]
             h = w[W_H, l]
-            evals[l] += 6
-            enorm = w[W_ERR, l]
-            if not enorm <= 1.0:
-                rejected[l] += 1
-                h_err[l] = propose(h, h_err[l], enorm)
-                continue
-            passed[l] = True
-            for i in range(6):
-                y1[l, i] = w[W_Y1 + i, l]
-                k1[l, i] = w[W_K + 36 + i, l]
-            for m in range(5):
-                for i in range(6):
-                    rt[l, m, i] = w[W_DENSE + 6 * m + i, l]
-            cell_box(nodes, ci[l], cj[l], box)
-            hold(box, sym, y0[l])    # a step may start just before the wall it has entered through
-            i1, j1 = cell_of(nodes, sym, y1[l, 0], y1[l, 1], y1[l, 2])
-            ni, nj = cell_ahead(nodes, sym, y1[l], snap)
-            past = i1 != ci[l] or j1 != cj[l]
-            if past and ni == ci[l] and nj == cj[l]:
-                ni, nj = i1, j1
-            th = 2.0   # where to cut the step back to the wall (searched before it; > 1: nowhere)
-            if abs(ni - ci[l]) > 1 or abs(nj - cj[l]) > 1:
-                th = 1.0
-            elif not past:
-                th = excursion(rt[l], sym, y0[l], k0[l], y1[l], k1[l], h, box, buf)
-            need[l] = False
-            if th > 1.0 and (ni != ci[l] or nj != cj[l]):
-                dt[l] = wall_time(nodes, sym, y1[l], k1[l], ci[l], cj[l], ni, nj)
-                if past and dt[l] * speed(y1[l], mass) > snap:
-                    th = 1.0
-                else:
-                    need[l] = True
-                    patch = patch_coefficients(herm, ni, nj, hz, hr, sym != 1)
-                    put_patch(w, l, W_NEXT, patch, z0 + ni * hz, r0 + nj * hr)
-                    put_magnet_patch(w, l, W_BNEXT, magnet, ni, nj, hz, hr, patch)
-                    if timed:
-                        load_cell(dw, D_NEXT, l, patch, drive, ni, nj, hz, hr, sym != 1)
-            theta[l] = wall_theta(rt[l], sym, box, th, shapes, buf) if th <= 1.0 else th
-            past_cell[l] = past
-            end_cell[l, 0] = i1
-            end_cell[l, 1] = j1
-            end_cell[l, 2] = ni
-            end_cell[l, 3] = nj
-
-        # the rates in the cells the steps are entering, all lanes at once
-        lane_next_rates(w, nodes, sym, mass, charge, dw, waves, pieces, magnet)
-
-        # each lane enters the next cell, or cuts its step back to the wall, or goes on
-        for l in range(LANES):
-            if not passed[l]:
-                continue
-            r = ray[l]
-            h = w[W_H, l]
-            enorm = w[W_ERR, l]
-            v1 = w[W_V1, l]
-            th = theta[l]
-            past = past_cell[l]
-            i1, j1, ni, nj = end_cell[l, 0], end_cell[l, 1], end_cell[l, 2], end_cell[l, 3]
-            enter = False
-            v_next = v1
-            if need[l]:
-                v_next = w[W_VN, l]
-                for i in range(6):
-                    k_new[0, i] = w[W_RATE + i, l]
-                evals[l] += 1
-                if cut[l] or (kink_error(k_new[0], k1[l], dt[l], y0[l], y1[l], rtol, atol_p[r])
-                              <= KINK_FRACTION):
-                    enter = True
-                elif past:
-                    cell_box(nodes, ci[l], cj[l], box)
-                    hold(box, sym, y0[l])
-                    th = wall_theta(rt[l], sym, box, 1.0, shapes, buf)
-            if th <= 1.0:
-                rejected[l] += 1
-                h_cut[l] = th * h
-                continue
-
-            # accepted step: look for events on the dense output, piece by piece
-            steps[l] += 1
-            for m in range(5):
-                for i in range(6):
-                    rc[l, m, i] = rt[l, m, i]
-            hp[l] = h
+            t = lf[F_T, l]
+            rc = vec[l, V_RC:V_RC + 5]
             n_sub = 0
-            if not quiet[ci[l], cj[l]]:
-                n_sub = max(1, int(math.ceil(max(speed(y0[l], mass), speed(y1[l], mass)) * h
-                                             / sample)))
-            rcl = rc[l]
-            curve = bend(rcl) if n_sub > 0 else 0.0
+            if not quiet[li[I_CI, l], li[I_CJ, l]]:
+                fastest = max(speed(vec[l, V_Y0], mass), speed(vec[l, V_Y1], mass))
+                n_sub = max(1, int(math.ceil(fastest * h / sample)))
+            curve = bend(rc) if n_sub > 0 else 0.0
             ta = 0.0
-            za, ra = y0[l, 2], map_r(sym, y0[l, 0], y0[l, 1])
-            xa, ya_ = y0[l, 0], y0[l, 1]
+            xa, ya_, za = vec[l, V_Y0, 0], vec[l, V_Y0, 1], vec[l, V_Y0, 2]
+            ra = map_r(sym, xa, ya_)
             t_end = 2.0
             for m in range(1, n_sub + 1):
                 tb = m / n_sub
-                dense(rcl, tb, buf)
+                dense(rc, tb, buf)
                 xb, yb, zb = buf[0], buf[1], buf[2]
                 rb = map_r(sym, xb, yb)
                 chord = math.sqrt((xb - xa) ** 2 + (yb - ya_) ** 2 + (zb - za) ** 2)
@@ -380,97 +202,103 @@ def trace_lanes(lo, hi, starts, t_start, herm, drive, nodes, sym, bounds, cell, 
                         rising = e % 2 == 0
                         if (c > edge) if rising else (c < edge):
                             line = z_line(edge) if e < 2 else r_line(edge)
-                            t_end = min(t_end, locate(rcl, sym, ta, tb, EV_LINE, line, rising,
+                            t_end = min(t_end, locate(rc, sym, ta, tb, EV_LINE, line, rising,
                                                       shapes, buf))
-                    code[l] = LEFT
+                    li[C_CODE, l] = LEFT
                 # landing on an electrode
                 pad = 0.5 * chord if sym == 0 else 0.0
                 bulge = bow(curve, 1.0 / n_sub)
                 if touches_surface(cell, nodes, za, ra, zb, rb, pad, bulge):
                     pa[0] = za
                     pa[1] = ra
-                    th, k = find_landing(rcl, sym, ta, min(tb, t_end), pa, chord, fine, curve,
-                                         touch_tol, shapes, stack, buf)
+                    th, k = find_landing(rc, sym, ta, min(tb, t_end), pa, chord, fine,
+                                         curve, touch_tol, shapes, stack, buf)
                     if th < t_end:
                         t_end = th
-                        code[l] = LANDED
-                        electrode[l] = k
+                        li[C_CODE, l] = LANDED
+                        li[C_ELECTRODE, l] = k
                 # detector planes
                 for q in range(planes.shape[0]):
                     line = (planes[q, 0], planes[q, 1], planes[q, 2])
-                    n_hits = plane_crossings(rcl, sym, ta, tb, line, past_line(line, za, ra),
+                    n_hits = plane_crossings(rc, sym, ta, tb, line, past_line(line, za, ra),
                                              past_line(line, zb, rb), bulge + pad, hits, shapes, buf)
                     for e in range(n_hits):
                         th = hits[e]
                         if th <= t_end:
                             if stops[q]:
                                 t_end = th
-                                code[l] = PLANE
-                                electrode[l] = -1
-                            nc = n_cross[l]
+                                li[C_CODE, l] = PLANE
+                                li[C_ELECTRODE, l] = -1
+                            nc = li[C_CROSSINGS, l]
                             if nc < max_cross:
-                                dense(rcl, th, buf)
+                                dense(rc, th, buf)
                                 cross_plane[r, nc] = q
                                 ke = kinetic_energy_J(buf[3], buf[4], buf[5], mass)
-                                vq = potential_at(herm, drive, pieces[l], t[l] + th * h, nodes,
+                                vq = potential_at(herm, drive, li[I_PIECE, l], t + th * h, nodes,
                                                   sym, buf[0], buf[1], buf[2])
-                                res = residual_J(ke_start[l], ke, charge, v_start[l], vq)
+                                res = residual_J(lf[F_KE, l], ke, charge, lf[F_V, l], vq)
                                 if timed:
-                                    wq = work[l] + work_along(w, dw, l, rcl, th, h, t[l], pieces[l],
-                                                              waves, nodes, sym, phi, buf)[0]
-                                    dense(rcl, th, buf)
+                                    wq = lf[F_WORK, l] + work_along(w, dw, l, rc, th, h, t,
+                                                                    li[I_PIECE, l], waves,
+                                                                    nodes, sym, phi, buf)[0]
+                                    dense(rc, th, buf)
                                     res -= charge * wq
-                                worst[l] = max(worst[l], abs(res))
-                                put_row(cross_state[r], nc, t[l] + th * h, buf, ke, worst[l])
-                            n_cross[l] += 1
-                if code[l] != RUNNING:
+                                lf[F_WORST, l] = max(lf[F_WORST, l], abs(res))
+                                put_row(cross_state[r], nc, t + th * h, buf, ke, lf[F_WORST, l])
+                            li[C_CROSSINGS, l] += 1
+                if li[C_CODE, l] != RUNNING:
                     break
                 ta, za, ra, xa, ya_ = tb, zb, rb, xb, yb
 
+            # the lane moves to the step's end, or to the event that ended its ray
             n_path_cap = paths.shape[1] if r < paths.shape[0] else 0
-            if code[l] == RUNNING:
-                t_new = t[l] + h
+            if li[C_CODE, l] == RUNNING:
+                t_new = t + h
+                i1, j1 = li[I_END, l], li[I_END + 1, l]
+                ni, nj = li[I_END + 2, l], li[I_END + 3, l]
+                enter = li[I_ENTER, l]
                 # the ledger takes the potential of the cell the step ends in
-                if past:
+                v1 = w[W_V1, l]
+                if li[I_PAST, l]:
                     if enter and i1 == ni and j1 == nj:
-                        v1 = v_next
+                        v1 = w[W_VN, l]
                     else:   # potential_at of a static field is field_at's potential
-                        v1 = potential_at(herm, drive, pieces[l], t_new, nodes, sym, y1[l, 0],
-                                          y1[l, 1], y1[l, 2])
-                        evals[l] += 1
-                ke1 = kinetic_energy_J(y1[l, 3], y1[l, 4], y1[l, 5], mass)
-                res = residual_J(ke_start[l], ke1, charge, v_start[l], v1)
+                        v1 = potential_at(herm, drive, li[I_PIECE, l], t_new, nodes, sym,
+                                          vec[l, V_Y1, 0], vec[l, V_Y1, 1], vec[l, V_Y1, 2])
+                        li[C_EVALS, l] += 1
+                ke1 = kinetic_energy_J(vec[l, V_Y1, 3], vec[l, V_Y1, 4], vec[l, V_Y1, 5], mass)
+                res = residual_J(lf[F_KE, l], ke1, charge, lf[F_V, l], v1)
                 corner = False
                 if timed:
-                    dwk, mag = work_along(w, dw, l, rcl, 1.0, h, t[l], pieces[l], waves, nodes,
+                    dwk, mag = work_along(w, dw, l, rc, 1.0, h, t, li[I_PIECE, l], waves, nodes,
                                           sym, phi, buf)
-                    work[l] += dwk
-                    spread[l] += mag
-                    res -= charge * work[l]
-                    m = pieces[l]
+                    lf[F_WORK, l] += dwk
+                    lf[F_SPREAD, l] += mag
+                    res -= charge * lf[F_WORK, l]
+                    m = li[I_PIECE, l]
                     if m < waves.corner.size and t_new >= waves.corner[m]:
                         # the step ends on a corner: a jump's work, the next piece
                         corner = True
                         t_new = waves.corner[m]
-                        jump = corner_jump(drive, t_new, nodes, sym, y1[l, 0], y1[l, 1], y1[l, 2],
-                                           at_x)
-                        work[l] += jump
-                        spread[l] += abs(jump)
-                        pieces[l] = piece(waves, t_new)
-                worst[l] = max(worst[l], abs(res))
-                if t_new >= t_stop[l]:
-                    code[l] = TIME
-                    t_new = t_stop[l]
-                t[l] = t_new
+                        jump = corner_jump(drive, t_new, nodes, sym, vec[l, V_Y1, 0],
+                                           vec[l, V_Y1, 1], vec[l, V_Y1, 2], at_x)
+                        lf[F_WORK, l] += jump
+                        lf[F_SPREAD, l] += abs(jump)
+                        li[I_PIECE, l] = piece(waves, t_new)
+                lf[F_WORST, l] = max(lf[F_WORST, l], abs(res))
+                if t_new >= lf[F_STOP, l]:
+                    li[C_CODE, l] = TIME
+                    t_new = lf[F_STOP, l]
+                lf[F_T, l] = t_new
                 w[W_T, l] = t_new
                 for i in range(6):
-                    y0[l, i] = y1[l, i]
-                    k0[l, i] = k_new[0, i] if enter else k1[l, i]
-                    w[W_Y0 + i, l] = y0[l, i]
-                    w[W_K + i, l] = k0[l, i]
+                    vec[l, V_Y0, i] = vec[l, V_Y1, i]
+                    vec[l, V_K0, i] = w[W_RATE + i, l] if enter else vec[l, V_K1, i]
+                    w[W_Y0 + i, l] = vec[l, V_Y0, i]
+                    w[W_K + i, l] = vec[l, V_K0, i]
                 if enter:
-                    ci[l] = ni
-                    cj[l] = nj
+                    li[I_CI, l] = ni
+                    li[I_CJ, l] = nj
                     for m in range(18):
                         w[W_PATCH + m, l] = w[W_NEXT + m, l]
                     if magnet is not None:
@@ -479,58 +307,42 @@ def trace_lanes(lo, hi, starts, t_start, herm, drive, nodes, sym, bounds, cell, 
                     if timed:
                         dw[D_CELL, :, :, l] = dw[D_NEXT, :, :, l]
                 if corner:   # the first rate of the next step on the new piece
-                    first_rate(w, l, y0[l], t_new, dw, waves, pieces[l], nodes, sym, mass, charge,
-                               k_new, magnet)
-                    evals[l] += 1
+                    first_rate(w, l, vec[l, V_Y0], t_new, dw, waves, li[I_PIECE, l], nodes, sym,
+                               mass, charge, vec[l, V_K0:V_K0 + 1], magnet)
+                    li[C_EVALS, l] += 1
                     for i in range(6):
-                        k0[l, i] = k_new[0, i]
-                        w[W_K + i, l] = k_new[0, i]
-                if n_path_cap > 0 and steps[l] % stride[l] == 0:
-                    if n_path[l] == n_path_cap - 1:
-                        n_path[l] = thin_path(paths[r], n_path[l])
-                        stride[l] *= 2
-                    if steps[l] % stride[l] == 0:
-                        put_row(paths[r], n_path[l], t[l], y0[l], ke1, res)
-                        n_path[l] += 1
-                h_err[l] = propose(h, h_err[l], enorm)
+                        w[W_K + i, l] = vec[l, V_K0, i]
+                steps = li[C_STEPS, l]
+                if n_path_cap > 0 and steps % li[I_STRIDE, l] == 0:
+                    if li[C_PATH, l] == n_path_cap - 1:
+                        li[C_PATH, l] = thin_path(paths[r], li[C_PATH, l])
+                        li[I_STRIDE, l] *= 2
+                    if steps % li[I_STRIDE, l] == 0:
+                        put_row(paths[r], li[C_PATH, l], lf[F_T, l], vec[l, V_Y0], ke1, res)
+                        li[C_PATH, l] += 1
+                lf[F_ERR, l] = propose(h, lf[F_ERR, l], w[W_ERR, l])
             else:
                 if timed:
-                    dwk, mag = work_along(w, dw, l, rcl, t_end, h, t[l], pieces[l], waves, nodes,
+                    dwk, mag = work_along(w, dw, l, rc, t_end, h, t, li[I_PIECE, l], waves, nodes,
                                           sym, phi, buf)
-                    work[l] += dwk
-                    spread[l] += mag
-                dense(rcl, t_end, buf)
+                    lf[F_WORK, l] += dwk
+                    lf[F_SPREAD, l] += mag
+                dense(rc, t_end, buf)
                 for i in range(6):
-                    y0[l, i] = buf[i]
-                t[l] = t[l] + t_end * h
-                ke1 = kinetic_energy_J(y0[l, 3], y0[l, 4], y0[l, 5], mass)
-                v1 = potential_at(herm, drive, pieces[l], t[l], nodes, sym, y0[l, 0], y0[l, 1],
-                                  y0[l, 2])
-                res = residual_J(ke_start[l], ke1, charge, v_start[l], v1)
+                    vec[l, V_Y0, i] = buf[i]
+                lf[F_T, l] = t + t_end * h
+                ke1 = kinetic_energy_J(vec[l, V_Y0, 3], vec[l, V_Y0, 4], vec[l, V_Y0, 5], mass)
+                v1 = potential_at(herm, drive, li[I_PIECE, l], lf[F_T, l], nodes, sym,
+                                  vec[l, V_Y0, 0], vec[l, V_Y0, 1], vec[l, V_Y0, 2])
+                res = residual_J(lf[F_KE, l], ke1, charge, lf[F_V, l], v1)
                 if timed:
-                    res -= charge * work[l]
-                worst[l] = max(worst[l], abs(res))
+                    res -= charge * lf[F_WORK, l]
+                lf[F_WORST, l] = max(lf[F_WORST, l], abs(res))
                 if n_path_cap > 0:
-                    put_row(paths[r], n_path[l], t[l], y0[l], ke1, res)
-                    n_path[l] += 1
+                    put_row(paths[r], li[C_PATH, l], lf[F_T, l], vec[l, V_Y0], ke1, res)
+                    li[C_PATH, l] += 1
+        busy = hand_in(final, info, spent, mass, lf, li, vec)
 
-        # lanes whose ray has ended hand in its results
-        for l in range(LANES):
-            r = ray[l]
-            if r < 0 or code[l] == RUNNING:
-                continue
-            put_row(final, r, t[l], y0[l], kinetic_energy_J(y0[l, 3], y0[l, 4], y0[l, 5], mass),
-                    worst[l])
-            info[r, C_CODE] = code[l]
-            info[r, C_ELECTRODE] = electrode[l]
-            info[r, C_CROSSINGS] = n_cross[l]
-            info[r, C_PATH] = n_path[l]
-            info[r, C_STEPS] = steps[l]
-            info[r, C_REJECTED] = rejected[l]
-            info[r, C_EVALS] = evals[l]
-            spent[r, 0] = work[l]
-            spent[r, 1] = spread[l]
-            ray[l] = -1
 
 
 @njit(cache=True, parallel=True, error_model="numpy")

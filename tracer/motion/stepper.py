@@ -23,7 +23,7 @@ from numba import njit
 from tracer.fieldmap import patch_coefficients
 from tracer.motion.bundles import (LANES, W_BNEXT, W_BPATCH, W_DENSE, W_ERR, W_ATOL, W_H, W_K,
                                    W_NEXT, W_PATCH, W_RATE, W_T, W_V1, W_VN, W_Y0, W_Y1)
-from tracer.motion.drive import D_CELL, D_NEXT, weigh_lanes
+from tracer.motion.drive import D_CELL, D_NEXT, weigh, weigh_lanes
 from tracer.motion.force import force, gamma_mass, inverse_gamma_mass, uniform_force
 from tracer.motion.tableau import DP_A, DP_C, DP_D, DP_E
 
@@ -176,6 +176,20 @@ def lane_next_rates(w, nodes, sym, mass, charge, dw, waves, pieces, magnet):
         lane_rate(w, l, w[W_T, l] + w[W_H, l], nodes, sym, mass, charge, W_NEXT, W_VN, magnet,
                   W_BNEXT)
     lanes_uniform(w, magnet, charge)
+
+
+@njit(cache=True, error_model="numpy")
+def first_rate(w, l, y, t, dw, waves, m, nodes, sym, mass, charge, k, magnet):
+    """The rate at state y at time t in lane l's cell, its polynomial weighed on waveform piece m
+    (:mod:`tracer.motion.drive`), into k[0]; returns the potential there."""
+    weigh(dw, D_CELL, l, waves, m, t, w, W_PATCH)
+    for i in range(6):
+        w[W_Y1 + i, l] = y[i]
+    lane_rate(w, l, t, nodes, sym, mass, charge, W_PATCH, W_V1, magnet, W_BPATCH)
+    lane_uniform(w, l, magnet, charge)
+    for i in range(6):
+        k[0, i] = w[W_RATE + i, l]
+    return w[W_V1, l]
 
 
 @njit(cache=True, error_model="numpy", inline="always")
