@@ -34,9 +34,8 @@ Drive = namedtuple("Drive", ["waves", "driven"])
 """The time-dependent part of a field: ``waves`` (:class:`tracer.waveforms.WaveArrays` of the K
 groups) and ``driven`` (float64[K, 4, nz, nr], the Hermite node data of each group map M_k)."""
 
-D_CELL, D_NEXT, D_WEIGHT = 0, 1, 2
-"""The slots of a drive workspace: the polynomials of the cell a lane is in and of the cell it is
-entering, and (in ``[D_WEIGHT, 1 + k, 0]``) the weight w_k of group k at the stage being weighed."""
+D_CELL, D_NEXT = 0, 1
+"""The two slots of a drive workspace: the cell a lane is in, and the cell it is entering."""
 
 
 def static_drive(herm):
@@ -46,9 +45,9 @@ def static_drive(herm):
 
 @njit(cache=True, error_model="numpy")
 def drive_workspace(drive):
-    """A drive workspace: float64[3, 1 + K, 16, LANES], slot (:data:`D_CELL`, :data:`D_NEXT`,
-    :data:`D_WEIGHT`), map (0 static, 1 + k group k), coefficient, lane."""
-    return np.zeros((3, 1 + drive.driven.shape[0], 16, LANES))
+    """A drive workspace: float64[2, 1 + K, 16, LANES], slot (:data:`D_CELL`, :data:`D_NEXT`), map
+    (0 static, 1 + k group k), coefficient, lane."""
+    return np.zeros((2, 1 + drive.driven.shape[0], 16, LANES))
 
 
 @njit(cache=True, error_model="numpy", forceinline=True)
@@ -64,41 +63,23 @@ def load_cell(dw, slot, l, a, drive, i, j, hz, hr, mirror):
 
 
 @njit(cache=True, error_model="numpy", forceinline=True)
-def weights_at(dw, l, waves, m, t):
-    """Write each group's weight w_k at time t on waveform piece m into lane l's
-    :data:`D_WEIGHT` slot."""
-    for k in range(dw.shape[1] - 1):
-        dw[D_WEIGHT, 1 + k, 0, l] = value(waves, k, m, t)
-
-
-@njit(cache=True, error_model="numpy", forceinline=True)
-def weighed_sums(dw, slot, w, row, l0, l1):
-    """Write the polynomials of slot ``slot`` of lanes l0..l1-1, static plus each group's times its
-    weight in the :data:`D_WEIGHT` slot, into rows row..row+15 of those lanes of the workspace w;
-    loops over the lanes innermost (SIMD instructions)."""
-    for c in range(16):
-        for l in range(l0, l1):
-            w[row + c, l] = dw[slot, 0, c, l]
-        for k in range(dw.shape[1] - 1):
-            for l in range(l0, l1):
-                w[row + c, l] += dw[D_WEIGHT, 1 + k, 0, l] * dw[slot, 1 + k, c, l]
-
-
-@njit(cache=True, error_model="numpy", forceinline=True)
 def weigh(dw, slot, l, waves, m, t, w, row):
     """Write the polynomial of slot ``slot`` of lane l at time t on waveform piece m (static plus
     weighted groups) into rows row..row+15 of lane l of the workspace w."""
-    weights_at(dw, l, waves, m, t)
-    weighed_sums(dw, slot, w, row, l, l + 1)
+    nk = dw.shape[1] - 1
+    for c in range(16):
+        w[row + c, l] = dw[slot, 0, c, l]
+    for k in range(nk):
+        wk = value(waves, k, m, t)
+        for c in range(16):
+            w[row + c, l] += wk * dw[slot, 1 + k, c, l]
 
 
 @njit(cache=True, error_model="numpy", forceinline=True)
 def weigh_lanes(dw, slot, w, row, waves, pieces, frac):
-    """:func:`weigh` in every lane at the time ``W_T + frac * W_H`` of its step: the weights lane
-    by lane (a cosine is no SIMD instruction), then the sums."""
+    """:func:`weigh` in every lane at the time ``W_T + frac * W_H`` of its step."""
     for l in range(LANES):
-        weights_at(dw, l, waves, pieces[l], w[W_T, l] + frac * w[W_H, l])
-    weighed_sums(dw, slot, w, row, 0, LANES)
+        weigh(dw, slot, l, waves, pieces[l], w[W_T, l] + frac * w[W_H, l], w, row)
 
 
 @njit(cache=True, error_model="numpy", forceinline=True)
