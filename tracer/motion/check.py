@@ -14,8 +14,9 @@ cells of path, when it too is to be cut back (:func:`tracer.motion.settle.cut_ba
 from numba import njit
 
 from tracer.fieldmap import patch_coefficients
-from tracer.motion.bundles import (C_CODE, C_EVALS, C_REJECTED, F_DT, F_ERR, F_THETA, I_CI, I_CJ,
-                                   I_END, I_NEED, I_PASSED, I_PAST, I_RAY, LANES, RUNNING, V_K0,
+from tracer.motion.bundles import (C_CODE, C_EVALS, C_REJECTED, F_DT, F_ERR, F_THETA, I_AHEAD_I,
+                                   I_AHEAD_J, I_CI, I_CJ, I_END_I, I_END_J, I_NEED, I_PASSED,
+                                   I_PAST, I_RAY, LANES, RUNNING, V_K0,
                                    V_K1, V_RT, V_Y0, V_Y1, W_BNEXT, W_DENSE, W_ERR, W_H, W_K,
                                    W_NEXT, W_Y1)
 from tracer.motion.drive import D_NEXT, load_cell
@@ -28,9 +29,9 @@ from tracer.motion.walls import cell_ahead, cell_box, excursion, hold, wall_time
 def check_steps(herm, nodes, sym, mass, snap, magnet, w, lf, li, vec, box, buf):
     """Each running lane's trial step: rejected, or passed (``I_PASSED``) with its end state,
     end rate and dense output copied from the workspace w (``V_Y1``, ``V_K1``, ``V_RT``), the
-    cells it ends in and is entering (``I_END``, ``I_PAST``), before which point it is to be cut
-    back to a wall (``F_THETA``; > 1: nowhere) and whether it needs the rate in the cell ahead
-    (``I_NEED``, with ``F_DT`` the time past the wall)."""
+    cells it ends in and is entering (``I_END_*``, ``I_AHEAD_*``, ``I_PAST``), before which point
+    it is to be cut back to a wall (``F_THETA``; > 1: nowhere) and whether it needs the rate in
+    the cell ahead (``I_NEED``, with ``F_DT`` the time past the wall)."""
     z0, r0, hz, hr = nodes.z0, nodes.r0, nodes.hz, nodes.hr
     for l in range(LANES):
         li[I_PASSED, l] = False
@@ -76,10 +77,10 @@ def check_steps(herm, nodes, sym, mass, snap, magnet, w, lf, li, vec, box, buf):
                 put_magnet_patch(w, l, W_BNEXT, magnet, ni, nj, hz, hr, patch)
         lf[F_THETA, l] = th
         li[I_PAST, l] = past
-        li[I_END, l] = i1
-        li[I_END + 1, l] = j1
-        li[I_END + 2, l] = ni
-        li[I_END + 3, l] = nj
+        li[I_END_I, l] = i1
+        li[I_END_J, l] = j1
+        li[I_AHEAD_I, l] = ni
+        li[I_AHEAD_J, l] = nj
 
 
 @njit(cache=True, error_model="numpy", forceinline=True)
@@ -89,5 +90,5 @@ def load_next_groups(drive, dw, nodes, sym, w, li):
     (:func:`tracer.motion.drive.load_cell`), after :func:`check_steps`."""
     for l in range(LANES):
         if li[I_PASSED, l] and li[I_NEED, l]:
-            load_cell(dw, D_NEXT, l, row_patch(w, l, W_NEXT), drive, li[I_END + 2, l],
-                      li[I_END + 3, l], nodes.hz, nodes.hr, sym != 1)
+            load_cell(dw, D_NEXT, l, row_patch(w, l, W_NEXT), drive, li[I_AHEAD_I, l],
+                      li[I_AHEAD_J, l], nodes.hz, nodes.hr, sym != 1)

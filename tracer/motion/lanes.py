@@ -40,7 +40,8 @@ from numba import njit, prange
 from tracer.ledger import GAUSS_POINTS, GAUSS_THETA, kinetic_energy_J, residual_J, time_work
 from tracer.motion.bundles import (C_CODE, C_CROSSINGS, C_ELECTRODE, C_EVALS, C_PATH, C_STEPS,
                                    COUNTS, F_ERR, F_KE, F_SPREAD, F_STOP, F_T, F_V, F_WORK,
-                                   F_WORST, I_CI, I_CJ, I_END, I_ENTER, I_PAST, I_PIECE, I_RAY,
+                                   F_WORST, I_AHEAD_I, I_AHEAD_J, I_CI, I_CJ, I_END_I, I_END_J,
+                                   I_ENTER, I_PAST, I_PIECE, I_RAY,
                                    I_STRIDE, I_TAKEN, LANDED, LANES, LEFT, PLANE, ROW_LEN,
                                    RUNNING, TIME, V_K0, V_K1, V_RC, V_Y0, V_Y1, W_BNEXT,
                                    W_BPATCH, W_ERR, W_H, W_K, W_NEXT, W_PATCH, W_RATE, W_ROWS,
@@ -254,8 +255,8 @@ def trace_lanes(lo, hi, starts, t_start, herm, drive, nodes, sym, bounds, cell, 
             n_path_cap = paths.shape[1] if r < paths.shape[0] else 0
             if li[C_CODE, l] == RUNNING:
                 t_new = t + h
-                i1, j1 = li[I_END, l], li[I_END + 1, l]
-                ni, nj = li[I_END + 2, l], li[I_END + 3, l]
+                i1, j1 = li[I_END_I, l], li[I_END_J, l]
+                ni, nj = li[I_AHEAD_I, l], li[I_AHEAD_J, l]
                 enter = li[I_ENTER, l]
                 # the ledger takes the potential of the cell the step ends in
                 v1 = w[W_V1, l]
