@@ -21,7 +21,7 @@ from tracer.fieldmap import PotentialMap
 from tracer.geometry import surface_normals
 from tracer.schema import Beam, Plane
 from tracer.display import Shown, listing, number
-from tracer.interrupts import by_interrupt
+from tracer.interrupts import check, held_back
 from tracer.magnetics.uniform import UniformField
 from tracer.magnetics.units import MagneticMap
 from tracer.stats import radius
@@ -362,7 +362,7 @@ def trace(field: PotentialMap | GroupedMaps, beam: Beam, planes: Sequence[Plane]
         crossings a ray."""
         count = len(atol_p[rows])
         group = max(motion.LANES, -(-count // (2 * numba.get_num_threads())))  # two per thread
-        try:
+        with held_back():   # a signal's handler run inside the kernel's callbacks may crash it
             return motion.trace_rays(
                 np.ascontiguousarray(state[rows]), np.ascontiguousarray(starts["time_s"][rows]),
                 herm, drive.waves, drive.driven, nodes, sym, bounds, cell_map, shapes,
@@ -370,16 +370,13 @@ def trace(field: PotentialMap | GroupedMaps, beam: Beam, planes: Sequence[Plane]
                 np.ascontiguousarray(atol_p[rows]), max_step_cells * cell, sample_cells * cell,
                 fine_cells * cell, plane_lines, plane_stop, int(max_steps), int(width), paths, quiet, group,
                 magnet)
-        except SystemError as exc:   # numba's parallel kernel hands a Ctrl-C back wrapped
-            if by_interrupt(exc):
-                raise KeyboardInterrupt from exc
-            raise
 
-    chunk = max(256, -(-n // 20))   # between chunks, progress is shown and Ctrl-C is seen
+    chunk = max(256, -(-n // 20))   # between chunks, progress is shown and Ctrl-C acts
     parts = []
     for lo in range(0, max(n, 1), chunk):
         hi = min(n, lo + chunk)
         parts.append(kernel(slice(lo, hi), max_crossings, paths_buf[lo:min(hi, keep)]))
+        check()
         if progress is not None:
             progress(hi, n)
     final, info, cross_plane, cross_state, spent = (np.concatenate([p[k] for p in parts])

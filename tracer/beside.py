@@ -7,7 +7,7 @@ import json
 import os
 import signal
 
-from tracer.interrupts import held_back
+from tracer.interrupts import held_back, stopping
 
 
 @contextlib.contextmanager
@@ -79,31 +79,30 @@ def _rebuilt(kind, message, code=None, filename=None):
     return RuntimeError(f"in the child process: {kind}: {message}")
 
 
-def _interrupted(signum, frame):
-    """SIGTERM in a child of :func:`beside`: a KeyboardInterrupt, once."""
-    signal.signal(signal.SIGTERM, signal.SIG_IGN)
-    raise KeyboardInterrupt
-
-
 def _child(job, read_end, write_end, mask):
     """The forked side of :func:`beside`: run the job, send back its value or error, exit."""
     try:
         os.close(read_end)
         signal.signal(signal.SIGINT, signal.SIG_IGN)
-        signal.signal(signal.SIGTERM, _interrupted)
-        signal.pthread_sigmask(signal.SIG_SETMASK, mask)
-        try:
-            value = job()
-            try:
-                reply = json.dumps({"value": value})
-            except (TypeError, ValueError) as err:
-                raise TypeError(f"the child process could not send back its result {value!r}: {err}") from err
-        except OSError as err:
-            reply = json.dumps({"error": [type(err).__name__, err.strerror or str(err), err.errno,
-                                          None if err.filename is None else str(err.filename)]})
-        except BaseException as err:
-            reply = json.dumps({"error": [type(err).__name__, str(err)]})
+        with stopping():   # SIGTERM: a KeyboardInterrupt, not reported where Python loses it
+            signal.pthread_sigmask(signal.SIG_SETMASK, mask)
+            reply = _reply(job)
         with os.fdopen(write_end, "w") as pipe:
             pipe.write(reply)
     finally:
         os._exit(0)
+
+
+def _reply(job) -> str:
+    """The JSON reply of a child of :func:`beside`: the job's value, or its error."""
+    try:
+        value = job()
+        try:
+            return json.dumps({"value": value})
+        except (TypeError, ValueError) as err:
+            raise TypeError(f"the child process could not send back its result {value!r}: {err}") from err
+    except OSError as err:
+        return json.dumps({"error": [type(err).__name__, err.strerror or str(err), err.errno,
+                                     None if err.filename is None else str(err.filename)]})
+    except BaseException as err:
+        return json.dumps({"error": [type(err).__name__, str(err)]})

@@ -15,7 +15,6 @@ from __future__ import annotations
 import argparse
 import contextlib
 import os
-import signal
 import sys
 import traceback
 import warnings
@@ -74,11 +73,6 @@ def _one_line_warnings(stack) -> None:
 
     warnings.showwarning = show
     stack.callback(setattr, warnings, "showwarning", shown)
-
-
-def _terminated(signum, frame):
-    """SIGTERM: stop as Ctrl-C does (temporary files removed, exit 130)."""
-    raise KeyboardInterrupt
 
 
 def _load(args):
@@ -513,7 +507,7 @@ def build_parser() -> argparse.ArgumentParser:
 
 def main(argv: list[str] | None = None) -> int:
     """Run the command line; return the exit code."""
-    from tracer.interrupts import by_interrupt
+    from tracer.interrupts import by_interrupt, forget_unhandled, stopping
     from tracer.schema import ConfigError
     from tracer.store.atomic import no_space
 
@@ -524,9 +518,9 @@ def main(argv: list[str] | None = None) -> int:
     args = parser.parse_args(argv)
     func = COMMANDS[args.command][0]
     echo = print
-    previous = signal.signal(signal.SIGTERM, _terminated)
     try:
         with contextlib.ExitStack() as stack:
+            stack.enter_context(stopping())   # SIGTERM stops as Ctrl-C does (exit 130)
             _one_line_warnings(stack)
             _lock_out(args, stack)
             code = func(args, echo)
@@ -541,10 +535,12 @@ def main(argv: list[str] | None = None) -> int:
         print(f"tracer: error: {exc}", file=sys.stderr)
         return 2
     except KeyboardInterrupt:
+        forget_unhandled()
         print("tracer: interrupted", file=sys.stderr)
         return 130
     except Exception as exc:  # an internal fault: say so plainly, keep the details for --debug
         if by_interrupt(exc):  # numba's parallel kernels hand a Ctrl-C back inside a SystemError
+            forget_unhandled()
             print("tracer: interrupted", file=sys.stderr)
             return 130
         if args.debug:
@@ -556,5 +552,3 @@ def main(argv: list[str] | None = None) -> int:
         print(f"tracer: internal fault: {type(exc).__name__}: {exc} (run with --debug for details)",
               file=sys.stderr)
         return 1
-    finally:
-        signal.signal(signal.SIGTERM, previous)

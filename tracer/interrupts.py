@@ -1,7 +1,15 @@
-"""Ctrl-C through numba's parallel kernels, and Ctrl-C held back over a few steps.
+"""Ctrl-C (SIGINT) and SIGTERM: how the command line stops on them, a few steps held back from
+them, and what numba and CPython need for a stop to end cleanly.
 
-A KeyboardInterrupt raised while a parallel kernel runs comes back wrapped in one or more
-SystemErrors ("returned a result with an exception set"); :func:`by_interrupt` recognises it.
+:func:`stopping` (around the command line) turns both signals into a KeyboardInterrupt and
+notes each one, so that :func:`check` raises it again where Python lost it: a KeyboardInterrupt
+raised inside a weakref callback, a finaliser or a callback of numba's compiler is only reported
+as unraisable (that report is kept quiet) and the work would go on.  A signal whose handler runs
+in the Python code a numba kernel calls back as it returns (``_numba_unpickle``, which builds the
+arrays it hands back) is only noted there: an exception raised in it comes back wrapped in
+SystemErrors ("returned a result with an exception set"; :func:`by_interrupt` recognises one)
+or crashes the process (SIGSEGV).  The ray kernel is also called with the signals held back
+(:mod:`tracer.beam`), so a Ctrl-C stops a trace between its chunks.
 
 :func:`held_back` keeps Ctrl-C (SIGINT) and SIGTERM from interrupting a few steps that must not be
 cut (files moved into place, a fork and the bookkeeping of its child), and raises each signal that
@@ -13,10 +21,68 @@ for the steps, by one that only notes the signal.
 
 import contextlib
 import signal
+import sys
 import threading
 
 HELD = (signal.SIGINT, signal.SIGTERM)
-"""The signals :func:`held_back` holds back."""
+"""The signals :func:`held_back` holds back and :func:`stopping` stops on."""
+
+_noted = []
+"""The signals :func:`stop` noted since :func:`stopping` began."""
+
+
+def stop(signum, frame):
+    """The handler of SIGINT and SIGTERM under :func:`stopping`: note the signal and raise
+    KeyboardInterrupt, or, in the code a numba kernel calls back, only note it for :func:`check`."""
+    _noted.append(signum)
+    if frame is None or frame.f_code.co_name != "_numba_unpickle":
+        raise KeyboardInterrupt
+
+
+def check() -> None:
+    """Raise KeyboardInterrupt if a signal came under :func:`stopping`: its own KeyboardInterrupt
+    may have been lost (or put off by :func:`stop`).  Called between chunks of long work."""
+    if _noted:
+        raise KeyboardInterrupt
+
+
+@contextlib.contextmanager
+def stopping():
+    """While the block runs (in the main thread), SIGINT and SIGTERM raise KeyboardInterrupt
+    through :func:`stop`, and a KeyboardInterrupt after one of them that Python can only report as
+    unraisable is not shown (:func:`check` raises it again).  SIGINT that is ignored, as in a job
+    started in the background, stays ignored."""
+    _noted.clear()
+    previous = {signum: signal.getsignal(signum) for signum in HELD}
+    for signum, handler in previous.items():
+        if handler is not signal.SIG_IGN or signum == signal.SIGTERM:
+            signal.signal(signum, stop)
+    shown = sys.unraisablehook
+
+    def quiet(unraisable):
+        if not (_noted and isinstance(unraisable.exc_value, KeyboardInterrupt)):
+            shown(unraisable)
+
+    sys.unraisablehook = quiet
+    try:
+        yield
+    finally:
+        sys.unraisablehook = shown
+        for signum, handler in previous.items():
+            signal.signal(signum, handler)
+        _noted.clear()
+
+
+def forget_unhandled() -> None:
+    """Clear the interpreter's note that a KeyboardInterrupt went unhandled, once one is handled.
+
+    CPython (seen with 3.11) notes a KeyboardInterrupt that leaves code run by ``exec`` of a string
+    as unhandled, even when a caller catches it, and ``python -m`` then ends the process by SIGINT
+    instead of with its exit code.  A Ctrl-C or SIGTERM that lands while a module is imported does
+    that: dataclasses build their methods with ``exec``.  Each ``exec`` of a string first clears
+    the note, so one that runs to its end leaves it clear.
+    """
+    exec("None")
 
 
 def by_interrupt(exc) -> bool:

@@ -14,6 +14,8 @@ from dataclasses import dataclass
 import numpy as np
 import scipy.sparse.linalg as spla
 
+from tracer.interrupts import check
+
 from . import passes, relax
 from .assemble import system_matrix
 from .stencil import operator
@@ -191,6 +193,7 @@ def iterate(h, u, b, *, rtol=1e-10, max_cycles=60, work=None):
                 f"no convergence in {max_cycles} multigrid cycles: relative residual "
                 f"{history[-1]:.3e} > {rtol:.1e}"
             )
+        check()   # a Ctrl-C Python lost in a kernel's call or its compile
         rel = vcycle(h, work, u, b) / bnorm
         history.append(rel)
         if not np.isfinite(rel) or rel > 1e3 * history[0]:
