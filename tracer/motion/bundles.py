@@ -160,7 +160,8 @@ F_WORK = 8      # the dV/dt and jump work so far, volts
 F_SPREAD = 9    # its magnitude, volts
 F_THETA = 10    # the trial step is cut back to the first wall before this point (> 1: not)
 F_DT = 11       # the time between the trial step's end and the wall it is passing
-F_ROWS = 12
+F_END = 12      # the fraction of its accepted step at which its ray ends (> 1: it goes on)
+F_ROWS = 13
 # Int rows (int64[I_ROWS, LANES]): first the ray's counts, rows C_CODE..C_EVALS in the order of
 # the kernel's info columns, then:
 I_RAY = COUNTS        # the ray in the lane (-1: none)
@@ -178,7 +179,8 @@ I_AHEAD_I = COUNTS + 11  # the cell ahead: z index
 I_AHEAD_J = COUNTS + 12  # and r index
 I_ENTER = COUNTS + 13  # 1: the lane enters the cell ahead
 I_TAKEN = COUNTS + 14  # 1: its step is accepted
-I_ROWS = COUNTS + 15
+I_CROSS_FROM = COUNTS + 15  # its first plane crossing on that step (C_CROSSINGS before it)
+I_ROWS = COUNTS + 16
 # Vector rows (float64[LANES, V_ROWS, 6], lane first, so that each vector is contiguous):
 V_Y0 = 0        # the state the next step starts from
 V_K0 = 1        # its first stage rate

@@ -18,89 +18,68 @@ it: :func:`tracer.motion.rays.take_rays` (only when a lane is free and rays rema
 :func:`tracer.motion.check.check_steps` (and :func:`tracer.motion.check.load_next_groups` with
 voltages in time), :func:`tracer.motion.stepper.lane_next_rates`,
 :func:`tracer.motion.settle.settle_steps` (and :func:`tracer.motion.settle.cut_back` when steps
-are cut back to a wall), the accepted steps (below) and :func:`tracer.motion.rays.hand_in`. They
-share the lane state of :func:`tracer.motion.bundles.lane_state` (named rows of three arrays)
-and the stepper's workspace. The stepper's two phases are copied into the loop by numba
+are cut back to a wall), :func:`tracer.motion.search.search_steps` (events on the accepted
+steps), :func:`tracer.motion.move.move_lanes` (the ledger and the move to a step's end or event)
+and :func:`tracer.motion.rays.hand_in`. They share the lane state of
+:func:`tracer.motion.bundles.lane_state` (named rows of three arrays) and the stepper's
+workspace. The stepper's two phases, the search and the move are copied into the loop by numba
 (``inline="always"``); the others are compiled on their own and inlined by LLVM
 (``forceinline=True``), which keeps the loop's first compile no longer than before the split
 (DEVELOPERS.md, "numba's cache").
 
-The accepted steps are the one block written in the loop itself, not a phase: their events, ledger
-and move call functions that are not inlined (the event search, ``potential_at``, the dV/dt
-work), and numba keeps a reference count pair of every array an inlined function takes whenever
-such a call lies inside it; this block would take some thirty arrays (the drive and the shapes
-among them), which made warm tracing 3-9 % slower as a phase.
+Reference counts. :func:`trace_lanes` is compiled without numba's reference counting
+(``_nrt=False``), and so is each function that it is the first to compile (numba passes the flag
+on): it allocates nothing, and borrows its arrays, the workspace of :func:`lane_work` among them,
+from :func:`trace_rays`, which holds them for the call. With reference counting, numba keeps a
+count pair (two atomic operations) for every array a phase copied into the loop takes, each
+round, whenever the phase calls a function that is not inlined, as the search and the move do:
+with their forty arrays they made warm tracing up to 11 % slower. :func:`trace_lanes` is
+inlined by LLVM (``forceinline=True``) into :func:`trace_rays`' parallel loop, next to the
+workspace's allocations: called there instead, with the allocations out of LLVM's sight, it traced
+1.5-2 times slower. A function compiled without reference counting cannot allocate (numba refuses:
+"NRT required"); none that :func:`trace_lanes` calls may return an array, since a caller with
+reference counting would release a reference it was never given.
 """
-
-import math
 
 import numpy as np
 from numba import njit, prange
 
-from tracer.ledger import GAUSS_POINTS, GAUSS_THETA, kinetic_energy_J, residual_J, time_work
-from tracer.motion.bundles import (C_CODE, C_CROSSINGS, C_ELECTRODE, C_EVALS, C_PATH, C_STEPS,
-                                   COUNTS, F_ERR, F_KE, F_SPREAD, F_STOP, F_T, F_V, F_WORK,
-                                   F_WORST, I_AHEAD_I, I_AHEAD_J, I_CI, I_CJ, I_END_I, I_END_J,
-                                   I_ENTER, I_PAST, I_PIECE, I_RAY,
-                                   I_STRIDE, I_TAKEN, LANDED, LANES, LEFT, PLANE, ROW_LEN,
-                                   RUNNING, TIME, V_K0, V_K1, V_RC, V_Y0, V_Y1, W_BNEXT,
-                                   W_BPATCH, W_ERR, W_H, W_K, W_NEXT, W_PATCH, W_RATE, W_ROWS,
-                                   W_T, W_V1, W_VN, W_Y0, lane_state, put_row)
+from tracer.ledger import GAUSS_POINTS
+from tracer.motion.bundles import COUNTS, I_PIECE, LANES, ROW_LEN, W_ROWS, lane_state
 from tracer.motion.check import check_steps, load_next_groups
 from tracer.motion.choose import choose_steps
-from tracer.motion.drive import (D_CELL, D_NEXT, Drive, cell_group_potential, drive_workspace,
-                                 group_potentials, potential_at)
-from tracer.motion.events import (EV_LINE, MAX_HALVINGS, TOUCH, bend, bow, find_landing, locate,
-                                  outside, past_line, plane_crossings, r_line, touches_surface,
-                                  z_line)
-from tracer.motion.force import speed
+from tracer.motion.drive import Drive, drive_workspace
+from tracer.motion.events import MAX_HALVINGS, TOUCH
+from tracer.motion.move import move_lanes
 from tracer.motion.rays import hand_in, take_rays
+from tracer.motion.search import search_steps
 from tracer.motion.settle import cut_back, settle_steps
-from tracer.motion.stepper import dense, first_rate, lane_next_rates, lane_step, propose
-from tracer.motion.symmetry import map_r
+from tracer.motion.stepper import lane_next_rates, lane_step
 from tracer.motion.walls import SNAP
-from tracer.waveforms import jump_at, piece
 
 
-@njit(cache=True, error_model="numpy")
-def thin_path(path, n):
-    """Keep every other row of the first n path rows (the first always); returns the new count."""
-    m = (n + 1) // 2
-    for j in range(1, m):
-        path[j] = path[2 * j]
-    return m
+@njit(cache=True, error_model="numpy", forceinline=True)
+def lane_work(drive):
+    """The workspace of one :func:`trace_lanes` call (``work``), allocated by its caller, which
+    holds it while the loop borrows it: the stepper's workspace, the lane state
+    (:func:`tracer.motion.bundles.lane_state`), the drive workspace and the scratch of the
+    phases, in the order in which :func:`trace_lanes` unpacks them."""
+    nk = drive.driven.shape[0]
+    lf, li, vec = lane_state()
+    return (np.zeros((W_ROWS, LANES)), lf, li, vec, drive_workspace(drive),
+            np.zeros((GAUSS_POINTS, nk)), np.zeros(nk),
+            np.empty((1, 6)),      # a rate in a new cell
+            np.empty((3, 5)),      # the predicted path of the next step (walls.reach)
+            np.empty(6),
+            np.empty(2),           # plane crossings on a piece (events.plane_crossings)
+            np.empty((MAX_HALVINGS + 2, 8)),   # pieces being halved (events.touch)
+            np.empty(2), np.empty(4))
 
 
-@njit(cache=True, error_model="numpy")
-def work_along(w, dw, l, rc, theta, h, t0, m, waves, nodes, sym, phi, buf):
-    """The dV/dt work (volts) and its magnitude along the first fraction theta of lane l's step of
-    length h from t0 on waveform piece m (:func:`tracer.ledger.time_work`), the group maps taken
-    at the Gauss nodes of its dense output rc from the polynomials of the lane's cell that its
-    step's force came from; ``phi`` is float64[GAUSS_POINTS, K] scratch."""
-    pz, pr = w[W_PATCH + 16, l], w[W_PATCH + 17, l]
-    for i in range(GAUSS_POINTS):
-        dense(rc, theta * GAUSS_THETA[i], buf)
-        for k in range(phi.shape[1]):
-            phi[i, k] = cell_group_potential(dw, l, k, pz, pr, nodes, sym, buf[0], buf[1], buf[2])
-    return time_work(waves, m, t0, theta * h, phi)
-
-
-@njit(cache=True, error_model="numpy")
-def corner_jump(drive, t, nodes, sym, x, y, z, at_x):
-    """The work (volts) of the waveforms' jumps at corner time t at the point (x, y, z): the
-    group maps there (into at_x) weighed by each group's jump (a function of its own, called once
-    a corner, to keep the group maps' interpolant out of the loop's first compile)."""
-    group_potentials(drive, nodes, sym, x, y, z, at_x)
-    jump = 0.0
-    for k in range(drive.driven.shape[0]):
-        jump += jump_at(drive.waves, k, t) * at_x[k]
-    return jump
-
-
-@njit(cache=True, error_model="numpy")
+@njit(cache=True, error_model="numpy", forceinline=True, _nrt=False)
 def trace_lanes(lo, hi, starts, t_start, herm, drive, nodes, sym, bounds, cell, shapes, mass,
                 charge, t_max, rtol, atol_p, max_step, sample, fine, planes, stops, max_steps,
-                final, info, cross_plane, cross_state, paths, quiet, spent, magnet):
+                final, info, cross_plane, cross_state, paths, quiet, spent, magnet, work):
     """Trace rays lo..hi-1 of ``starts`` on one thread, ``LANES`` at a time.
 
     Every lane holds one ray; each round, idle lanes take the next rays, every lane chooses its
@@ -126,26 +105,16 @@ def trace_lanes(lo, hi, starts, t_start, herm, drive, nodes, sym, bounds, cell, 
     A ``magnet`` (:class:`tracer.motion.bundles.Magnet`) adds q v x B to the force, the lanes
     keeping A_theta's polynomial of their cells beside the potential's; ``None`` compiles the
     electric-only kernel.
+
+    ``work`` is :func:`lane_work`'s workspace: the loop allocates nothing (it is compiled without
+    reference counting, see the module's docstring).
     """
-    w = np.zeros((W_ROWS, LANES))
-    lf, li, vec = lane_state()
+    w, lf, li, vec, dw, phi, at_x, k_new, ahead, buf, hits, stack, pa, box = work
     waves = drive.waves
-    nk = drive.driven.shape[0]
-    timed = nk > 0
-    dw = drive_workspace(drive)
-    phi = np.zeros((GAUSS_POINTS, nk))
-    at_x = np.zeros(nk)
-    k_new = np.empty((1, 6))      # a rate in a new cell
-    ahead = np.empty((3, 5))      # the predicted path of the next step (walls.reach)
-    buf = np.empty(6)
-    hits = np.empty(2)            # plane crossings on a piece (events.plane_crossings)
-    stack = np.empty((MAX_HALVINGS + 2, 8))   # pieces being halved (events.touch)
-    pa = np.empty(2)
-    box = np.empty(4)
+    timed = drive.driven.shape[0] > 0
     atol_x = rtol * min(nodes.hz, nodes.hr)
     touch_tol = TOUCH * min(nodes.hz, nodes.hr)
     snap = SNAP * min(nodes.hz, nodes.hr)
-    max_cross = cross_plane.shape[1]
     nxt = lo
     busy = 0
     while True:
@@ -161,187 +130,16 @@ def trace_lanes(lo, hi, starts, t_start, herm, drive, nodes, sym, bounds, cell, 
                      max_steps, snap, w, lf, li, vec, box, ahead)
         lane_step(w, nodes, sym, mass, charge, rtol, atol_x, dw, waves, li[I_PIECE], magnet)
         check_steps(herm, nodes, sym, mass, snap, magnet, w, lf, li, vec, box, buf)
-        if nk > 0:
+        if timed:
             load_next_groups(drive, dw, nodes, sym, w, li)
         lane_next_rates(w, nodes, sym, mass, charge, dw, waves, li[I_PIECE], magnet)
         if settle_steps(rtol, atol_p, w, lf, li, vec, k_new) > 0:
             cut_back(nodes, sym, shapes, w, lf, li, vec, box, buf)
 
-        # the accepted steps: events on each one's dense output, piece by piece (none looked for
-        # in the cells marked quiet), the first ending the ray; plane crossings before it with
-        # the ledger there; then the lane moves to the step's end (into the cell ahead if it
-        # enters it; onto the next waveform piece at a corner, with the jump's work) or to the
-        # event that ended its ray, with the ledger, the dV/dt work, the path point and the next
-        # step's proposal (written here, not as a phase: see the module's docstring)
-        for l in range(LANES):
-            if not li[I_TAKEN, l]:
-                continue
-            r = li[I_RAY, l]
-            h = w[W_H, l]
-            t = lf[F_T, l]
-            rc = vec[l, V_RC:V_RC + 5]
-            n_sub = 0
-            if not quiet[li[I_CI, l], li[I_CJ, l]]:
-                fastest = max(speed(vec[l, V_Y0], mass), speed(vec[l, V_Y1], mass))
-                n_sub = max(1, int(math.ceil(fastest * h / sample)))
-            curve = bend(rc) if n_sub > 0 else 0.0
-            ta = 0.0
-            xa, ya_, za = vec[l, V_Y0, 0], vec[l, V_Y0, 1], vec[l, V_Y0, 2]
-            ra = map_r(sym, xa, ya_)
-            t_end = 2.0
-            for m in range(1, n_sub + 1):
-                tb = m / n_sub
-                dense(rc, tb, buf)
-                xb, yb, zb = buf[0], buf[1], buf[2]
-                rb = map_r(sym, xb, yb)
-                chord = math.sqrt((xb - xa) ** 2 + (yb - ya_) ** 2 + (zb - za) ** 2)
-                # leaving the domain
-                if outside(bounds, sym, zb, rb):
-                    for e in range(4 if sym == 1 else 3):   # z_max, z_min, r_max, r_min
-                        c = zb if e < 2 else rb
-                        edge = bounds[(1, 0, 3, 2)[e]]
-                        rising = e % 2 == 0
-                        if (c > edge) if rising else (c < edge):
-                            line = z_line(edge) if e < 2 else r_line(edge)
-                            t_end = min(t_end, locate(rc, sym, ta, tb, EV_LINE, line, rising,
-                                                      shapes, buf))
-                    li[C_CODE, l] = LEFT
-                # landing on an electrode
-                pad = 0.5 * chord if sym == 0 else 0.0
-                bulge = bow(curve, 1.0 / n_sub)
-                if touches_surface(cell, nodes, za, ra, zb, rb, pad, bulge):
-                    pa[0] = za
-                    pa[1] = ra
-                    th, k = find_landing(rc, sym, ta, min(tb, t_end), pa, chord, fine,
-                                         curve, touch_tol, shapes, stack, buf)
-                    if th < t_end:
-                        t_end = th
-                        li[C_CODE, l] = LANDED
-                        li[C_ELECTRODE, l] = k
-                # detector planes
-                for q in range(planes.shape[0]):
-                    line = (planes[q, 0], planes[q, 1], planes[q, 2])
-                    n_hits = plane_crossings(rc, sym, ta, tb, line, past_line(line, za, ra),
-                                             past_line(line, zb, rb), bulge + pad, hits, shapes, buf)
-                    for e in range(n_hits):
-                        th = hits[e]
-                        if th <= t_end:
-                            if stops[q]:
-                                t_end = th
-                                li[C_CODE, l] = PLANE
-                                li[C_ELECTRODE, l] = -1
-                            nc = li[C_CROSSINGS, l]
-                            if nc < max_cross:
-                                dense(rc, th, buf)
-                                cross_plane[r, nc] = q
-                                ke = kinetic_energy_J(buf[3], buf[4], buf[5], mass)
-                                vq = potential_at(herm, drive, li[I_PIECE, l], t + th * h, nodes,
-                                                  sym, buf[0], buf[1], buf[2])
-                                res = residual_J(lf[F_KE, l], ke, charge, lf[F_V, l], vq)
-                                if timed:
-                                    wq = lf[F_WORK, l] + work_along(w, dw, l, rc, th, h, t,
-                                                                    li[I_PIECE, l], waves,
-                                                                    nodes, sym, phi, buf)[0]
-                                    dense(rc, th, buf)
-                                    res -= charge * wq
-                                lf[F_WORST, l] = max(lf[F_WORST, l], abs(res))
-                                put_row(cross_state[r], nc, t + th * h, buf, ke, lf[F_WORST, l])
-                            li[C_CROSSINGS, l] += 1
-                if li[C_CODE, l] != RUNNING:
-                    break
-                ta, za, ra, xa, ya_ = tb, zb, rb, xb, yb
-
-            # the lane moves to the step's end, or to the event that ended its ray
-            n_path_cap = paths.shape[1] if r < paths.shape[0] else 0
-            if li[C_CODE, l] == RUNNING:
-                t_new = t + h
-                i1, j1 = li[I_END_I, l], li[I_END_J, l]
-                ni, nj = li[I_AHEAD_I, l], li[I_AHEAD_J, l]
-                enter = li[I_ENTER, l]
-                # the ledger takes the potential of the cell the step ends in
-                v1 = w[W_V1, l]
-                if li[I_PAST, l]:
-                    if enter and i1 == ni and j1 == nj:
-                        v1 = w[W_VN, l]
-                    else:   # potential_at of a static field is field_at's potential
-                        v1 = potential_at(herm, drive, li[I_PIECE, l], t_new, nodes, sym,
-                                          vec[l, V_Y1, 0], vec[l, V_Y1, 1], vec[l, V_Y1, 2])
-                        li[C_EVALS, l] += 1
-                ke1 = kinetic_energy_J(vec[l, V_Y1, 3], vec[l, V_Y1, 4], vec[l, V_Y1, 5], mass)
-                res = residual_J(lf[F_KE, l], ke1, charge, lf[F_V, l], v1)
-                corner = False
-                if timed:
-                    dwk, mag = work_along(w, dw, l, rc, 1.0, h, t, li[I_PIECE, l], waves, nodes,
-                                          sym, phi, buf)
-                    lf[F_WORK, l] += dwk
-                    lf[F_SPREAD, l] += mag
-                    res -= charge * lf[F_WORK, l]
-                    m = li[I_PIECE, l]
-                    if m < waves.corner.size and t_new >= waves.corner[m]:
-                        # the step ends on a corner: a jump's work, the next piece
-                        corner = True
-                        t_new = waves.corner[m]
-                        jump = corner_jump(drive, t_new, nodes, sym, vec[l, V_Y1, 0],
-                                           vec[l, V_Y1, 1], vec[l, V_Y1, 2], at_x)
-                        lf[F_WORK, l] += jump
-                        lf[F_SPREAD, l] += abs(jump)
-                        li[I_PIECE, l] = piece(waves, t_new)
-                lf[F_WORST, l] = max(lf[F_WORST, l], abs(res))
-                if t_new >= lf[F_STOP, l]:
-                    li[C_CODE, l] = TIME
-                    t_new = lf[F_STOP, l]
-                lf[F_T, l] = t_new
-                w[W_T, l] = t_new
-                for i in range(6):
-                    vec[l, V_Y0, i] = vec[l, V_Y1, i]
-                    vec[l, V_K0, i] = w[W_RATE + i, l] if enter else vec[l, V_K1, i]
-                    w[W_Y0 + i, l] = vec[l, V_Y0, i]
-                    w[W_K + i, l] = vec[l, V_K0, i]
-                if enter:
-                    li[I_CI, l] = ni
-                    li[I_CJ, l] = nj
-                    for m in range(18):
-                        w[W_PATCH + m, l] = w[W_NEXT + m, l]
-                    if magnet is not None:
-                        for m in range(16):
-                            w[W_BPATCH + m, l] = w[W_BNEXT + m, l]
-                    if timed:
-                        dw[D_CELL, :, :, l] = dw[D_NEXT, :, :, l]
-                if corner:   # the first rate of the next step on the new piece
-                    first_rate(w, l, vec[l, V_Y0], t_new, dw, waves, li[I_PIECE, l], nodes, sym,
-                               mass, charge, vec[l, V_K0:V_K0 + 1], magnet)
-                    li[C_EVALS, l] += 1
-                    for i in range(6):
-                        w[W_K + i, l] = vec[l, V_K0, i]
-                steps = li[C_STEPS, l]
-                if n_path_cap > 0 and steps % li[I_STRIDE, l] == 0:
-                    if li[C_PATH, l] == n_path_cap - 1:
-                        li[C_PATH, l] = thin_path(paths[r], li[C_PATH, l])
-                        li[I_STRIDE, l] *= 2
-                    if steps % li[I_STRIDE, l] == 0:
-                        put_row(paths[r], li[C_PATH, l], lf[F_T, l], vec[l, V_Y0], ke1, res)
-                        li[C_PATH, l] += 1
-                lf[F_ERR, l] = propose(h, lf[F_ERR, l], w[W_ERR, l])
-            else:
-                if timed:
-                    dwk, mag = work_along(w, dw, l, rc, t_end, h, t, li[I_PIECE, l], waves, nodes,
-                                          sym, phi, buf)
-                    lf[F_WORK, l] += dwk
-                    lf[F_SPREAD, l] += mag
-                dense(rc, t_end, buf)
-                for i in range(6):
-                    vec[l, V_Y0, i] = buf[i]
-                lf[F_T, l] = t + t_end * h
-                ke1 = kinetic_energy_J(vec[l, V_Y0, 3], vec[l, V_Y0, 4], vec[l, V_Y0, 5], mass)
-                v1 = potential_at(herm, drive, li[I_PIECE, l], lf[F_T, l], nodes, sym,
-                                  vec[l, V_Y0, 0], vec[l, V_Y0, 1], vec[l, V_Y0, 2])
-                res = residual_J(lf[F_KE, l], ke1, charge, lf[F_V, l], v1)
-                if timed:
-                    res -= charge * lf[F_WORK, l]
-                lf[F_WORST, l] = max(lf[F_WORST, l], abs(res))
-                if n_path_cap > 0:
-                    put_row(paths[r], li[C_PATH, l], lf[F_T, l], vec[l, V_Y0], ke1, res)
-                    li[C_PATH, l] += 1
+        search_steps(bounds, cell, nodes, sym, shapes, quiet, planes, stops, mass, sample, fine,
+                     touch_tol, cross_plane, cross_state, w, lf, li, vec, pa, hits, stack, buf)
+        move_lanes(herm, drive, dw, nodes, sym, mass, charge, cross_state, paths, magnet, w, lf,
+                   li, vec, phi, at_x, buf)
         busy = hand_in(final, info, spent, mass, lf, li, vec)
 
 
@@ -406,9 +204,9 @@ def trace_rays(starts, t_start, herm, waves, driven, nodes, sym, bounds, cell, s
     cross_state = np.zeros((n, max_cross, ROW_LEN))
     spent = np.zeros((n, 2))
     for g in prange(-(-n // group)):
-        trace_lanes(g * group, min(n, (g + 1) * group), starts, t_start, herm,
-                    Drive(waves, driven), nodes, sym,
+        drive = Drive(waves, driven)
+        trace_lanes(g * group, min(n, (g + 1) * group), starts, t_start, herm, drive, nodes, sym,
                     bounds, cell, shapes, mass, charge, t_max, rtol, atol_p, max_step, sample, fine,
                     planes, stops, max_steps, final, info, cross_plane, cross_state, paths, quiet,
-                    spent, magnet)
+                    spent, magnet, lane_work(drive))
     return final, info, cross_plane, cross_state, spent
