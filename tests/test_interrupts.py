@@ -69,3 +69,16 @@ def test_an_ignored_ctrl_c_stays_ignored():
             interrupts.check()
     finally:
         signal.signal(signal.SIGINT, previous)
+
+
+def test_a_ctrl_c_while_the_command_line_starts_exits_130(monkeypatch, capsys):
+    """A Ctrl-C that lands before any command runs (the command line still importing its modules
+    and reading its options) ends in one line and exit 130 too, no traceback."""
+    from tracer import cli
+
+    def interrupted():
+        raise KeyboardInterrupt
+
+    monkeypatch.setattr(cli, "build_parser", interrupted)
+    assert cli.main(["check", "any.toml"]) == 130
+    assert capsys.readouterr().err == "tracer: interrupted\n"

@@ -508,24 +508,28 @@ def build_parser() -> argparse.ArgumentParser:
 def main(argv: list[str] | None = None) -> int:
     """Run the command line; return the exit code."""
     from tracer.interrupts import by_interrupt, forget_unhandled, stopping
-    from tracer.schema import ConfigError
-    from tracer.store.atomic import no_space
 
-    for stream in (sys.stdout, sys.stderr):   # a terminal that cannot show a character gets an escape
-        if hasattr(stream, "reconfigure"):
-            stream.reconfigure(errors="backslashreplace")
-    parser = build_parser()
-    args = parser.parse_args(argv)
-    func = COMMANDS[args.command][0]
-    echo = print
     try:
         with contextlib.ExitStack() as stack:
-            stack.enter_context(stopping())   # SIGTERM stops as Ctrl-C does (exit 130)
+            stack.enter_context(stopping())   # SIGTERM stops as Ctrl-C does (exit 130), from here on
+            from tracer.schema import ConfigError
+            from tracer.store.atomic import no_space
+
+            for stream in (sys.stdout, sys.stderr):   # a terminal that cannot show a character gets an escape
+                if hasattr(stream, "reconfigure"):
+                    stream.reconfigure(errors="backslashreplace")
+            parser = build_parser()
+            args = parser.parse_args(argv)
+            func = COMMANDS[args.command][0]
             _one_line_warnings(stack)
             _lock_out(args, stack)
-            code = func(args, echo)
+            code = func(args, print)
         sys.stdout.flush()  # a closed pipe shows here, not at the interpreter's exit
         return code
+    except KeyboardInterrupt:   # first: a Ctrl-C in the imports above leaves ConfigError unset
+        forget_unhandled()
+        print("tracer: interrupted", file=sys.stderr)
+        return 130
     except BrokenPipeError:  # e.g. ``tracer run ... | head``: stop quietly, as pipes expect
         os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
         return 141
@@ -534,10 +538,6 @@ def main(argv: list[str] | None = None) -> int:
             traceback.print_exc()
         print(f"tracer: error: {exc}", file=sys.stderr)
         return 2
-    except KeyboardInterrupt:
-        forget_unhandled()
-        print("tracer: interrupted", file=sys.stderr)
-        return 130
     except Exception as exc:  # an internal fault: say so plainly, keep the details for --debug
         if by_interrupt(exc):  # numba's parallel kernels hand a Ctrl-C back inside a SystemError
             forget_unhandled()
