@@ -505,9 +505,18 @@ def build_parser() -> argparse.ArgumentParser:
     return parser
 
 
+def _interrupted() -> int:
+    """A handled Ctrl-C or SIGTERM: one line, exit code 130."""
+    from tracer.interrupts import forget_unhandled
+
+    forget_unhandled()
+    print("tracer: interrupted", file=sys.stderr)
+    return 130
+
+
 def main(argv: list[str] | None = None) -> int:
     """Run the command line; return the exit code."""
-    from tracer.interrupts import by_interrupt, forget_unhandled, stopping
+    from tracer.interrupts import by_interrupt, stopping
 
     try:
         with contextlib.ExitStack() as stack:
@@ -527,9 +536,7 @@ def main(argv: list[str] | None = None) -> int:
         sys.stdout.flush()  # a closed pipe shows here, not at the interpreter's exit
         return code
     except KeyboardInterrupt:   # first: a Ctrl-C in the imports above leaves ConfigError unset
-        forget_unhandled()
-        print("tracer: interrupted", file=sys.stderr)
-        return 130
+        return _interrupted()
     except BrokenPipeError:  # e.g. ``tracer run ... | head``: stop quietly, as pipes expect
         os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
         return 141
@@ -540,9 +547,7 @@ def main(argv: list[str] | None = None) -> int:
         return 2
     except Exception as exc:  # an internal fault: say so plainly, keep the details for --debug
         if by_interrupt(exc):  # numba's parallel kernels hand a Ctrl-C back inside a SystemError
-            forget_unhandled()
-            print("tracer: interrupted", file=sys.stderr)
-            return 130
+            return _interrupted()
         if args.debug:
             traceback.print_exc()
         if no_space(exc):      # a full disk: the writers name the file; what was there is kept
