@@ -9,7 +9,7 @@ from scipy.integrate import solve_ivp
 from scipy.integrate._ivp.rk import RK45
 
 from tracer import motion
-from tracer.motion import bundles, drive, events, force, stepper, tableau, walls
+from tracer.motion import bundles, events, force, stepper, tableau, walls
 from tracer.motion.bundles import Nodes, shapes_of
 from tracer.beam import symmetry_code, trace
 from tracer.config import loads
@@ -223,9 +223,8 @@ def lane_steps(rng, h, rtol=1e-9, atol_x=1e-12, atol_p=1e-30):
         w[bundles.W_K:bundles.W_K + 6, lane] = f(s)[0]
         w[bundles.W_PATCH:bundles.W_PATCH + 16, lane] = a
     w[bundles.W_CZ], w[bundles.W_CR], w[bundles.W_H], w[bundles.W_ATOL] = 2e-3, 1e-3, h, atol_p
-    static = drive.static_drive(np.zeros((4, 11, 11)))
-    stepper.lane_step(w, grid, 0, mass, charge, rtol, atol_x, drive.drive_workspace(static),
-                      static.waves, np.zeros(bundles.LANES, dtype=np.int64), None)
+    stepper.lane_step(w, grid, 0, mass, charge, rtol, atol_x, None, None,
+                      np.zeros(bundles.LANES, dtype=np.int64), None)
     return w, f, states
 
 

@@ -80,6 +80,31 @@ def _kernel_signatures():
     return set(lanes.trace_rays.signatures)
 
 
+def test_static_and_timed_runs_compile_kernels_of_their_own(monkeypatch):
+    """A static run hands the ray kernel None for the waveforms and the group maps, so numba
+    compiles a kernel of its own without the code of voltages in time (as an electric-only run is
+    compiled without the magnetic term); a run with voltages in time hands it the arrays."""
+    from tracer import motion
+    from tracer.config import load
+    from tracer.pipeline import run
+
+    kernel, handed = motion.trace_rays, []
+
+    def recorder(*args):
+        handed.append((args[3], args[4]))
+        return kernel(*args)
+
+    monkeypatch.setattr(motion, "trace_rays", recorder)
+    for config, timed in ((DEMO, False), (CONFIGS / "tof_delayed_extraction.toml", True)):
+        handed.clear()
+        run(warmup._small(load(config)))
+        assert handed, config.name
+        for waves, driven in handed:
+            assert (waves is None) == (driven is None) == (not timed), config.name
+            if timed:
+                assert driven.ndim == 4 and driven.shape[0] >= 1
+
+
 def test_zero_maps_are_a_solve_without_solving():
     """The maps the ray kernel is compiled on ahead have the solved maps' shapes and types."""
     from tracer.config import load

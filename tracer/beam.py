@@ -16,7 +16,6 @@ from scipy import constants
 
 from tracer import endings, footprint, ledger, measure, motion, sources
 from tracer.groups import GroupedMaps
-from tracer.motion.drive import Drive, static_drive
 from tracer.fieldmap import PotentialMap
 from tracer.geometry import surface_normals
 from tracer.schema import Beam, Plane
@@ -333,12 +332,13 @@ def trace(field: PotentialMap | GroupedMaps, beam: Beam, planes: Sequence[Plane]
     starts = start_states(beam, field, starts)
     n = len(starts)
     in_time = isinstance(field, GroupedMaps) and field.in_time
+    waves = driven = None      # a static field: the kernel compiled without voltages in time
     if isinstance(field, GroupedMaps):
         herm, volts = field.static, field.peaks_V()
-        drive = Drive(field.arrays, np.ascontiguousarray(field.driven))
+        if len(field.driven):
+            waves, driven = field.arrays, np.ascontiguousarray(field.driven)
     else:
         herm, volts = field.hermite, field.voltages
-        drive = static_drive(herm)
     herm = np.ascontiguousarray(herm, dtype=np.float64)
     scale = ledger.energy_scale_eV(starts["energy_eV"], sp.charge_C, volts)
     atol_p = rtol * sources.momentum(scale, sp.mass_kg)
@@ -365,7 +365,7 @@ def trace(field: PotentialMap | GroupedMaps, beam: Beam, planes: Sequence[Plane]
         with held_back():   # a signal's handler run inside the kernel's callbacks may crash it
             return motion.trace_rays(
                 np.ascontiguousarray(state[rows]), np.ascontiguousarray(starts["time_s"][rows]),
-                herm, drive.waves, drive.driven, nodes, sym, bounds, cell_map, shapes,
+                herm, waves, driven, nodes, sym, bounds, cell_map, shapes,
                 float(sp.mass_kg), float(sp.charge_C), float(max_time_s), float(rtol),
                 np.ascontiguousarray(atol_p[rows]), max_step_cells * cell, sample_cells * cell,
                 fine_cells * cell, plane_lines, plane_stop, int(max_steps), int(width), paths, quiet, group,

@@ -20,10 +20,10 @@ from tracer.motion.walls import STRETCH, cell_box, exit_time, reach
 
 
 @njit(cache=True, error_model="numpy", forceinline=True)
-def choose_steps(timed, corner, max_step_s, nodes, sym, mass, max_step, max_steps, snap, w, lf,
-                 li, vec, box, ahead):
-    """Each running lane's next step length into ``W_H`` of the workspace w (``corner`` and
-    ``max_step_s`` are those of the drive's waveforms, read when ``timed``)."""
+def choose_steps(waves, nodes, sym, mass, max_step, max_steps, snap, w, lf, li, vec, box, ahead):
+    """Each running lane's next step length into ``W_H`` of the workspace w (with voltages in
+    time, ``waves`` of the drive, ending on the next waveform corner and at most ``max_step_s``
+    long; ``None`` in a static field)."""
     for l in range(LANES):
         if li[I_RAY, l] < 0 or li[C_CODE, l] != RUNNING:
             continue
@@ -39,10 +39,10 @@ def choose_steps(timed, corner, max_step_s, nodes, sym, mass, max_step, max_step
             h = min(lf[F_ERR, l], step_cap(vec[l, V_Y0], vec[l, V_K0], mass, max_step),
                     lf[F_STOP, l] - t)
             hard = lf[F_STOP, l] - t     # a step never passes these, stretched or not
-            if timed:   # end on the next waveform corner; resolve the RF period
+            if waves is not None:   # end on the next waveform corner; resolve the RF period
                 m = li[I_PIECE, l]
-                t_corner = corner[m] if m < corner.size else np.inf
-                h = min(h, max_step_s, t_corner - t)
+                t_corner = waves.corner[m] if m < waves.corner.size else np.inf
+                h = min(h, waves.max_step_s, t_corner - t)
                 hard = min(hard, t_corner - t)
             cell_box(nodes, li[I_CI, l], li[I_CJ, l], box)
             reach(vec[l, V_RC:V_RC + 5], lf[F_HP, l], vec[l, V_Y0], vec[l, V_K0], mass,

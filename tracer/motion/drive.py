@@ -16,8 +16,10 @@ keeps the piece its step lies on, and every stage of the step weighs on that pie
 line, continued to the step's end, so the last stage of a step that ends on a corner sees the
 waveform from the left.
 
-:class:`Drive` carries the waveforms and the group maps into the kernel; a static field is a
-Drive with K = 0, for which none of this runs.
+:class:`Drive` carries the waveforms and the group maps into the kernel. A static field passes
+``None`` instead, as an electric-only run passes ``None`` for the magnet: numba then compiles a
+kernel of its own without any of this (the timed code costs a static run's first compile nothing,
+and each kernel is specialised for its case).
 """
 
 from collections import namedtuple
@@ -28,19 +30,24 @@ from numba import njit
 from tracer.fieldmap import patch_coefficients
 from tracer.motion.bundles import LANES, W_H, W_T
 from tracer.motion.force import field_at, patch_field
-from tracer.waveforms import value, wave_arrays
+from tracer.waveforms import value
 
 Drive = namedtuple("Drive", ["waves", "driven"])
 """The time-dependent part of a field: ``waves`` (:class:`tracer.waveforms.WaveArrays` of the K
 groups) and ``driven`` (float64[K, 4, nz, nr], the Hermite node data of each group map M_k)."""
 
+
+@njit(cache=True, error_model="numpy")
+def drive_of(waves, driven):
+    """The Drive of the waveforms ``waves`` and group maps ``driven``; None when both are None
+    (a static field)."""
+    if driven is None:
+        return None
+    return Drive(waves, driven)
+
+
 D_CELL, D_NEXT = 0, 1
 """The two slots of a drive workspace: the cell a lane is in, and the cell it is entering."""
-
-
-def static_drive(herm):
-    """The Drive of a static field on the nodes of Hermite data ``herm`` (K = 0)."""
-    return Drive(wave_arrays(()), np.zeros((0,) + herm.shape))
 
 
 @njit(cache=True, error_model="numpy")
@@ -91,8 +98,11 @@ def group_potentials(drive, nodes, sym, x, y, z, out):
 
 @njit(cache=True, error_model="numpy")
 def potential_at(herm, drive, m, t, nodes, sym, x, y, z):
-    """V(x, t) on waveform piece m: the static map plus the weighted group maps, volts."""
+    """V(x, t) on waveform piece m: the static map plus the weighted group maps (``drive``; None:
+    the static map's alone), volts."""
     v = field_at(herm, nodes, sym, x, y, z)[0]
+    if drive is None:
+        return v
     for k in range(drive.driven.shape[0]):
         v += value(drive.waves, k, m, t) * field_at(drive.driven[k], nodes, sym, x, y, z)[0]
     return v

@@ -48,7 +48,7 @@ from tracer.ledger import GAUSS_POINTS
 from tracer.motion.bundles import COUNTS, I_PIECE, LANES, ROW_LEN, W_ROWS, lane_state
 from tracer.motion.check import check_steps, load_next_groups
 from tracer.motion.choose import choose_steps
-from tracer.motion.drive import Drive, drive_workspace
+from tracer.motion.drive import drive_of, drive_workspace
 from tracer.motion.events import MAX_HALVINGS, TOUCH
 from tracer.motion.move import move_lanes
 from tracer.motion.rays import hand_in, take_rays
@@ -62,12 +62,16 @@ from tracer.motion.walls import SNAP
 def lane_work(drive):
     """The workspace of one :func:`trace_lanes` call (``work``), allocated by its caller, which
     holds it while the loop borrows it: the stepper's workspace, the lane state
-    (:func:`tracer.motion.bundles.lane_state`), the drive workspace and the scratch of the
-    phases, in the order in which :func:`trace_lanes` unpacks them."""
-    nk = drive.driven.shape[0]
+    (:func:`tracer.motion.bundles.lane_state`), the drive workspace and the dV/dt work's scratch
+    (three ``None`` for a static field, ``drive`` None) and the scratch of the other phases, in
+    the order in which :func:`trace_lanes` unpacks them."""
     lf, li, vec = lane_state()
-    return (np.zeros((W_ROWS, LANES)), lf, li, vec, drive_workspace(drive),
-            np.zeros((GAUSS_POINTS, nk)), np.zeros(nk),
+    if drive is None:
+        timed = (None, None, None)
+    else:
+        nk = drive.driven.shape[0]
+        timed = (drive_workspace(drive), np.zeros((GAUSS_POINTS, nk)), np.zeros(nk))
+    return (np.zeros((W_ROWS, LANES)), lf, li, vec) + timed + (
             np.empty((1, 6)),      # a rate in a new cell
             np.empty((3, 5)),      # the predicted path of the next step (walls.reach)
             np.empty(6),
@@ -96,11 +100,12 @@ def trace_lanes(lo, hi, starts, t_start, herm, drive, nodes, sym, bounds, cell, 
     is kept for the end point). In the cells marked by ``quiet``
     (:func:`tracer.motion.events.quiet_cells`) accepted steps skip the event search.
 
-    Voltages in time (``drive`` with K > 0 groups, :mod:`tracer.motion.drive`): ray r starts at
-    ``t_start[r]`` and flies for at most ``t_max``; its steps end on waveform corners (where a
-    jump adds its work) and are at most ``drive.waves.max_step_s`` long; the ledger subtracts the
-    dV/dt work (:func:`tracer.ledger.time_ledger_J`), whose sum and magnitude over the ray go to
-    ``spent[r]`` (volts). With K = 0 none of this runs and the trace is the static one.
+    Ray r starts at ``t_start[r]`` and flies for at most ``t_max``. Voltages in time (a
+    :class:`tracer.motion.drive.Drive`; ``None`` compiles the static kernel, without any of
+    this): its steps end on waveform corners (where a jump adds its work) and are at most
+    ``drive.waves.max_step_s`` long; the ledger subtracts the dV/dt work
+    (:func:`tracer.ledger.time_ledger_J`), whose sum and magnitude over the ray go to
+    ``spent[r]`` (volts).
 
     A ``magnet`` (:class:`tracer.motion.bundles.Magnet`) adds q v x B to the force, the lanes
     keeping A_theta's polynomial of their cells beside the potential's; ``None`` compiles the
@@ -110,8 +115,7 @@ def trace_lanes(lo, hi, starts, t_start, herm, drive, nodes, sym, bounds, cell, 
     reference counting, see the module's docstring).
     """
     w, lf, li, vec, dw, phi, at_x, k_new, ahead, buf, hits, stack, pa, box = work
-    waves = drive.waves
-    timed = drive.driven.shape[0] > 0
+    waves = None if drive is None else drive.waves
     atol_x = rtol * min(nodes.hz, nodes.hr)
     touch_tol = TOUCH * min(nodes.hz, nodes.hr)
     snap = SNAP * min(nodes.hz, nodes.hr)
@@ -126,13 +130,13 @@ def trace_lanes(lo, hi, starts, t_start, herm, drive, nodes, sym, bounds, cell, 
             nxt = taken
         if busy == 0:
             break
-        choose_steps(timed, waves.corner, waves.max_step_s, nodes, sym, mass, max_step,
-                     max_steps, snap, w, lf, li, vec, box, ahead)
-        lane_step(w, nodes, sym, mass, charge, rtol, atol_x, dw, waves, li[I_PIECE], magnet)
+        choose_steps(waves, nodes, sym, mass, max_step, max_steps, snap, w, lf, li, vec, box,
+                     ahead)
+        lane_step(w, nodes, sym, mass, charge, rtol, atol_x, drive, dw, li[I_PIECE], magnet)
         check_steps(herm, nodes, sym, mass, snap, magnet, w, lf, li, vec, box, buf)
-        if timed:
+        if drive is not None:
             load_next_groups(drive, dw, nodes, sym, w, li)
-        lane_next_rates(w, nodes, sym, mass, charge, dw, waves, li[I_PIECE], magnet)
+        lane_next_rates(w, nodes, sym, mass, charge, drive, dw, li[I_PIECE], magnet)
         if settle_steps(rtol, atol_p, w, lf, li, vec, k_new) > 0:
             cut_back(nodes, sym, shapes, w, lf, li, vec, box, buf)
 
@@ -160,9 +164,9 @@ def trace_rays(starts, t_start, herm, waves, driven, nodes, sym, bounds, cell, s
     herm : float64[4, nz, nr]
         The map's Hermite node data (:class:`tracer.fieldmap.PotentialMap`); with voltages in
         time, that of the static map.
-    waves, driven : tracer.waveforms.WaveArrays, float64[K, 4, nz, nr]
-        The waveforms and group maps (:class:`tracer.motion.drive.Drive`; K = 0 for a static
-        field), apart: numba's parallel loop takes no tuple of tuples.
+    waves, driven : tracer.waveforms.WaveArrays, float64[K, 4, nz, nr] or None, None
+        The waveforms and group maps (:class:`tracer.motion.drive.Drive`), apart: numba's parallel
+        loop takes no tuple of tuples. ``None`` for a static field compiles the static kernel.
     nodes : Nodes
         Its node grid.
     sym : int
@@ -204,7 +208,7 @@ def trace_rays(starts, t_start, herm, waves, driven, nodes, sym, bounds, cell, s
     cross_state = np.zeros((n, max_cross, ROW_LEN))
     spent = np.zeros((n, 2))
     for g in prange(-(-n // group)):
-        drive = Drive(waves, driven)
+        drive = drive_of(waves, driven)
         trace_lanes(g * group, min(n, (g + 1) * group), starts, t_start, herm, drive, nodes, sym,
                     bounds, cell, shapes, mass, charge, t_max, rtol, atol_p, max_step, sample, fine,
                     planes, stops, max_steps, final, info, cross_plane, cross_state, paths, quiet,

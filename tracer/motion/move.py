@@ -75,8 +75,6 @@ def move_lanes(herm, drive, dw, nodes, sym, mass, charge, cross_state, paths, ma
 
     ``phi`` (float64[GAUSS_POINTS, K]), ``at_x`` (float64[K]) and ``buf`` (float64[6]) are scratch.
     """
-    waves = drive.waves
-    timed = drive.driven.shape[0] > 0
     max_cross = cross_state.shape[1]
     for l in range(LANES):
         if not li[I_TAKEN, l]:
@@ -92,9 +90,9 @@ def move_lanes(herm, drive, dw, nodes, sym, mass, charge, cross_state, paths, ma
             vq = potential_at(herm, drive, li[I_PIECE, l], t + th * h, nodes, sym, buf[0],
                               buf[1], buf[2])
             res = residual_J(lf[F_KE, l], ke, charge, lf[F_V, l], vq)
-            if timed:
-                wq = lf[F_WORK, l] + work_along(w, dw, l, rc, th, h, t, li[I_PIECE, l], waves,
-                                                nodes, sym, phi, buf)[0]
+            if drive is not None:
+                wq = lf[F_WORK, l] + work_along(w, dw, l, rc, th, h, t, li[I_PIECE, l],
+                                                drive.waves, nodes, sym, phi, buf)[0]
                 dense(rc, th, buf)
                 res -= charge * wq
             lf[F_WORST, l] = max(lf[F_WORST, l], abs(res))
@@ -117,22 +115,22 @@ def move_lanes(herm, drive, dw, nodes, sym, mass, charge, cross_state, paths, ma
             ke1 = kinetic_energy_J(vec[l, V_Y1, 3], vec[l, V_Y1, 4], vec[l, V_Y1, 5], mass)
             res = residual_J(lf[F_KE, l], ke1, charge, lf[F_V, l], v1)
             corner = False
-            if timed:
-                dwk, mag = work_along(w, dw, l, rc, 1.0, h, t, li[I_PIECE, l], waves, nodes,
-                                      sym, phi, buf)
+            if drive is not None:
+                dwk, mag = work_along(w, dw, l, rc, 1.0, h, t, li[I_PIECE, l], drive.waves,
+                                      nodes, sym, phi, buf)
                 lf[F_WORK, l] += dwk
                 lf[F_SPREAD, l] += mag
                 res -= charge * lf[F_WORK, l]
                 m = li[I_PIECE, l]
-                if m < waves.corner.size and t_new >= waves.corner[m]:
+                if m < drive.waves.corner.size and t_new >= drive.waves.corner[m]:
                     # the step ends on a corner: a jump's work, the next piece
                     corner = True
-                    t_new = waves.corner[m]
+                    t_new = drive.waves.corner[m]
                     jump = corner_jump(drive, t_new, nodes, sym, vec[l, V_Y1, 0],
                                        vec[l, V_Y1, 1], vec[l, V_Y1, 2], at_x)
                     lf[F_WORK, l] += jump
                     lf[F_SPREAD, l] += abs(jump)
-                    li[I_PIECE, l] = piece(waves, t_new)
+                    li[I_PIECE, l] = piece(drive.waves, t_new)
             lf[F_WORST, l] = max(lf[F_WORST, l], abs(res))
             if t_new >= lf[F_STOP, l]:
                 li[C_CODE, l] = TIME
@@ -152,13 +150,13 @@ def move_lanes(herm, drive, dw, nodes, sym, mass, charge, cross_state, paths, ma
                 if magnet is not None:
                     for m in range(16):
                         w[W_BPATCH + m, l] = w[W_BNEXT + m, l]
-                if timed:   # element by element, as in thin_path
+                if drive is not None:   # element by element, as in thin_path
                     for k in range(dw.shape[1]):
                         for m in range(dw.shape[2]):
                             dw[D_CELL, k, m, l] = dw[D_NEXT, k, m, l]
-            if corner:   # the first rate of the next step on the new piece
-                first_rate(w, l, vec[l, V_Y0], t_new, dw, waves, li[I_PIECE, l], nodes, sym,
-                           mass, charge, vec[l, V_K0:V_K0 + 1], magnet)
+            if drive is not None and corner:   # the first rate of the next step on the new piece
+                first_rate(w, l, vec[l, V_Y0], t_new, dw, drive.waves, li[I_PIECE, l], nodes,
+                           sym, mass, charge, vec[l, V_K0:V_K0 + 1], magnet)
                 li[C_EVALS, l] += 1
                 for i in range(6):
                     w[W_K + i, l] = vec[l, V_K0, i]
@@ -173,9 +171,9 @@ def move_lanes(herm, drive, dw, nodes, sym, mass, charge, cross_state, paths, ma
             lf[F_ERR, l] = propose(h, lf[F_ERR, l], w[W_ERR, l])
         else:
             t_end = lf[F_END, l]
-            if timed:
-                dwk, mag = work_along(w, dw, l, rc, t_end, h, t, li[I_PIECE, l], waves, nodes,
-                                      sym, phi, buf)
+            if drive is not None:
+                dwk, mag = work_along(w, dw, l, rc, t_end, h, t, li[I_PIECE, l], drive.waves,
+                                      nodes, sym, phi, buf)
                 lf[F_WORK, l] += dwk
                 lf[F_SPREAD, l] += mag
             dense(rc, t_end, buf)
@@ -186,7 +184,7 @@ def move_lanes(herm, drive, dw, nodes, sym, mass, charge, cross_state, paths, ma
             v1 = potential_at(herm, drive, li[I_PIECE, l], lf[F_T, l], nodes, sym,
                               vec[l, V_Y0, 0], vec[l, V_Y0, 1], vec[l, V_Y0, 2])
             res = residual_J(lf[F_KE, l], ke1, charge, lf[F_V, l], v1)
-            if timed:
+            if drive is not None:
                 res -= charge * lf[F_WORK, l]
             lf[F_WORST, l] = max(lf[F_WORST, l], abs(res))
             if n_path_cap > 0:

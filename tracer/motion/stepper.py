@@ -115,7 +115,7 @@ def lane_stage(w, st, nodes, sym, mass, charge, magnet):
 
 
 @njit(cache=True, error_model="numpy", inline="always")
-def lane_step(w, nodes, sym, mass, charge, rtol, atol_x, dw, waves, pieces, magnet):
+def lane_step(w, nodes, sym, mass, charge, rtol, atol_x, drive, dw, pieces, magnet):
     """One Dormand–Prince 5(4) step in every lane of a workspace (rows ``W_*``, one column a lane).
 
     Each lane steps from its state y0 (``W_Y0``) at time ``W_T`` with first stage rate ``W_K`` over
@@ -126,9 +126,9 @@ def lane_step(w, nodes, sym, mass, charge, rtol, atol_x, dw, waves, pieces, magn
     atol + rtol max(|y0|, |y1|); ``atol_x`` for positions, ``W_ATOL`` for momenta) into ``W_ERR``
     and the continuous extension (Hairer et al. 1993) into ``W_DENSE``.
 
-    Voltages in time: with a drive workspace dw of K > 0 groups (:mod:`tracer.motion.drive`), the
+    Voltages in time: with a ``drive`` and its workspace dw (:mod:`tracer.motion.drive`), the
     cell polynomial of each stage is first weighed at the stage's time on the waveform piece
-    ``pieces[l]``; with K = 0 the stages read ``W_PATCH`` as it is. With a ``magnet``
+    ``pieces[l]``; in a static field (both ``None``) the stages read ``W_PATCH`` as it is. With a ``magnet``
     (:class:`tracer.motion.bundles.Magnet`, else None) the force adds q v x B, A_theta's
     polynomial read from ``W_BPATCH``, and the uniform fields' in a loop of their own
     (:func:`lanes_uniform`).
@@ -137,10 +137,9 @@ def lane_step(w, nodes, sym, mass, charge, rtol, atol_x, dw, waves, pieces, magn
     selects, so it compiles to SIMD instructions over the lanes (when w is a workspace allocated
     by the caller it is inlined into, whose shape the compiler then knows; ``W_RATE`` is scratch).
     """
-    timed = dw.shape[1] > 1
     for st in range(1, 7):
-        if timed:
-            weigh_lanes(dw, D_CELL, w, W_PATCH, waves, pieces, DP_C[st])
+        if drive is not None:
+            weigh_lanes(dw, D_CELL, w, W_PATCH, drive.waves, pieces, DP_C[st])
         lane_stage(w, st, nodes, sym, mass, charge, magnet)
     for l in range(LANES):
         h = w[W_H, l]
@@ -166,12 +165,12 @@ def lane_step(w, nodes, sym, mass, charge, rtol, atol_x, dw, waves, pieces, magn
 
 
 @njit(cache=True, error_model="numpy", inline="always")
-def lane_next_rates(w, nodes, sym, mass, charge, dw, waves, pieces, magnet):
+def lane_next_rates(w, nodes, sym, mass, charge, drive, dw, pieces, magnet):
     """The rates at the end states ``W_Y1`` of all lanes in the cells they are about to enter
     (``W_NEXT`` and ``W_BNEXT``, weighed at the step's end as in :func:`lane_step`) into
     ``W_RATE``, the potentials into ``W_VN``: one SIMD loop over the lanes."""
-    if dw.shape[1] > 1:
-        weigh_lanes(dw, D_NEXT, w, W_NEXT, waves, pieces, 1.0)
+    if drive is not None:
+        weigh_lanes(dw, D_NEXT, w, W_NEXT, drive.waves, pieces, 1.0)
     for l in range(LANES):
         lane_rate(w, l, w[W_T, l] + w[W_H, l], nodes, sym, mass, charge, W_NEXT, W_VN, magnet,
                   W_BNEXT)
