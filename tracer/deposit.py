@@ -61,9 +61,9 @@ from __future__ import annotations
 import math
 
 import numpy as np
-from numba import njit
 
 from tracer.fieldmap import edge_reflection
+from tracer.jit import njit
 
 
 @njit(cache=True, inline="always")

@@ -50,11 +50,11 @@ from collections.abc import Mapping
 from dataclasses import dataclass
 
 import numpy as np
-from numba import njit
 
 from tracer.display import Shown, grid_text, megabytes, voltage_text
 from tracer.geometry import electrode_at, shape_table
 from tracer.grid import Grid
+from tracer.jit import njit
 
 ARM_MIN = 0.5
 """Arms shorter than this fraction of the spacing do not use the free node next to the surface."""

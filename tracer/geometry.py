@@ -34,8 +34,8 @@ import math
 from dataclasses import dataclass
 
 import numpy as np
-from numba import njit
 
+from tracer.jit import njit
 from tracer.schema import Arc, ConfigError, Polygon, Rect
 
 POLYGON = 0

@@ -11,7 +11,8 @@ import math
 from dataclasses import dataclass
 
 import numpy as np
-from numba import njit
+
+from tracer.jit import njit
 
 
 def _cells(length, cell):

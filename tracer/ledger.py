@@ -62,9 +62,9 @@ voltages (``Waveform.peak_V``) among the electrode voltages.
 from dataclasses import dataclass
 
 import numpy as np
-from numba import njit
 from scipy import constants
 
+from tracer.jit import njit
 from tracer.waveforms import jump_at, rate
 
 DEFAULT_THRESHOLD = 1e-6

@@ -115,13 +115,13 @@ from dataclasses import dataclass, fields
 from typing import Protocol
 
 import numpy as np
-from numba import njit
 from scipy import constants
 from scipy.optimize import brentq
 
 from tracer.axial import AxialPotential, axial_potential, fit_axial
 from tracer.display import Shown, number
 from tracer.fieldmap import PotentialMap
+from tracer.jit import njit
 from tracer.species import Species
 
 SUBSTEPS = 16   # Runge-Kutta steps a grid cell: a whole number of steps per knot interval

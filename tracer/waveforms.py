@@ -53,8 +53,9 @@ from pathlib import Path
 from typing import NamedTuple
 
 import numpy as np
-from numba import njit
 from scipy import constants
+
+from tracer.jit import njit
 
 STEPS_PER_PERIOD = 16
 """A sinusoid's period takes at least this many steps (:attr:`WaveArrays.max_step_s`)."""

@@ -17,8 +17,8 @@ from dataclasses import dataclass
 from typing import NamedTuple
 
 import numpy as np
-from numba import njit, prange
 
+from tracer.jit import njit, prange
 from tracer.magnetics.loop import loop_unit, over_points
 
 ORDER = 12

@@ -25,8 +25,9 @@ from __future__ import annotations
 import math
 
 import numpy as np
-from numba import njit
 from scipy import constants
+
+from tracer.jit import njit
 
 MU0_OVER_PI = constants.mu_0 / math.pi
 

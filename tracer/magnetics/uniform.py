@@ -25,7 +25,8 @@ import math
 from dataclasses import dataclass
 
 import numpy as np
-from numba import njit
+
+from tracer.jit import njit
 
 UNBOUNDED = (-math.inf, math.inf)
 

@@ -35,9 +35,9 @@ from collections.abc import Mapping
 from dataclasses import dataclass
 
 import numpy as np
-from numba import njit
 
 from tracer.fieldmap import hermite_eval, named_settings
+from tracer.jit import njit
 from tracer.magnetics.coil import coil_field
 from tracer.magnetics.loop import over_points
 

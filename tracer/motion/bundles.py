@@ -15,8 +15,8 @@ arrays, whose arrays the kernels may write), and caches kernels that take them.
 from collections import namedtuple
 
 import numpy as np
-from numba import njit
 
+from tracer.jit import njit
 from tracer.magnetics.uniform import EVERYWHERE, ROW, UniformField
 from tracer.magnetics.units import MagneticMap
 

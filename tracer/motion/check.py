@@ -11,9 +11,8 @@ drive workspace's ``D_NEXT`` too, :func:`load_next_groups`) for
 cells of path, when it too is to be cut back (:func:`tracer.motion.settle.cut_back`).
 """
 
-from numba import njit
-
 from tracer.fieldmap import patch_coefficients
+from tracer.jit import njit
 from tracer.motion.bundles import (C_CODE, C_EVALS, C_REJECTED, F_DT, F_ERR, F_THETA, I_AHEAD_I,
                                    I_AHEAD_J, I_CI, I_CJ, I_END_I, I_END_J, I_NEED, I_PASSED,
                                    I_PAST, I_RAY, LANES, RUNNING, V_K0,

@@ -10,8 +10,8 @@ A ray that has taken ``max_steps`` steps, or whose step no longer moves its cloc
 """
 
 import numpy as np
-from numba import njit
 
+from tracer.jit import njit
 from tracer.motion.bundles import (C_CODE, C_REJECTED, C_STEPS, F_CUT, F_ERR, F_HP, F_STOP,
                                    F_T, I_CI, I_CJ, I_CUT, I_PIECE, I_RAY, LANES, RUNNING,
                                    STALLED, V_K0, V_RC, V_Y0, W_H)

@@ -25,9 +25,9 @@ and each kernel is specialised for its case).
 from collections import namedtuple
 
 import numpy as np
-from numba import njit
 
 from tracer.fieldmap import patch_coefficients
+from tracer.jit import njit
 from tracer.motion.bundles import LANES, W_H, W_T
 from tracer.motion.force import field_at, patch_field
 from tracer.waveforms import value

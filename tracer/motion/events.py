@@ -29,9 +29,9 @@ chord by at most M share^2 / 8, for a piece that is ``share`` of the step.
 import math
 
 import numpy as np
-from numba import njit
 
 from tracer.geometry import electrode_at, first_hit, near_boundary
+from tracer.jit import njit
 from tracer.motion.stepper import dense
 from tracer.motion.symmetry import map_r, r_rate
 

@@ -21,10 +21,10 @@ where there are no regions). It does no work, so the ledger is unchanged. Withou
 
 import math
 
-from numba import njit
 from scipy import constants
 
 from tracer.fieldmap import cell_index, patch_coefficients, patch_eval
+from tracer.jit import njit
 from tracer.magnetics.uniform import inside
 from tracer.motion.symmetry import map_r
 

@@ -42,8 +42,8 @@ reference counting would release a reference it was never given.
 """
 
 import numpy as np
-from numba import njit, prange
 
+from tracer.jit import njit, prange
 from tracer.ledger import GAUSS_POINTS
 from tracer.motion.bundles import COUNTS, I_PIECE, LANES, ROW_LEN, W_ROWS, lane_state
 from tracer.motion.check import check_steps, load_next_groups

@@ -9,8 +9,7 @@ enters it, the path point and the next step's proposal. A lane whose ray ended o
 to the event instead, with the ledger there.
 """
 
-from numba import njit
-
+from tracer.jit import njit
 from tracer.ledger import GAUSS_POINTS, GAUSS_THETA, kinetic_energy_J, residual_J, time_work
 from tracer.motion.bundles import (C_CODE, C_CROSSINGS, C_EVALS, C_PATH, C_STEPS, F_END, F_ERR,
                                    F_KE, F_SPREAD, F_STOP, F_T, F_V, F_WORK, F_WORST, I_AHEAD_I,

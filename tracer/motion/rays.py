@@ -8,9 +8,8 @@ and counts into the kernel's outputs and is free again (:func:`hand_in`). The la
 of :func:`tracer.motion.bundles.lane_state`.
 """
 
-from numba import njit
-
 from tracer.fieldmap import patch_coefficients
+from tracer.jit import njit
 from tracer.ledger import kinetic_energy_J
 from tracer.motion.bundles import (C_CODE, C_CROSSINGS, C_ELECTRODE, C_EVALS, C_PATH,
                                    C_REJECTED, C_STEPS, COUNTS, F_CUT, F_ERR, F_HP, F_KE,

@@ -11,8 +11,7 @@ which writes their state rows with the ledger there.
 
 import math
 
-from numba import njit
-
+from tracer.jit import njit
 from tracer.motion.bundles import (C_CODE, C_CROSSINGS, C_ELECTRODE, F_END, I_CI, I_CJ,
                                    I_CROSS_FROM, I_RAY, I_TAKEN, LANDED, LANES, LEFT, PLANE, ROW_T,
                                    RUNNING, V_RC, V_Y0, V_Y1, W_H)

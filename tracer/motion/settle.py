@@ -9,8 +9,7 @@ other passed step is accepted: counted, its dense output kept for the next step'
 for the event search.
 """
 
-from numba import njit
-
+from tracer.jit import njit
 from tracer.motion.bundles import (C_EVALS, C_REJECTED, C_STEPS, F_CUT, F_DT, F_HP, F_THETA,
                                    I_CI, I_CJ, I_CUT, I_ENTER, I_NEED, I_PASSED, I_PAST, I_RAY,
                                    I_TAKEN, LANES, V_K1, V_RC, V_RT, V_Y0, V_Y1, W_H, W_RATE)

@@ -18,9 +18,9 @@ SAFETY err^(-1/5))), and never longer than h after a rejected step.
 import math
 
 import numpy as np
-from numba import njit
 
 from tracer.fieldmap import patch_coefficients
+from tracer.jit import njit
 from tracer.motion.bundles import (LANES, W_BNEXT, W_BPATCH, W_DENSE, W_ERR, W_ATOL, W_H, W_K,
                                    W_NEXT, W_PATCH, W_RATE, W_T, W_V1, W_VN, W_Y0, W_Y1)
 from tracer.motion.drive import D_CELL, D_NEXT, weigh, weigh_lanes

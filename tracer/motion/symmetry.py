@@ -7,7 +7,7 @@
 
 import math
 
-from numba import njit
+from tracer.jit import njit
 
 SYMMETRY_CODE = {"axial": 0, "planar": 1, "mirror": 2}
 

@@ -21,8 +21,8 @@ cell's walls, and ends at the wall where the ray leaves the cell:
 import math
 
 import numpy as np
-from numba import njit
 
+from tracer.jit import njit
 from tracer.motion.events import EV_LINE, locate, r_line, z_line
 from tracer.motion.force import cell_of, gamma_mass
 from tracer.motion.stepper import dense

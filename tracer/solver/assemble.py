@@ -4,8 +4,8 @@ from dataclasses import dataclass
 
 import numpy as np
 import scipy.sparse as sp
-from numba import njit
 
+from tracer.jit import njit
 from .stencil import FIXED, REGULAR, operator
 
 

@@ -15,8 +15,8 @@ in order (nodes of one colour couple only along the axis rows, two nodes apart).
 """
 
 import numpy as np
-from numba import njit
 
+from tracer.jit import njit
 from .relax import residual_row, sweep_row
 from .transfer import prolong_row, restrict_row
 

@@ -6,8 +6,8 @@ The unknown ``u`` is the homogeneous part of the solution (zero on fixed nodes).
 """
 
 import numpy as np
-from numba import njit
 
+from tracer.jit import njit
 from .stencil import FIXED, REGULAR, arm_coefficients, end_owner
 
 @njit(cache=True, inline="always")

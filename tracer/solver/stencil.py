@@ -41,7 +41,8 @@ zero elsewhere.
 """
 
 import numpy as np
-from numba import njit
+
+from tracer.jit import njit
 
 GROUND = 0
 OPEN = 1

@@ -9,8 +9,8 @@ fine row at a time.
 from dataclasses import dataclass
 
 import numpy as np
-from numba import njit
 
+from tracer.jit import njit
 from .stencil import FIXED
 
 
