@@ -105,18 +105,30 @@ def test_static_and_timed_runs_compile_kernels_of_their_own(monkeypatch):
                 assert driven.ndim == 4 and driven.shape[0] >= 1
 
 
-def test_zero_maps_are_a_solve_without_solving():
-    """The maps the ray kernel is compiled on ahead have the solved maps' shapes and types."""
+def test_zero_maps_are_a_solve_without_solving(monkeypatch):
+    """The maps the ray kernel is compiled on ahead have the solved maps' shapes and types, and are
+    made without a kernel (the raster's and the Hermite data's compile in the solving process)."""
+    from tracer import fieldmap, geometry
     from tracer.config import load
     from tracer.pipeline import solve
 
     setup = warmup._small(load(DEMO))
-    zero, solved = warmup.zero_maps(setup), solve(setup)
+    solved = solve(setup)
+
+    def no_kernel(*args):
+        raise AssertionError("a kernel ran")
+
+    monkeypatch.setattr(geometry, "_rasterize", no_kernel)
+    monkeypatch.setattr(fieldmap, "hermite_data", no_kernel)
+    zero = warmup.zero_maps(setup)
     assert zero.names == solved.names and zero.voltages == solved.voltages
-    for a, b in ((zero.unit, solved.unit), (zero.hermite, solved.hermite)):
+    assert zero.geometry_hash == solved.geometry_hash
+    for a, b in ((zero.unit, solved.unit), (zero.hermite, solved.hermite),
+                 (zero.raster.owner, solved.raster.owner), (zero.raster.arm, solved.raster.arm),
+                 (zero.raster.arm_owner, solved.raster.arm_owner),
+                 (zero.raster.cell, solved.raster.cell)):
         assert a.shape == b.shape and a.dtype == b.dtype and a.flags.c_contiguous == b.flags.c_contiguous
-    assert not zero.unit.any()
-    assert (zero.raster.cell == solved.raster.cell).all()
+    assert not zero.unit.any() and not zero.hermite.any()
 
 
 def test_the_kernel_compiled_ahead_is_the_one_the_run_uses():

@@ -82,20 +82,26 @@ def _spare_cores() -> int:
 
 
 def zero_maps(setup):
-    """The basis maps of a setup's geometry with every unit map zero: what a solve returns, in
-    types and shapes, without solving (:class:`tracer.fieldmap.BasisMaps`)."""
+    """The basis maps of a setup's geometry with every unit map zero and no shape rasterized:
+    what a solve returns, in types and shapes (:class:`tracer.fieldmap.BasisMaps`), made without
+    any kernel, so that a process compiling the ray kernel beside a solve starts on it at once
+    instead of compiling the raster's and the Hermite data's kernels a second time."""
     import numpy as np
 
-    from tracer.fieldmap import basis_maps
-    from tracer.geometry import rasterize, shape_table
+    from tracer.fieldmap import BasisMaps
+    from tracer.geometry import Raster, shape_table
     from tracer.grid import Grid
-    from tracer.solver.unit import UnitSolution
 
     grid = Grid.from_domain(setup.domain)
-    table = shape_table(setup.electrodes, setup.domain)
-    unit = np.zeros((len(setup.electrodes), grid.nz, grid.nr))
-    history = tuple(np.zeros(1) for _ in setup.electrodes)
-    return basis_maps(setup, UnitSolution(unit, rasterize(table, grid), history))
+    nz, nr, n = grid.nz, grid.nr, len(setup.electrodes)
+    free = Raster(owner=np.full((nz, nr), -1), arm=np.ones((nz, nr, 4)),
+                  arm_owner=np.full((nz, nr, 4), -1), cell=np.full((nz - 1, nr - 1), -1))
+    names = tuple(e.name for e in setup.electrodes)
+    volts = setup.voltages()
+    return BasisMaps(grid, shape_table(setup.electrodes, setup.domain), free, names,
+                     tuple(float(volts[k]) for k in names), np.zeros((n, nz, nr)),
+                     np.zeros((n, 4, nz, nr)), tuple(np.zeros(1) for _ in names),
+                     setup.geometry_hash())
 
 
 def compile_rays(config) -> None:
