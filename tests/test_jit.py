@@ -103,6 +103,21 @@ def test_the_fingerprint_covers_what_kernels_can_see(tmp_path):
     assert stamp() != before
 
 
+def test_the_sources_follow_absolute_relative_and_renamed_imports(tmp_path):
+    root = tmp_path / "pkg"
+    (root / "sub").mkdir(parents=True)
+    files = {"__init__.py": "", "sub/__init__.py": "",
+             "kernels.py": "from tracer.jit import njit\nfrom .near import x\nfrom . import other as o\n"
+                           "from pkg.sub.deep import (y,\n    z)\nimport pkg.plain as p\n",
+             "near.py": "from .sub import leaf\n", "other.py": "", "sub/deep.py": "",
+             "sub/leaf.py": "", "plain.py": "", "unused.py": "import pkg.kernels\n"}
+    for name, text in files.items():
+        (root / name).write_text(text)
+    found = {p.relative_to(root).as_posix() for p in jit.kernel_sources(root)}
+    assert found == {"__init__.py", "kernels.py", "near.py", "other.py", "sub/__init__.py",
+                     "sub/deep.py", "sub/leaf.py", "plain.py"}
+
+
 def test_refresh_clears_only_a_folder_whose_fingerprint_differs(tmp_path, monkeypatch):
     monkeypatch.setattr(jit, "cache_folders", lambda sources: [tmp_path / "a", tmp_path / "b"])
     for name in "ab":

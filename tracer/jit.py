@@ -30,10 +30,10 @@ STAMP = "tracer-sources.sha256"
 """The file beside numba's cached kernels that holds the fingerprint they were compiled from."""
 
 USES = "from tracer.jit import"
-"""How a module that defines kernels starts to (the modules :func:`kernel_modules` looks for)."""
+"""The import that marks a module defining kernels (:func:`kernel_sources` looks for it)."""
 
-_IMPORT = re.compile(r"^[ \t]*(?:from[ \t]+(\.*[\w.]*)[ \t]+import[ \t]+\(?([\w \t,]*)|import[ \t]+([\w.]+))",
-                     re.MULTILINE)
+_IMPORT = re.compile(r"^[ \t]*(?:from[ \t]+(\.*[\w.]*)[ \t]+import[ \t]+\(?([\w \t,]*)"
+                     r"|import[ \t]+([\w.]+))", re.MULTILINE)
 
 
 def _module(path: Path, root: Path) -> str:
@@ -55,7 +55,7 @@ def _imports(name: str, text: str, is_package: bool) -> set[str]:
             anchor = package.split(".")[:len(package.split(".")) - (dots - 1)]
             base = ".".join(anchor + ([base] if base else []))
         found.add(base)
-        found.update(f"{base}.{n.strip()}" for n in names.split(",") if n.strip())
+        found.update(f"{base}.{n.split()[0]}" for n in names.split(",") if n.strip())
     return found
 
 
