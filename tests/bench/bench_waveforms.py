@@ -9,7 +9,7 @@ python tests/bench/bench_waveforms.py [--cpu] [TREE]).
 2. The cost of a waveform: the same rays with the lens electrode's voltage carrying a small 1 MHz
    sinusoid (one group map) and with a pulse that never switches in the traced time (a group with
    no cosine), against the static run in this process, the three taking turns: time and field
-   evaluations per ray (goal: at most one more map sum per stage per group).
+   evaluations per ray (goal: at most one more map evaluation per stage per group).
 3. A quadrupole ion trap (the tests' trap) holding an ion for 1000 RF periods (goal: seconds).
 
 ``--cpu`` times CPU seconds (time.process_time) on one numba thread instead of wall-clock

@@ -141,7 +141,9 @@ W_VN = 130      # the potential at the end state in that cell
 W_T = 131       # the time the step starts at
 W_BPATCH = 132  # 16: the polynomial of A_theta in the cell (coils and axial profiles; Magnet)
 W_BNEXT = 148   # 16: that of the cell a step is about to enter
-W_ROWS = 164
+W_G = 164       # 7: voltages in time, the rate of the dV/dt work at each stage (V/s)
+W_GN = 171      # and at the end state in the cell a step is about to enter
+W_ROWS = 172
 
 # The lane state of the lane loop (tracer.motion.lanes), kept beside the stepper's workspace in
 # three arrays with named rows (module constants, so numba folds them), which its phases take

@@ -20,7 +20,7 @@ from tracer.motion.bundles import (C_CODE, C_EVALS, C_REJECTED, F_DT, F_ERR, F_T
                                    W_NEXT, W_Y1)
 from tracer.motion.drive import D_NEXT, load_cell
 from tracer.motion.force import cell_of, speed
-from tracer.motion.stepper import propose, put_magnet_patch, put_patch, row_patch
+from tracer.motion.stepper import propose, put_magnet_patch, put_patch
 from tracer.motion.walls import cell_ahead, cell_box, excursion, hold, wall_time
 
 
@@ -84,10 +84,10 @@ def check_steps(herm, nodes, sym, mass, snap, magnet, w, lf, li, vec, box, buf):
 
 @njit(cache=True, error_model="numpy", forceinline=True)
 def load_next_groups(drive, dw, nodes, sym, w, li):
-    """With voltages in time: the static and group polynomials of the cell ahead of each lane
-    that needs its rate there (``I_NEED``) into the drive workspace's slot ``D_NEXT``
+    """With voltages in time: the group polynomials of the cell ahead of each lane that needs
+    its rate there (``I_NEED``) into the drive workspace's slot ``D_NEXT``
     (:func:`tracer.motion.drive.load_cell`), after :func:`check_steps`."""
     for l in range(LANES):
         if li[I_PASSED, l] and li[I_NEED, l]:
-            load_cell(dw, D_NEXT, l, row_patch(w, l, W_NEXT), drive, li[I_AHEAD_I, l],
-                      li[I_AHEAD_J, l], nodes.hz, nodes.hr, sym != 1)
+            load_cell(dw, D_NEXT, l, drive, li[I_AHEAD_I, l], li[I_AHEAD_J, l], nodes.hz,
+                      nodes.hr, sym != 1)

@@ -45,7 +45,7 @@ import numpy as np
 
 from tracer.jit import njit, prange
 from tracer.ledger import GAUSS_POINTS
-from tracer.motion.bundles import COUNTS, I_PIECE, LANES, ROW_LEN, W_ROWS, lane_state
+from tracer.motion.bundles import COUNTS, LANES, ROW_LEN, W_ROWS, lane_state
 from tracer.motion.check import check_steps, load_next_groups
 from tracer.motion.choose import choose_steps
 from tracer.motion.drive import drive_of, drive_workspace
@@ -132,11 +132,11 @@ def trace_lanes(lo, hi, starts, t_start, herm, drive, nodes, sym, bounds, cell, 
             break
         choose_steps(waves, nodes, sym, mass, max_step, max_steps, snap, w, lf, li, vec, box,
                      ahead)
-        lane_step(w, nodes, sym, mass, charge, rtol, atol_x, drive, dw, li[I_PIECE], magnet)
+        lane_step(w, nodes, sym, mass, charge, rtol, atol_x, drive, dw, li, magnet)
         check_steps(herm, nodes, sym, mass, snap, magnet, w, lf, li, vec, box, buf)
         if drive is not None:
             load_next_groups(drive, dw, nodes, sym, w, li)
-        lane_next_rates(w, nodes, sym, mass, charge, drive, dw, li[I_PIECE], magnet)
+        lane_next_rates(w, nodes, sym, mass, charge, drive, dw, magnet)
         if settle_steps(rtol, atol_p, w, lf, li, vec, k_new) > 0:
             cut_back(nodes, sym, shapes, w, lf, li, vec, box, buf)
 

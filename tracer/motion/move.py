@@ -3,10 +3,11 @@
 
 First the plane crossings the search found get their state rows, with the energy ledger
 (:func:`tracer.ledger.residual_J`) there. Then a lane whose ray goes on moves to its step's end:
-the ledger with the potential of the cell the step ends in, the dV/dt work along the step and, at
-a waveform corner, the jump's work and the next piece (voltages in time), the cell ahead if it
-enters it, the path point and the next step's proposal. A lane whose ray ended on the step moves
-to the event instead, with the ledger there.
+the ledger with the potential of the cell the step ends in, the dV/dt work along the step
+(:func:`tracer.motion.stepper.stage_work`) and, at a waveform corner, the jump's work and the
+next piece (voltages in time), the cell ahead if it enters it, the path point and the next step's
+proposal. A lane whose ray ended on the step moves to the event instead, with the ledger there
+and the dV/dt work up to it (:func:`work_along`), as at the plane crossings.
 """
 
 from tracer.jit import njit
@@ -16,11 +17,11 @@ from tracer.motion.bundles import (C_CODE, C_CROSSINGS, C_EVALS, C_PATH, C_STEPS
                                    I_AHEAD_J, I_CI, I_CJ, I_CROSS_FROM, I_END_I, I_END_J, I_ENTER,
                                    I_PAST, I_PIECE, I_RAY, I_STRIDE, I_TAKEN, LANES, ROW_T,
                                    RUNNING, TIME, V_K0, V_K1, V_RC, V_Y0, V_Y1, W_BNEXT,
-                                   W_BPATCH, W_ERR, W_H, W_K, W_NEXT, W_PATCH, W_RATE, W_T, W_V1,
-                                   W_VN, W_Y0, put_row)
+                                   W_BPATCH, W_ERR, W_G, W_GN, W_H, W_K, W_NEXT, W_PATCH, W_RATE,
+                                   W_T, W_V1, W_VN, W_Y0, put_row)
 from tracer.motion.drive import (D_CELL, D_NEXT, cell_group_potential, group_potentials,
                                  potential_at)
-from tracer.motion.stepper import dense, first_rate, propose
+from tracer.motion.stepper import dense, first_rate, propose, stage_work
 from tracer.waveforms import jump_at, piece
 
 
@@ -41,7 +42,8 @@ def work_along(w, dw, l, rc, theta, h, t0, m, waves, nodes, sym, phi, buf):
     """The dV/dt work (volts) and its magnitude along the first fraction theta of lane l's step of
     length h from t0 on waveform piece m (:func:`tracer.ledger.time_work`), the group maps taken
     at the Gauss nodes of its dense output rc from the polynomials of the lane's cell that its
-    step's force came from; ``phi`` is float64[GAUSS_POINTS, K] scratch."""
+    step's force came from; ``phi`` is float64[GAUSS_POINTS, K] scratch. For a part of a step,
+    up to an event: the whole step's is :func:`tracer.motion.stepper.stage_work`."""
     pz, pr = w[W_PATCH + 16, l], w[W_PATCH + 17, l]
     for i in range(GAUSS_POINTS):
         dense(rc, theta * GAUSS_THETA[i], buf)
@@ -115,8 +117,7 @@ def move_lanes(herm, drive, dw, nodes, sym, mass, charge, cross_state, paths, ma
             res = residual_J(lf[F_KE, l], ke1, charge, lf[F_V, l], v1)
             corner = False
             if drive is not None:
-                dwk, mag = work_along(w, dw, l, rc, 1.0, h, t, li[I_PIECE, l], drive.waves,
-                                      nodes, sym, phi, buf)
+                dwk, mag = stage_work(w, l)
                 lf[F_WORK, l] += dwk
                 lf[F_SPREAD, l] += mag
                 res -= charge * lf[F_WORK, l]
@@ -141,6 +142,8 @@ def move_lanes(herm, drive, dw, nodes, sym, mass, charge, cross_state, paths, ma
                 vec[l, V_K0, i] = w[W_RATE + i, l] if enter else vec[l, V_K1, i]
                 w[W_Y0 + i, l] = vec[l, V_Y0, i]
                 w[W_K + i, l] = vec[l, V_K0, i]
+            if drive is not None:   # the work's rate there, first same as last as the state's
+                w[W_G, l] = w[W_GN, l] if enter else w[W_G + 6, l]
             if enter:
                 li[I_CI, l] = ni
                 li[I_CJ, l] = nj

@@ -52,7 +52,7 @@ def take_rays(nxt, hi, starts, t_start, atol_p, t_max, herm, drive, dw, nodes, s
         bpatch = put_magnet_patch(w, l, W_BPATCH, magnet, i, j, hz, hr, patch)
         if drive is not None:
             li[I_PIECE, l] = piece(drive.waves, t_start[r])
-            load_cell(dw, D_CELL, l, patch, drive, i, j, hz, hr, sym != 1)
+            load_cell(dw, D_CELL, l, drive, i, j, hz, hr, sym != 1)
             lf[F_V, l] = first_rate(w, l, y0, t_start[r], dw, drive.waves, li[I_PIECE, l], nodes,
                                     sym, mass, charge, k_new, magnet)
         else:

@@ -21,11 +21,12 @@ import numpy as np
 
 from tracer.fieldmap import patch_coefficients
 from tracer.jit import njit
-from tracer.motion.bundles import (LANES, W_BNEXT, W_BPATCH, W_DENSE, W_ERR, W_ATOL, W_H, W_K,
-                                   W_NEXT, W_PATCH, W_RATE, W_T, W_V1, W_VN, W_Y0, W_Y1)
-from tracer.motion.drive import D_CELL, D_NEXT, weigh, weigh_lanes
+from tracer.motion.bundles import (LANES, W_BNEXT, W_BPATCH, W_DENSE, W_ERR, W_ATOL, W_G, W_GN,
+                                   W_H, W_K, W_NEXT, W_PATCH, W_RATE, W_T, W_V1, W_VN, W_Y0, W_Y1)
+from tracer.motion.drive import (D_CELL, D_NEXT, add_groups, add_groups_lanes, weigh,
+                                 weigh_lanes)
 from tracer.motion.force import force, gamma_mass, inverse_gamma_mass, uniform_force
-from tracer.motion.tableau import DP_A, DP_C, DP_D, DP_E
+from tracer.motion.tableau import DP_A, DP_B, DP_C, DP_D, DP_E
 
 SAFETY, FAC_MIN, FAC_MAX = 0.9, 0.2, 5.0
 
@@ -91,9 +92,11 @@ def lanes_uniform(w, magnet, charge):
 
 
 @njit(cache=True, error_model="numpy", inline="always")
-def lane_stage(w, st, nodes, sym, mass, charge, magnet):
+def lane_stage(w, st, nodes, sym, mass, charge, magnet, drive, dw, li):
     """Stage st of the step in every lane: the stage point into ``W_Y1``, its rate into row
-    ``W_K + 6 st`` and its potential into ``W_V1`` (see :func:`lane_rate`).
+    ``W_K + 6 st`` and its potential into ``W_V1`` (see :func:`lane_rate`); with voltages in time
+    (a ``drive``, else None) the groups' force and potential added and the rate of the dV/dt work
+    into row ``W_G + st`` (:func:`tracer.motion.drive.add_groups_lanes`).
 
     The sums run over all six earlier rows (the tableau's zeros add exact zeros), so the loops inside
     the loop over lanes have constant lengths and unroll, and that loop, writing only fixed rows,
@@ -108,6 +111,10 @@ def lane_stage(w, st, nodes, sym, mass, charge, magnet):
             w[W_Y1 + i, l] = w[W_Y0 + i, l] + h * acc
         lane_rate(w, l, w[W_T, l] + DP_C[st] * h, nodes, sym, mass, charge, W_PATCH, W_V1, magnet,
                   W_BPATCH)
+    if drive is not None:
+        if DP_C[st] != DP_C[st - 1]:    # the weights of the stage's time (the last two share it)
+            weigh_lanes(dw, w, drive.waves, li, DP_C[st])
+        add_groups_lanes(w, dw, D_CELL, W_PATCH, nodes, sym, charge, W_V1, W_G + st)
     lanes_uniform(w, magnet, charge)
     for i in range(6):
         for l in range(LANES):
@@ -115,7 +122,7 @@ def lane_stage(w, st, nodes, sym, mass, charge, magnet):
 
 
 @njit(cache=True, error_model="numpy", inline="always")
-def lane_step(w, nodes, sym, mass, charge, rtol, atol_x, drive, dw, pieces, magnet):
+def lane_step(w, nodes, sym, mass, charge, rtol, atol_x, drive, dw, li, magnet):
     """One Dormand–Prince 5(4) step in every lane of a workspace (rows ``W_*``, one column a lane).
 
     Each lane steps from its state y0 (``W_Y0``) at time ``W_T`` with first stage rate ``W_K`` over
@@ -126,9 +133,12 @@ def lane_step(w, nodes, sym, mass, charge, rtol, atol_x, drive, dw, pieces, magn
     atol + rtol max(|y0|, |y1|); ``atol_x`` for positions, ``W_ATOL`` for momenta) into ``W_ERR``
     and the continuous extension (Hairer et al. 1993) into ``W_DENSE``.
 
-    Voltages in time: with a ``drive`` and its workspace dw (:mod:`tracer.motion.drive`), the
-    cell polynomial of each stage is first weighed at the stage's time on the waveform piece
-    ``pieces[l]``; in a static field (both ``None``) the stages read ``W_PATCH`` as it is. With a ``magnet``
+    Voltages in time: with a ``drive`` and its workspace dw (:mod:`tracer.motion.drive`), each
+    stage adds the groups' force weighed at the stage's time on the waveform piece of the lane
+    (``I_PIECE`` of the lane state's int rows li; lanes without a ray, ``I_RAY`` < 0, are not
+    weighed) and writes the rate of the dV/dt work into ``W_G + st`` (the first, ``W_G``, is the step's
+    start's, as ``W_K``), whose integral :func:`stage_work` gives; in a static field (both
+    ``None``) the stages read the static polynomial alone. With a ``magnet``
     (:class:`tracer.motion.bundles.Magnet`, else None) the force adds q v x B, A_theta's
     polynomial read from ``W_BPATCH``, and the uniform fields' in a loop of their own
     (:func:`lanes_uniform`).
@@ -138,9 +148,7 @@ def lane_step(w, nodes, sym, mass, charge, rtol, atol_x, drive, dw, pieces, magn
     by the caller it is inlined into, whose shape the compiler then knows; ``W_RATE`` is scratch).
     """
     for st in range(1, 7):
-        if drive is not None:
-            weigh_lanes(dw, D_CELL, w, W_PATCH, drive.waves, pieces, DP_C[st])
-        lane_stage(w, st, nodes, sym, mass, charge, magnet)
+        lane_stage(w, st, nodes, sym, mass, charge, magnet, drive, dw, li)
     for l in range(LANES):
         h = w[W_H, l]
         acc2 = 0.0
@@ -165,30 +173,49 @@ def lane_step(w, nodes, sym, mass, charge, rtol, atol_x, drive, dw, pieces, magn
 
 
 @njit(cache=True, error_model="numpy", inline="always")
-def lane_next_rates(w, nodes, sym, mass, charge, drive, dw, pieces, magnet):
+def lane_next_rates(w, nodes, sym, mass, charge, drive, dw, magnet):
     """The rates at the end states ``W_Y1`` of all lanes in the cells they are about to enter
-    (``W_NEXT`` and ``W_BNEXT``, weighed at the step's end as in :func:`lane_step`) into
-    ``W_RATE``, the potentials into ``W_VN``: one SIMD loop over the lanes."""
-    if drive is not None:
-        weigh_lanes(dw, D_NEXT, w, W_NEXT, drive.waves, pieces, 1.0)
+    (``W_NEXT`` and ``W_BNEXT``; with voltages in time the groups weighed as the step's last
+    stage in :func:`lane_step`, at the same time, the step's end) into
+    ``W_RATE``, the potentials into ``W_VN`` and, with voltages in time, the rates of the dV/dt
+    work into ``W_GN``: SIMD loops over the lanes."""
     for l in range(LANES):
         lane_rate(w, l, w[W_T, l] + w[W_H, l], nodes, sym, mass, charge, W_NEXT, W_VN, magnet,
                   W_BNEXT)
+    if drive is not None:   # weighed as the step's last stage, at the same time
+        add_groups_lanes(w, dw, D_NEXT, W_NEXT, nodes, sym, charge, W_VN, W_GN)
     lanes_uniform(w, magnet, charge)
 
 
 @njit(cache=True, error_model="numpy")
 def first_rate(w, l, y, t, dw, waves, m, nodes, sym, mass, charge, k, magnet):
-    """The rate at state y at time t in lane l's cell, its polynomial weighed on waveform piece m
-    (:mod:`tracer.motion.drive`), into k[0]; returns the potential there."""
-    weigh(dw, D_CELL, l, waves, m, t, w, W_PATCH)
+    """The rate at state y at time t in lane l's cell, its groups weighed on waveform piece m
+    (:mod:`tracer.motion.drive`), into k[0], and the rate of the dV/dt work there into ``W_G``
+    (the first stage's); returns the potential there."""
+    weigh(dw, l, waves, m, t)
     for i in range(6):
         w[W_Y1 + i, l] = y[i]
     lane_rate(w, l, t, nodes, sym, mass, charge, W_PATCH, W_V1, magnet, W_BPATCH)
+    add_groups(w, dw, D_CELL, l, W_PATCH, nodes, sym, charge, W_V1, W_G)
     lane_uniform(w, l, magnet, charge)
     for i in range(6):
         k[0, i] = w[W_RATE + i, l]
     return w[W_V1, l]
+
+
+@njit(cache=True, error_model="numpy", inline="always")
+def stage_work(w, l):
+    """The dV/dt work (volts) over lane l's last step and its magnitude: one more component of
+    the state, whose rate at stage j is g_j (``W_G + j``), integrated by the step's fifth-order
+    weights, h sum_j b_j g_j; and h sum_j b_j |g_j|, a scale for the ledger's tolerance, not an
+    accurate integral (:mod:`tracer.ledger`)."""
+    work = 0.0
+    spread = 0.0
+    for j in range(7):
+        g = w[W_G + j, l]
+        work += DP_B[j] * g
+        spread += DP_B[j] * abs(g)
+    return w[W_H, l] * work, w[W_H, l] * spread
 
 
 @njit(cache=True, error_model="numpy", inline="always")
