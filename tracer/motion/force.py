@@ -1,4 +1,4 @@
-"""The one place where the kernel evaluates the field: potential, force and the work rate.
+"""The one place where the kernel evaluates the static field: potential and force.
 
 The field comes from a (z, r) potential map through the C1 interpolant of
 :mod:`tracer.fieldmap` (bicubic Hermite; even in r in the first cell row of an axial or mirrored
@@ -6,9 +6,11 @@ map), each cell's patch in power form (``fieldmap.patch_coefficients``),
 computed once per cell for all of its steps, turned into a 3-D field by the map's symmetry
 (:mod:`tracer.motion.symmetry`).
 
-:func:`force` is the seam for new physics (DESIGN.md §11): it sees the time and the velocity, so
-the magnetic term q v x B and the time-dependent weights of several maps (the ∂V/∂t work rate it
-returns, :func:`tracer.ledger.time_work`) go there, without touching the stepper or the events.
+:func:`force` is the seam for new physics (DESIGN.md §11): it sees the velocity, so the magnetic
+term q v x B goes there, without touching the stepper or the events. The electrode groups whose
+voltages change in time are added beside it, one loop over the lanes per group, with the ∂V/∂t
+work rate (:func:`tracer.motion.drive.add_group`): their weights at a stage's time are found once
+per lane and stage (:func:`tracer.motion.drive.weigh_lanes`), not inside the force.
 
 The magnetic field (:class:`tracer.motion.bundles.Magnet`) is the curl of the interpolated A_theta
 of the coils and axial profiles, from the polynomial of the same cell as the potential's
@@ -153,7 +155,7 @@ def uniform_force(magnet, x, y, z, vx, vy, vz, charge):
 
 
 @njit(cache=True, error_model="numpy", forceinline=True)
-def force(a, pz, pr, nodes, sym, t, x, y, z, vx, vy, vz, charge, magnet, b):
+def force(a, pz, pr, nodes, sym, x, y, z, vx, vy, vz, charge, magnet, b):
     """The force on a charge at a 3-D point in the field of one cell (see :func:`patch_field`),
     without the uniform magnetic fields (:func:`uniform_force`, which its callers add).
 
@@ -161,8 +163,6 @@ def force(a, pz, pr, nodes, sym, t, x, y, z, vx, vy, vz, charge, magnet, b):
     ----------
     a, pz, pr, nodes, sym
         The cell's polynomial and first corner, the node grid and the symmetry code.
-    t : float
-        The time, seconds.
     x, y, z, vx, vy, vz : float
         Position (metres) and velocity (m/s).
     charge : float
@@ -173,16 +173,15 @@ def force(a, pz, pr, nodes, sym, t, x, y, z, vx, vy, vz, charge, magnet, b):
 
     Returns
     -------
-    (Fx, Fy, Fz, V, work_rate) : tuple of float
-        Newtons, the potential in volts, and the explicit ∂V/∂t at the point (V/s; 0 in a static
-        field).
+    (Fx, Fy, Fz, V) : tuple of float
+        Newtons and the potential in volts.
     """
     v, ex, ey, ez = patch_field(a, pz, pr, nodes, sym, x, y, z)
     if magnet is None:
-        return charge * ex, charge * ey, charge * ez, v, 0.0
+        return charge * ex, charge * ey, charge * ez, v
     bx, by, bz = magnetic_field(magnet, b, pz, pr, nodes, x, y, z)
     return (charge * (ex + vy * bz - vz * by), charge * (ey + vz * bx - vx * bz),
-            charge * (ez + vx * by - vy * bx), v, 0.0)
+            charge * (ez + vx * by - vy * bx), v)
 
 
 @njit(cache=True, error_model="numpy", forceinline=True)
@@ -198,13 +197,13 @@ def field_at(herm, nodes, sym, x, y, z):
 def rate(a, pz, pr, nodes, sym, mass, charge, s, ks, row, magnet, b):
     """Right-hand side of the equations of motion in the field of one cell (see
     :func:`patch_field`; ``magnet``, ``b`` as for :func:`force`) at state s (x, y, z, px, py, pz)
-    at the start, t = 0: d(state)/dt into ks[row]; returns the potential at s."""
+    d(state)/dt into ks[row]; returns the potential at s."""
     igm = inverse_gamma_mass(mass, s[3], s[4], s[5])
     ks[row, 0] = s[3] * igm
     ks[row, 1] = s[4] * igm
     ks[row, 2] = s[5] * igm
-    fx, fy, fz, v, _ = force(a, pz, pr, nodes, sym, 0.0, s[0], s[1], s[2], ks[row, 0], ks[row, 1],
-                             ks[row, 2], charge, magnet, b)
+    fx, fy, fz, v = force(a, pz, pr, nodes, sym, s[0], s[1], s[2], ks[row, 0], ks[row, 1],
+                          ks[row, 2], charge, magnet, b)
     ks[row, 3] = fx
     ks[row, 4] = fy
     ks[row, 5] = fz

@@ -22,7 +22,7 @@ import numpy as np
 from tracer.fieldmap import patch_coefficients
 from tracer.jit import njit
 from tracer.motion.bundles import (LANES, W_BNEXT, W_BPATCH, W_DENSE, W_ERR, W_ATOL, W_G, W_GN,
-                                   W_H, W_K, W_NEXT, W_PATCH, W_RATE, W_T, W_V1, W_VN, W_Y0, W_Y1)
+                                   W_H, W_K, W_NEXT, W_PATCH, W_RATE, W_V1, W_VN, W_Y0, W_Y1)
 from tracer.motion.drive import (D_CELL, D_NEXT, add_groups, add_groups_lanes, weigh,
                                  weigh_lanes)
 from tracer.motion.force import force, gamma_mass, inverse_gamma_mass, uniform_force
@@ -49,8 +49,8 @@ def row_patch(w, l, row):
 
 
 @njit(cache=True, error_model="numpy", inline="always")
-def lane_rate(w, l, t, nodes, sym, mass, charge, patch, v_row, magnet, bpatch):
-    """The rate at lane l's point ``W_Y1`` at time t in the cell polynomial of rows
+def lane_rate(w, l, nodes, sym, mass, charge, patch, v_row, magnet, bpatch):
+    """The rate at lane l's point ``W_Y1`` in the static cell polynomial of rows
     patch..patch+17 (16 coefficients, then the first corner) into ``W_RATE``, the potential into
     row v_row (the force from :func:`tracer.motion.force.force`; with a magnet, the polynomial of
     A_theta in rows bpatch..bpatch+15)."""
@@ -59,9 +59,9 @@ def lane_rate(w, l, t, nodes, sym, mass, charge, patch, v_row, magnet, bpatch):
         w[W_RATE + i, l] = w[W_Y1 + 3 + i, l] * igm
     a = row_patch(w, l, patch)
     b = a if magnet is None else row_patch(w, l, bpatch)
-    fx, fy, fz, v, _ = force(a, w[patch + 16, l], w[patch + 17, l], nodes, sym, t, w[W_Y1, l],
-                             w[W_Y1 + 1, l], w[W_Y1 + 2, l], w[W_RATE, l], w[W_RATE + 1, l],
-                             w[W_RATE + 2, l], charge, magnet, b)
+    fx, fy, fz, v = force(a, w[patch + 16, l], w[patch + 17, l], nodes, sym, w[W_Y1, l],
+                          w[W_Y1 + 1, l], w[W_Y1 + 2, l], w[W_RATE, l], w[W_RATE + 1, l],
+                          w[W_RATE + 2, l], charge, magnet, b)
     w[W_RATE + 3, l] = fx
     w[W_RATE + 4, l] = fy
     w[W_RATE + 5, l] = fz
@@ -109,8 +109,7 @@ def lane_stage(w, st, nodes, sym, mass, charge, magnet, drive, dw, li):
             for j in range(6):   # DP_A[st, j] is 0 for j >= st: adding 0 k_j (finite) is exact
                 acc += DP_A[st, j] * w[W_K + 6 * j + i, l]
             w[W_Y1 + i, l] = w[W_Y0 + i, l] + h * acc
-        lane_rate(w, l, w[W_T, l] + DP_C[st] * h, nodes, sym, mass, charge, W_PATCH, W_V1, magnet,
-                  W_BPATCH)
+        lane_rate(w, l, nodes, sym, mass, charge, W_PATCH, W_V1, magnet, W_BPATCH)
     if drive is not None:
         if DP_C[st] != DP_C[st - 1]:    # the weights of the stage's time (the last two share it)
             weigh_lanes(dw, w, drive.waves, li, DP_C[st])
@@ -180,8 +179,7 @@ def lane_next_rates(w, nodes, sym, mass, charge, drive, dw, magnet):
     ``W_RATE``, the potentials into ``W_VN`` and, with voltages in time, the rates of the dV/dt
     work into ``W_GN``: SIMD loops over the lanes."""
     for l in range(LANES):
-        lane_rate(w, l, w[W_T, l] + w[W_H, l], nodes, sym, mass, charge, W_NEXT, W_VN, magnet,
-                  W_BNEXT)
+        lane_rate(w, l, nodes, sym, mass, charge, W_NEXT, W_VN, magnet, W_BNEXT)
     if drive is not None:   # weighed as the step's last stage, at the same time
         add_groups_lanes(w, dw, D_NEXT, W_NEXT, nodes, sym, charge, W_VN, W_GN)
     lanes_uniform(w, magnet, charge)
@@ -195,7 +193,7 @@ def first_rate(w, l, y, t, dw, waves, m, nodes, sym, mass, charge, k, magnet):
     weigh(dw, l, waves, m, t)
     for i in range(6):
         w[W_Y1 + i, l] = y[i]
-    lane_rate(w, l, t, nodes, sym, mass, charge, W_PATCH, W_V1, magnet, W_BPATCH)
+    lane_rate(w, l, nodes, sym, mass, charge, W_PATCH, W_V1, magnet, W_BPATCH)
     add_groups(w, dw, D_CELL, l, W_PATCH, nodes, sym, charge, W_V1, W_G)
     lane_uniform(w, l, magnet, charge)
     for i in range(6):
