@@ -27,9 +27,9 @@ import time
 import warnings
 from pathlib import Path
 
-#: A first run's compile on two cores (a cold tracer demo took 70.5 s, 80.3 s in one process, in
+#: A first run's compile on two cores (a cold tracer demo took 56.4 s, 65.6 s in one process, in
 #: tests/bench/bench_coldstart.py).
-FIRST_COMPILE = "a little over a minute on two cores"
+FIRST_COMPILE = "about a minute on two cores"
 
 
 def _kernels():
