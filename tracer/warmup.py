@@ -27,9 +27,9 @@ import time
 import warnings
 from pathlib import Path
 
-#: A first run's compile on two cores (a cold tracer demo took 56.4 s, 65.6 s in one process, in
-#: tests/bench/bench_coldstart.py).
-FIRST_COMPILE = "about a minute on two cores"
+#: A first run's compile on two cores (a cold tracer demo took 45.6 s and 43.4 s, 64.6 s and 64.0 s
+#: in one process, in tests/bench/bench_coldstart.py on an idle machine).
+FIRST_COMPILE = "under a minute on two cores"
 
 
 def _kernels():
