@@ -5,6 +5,7 @@ the old callee from the cache. These tests change a copy of the package the way 
 """
 
 import os
+import re
 import shutil
 import subprocess
 import sys
@@ -101,6 +102,20 @@ def test_the_fingerprint_covers_what_kernels_can_see(tmp_path):
     with open(root / "motion/tableau.py", "a") as f:
         f.write("\n# an edit\n")
     assert stamp() != before
+
+
+def test_every_kernel_module_takes_njit_from_tracer_jit():
+    """A module that took numba's decorator directly would not be among the sources the
+    fingerprint starts from, nor would its cache folder be refreshed (DEVELOPERS.md, "numba's
+    cache")."""
+    direct = re.compile(r"^\s*(from numba import .*\b(njit|jit|prange)\b|import numba\b.*)$", re.MULTILINE)
+    offenders = []
+    for path in sorted(PACKAGE.rglob("*.py")):
+        text = path.read_text(encoding="utf-8")
+        if path.name != "jit.py" and (direct.search(text) and ("@njit" in text or "@numba" in text)):
+            offenders.append(path.relative_to(PACKAGE).as_posix())
+    assert offenders == []
+    assert "motion/lanes.py" in {p.relative_to(PACKAGE).as_posix() for p in jit.kernel_sources()}
 
 
 def test_the_sources_follow_absolute_relative_and_renamed_imports(tmp_path):
