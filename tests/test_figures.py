@@ -107,9 +107,11 @@ def test_every_picture_of_a_run_is_a_figure_or_none_when_empty(drift):
     assert isinstance(plot.phase_space_figure(run, "mid"), Figure)
     names = [name for name, _ in plot.figure_jobs(field, [run])]
     assert names == ["rays.png", "landing_energy.png", "landing_positions.png", "phase_b_mid.png",
-                     "spot_b_mid.png"]
+                     "spot_b_mid.png", "arrival_b_mid.png"]
+    assert isinstance(plot.arrival_times_figure(run, "mid"), Figure)    # a static field's flight times
     nothing = dataclasses.replace(run, records=run.records[:0], crossings=run.crossings[:0])
     assert plot.landing_energy_figure([nothing]) is None and plot.spot_figure(nothing, "mid") is None
+    assert plot.arrival_times_figure(nothing, "mid") is None
 
 
 def test_scan_figures_have_a_panel_per_figure_that_varies_labelled_with_its_unit():

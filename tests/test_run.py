@@ -187,7 +187,8 @@ def test_run_outputs_are_the_files_and_every_picture(soft_landing, tmp_path):
     planes = soft_landing.beams["c60"].planes
     assert [f.name for f in files] == (["result.h5", "landings.csv", "rays.png", "landing_energy.png",
                                         "landing_positions.png"]
-                                       + [f"{kind}_c60_{plane}.png" for plane in planes for kind in ("phase", "spot")]
+                                       + [f"{kind}_c60_{plane}.png" for plane in planes
+                                          for kind in ("phase", "spot", "arrival")]
                                        + ["run-files.txt"])
     assert sorted(p.name for p in (tmp_path / "out").iterdir()) == sorted(f.name for f in files)
     assert (tmp_path / "out" / "run-files.txt").read_text().splitlines()[1:] == sorted(f.name for f in files[:-1])

@@ -460,9 +460,9 @@ def figure_jobs(field, runs, title=None, grouped=None, magnetic=None) -> list:
     """The pictures of a run, each as ``(file name, draw)``: ``draw(path)`` writes the picture and
     returns the path (or None when it has nothing to show).  Rays over the equipotentials come
     first (the only picture that evaluates the potential map), then landing energies, landing
-    positions, and at each plane the phase space and the spot; with voltages that change in time
-    (``grouped``, a :class:`tracer.groups.GroupedMaps`) also the waveforms and the arrival times at
-    each plane; with coils or axial fields (``magnetic``, a :class:`tracer.schema.MagneticSpec`)
+    positions, and at each plane the phase space, the spot and the arrival times (in a static
+    field each ray's flight time from its start); with voltages that change in time (``grouped``,
+    a :class:`tracer.groups.GroupedMaps`) also the waveforms; with coils or axial fields (``magnetic``, a :class:`tracer.schema.MagneticSpec`)
     the coils and |B| on the axis.
 
     ``runs`` are BeamRuns or beams read back from a result file (``name``, ``records``,
@@ -476,12 +476,11 @@ def figure_jobs(field, runs, title=None, grouped=None, magnetic=None) -> list:
             jobs += [(f"phase_{run.name}_{plane}.png",
                       lambda path, run=run, plane=plane: plot_phase_space(run, plane, path, sym)),
                      (f"spot_{run.name}_{plane}.png",
-                      lambda path, run=run, plane=plane: write(spot_figure(run, plane, sym), path))]
+                      lambda path, run=run, plane=plane: write(spot_figure(run, plane, sym), path)),
+                     (f"arrival_{run.name}_{plane}.png",
+                      lambda path, run=run, plane=plane: write(arrival_times_figure(run, plane), path))]
     if grouped is not None:
         jobs.append(("waveforms.png", lambda path: write(waveforms_figure(grouped, runs), path)))
-        jobs += [(f"arrival_{run.name}_{plane}.png",
-                  lambda path, run=run, plane=plane: write(arrival_times_figure(run, plane), path))
-                 for run in runs for plane in run.planes]
     if magnetic:
         jobs.append(("magnetic.png", lambda path: write(magnetic_figure(magnetic, field), path)))
     return jobs
