@@ -335,7 +335,7 @@ def trace(field: PotentialMap | GroupedMaps, beam: Beam, planes: Sequence[Plane]
     waves = driven = None      # a static field: the kernel compiled without voltages in time
     if isinstance(field, GroupedMaps):
         herm, volts = field.static, field.peaks_V()
-        if len(field.driven):
+        if in_time:
             waves, driven = field.arrays, np.ascontiguousarray(field.driven)
     else:
         herm, volts = field.hermite, field.voltages

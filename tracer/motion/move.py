@@ -2,7 +2,7 @@
 (:func:`tracer.motion.lanes.trace_lanes`) after :func:`tracer.motion.search.search_steps`.
 
 First the plane crossings the search found get their state rows, with the energy ledger
-(:func:`tracer.ledger.residual_J`) there. Then a lane whose ray goes on moves to its step's end:
+(:func:`ledger_J`) there. Then a lane whose ray goes on moves to its step's end:
 the ledger with the potential of the cell the step ends in, the dV/dt work along the step
 (:func:`tracer.motion.stepper.stage_work`) and, at a waveform corner, the jump's work and the
 next piece (voltages in time), the cell ahead if it enters it, the path point and the next step's
@@ -11,7 +11,8 @@ and the dV/dt work up to it (:func:`work_along`), as at the plane crossings.
 """
 
 from tracer.jit import njit
-from tracer.ledger import GAUSS_POINTS, GAUSS_THETA, kinetic_energy_J, residual_J, time_work
+from tracer.ledger import (GAUSS_POINTS, GAUSS_THETA, kinetic_energy_J, residual_J,
+                           time_ledger_J, time_work)
 from tracer.motion.bundles import (C_CODE, C_CROSSINGS, C_EVALS, C_PATH, C_STEPS, F_END, F_ERR,
                                    F_KE, F_SPREAD, F_STOP, F_T, F_V, F_WORK, F_WORST, I_AHEAD_I,
                                    I_AHEAD_J, I_CI, I_CJ, I_CROSS_FROM, I_END_I, I_END_J, I_ENTER,
@@ -35,6 +36,16 @@ def thin_path(path, n):
         for i in range(path.shape[1]):
             path[j, i] = path[2 * j, i]
     return m
+
+
+@njit(cache=True, error_model="numpy", inline="always")
+def ledger_J(drive, ke_start, ke_now, charge, v_start, v_now, work_V):
+    """The ledger of a ray, joules: :func:`tracer.ledger.residual_J` in a static field (``drive``
+    None, ``work_V`` not read), :func:`tracer.ledger.time_ledger_J` with the dV/dt and jump work
+    W = ``work_V`` with voltages in time."""
+    if drive is None:
+        return residual_J(ke_start, ke_now, charge, v_start, v_now)
+    return time_ledger_J(ke_start, ke_now, charge, v_start, v_now, work_V)
 
 
 @njit(cache=True, error_model="numpy")
@@ -86,16 +97,15 @@ def move_lanes(herm, drive, dw, nodes, sym, mass, charge, cross_state, paths, ma
         rc = vec[l, V_RC:V_RC + 5]
         for nc in range(li[I_CROSS_FROM, l], min(li[C_CROSSINGS, l], max_cross)):
             th = cross_state[r, nc, ROW_T]
+            wq = lf[F_WORK, l]
+            if drive is not None:   # before the state there: it uses buf as scratch
+                wq += work_along(w, dw, l, rc, th, h, t, li[I_PIECE, l], drive.waves, nodes, sym,
+                                 phi, buf)[0]
             dense(rc, th, buf)
             ke = kinetic_energy_J(buf[3], buf[4], buf[5], mass)
             vq = potential_at(herm, drive, li[I_PIECE, l], t + th * h, nodes, sym, buf[0],
                               buf[1], buf[2])
-            res = residual_J(lf[F_KE, l], ke, charge, lf[F_V, l], vq)
-            if drive is not None:
-                wq = lf[F_WORK, l] + work_along(w, dw, l, rc, th, h, t, li[I_PIECE, l],
-                                                drive.waves, nodes, sym, phi, buf)[0]
-                dense(rc, th, buf)
-                res -= charge * wq
+            res = ledger_J(drive, lf[F_KE, l], ke, charge, lf[F_V, l], vq, wq)
             lf[F_WORST, l] = max(lf[F_WORST, l], abs(res))
             put_row(cross_state[r], nc, t + th * h, buf, ke, lf[F_WORST, l])
         n_path_cap = paths.shape[1] if r < paths.shape[0] else 0
@@ -114,13 +124,13 @@ def move_lanes(herm, drive, dw, nodes, sym, mass, charge, cross_state, paths, ma
                                       vec[l, V_Y1, 0], vec[l, V_Y1, 1], vec[l, V_Y1, 2])
                     li[C_EVALS, l] += 1
             ke1 = kinetic_energy_J(vec[l, V_Y1, 3], vec[l, V_Y1, 4], vec[l, V_Y1, 5], mass)
-            res = residual_J(lf[F_KE, l], ke1, charge, lf[F_V, l], v1)
-            corner = False
             if drive is not None:
                 dwk, mag = stage_work(w, l)
                 lf[F_WORK, l] += dwk
                 lf[F_SPREAD, l] += mag
-                res -= charge * lf[F_WORK, l]
+            res = ledger_J(drive, lf[F_KE, l], ke1, charge, lf[F_V, l], v1, lf[F_WORK, l])
+            corner = False
+            if drive is not None:
                 m = li[I_PIECE, l]
                 if m < drive.waves.corner.size and t_new >= drive.waves.corner[m]:
                     # the step ends on a corner: a jump's work, the next piece
@@ -185,9 +195,7 @@ def move_lanes(herm, drive, dw, nodes, sym, mass, charge, cross_state, paths, ma
             ke1 = kinetic_energy_J(vec[l, V_Y0, 3], vec[l, V_Y0, 4], vec[l, V_Y0, 5], mass)
             v1 = potential_at(herm, drive, li[I_PIECE, l], lf[F_T, l], nodes, sym,
                               vec[l, V_Y0, 0], vec[l, V_Y0, 1], vec[l, V_Y0, 2])
-            res = residual_J(lf[F_KE, l], ke1, charge, lf[F_V, l], v1)
-            if drive is not None:
-                res -= charge * lf[F_WORK, l]
+            res = ledger_J(drive, lf[F_KE, l], ke1, charge, lf[F_V, l], v1, lf[F_WORK, l])
             lf[F_WORST, l] = max(lf[F_WORST, l], abs(res))
             if n_path_cap > 0:
                 put_row(paths[r], li[C_PATH, l], lf[F_T, l], vec[l, V_Y0], ke1, res)
