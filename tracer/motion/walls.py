@@ -116,7 +116,7 @@ def reach(rc, hp, y0, k0, mass, h, q):
         q[i, 4] = 0.0
 
 
-@njit(cache=True, error_model="numpy", inline="always")
+@njit(cache=True, error_model="numpy", forceinline=True)
 def series(q, i, tau):
     """Value and rate at tau of row i of a :func:`reach` series (Horner)."""
     v = q[i, 4]
@@ -127,7 +127,7 @@ def series(q, i, tau):
     return v, d
 
 
-@njit(cache=True, error_model="numpy", inline="always")
+@njit(cache=True, error_model="numpy", forceinline=True)
 def series_past(q, sym, w, wall, tau):
     """How far the predicted point at tau lies beyond wall w (0 z_lo, 1 z_hi, 2 r_lo, 3 r_hi) at
     ``wall``, and the rate of that distance."""
@@ -146,7 +146,7 @@ def series_past(q, sym, w, wall, tau):
     return sg * (c - wall), sg * dc
 
 
-@njit(cache=True, error_model="numpy", inline="always")
+@njit(cache=True, error_model="numpy", forceinline=True)
 def crossing(q, sym, w, wall, g_lo, hi, g_hi, tol):
     """Time in (0, hi] at which the predicted path reaches a wall it lies ``g_lo`` < 0 beyond at 0
     and ``g_hi`` > 0 beyond at hi, to ``tol`` metres: Newton's method kept inside the bracket."""
@@ -165,7 +165,7 @@ def crossing(q, sym, w, wall, g_lo, hi, g_hi, tol):
     return tau
 
 
-@njit(cache=True, error_model="numpy", inline="always")
+@njit(cache=True, error_model="numpy", forceinline=True)
 def first_crossing(best, q, sym, w, wall, g_0, hi, g_hi, tol):
     """The earlier of ``best`` and the predicted crossing of wall w, when the path lies before
     it at 0 (``g_0`` < 0) and beyond it at hi (``g_hi`` > 0)."""
