@@ -1,12 +1,16 @@
 """The first compile: `tracer warmup` fills numba's cache, and the command line says when a compile
 is still to come."""
 
+import ast
+import inspect
+import textwrap
 import os
 import subprocess
 import sys
 from pathlib import Path
 
 import pytest
+from numba import njit
 
 from tracer import warmup
 from tracer.cli import main
@@ -200,3 +204,55 @@ def test_spare_cores_count_the_load(monkeypatch):
     monkeypatch.setattr(warmup.os, "sched_getaffinity", lambda pid: {0}, raising=False)
     monkeypatch.setattr(warmup.os, "getloadavg", lambda: (0.0, 0.0, 0.0))
     assert warmup._spare_cores() == 0
+
+
+# The first compile's budget. tracer.warmup.typed_size counts the code numba types to compile the
+# ray kernel; the figure below is the kernel's at the commit named, with the cold first demo
+# measured then (tests/bench/bench_coldstart.py on an idle two-core machine). A change that takes
+# the kernel past RAY_KERNEL_BUDGET lengthens every first run: measure the cold demo again, say so
+# in its issue note, and record the new figures here.
+RAY_KERNEL_NODES = 28680   # f5e0940; at d8c4c9d (31 643 nodes) the cold first demo took 45.6 and 43.4 s
+RAY_KERNEL_BUDGET = int(RAY_KERNEL_NODES * 1.05)
+
+
+def test_the_ray_kernel_stays_within_its_compile_budget():
+    from tracer.motion.lanes import trace_rays
+
+    kernels, nodes = warmup.typed_size(trace_rays)
+    assert nodes <= RAY_KERNEL_BUDGET, (
+        f"the ray kernel now types {nodes} syntax-tree nodes in {kernels} kernels, past its budget "
+        f"of {RAY_KERNEL_BUDGET} ({RAY_KERNEL_NODES} recorded): run tests/bench/bench_coldstart.py, "
+        "say what the first run costs now in the issue note and record the new figures in "
+        "tests/test_warmup.py")
+    assert kernels > 20       # the walk follows the kernel's calls (the ray kernel compiles ~70)
+
+
+@njit
+def _leaf(x):
+    return x + 1.0
+
+
+@njit(inline="always")
+def _copied(x):
+    return _leaf(x) * 2.0
+
+
+@njit
+def _apart(x):
+    return x - 1.0
+
+
+@njit
+def _top(x):
+    return _copied(x) + _copied(x) + _apart(x) + _apart(x)
+
+
+def test_typed_size_counts_a_copied_kernel_at_every_call_site():
+    """typed_size on small kernels (never compiled here): one copied in at two call sites, one
+    compiled apart and called twice, and one reached only through the copied one."""
+    def count(kernel):          # the nodes of the function's statements
+        function = ast.parse(textwrap.dedent(inspect.getsource(kernel.py_func))).body[0]
+        return sum(len(list(ast.walk(statement))) for statement in function.body)
+
+    assert warmup.typed_size(_top) == (3, count(_top) + 2 * count(_copied) + count(_apart)
+                                       + count(_leaf))

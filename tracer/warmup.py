@@ -14,12 +14,19 @@ examples small.
 :func:`rays_beside` shortens the first run itself on a machine with two cores: while the run's
 process solves the maps (compiling the solver's kernels), a second process compiles the ray kernel
 the run will use (:func:`compile_rays`), and the trace then loads it from numba's cache.
+
+:func:`typed_size` counts, without compiling, how much code numba types to compile a kernel: the
+measure tests/test_warmup.py holds the ray kernel to, so that a feature added to it does not
+lengthen the first run without saying so.
 """
 
 from __future__ import annotations
 
+import ast
 import contextlib
 import dataclasses
+import inspect
+import textwrap
 import os
 import subprocess
 import sys
@@ -65,6 +72,69 @@ def notice() -> str | None:
 
 #: Set this environment variable to "0" to compile everything in the run's own process.
 BESIDE_ENV = "TRACER_COMPILE_BESIDE"
+
+
+def _nodes(kernel):
+    """The syntax-tree nodes of the statements of ``kernel``'s Python function (not its
+    signature or decorators)."""
+    tree = ast.parse(textwrap.dedent(inspect.getsource(kernel.py_func)))
+    return [node for statement in tree.body[0].body for node in ast.walk(statement)]
+
+
+def _called_kernels(kernel) -> dict:
+    """The numba kernels ``kernel`` calls by name, with how many call sites each has."""
+    from numba.core.dispatcher import Dispatcher
+
+    names = kernel.py_func.__globals__
+    sites: dict = {}
+    for node in _nodes(kernel):
+        if isinstance(node, ast.Call) and isinstance(node.func, ast.Name):
+            callee = names.get(node.func.id)
+            if isinstance(callee, Dispatcher):
+                sites[callee] = sites.get(callee, 0) + 1
+    return sites
+
+
+def _copied(kernel) -> bool:
+    """Whether numba copies ``kernel``'s code into each caller before typing it."""
+    return kernel.targetoptions.get("inline") == "always"
+
+
+def typed_size(kernel) -> tuple[int, int]:
+    """How much code numba types to compile ``kernel`` from an empty cache, counted without
+    compiling: the kernels it compiles (``kernel`` and every kernel reached from it that numba does
+    not copy into its caller) and the syntax-tree nodes of their bodies, a kernel copied in
+    (``inline="always"``) counted at every call site.
+
+    A measure of the first compile, the same on every Python version: typing is most of it (the
+    ray kernel, ``trace_rays``: about 1.2 ms of compile a node:
+    31 643 nodes and 36.6-41.4 s of CPU at d8c4c9d, one process). Branches numba prunes for
+    an argument typed None (a static run's voltages in time, an electric-only run's magnet) are
+    counted too.
+
+    Returns
+    -------
+    (kernels, nodes) : tuple of int
+    """
+    own: dict = {}
+
+    def size(k) -> int:
+        if k not in own:
+            own[k] = len(_nodes(k)) + sum(
+                n * size(c) for c, n in _called_kernels(k).items() if _copied(c))
+        return own[k]
+
+    def compiled_from(k):
+        for c in _called_kernels(k):
+            yield from compiled_from(c) if _copied(c) else (c,)
+
+    seen, todo = {kernel}, [kernel]
+    while todo:
+        for c in compiled_from(todo.pop()):
+            if c not in seen:
+                seen.add(c)
+                todo.append(c)
+    return len(seen), sum(size(k) for k in seen)
 
 
 def _spare_cores() -> int:

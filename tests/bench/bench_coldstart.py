@@ -6,9 +6,10 @@ map cache so both solve the same maps.  The cold demo runs twice, each from its 
 as a user meets it (the ray kernel compiled in a second process beside the solve,
 :func:`tracer.warmup.rays_beside`) and with everything compiled in the one process
 (``TRACER_COMPILE_BESIDE=0``), the baseline of that gain.  Prints the wall times, their ratios,
-the ratio against the goal of a cold first demo under 30 s, and each kernel's compile time in the
-one-process cold run (exclusive of the kernels it compiled inside it; numba's "numba:compile"
-events).
+the ratio against the goal of a cold first demo under 30 s, the code the ray kernel types
+(:func:`tracer.warmup.typed_size`, the measure tests/test_warmup.py budgets), and each kernel's
+compile time in the one-process cold run (exclusive of the kernels it compiled inside it; numba's
+"numba:compile" events).
 """
 
 import os
@@ -66,6 +67,10 @@ def demo(numba_cache, work, label, beside=True):
 
 
 def main():
+    sys.path.insert(0, str(ROOT))       # this tree's tracer, as in the demos' processes
+    from tracer.motion.lanes import trace_rays
+    from tracer.warmup import typed_size
+
     with tempfile.TemporaryDirectory() as work:
         serial_cache = Path(work) / "numba-one-process"
         cache = Path(work) / "numba"
@@ -80,6 +85,9 @@ def main():
           f"compiled beside the solve takes {cold / serial:.2f} of it")
     print(f"  cold first run against the {GOAL_S:.0f} s goal: ratio {cold / GOAL_S:.2f}"
           f" -> {'met' if cold <= GOAL_S else 'not met'}")
+    kernels_typed, nodes = typed_size(trace_rays)
+    print(f"  the ray kernel types {nodes} syntax-tree nodes in {kernels_typed} kernels"
+          " (tracer.warmup.typed_size; its budget is in tests/test_warmup.py)")
     print(f"  kernels loaded (or compiled) in the warm run: {len(again)}, {sum(again.values()):.1f} s")
     print("  first compile of each kernel (exclusive seconds, largest first):")
     for name, seconds in sorted(kernels.items(), key=lambda kv: -kv[1])[:15]:
