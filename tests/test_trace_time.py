@@ -18,13 +18,14 @@ from tracer.fieldmap import BasisMaps
 from tracer.geometry import rasterize, shape_table
 from tracer.grid import Grid
 from tracer.groups import group_maps
-from tracer.motion.bundles import LANES, W_G, W_H, W_ROWS
+from tracer.motion.bundles import I_PIECE, I_RAY, LANES, W_G, W_H, W_ROWS, W_T, lane_state
+from tracer.motion.drive import D_COS, D_RATE, D_SIN, D_VALUE, D_WEIGHT, STAGE_TIMES, weigh_steps
 from tracer.motion.stepper import stage_work
 from tracer.motion.tableau import DP_C
 from tracer.scans import voltage_sets
 from tracer.schema import scan_column
 from tracer.sources import rays_from
-from tracer.waveforms import Pulse, Sinusoid, Waveform
+from tracer.waveforms import Pulse, Sinusoid, Waveform, piece, rate, value, wave_arrays
 
 
 
@@ -56,6 +57,45 @@ def test_a_steps_work_is_its_stage_rates_by_the_fifth_order_weights():
         exact = math.cos(omega * h + phase) - math.cos(phase)
         worst = max(worst, abs(stage_work(w, 0)[0] - exact) / (omega * h))
     assert 1e-10 < worst < 2.4e-8
+
+
+def test_the_step_weights_are_the_waveforms_at_the_stage_times():
+    """drive.weigh_steps (all stages' weights once a step, each sinusoid turned from the step's
+    start) gives each waveform's value and rate (waveforms.value and rate: the direct cosine and
+    sine) at every stage time t + c h of steps up to max_step_s long, started anywhere on a
+    thousand periods of the fastest sinusoid and on the pieces of a pulse, to the round-off of
+    the angle (a few units of its last bit, ulp(omega t), times the amplitude; the pulse's
+    straight line exactly); lanes without a ray take no cosine and sine."""
+    waves = wave_arrays([Waveform(dc_V=3.0, sinusoids=(Sinusoid(40.0, 1.1e6, 0.4),
+                                                       Sinusoid(-7.0, 3.3e6))),
+                         Waveform(pulses=(Pulse(100.0, 2e-7, rise_s=5e-8, width_s=1e-7,
+                                                fall_s=2e-8),))])
+    rng = np.random.default_rng(5)
+    w = np.zeros((W_ROWS, LANES))
+    li = lane_state()[1]
+    dw = np.full((2, 4, 16, LANES), 7.0)
+    w[W_T] = np.r_[rng.uniform(0.0, 1000 / 3.3e6, LANES - 3), 1.9e-7, 2.2e-7, 3.1e-7]
+    w[W_H] = rng.uniform(0.0, 1.0, LANES) * waves.max_step_s
+    w[W_H, -3] = min(w[W_H, -3], 1e-8)       # on the piece before the rise starts
+    for l in range(LANES):
+        li[I_RAY, l] = l if l != 2 else -1
+        li[I_PIECE, l] = piece(waves, w[W_T, l])
+    weigh_steps(dw, w, waves, li)
+    for l in range(LANES):
+        if l == 2:
+            assert (dw[:, D_WEIGHT, D_COS:D_SIN + 1, l] == 7.0).all()
+            continue
+        for s, c in enumerate(STAGE_TIMES):
+            if s == 0:
+                continue
+            t = w[W_T, l] + c * w[W_H, l]
+            ulp = 4 * np.spacing(2 * math.pi * 3.3e6 * t)      # measured: at most 0.54 of it
+            m = li[I_PIECE, l]
+            assert abs(dw[0, D_WEIGHT, 2 * s + D_VALUE, l] - value(waves, 0, m, t)) <= 47.0 * ulp
+            assert (abs(dw[0, D_WEIGHT, 2 * s + D_RATE, l] - rate(waves, 0, m, t))
+                    <= 47.0 * 2 * math.pi * 3.3e6 * ulp)
+            assert dw[1, D_WEIGHT, 2 * s + D_VALUE, l] == value(waves, 1, m, t)
+            assert dw[1, D_WEIGHT, 2 * s + D_RATE, l] == rate(waves, 1, m, t)
 
 
 def plate_basis(setup):

@@ -585,11 +585,58 @@ def piece(w, t):
 
 
 @njit(cache=True, error_model="numpy", forceinline=True)
+def line(w, k, m, t):
+    """The constant and straight-line part of waveform k at time t on piece m (its straight line
+    continued beyond the piece), volts; its slope is ``w.slope[k, m]``."""
+    return w.dc[k] + w.level[k, m] + w.slope[k, m] * (t - w.origin[m])
+
+
+@njit(cache=True, error_model="numpy", forceinline=True)
+def angle(w, k, j, t):
+    """The angle of sinusoid j of waveform k at time t, radians."""
+    return w.omega[k, j] * t + w.phase[k, j]
+
+
+@njit(cache=True, error_model="numpy", forceinline=True)
+def sinusoid(amplitude, omega, c, s):
+    """A sinusoid of amplitude (volts) and angular frequency omega (rad/s) and its rate where the
+    cosine and sine of its :func:`angle` are c and s: (volts, V/s)."""
+    return amplitude * c, -(amplitude * omega * s)
+
+
+MAX_TURN = 2.0 * math.pi / STEPS_PER_PERIOD
+"""The largest angle a sinusoid turns through in one step (steps are at most
+:attr:`WaveArrays.max_step_s` long): the range of :func:`turn`."""
+
+_COS_SERIES = tuple((-1) ** n / math.factorial(2 * n) for n in range(8))
+_SIN_SERIES = tuple((-1) ** n / math.factorial(2 * n + 1) for n in range(8))
+
+
+@njit(cache=True, error_model="numpy", forceinline=True)
+def _series(c, u):
+    """``c[0] + c[1] u + ... + c[7] u^7`` (Horner)."""
+    return c[0] + u * (c[1] + u * (c[2] + u * (c[3] + u * (c[4] + u * (c[5] + u * (c[6]
+                                                                                   + u * c[7]))))))
+
+
+@njit(cache=True, error_model="numpy", forceinline=True)
+def turn(c, s, d):
+    """The cosine and sine of a + d from c = cos a and s = sin a, for a turn |d| <= MAX_TURN:
+    cos d and sin d from their Taylor series to d^14 and d^15 (the first term left out is below
+    2e-20 there), no library call; it loses at most a few units of round-off against the cosine
+    and sine of a + d (tests/test_waveforms.py)."""
+    u = d * d
+    cd = _series(_COS_SERIES, u)
+    sd = d * _series(_SIN_SERIES, u)
+    return c * cd - s * sd, s * cd + c * sd
+
+
+@njit(cache=True, error_model="numpy", forceinline=True)
 def value(w, k, m, t):
     """Waveform k at time t on piece m (its straight line continued beyond the piece), volts."""
-    v = w.dc[k] + w.level[k, m] + w.slope[k, m] * (t - w.origin[m])
+    v = line(w, k, m, t)
     for j in range(w.amplitude.shape[1]):
-        v += w.amplitude[k, j] * math.cos(w.omega[k, j] * t + w.phase[k, j])
+        v += sinusoid(w.amplitude[k, j], w.omega[k, j], math.cos(angle(w, k, j, t)), 0.0)[0]
     return v
 
 
@@ -598,7 +645,7 @@ def rate(w, k, m, t):
     """dw/dt of waveform k at time t on piece m, V/s."""
     r = w.slope[k, m]
     for j in range(w.amplitude.shape[1]):
-        r -= w.amplitude[k, j] * w.omega[k, j] * math.sin(w.omega[k, j] * t + w.phase[k, j])
+        r += sinusoid(w.amplitude[k, j], w.omega[k, j], 0.0, math.sin(angle(w, k, j, t)))[1]
     return r
 
 

@@ -16,11 +16,19 @@ stage,
     g = dV/dt|_x = sum_k (dw_k/dt) M_k(x),
 
 which the stepper integrates as one more component of the state (the ledger's work,
-:mod:`tracer.ledger`). The weights w_k and dw_k/dt of a stage are found lane by lane first
-(:func:`weigh_lanes`, a cosine and a sine per sinusoid; once for the two last stages of a step,
-which share their time, and the rate at the step's end in the cell ahead), so that the loops
-evaluating the polynomials, one per group with the loop over lanes innermost, compile to SIMD
-instructions (:func:`add_groups_lanes`).
+:mod:`tracer.ledger`). The weights w_k and dw_k/dt at the times of all stages of a step are
+found once a step, lane by lane, before the first stage (:func:`weigh_steps`): the straight-line
+parts directly, each sinusoid from a cosine and a sine at the step's start turned through the
+stage's angle (:func:`tracer.waveforms.turn`, no library call), so a sinusoid costs one cosine and
+one sine a step.
+
+SIMD. The drive workspace is laid out group first, so the offsets within a group's block are
+constants, and each group's evaluations run in a loop over the lanes that touches its block
+alone (:func:`eval_group`), with the stage points copied in and the results out in loops of
+their own (:func:`add_groups_lanes`), all over a lane count LLVM does not know in advance
+(:func:`lanes_of`): so they compile to SIMD instructions, which the evaluations reading the
+stepper's workspace and the drive workspace at once did not (measured in a microbenchmark of
+six stages: 86 instead of 163 ns a lane for a pulse group).
 
 Waveform pieces. A step never straddles a waveform corner (:mod:`tracer.waveforms`): each lane
 keeps the piece its step lies on, and every stage of the step weighs on that piece's straight
@@ -33,6 +41,7 @@ kernel of its own without any of this (the timed code costs a static run's first
 and each kernel is specialised for its case).
 """
 
+import math
 from collections import namedtuple
 
 import numpy as np
@@ -41,7 +50,8 @@ from tracer.fieldmap import patch_coefficients
 from tracer.jit import njit
 from tracer.motion.bundles import I_PIECE, I_RAY, LANES, W_H, W_RATE, W_T, W_Y1
 from tracer.motion.force import field_at, patch_field
-from tracer.waveforms import rate, value
+from tracer.motion.tableau import DP_C
+from tracer.waveforms import angle, line, rate, sinusoid, turn, value
 
 Drive = namedtuple("Drive", ["waves", "driven"])
 """The time-dependent part of a field: ``waves`` (:class:`tracer.waveforms.WaveArrays` of the K
@@ -57,19 +67,39 @@ def drive_of(waves, driven):
     return Drive(waves, driven)
 
 
-D_CELL, D_NEXT, D_WEIGHT = 0, 1, 2
-"""The slots of a drive workspace: the group polynomials of the cell a lane is in and of the cell
-it is entering, and the weights of a stage (coefficient :data:`D_VALUE`: w_k; :data:`D_RATE`:
-dw_k/dt)."""
+D_CELL, D_NEXT, D_WEIGHT, D_POINT = 0, 1, 2, 3
+"""The slots of a group's block of a drive workspace: its polynomial in the cell a lane is in and
+in the cell it is entering, its weights (:data:`STAGE_TIMES`; time s in coefficients
+2 s + :data:`D_VALUE`, w_k, and 2 s + :data:`D_RATE`, dw_k/dt), and a stage point with what the
+group gives there (coefficients ``P_*``)."""
 
 D_VALUE, D_RATE = 0, 1
+
+STAGE_TIMES = np.unique(DP_C)
+"""The distinct times of a step's stages, fractions of its length (the last two stages share the
+step's end); the weights of time 0 are those of :func:`weigh` (a step's first rate)."""
+
+TIME_OF_STAGE = np.searchsorted(STAGE_TIMES, DP_C)
+"""The index in :data:`STAGE_TIMES` of each stage's time."""
+
+D_COS, D_SIN, D_H = 2 * STAGE_TIMES.size, 2 * STAGE_TIMES.size + 1, 2 * STAGE_TIMES.size + 2
+"""Coefficients of the weights slot holding, for :func:`weigh_steps`, the cosine and sine of a
+sinusoid's angle at the step's start and the step's length."""
+
+P_X, P_CZ, P_CR, P_W, P_R, P_F, P_V, P_G = 0, 3, 4, 5, 6, 7, 10, 11
+"""Coefficients of the point slot: the point (x, y, z from ``P_X``), the cell's first corner
+(z, r), the weights w_k and dw_k/dt of the stage's time; the group's force (3, from ``P_F``),
+its potential weighed by w_k and its dV/dt work rate there (:func:`eval_group`)."""
 
 
 @njit(cache=True, error_model="numpy")
 def drive_workspace(drive):
-    """A drive workspace: float64[3, K, 16, LANES], slot (:data:`D_CELL`, :data:`D_NEXT`,
-    :data:`D_WEIGHT`), group, coefficient, lane."""
-    return np.zeros((3, drive.driven.shape[0], 16, LANES))
+    """A drive workspace: float64[K, 4, 16, LANES], group, slot (:data:`D_CELL`, :data:`D_NEXT`,
+    :data:`D_WEIGHT`, :data:`D_POINT`), coefficient, lane. Group first: the offsets within a
+    group's block are constants, so a loop over the lanes that touches one block alone compiles
+    to SIMD instructions (:func:`eval_group`, :func:`weigh_steps`' turns) with no check at run
+    time that its reads and writes do not overlap."""
+    return np.zeros((drive.driven.shape[0], 4, 16, LANES))
 
 
 @njit(cache=True, error_model="numpy", forceinline=True)
@@ -79,72 +109,149 @@ def load_cell(dw, slot, l, drive, i, j, hz, hr, mirror):
     for k in range(drive.driven.shape[0]):
         b = patch_coefficients(drive.driven[k], i, j, hz, hr, mirror)
         for m in range(16):
-            dw[slot, k, m, l] = b[m]
+            dw[k, slot, m, l] = b[m]
+
+
+@njit(cache=True, error_model="numpy", forceinline=True)
+def enter_cell(dw, l):
+    """Lane l enters the cell ahead: the group polynomials of slot :data:`D_NEXT` into
+    :data:`D_CELL` (element by element: the lane loop allocates nothing)."""
+    for k in range(dw.shape[0]):
+        for m in range(16):
+            dw[k, D_CELL, m, l] = dw[k, D_NEXT, m, l]
 
 
 @njit(cache=True, error_model="numpy", forceinline=True)
 def weigh(dw, l, waves, m, t):
     """The weights w_k(t) and dw_k/dt of every group at time t on waveform piece m into lane l of
-    the slot :data:`D_WEIGHT`."""
-    for k in range(dw.shape[1]):
-        dw[D_WEIGHT, k, D_VALUE, l] = value(waves, k, m, t)
-        dw[D_WEIGHT, k, D_RATE, l] = rate(waves, k, m, t)
+    the slot :data:`D_WEIGHT`, as those of time 0 (:data:`STAGE_TIMES`)."""
+    for k in range(dw.shape[0]):
+        dw[k, D_WEIGHT, D_VALUE, l] = value(waves, k, m, t)
+        dw[k, D_WEIGHT, D_RATE, l] = rate(waves, k, m, t)
+
+
+@njit(cache=True, error_model="numpy", forceinline=True)
+def weigh_steps(dw, w, waves, li):
+    """The weights w_k and dw_k/dt of every group at the times ``W_T + c W_H`` of the stages of
+    each lane's step (c in ``STAGE_TIMES[1:]``) into the slot :data:`D_WEIGHT`: the straight-line
+    parts on the lane's piece ``I_PIECE``, each sinusoid from the cosine and sine of its angle at
+    the step's start, ``W_T``, turned through the angle of each stage
+    (:func:`tracer.waveforms.turn`, in a loop over the lanes of the group's block alone: SIMD).
+    Only lanes that hold a ray (``I_RAY``) take the cosines and sines; the others' weights are
+    not read (their stages are not)."""
+    for k in range(dw.shape[0]):
+        for l in range(LANES):
+            m = li[I_PIECE, l]
+            dw[k, D_WEIGHT, D_H, l] = w[W_H, l]
+            for s in range(1, STAGE_TIMES.size):
+                dw[k, D_WEIGHT, 2 * s + D_VALUE, l] = line(waves, k, m, w[W_T, l]
+                                                           + STAGE_TIMES[s] * w[W_H, l])
+                dw[k, D_WEIGHT, 2 * s + D_RATE, l] = waves.slope[k, m]
+        for j in range(waves.amplitude.shape[1]):
+            for l in range(LANES):
+                if li[I_RAY, l] >= 0:
+                    a = angle(waves, k, j, w[W_T, l])
+                    dw[k, D_WEIGHT, D_COS, l] = math.cos(a)
+                    dw[k, D_WEIGHT, D_SIN, l] = math.sin(a)
+            amplitude, omega = waves.amplitude[k, j], waves.omega[k, j]
+            for l in range(LANES):
+                for s in range(1, STAGE_TIMES.size):
+                    c, sn = turn(dw[k, D_WEIGHT, D_COS, l], dw[k, D_WEIGHT, D_SIN, l],
+                                 omega * (STAGE_TIMES[s] * dw[k, D_WEIGHT, D_H, l]))
+                    v, r = sinusoid(amplitude, omega, c, sn)
+                    dw[k, D_WEIGHT, 2 * s + D_VALUE, l] += v
+                    dw[k, D_WEIGHT, 2 * s + D_RATE, l] += r
 
 
 @njit(cache=True, error_model="numpy", forceinline=True)
 def group_patch(dw, slot, k, l):
     """The polynomial of group k in slot ``slot`` of lane l, as a tuple of 16 coefficients."""
-    return (dw[slot, k, 0, l], dw[slot, k, 1, l], dw[slot, k, 2, l], dw[slot, k, 3, l],
-            dw[slot, k, 4, l], dw[slot, k, 5, l], dw[slot, k, 6, l], dw[slot, k, 7, l],
-            dw[slot, k, 8, l], dw[slot, k, 9, l], dw[slot, k, 10, l], dw[slot, k, 11, l],
-            dw[slot, k, 12, l], dw[slot, k, 13, l], dw[slot, k, 14, l], dw[slot, k, 15, l])
+    return (dw[k, slot, 0, l], dw[k, slot, 1, l], dw[k, slot, 2, l], dw[k, slot, 3, l],
+            dw[k, slot, 4, l], dw[k, slot, 5, l], dw[k, slot, 6, l], dw[k, slot, 7, l],
+            dw[k, slot, 8, l], dw[k, slot, 9, l], dw[k, slot, 10, l], dw[k, slot, 11, l],
+            dw[k, slot, 12, l], dw[k, slot, 13, l], dw[k, slot, 14, l], dw[k, slot, 15, l])
 
 
 @njit(cache=True, error_model="numpy", forceinline=True)
-def add_group(w, dw, slot, k, l, patch, nodes, sym, charge, v_row, g_row):
-    """Group k at lane l's point ``W_Y1``, from its polynomial in slot ``slot`` (the cell's first
-    corner in rows patch + 16, patch + 17 of the workspace w), weighed by the lane's weights: its
-    force added to ``W_RATE``, its potential to row v_row, its dV/dt rate to row g_row."""
-    v, ex, ey, ez = patch_field(group_patch(dw, slot, k, l), w[patch + 16, l], w[patch + 17, l],
-                                nodes, sym, w[W_Y1, l], w[W_Y1 + 1, l], w[W_Y1 + 2, l])
-    wk = dw[D_WEIGHT, k, D_VALUE, l]
+def put_point(w, dw, k, s, l, patch):
+    """Lane l's point ``W_Y1``, its cell's first corner (rows patch + 16, patch + 17 of the
+    workspace w) and group k's weights of time s (:data:`STAGE_TIMES`) into group k's point
+    slot."""
+    for i in range(3):
+        dw[k, D_POINT, P_X + i, l] = w[W_Y1 + i, l]
+    dw[k, D_POINT, P_CZ, l] = w[patch + 16, l]
+    dw[k, D_POINT, P_CR, l] = w[patch + 17, l]
+    dw[k, D_POINT, P_W, l] = dw[k, D_WEIGHT, 2 * s + D_VALUE, l]
+    dw[k, D_POINT, P_R, l] = dw[k, D_WEIGHT, 2 * s + D_RATE, l]
+
+
+@njit(cache=True, error_model="numpy", forceinline=True)
+def eval_group(dw, slot, k, l, nodes, sym, charge):
+    """Group k at the point in its point slot of lane l (:func:`put_point`), from its polynomial
+    in slot ``slot``, weighed by the weights there: its force, potential and dV/dt work rate into
+    the point slot. Reads and writes group k's block alone."""
+    v, ex, ey, ez = patch_field(group_patch(dw, slot, k, l), dw[k, D_POINT, P_CZ, l],
+                                dw[k, D_POINT, P_CR, l], nodes, sym, dw[k, D_POINT, P_X, l],
+                                dw[k, D_POINT, P_X + 1, l], dw[k, D_POINT, P_X + 2, l])
+    wk = dw[k, D_POINT, P_W, l]
     qw = charge * wk
-    w[W_RATE + 3, l] += qw * ex
-    w[W_RATE + 4, l] += qw * ey
-    w[W_RATE + 5, l] += qw * ez
-    w[v_row, l] += wk * v
-    w[g_row, l] += dw[D_WEIGHT, k, D_RATE, l] * v
+    dw[k, D_POINT, P_F, l] = qw * ex
+    dw[k, D_POINT, P_F + 1, l] = qw * ey
+    dw[k, D_POINT, P_F + 2, l] = qw * ez
+    dw[k, D_POINT, P_V, l] = wk * v
+    dw[k, D_POINT, P_G, l] = dw[k, D_POINT, P_R, l] * v
+
+
+@njit(cache=True, error_model="numpy", forceinline=True)
+def take_group(w, dw, k, l, v_row, g_row):
+    """Add group k's force, potential and dV/dt work rate at lane l's point (:func:`eval_group`)
+    to ``W_RATE``, row v_row and row g_row of the workspace w."""
+    for i in range(3):
+        w[W_RATE + 3 + i, l] += dw[k, D_POINT, P_F + i, l]
+    w[v_row, l] += dw[k, D_POINT, P_V, l]
+    w[g_row, l] += dw[k, D_POINT, P_G, l]
 
 
 @njit(cache=True, error_model="numpy", forceinline=True)
 def add_groups(w, dw, slot, l, patch, nodes, sym, charge, v_row, g_row):
-    """:func:`add_group` for every group in lane l, after :func:`weigh`; row g_row is set, not
-    added to."""
+    """Every group at lane l's point ``W_Y1``, from its polynomial in slot ``slot`` (the cell's
+    first corner in rows patch + 16, patch + 17 of the workspace w), weighed by the weights of
+    :func:`weigh` (time 0): its force added to ``W_RATE``, its potential to row v_row; the groups'
+    dV/dt work rate into row g_row."""
     w[g_row, l] = 0.0
-    for k in range(dw.shape[1]):
-        add_group(w, dw, slot, k, l, patch, nodes, sym, charge, v_row, g_row)
+    for k in range(dw.shape[0]):
+        put_point(w, dw, k, 0, l, patch)
+        eval_group(dw, slot, k, l, nodes, sym, charge)
+        take_group(w, dw, k, l, v_row, g_row)
 
 
 @njit(cache=True, error_model="numpy", forceinline=True)
-def weigh_lanes(dw, w, waves, li, frac):
-    """:func:`weigh` in every lane that holds a ray (the lane state's int rows li: ``I_RAY``,
-    and its piece ``I_PIECE``) at the time ``W_T + frac * W_H`` of its step; an idle lane's
-    weights stay as they were (its stages are not read), which spares a single ray's trace the
-    cosines and sines of seven idle lanes."""
-    for l in range(LANES):
-        if li[I_RAY, l] >= 0:
-            weigh(dw, l, waves, li[I_PIECE, l], w[W_T, l] + frac * w[W_H, l])
+def lanes_of(dw):
+    """``LANES``, as a number the compiler cannot know before the run (it does not know the number
+    of groups, dw.shape[0] >= 1). A loop over a constant eight lanes that reads the drive
+    workspace and writes the stepper's stays scalar: LLVM judges a check at run time that the two
+    arrays do not overlap not worth its cost for eight rounds, and it unrolls a loop as short as
+    :func:`eval_group`'s in full, which then stays scalar too. Over this count it compiles both
+    to SIMD instructions (checked in the assembly)."""
+    return min(LANES, LANES * dw.shape[0])
 
 
 @njit(cache=True, error_model="numpy", forceinline=True)
-def add_groups_lanes(w, dw, slot, patch, nodes, sym, charge, v_row, g_row):
-    """:func:`add_groups` in every lane, after :func:`weigh_lanes`: one loop over the lanes per
-    group (SIMD)."""
-    for l in range(LANES):
+def add_groups_lanes(w, dw, slot, s, patch, nodes, sym, charge, v_row, g_row):
+    """:func:`add_groups` in every lane with the weights of time s (:func:`weigh_steps`), in
+    loops over the lanes (over :func:`lanes_of`) that compile to SIMD instructions: per group,
+    the points in (:func:`put_point`), the evaluations in its block alone (:func:`eval_group`),
+    the results out (:func:`take_group`)."""
+    n = lanes_of(dw)
+    for l in range(n):
         w[g_row, l] = 0.0
-    for k in range(dw.shape[1]):
-        for l in range(LANES):
-            add_group(w, dw, slot, k, l, patch, nodes, sym, charge, v_row, g_row)
+    for k in range(dw.shape[0]):
+        for l in range(n):
+            put_point(w, dw, k, s, l, patch)
+        for l in range(n):
+            eval_group(dw, slot, k, l, nodes, sym, charge)
+        for l in range(n):
+            take_group(w, dw, k, l, v_row, g_row)
 
 
 @njit(cache=True, error_model="numpy", forceinline=True)

@@ -10,7 +10,7 @@ computed once per cell for all of its steps, turned into a 3-D field by the map'
 term q v x B goes there, without touching the stepper or the events. The electrode groups whose
 voltages change in time are added beside it, one loop over the lanes per group, with the ∂V/∂t
 work rate (:func:`tracer.motion.drive.add_group`): their weights at a stage's time are found once
-per lane and stage (:func:`tracer.motion.drive.weigh_lanes`), not inside the force.
+per lane and step (:func:`tracer.motion.drive.weigh_steps`), not inside the force.
 
 The magnetic field (:class:`tracer.motion.bundles.Magnet`) is the curl of the interpolated A_theta
 of the coils and axial profiles, from the polynomial of the same cell as the potential's

@@ -20,8 +20,7 @@ from tracer.motion.bundles import (C_CODE, C_CROSSINGS, C_EVALS, C_PATH, C_STEPS
                                    RUNNING, TIME, V_K0, V_K1, V_RC, V_Y0, V_Y1, W_BNEXT,
                                    W_BPATCH, W_ERR, W_G, W_GN, W_H, W_K, W_NEXT, W_PATCH, W_RATE,
                                    W_T, W_V1, W_VN, W_Y0, put_row)
-from tracer.motion.drive import (D_CELL, D_NEXT, cell_group_potential, group_potentials,
-                                 potential_at)
+from tracer.motion.drive import cell_group_potential, enter_cell, group_potentials, potential_at
 from tracer.motion.stepper import dense, first_rate, propose, stage_work
 from tracer.waveforms import jump_at, piece
 
@@ -162,10 +161,8 @@ def move_lanes(herm, drive, dw, nodes, sym, mass, charge, cross_state, paths, ma
                 if magnet is not None:
                     for m in range(16):
                         w[W_BPATCH + m, l] = w[W_BNEXT + m, l]
-                if drive is not None:   # element by element, as in thin_path
-                    for k in range(dw.shape[1]):
-                        for m in range(dw.shape[2]):
-                            dw[D_CELL, k, m, l] = dw[D_NEXT, k, m, l]
+                if drive is not None:
+                    enter_cell(dw, l)
             if drive is not None and corner:   # the first rate of the next step on the new piece
                 first_rate(w, l, vec[l, V_Y0], t_new, dw, drive.waves, li[I_PIECE, l], nodes,
                            sym, mass, charge, vec[l, V_K0:V_K0 + 1], magnet)

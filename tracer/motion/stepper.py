@@ -23,10 +23,10 @@ from tracer.fieldmap import patch_coefficients
 from tracer.jit import njit
 from tracer.motion.bundles import (LANES, W_BNEXT, W_BPATCH, W_DENSE, W_ERR, W_ATOL, W_G, W_GN,
                                    W_H, W_K, W_NEXT, W_PATCH, W_RATE, W_V1, W_VN, W_Y0, W_Y1)
-from tracer.motion.drive import (D_CELL, D_NEXT, add_groups, add_groups_lanes, weigh,
-                                 weigh_lanes)
+from tracer.motion.drive import (D_CELL, D_NEXT, TIME_OF_STAGE, add_groups, add_groups_lanes,
+                                 weigh, weigh_steps)
 from tracer.motion.force import force, gamma_mass, inverse_gamma_mass, uniform_force
-from tracer.motion.tableau import DP_A, DP_B, DP_C, DP_D, DP_E
+from tracer.motion.tableau import DP_A, DP_B, DP_D, DP_E
 
 SAFETY, FAC_MIN, FAC_MAX = 0.9, 0.2, 5.0
 
@@ -111,9 +111,10 @@ def lane_stage(w, st, nodes, sym, mass, charge, magnet, drive, dw, li):
             w[W_Y1 + i, l] = w[W_Y0 + i, l] + h * acc
         lane_rate(w, l, nodes, sym, mass, charge, W_PATCH, W_V1, magnet, W_BPATCH)
     if drive is not None:
-        if DP_C[st] != DP_C[st - 1]:    # the weights of the stage's time (the last two share it)
-            weigh_lanes(dw, w, drive.waves, li, DP_C[st])
-        add_groups_lanes(w, dw, D_CELL, W_PATCH, nodes, sym, charge, W_V1, W_G + st)
+        if st == 1:     # the weights of all the step's stages
+            weigh_steps(dw, w, drive.waves, li)
+        add_groups_lanes(w, dw, D_CELL, TIME_OF_STAGE[st], W_PATCH, nodes, sym, charge, W_V1,
+                         W_G + st)
     lanes_uniform(w, magnet, charge)
     for i in range(6):
         for l in range(LANES):
@@ -134,8 +135,9 @@ def lane_step(w, nodes, sym, mass, charge, rtol, atol_x, drive, dw, li, magnet):
 
     Voltages in time: with a ``drive`` and its workspace dw (:mod:`tracer.motion.drive`), each
     stage adds the groups' force weighed at the stage's time on the waveform piece of the lane
-    (``I_PIECE`` of the lane state's int rows li; lanes without a ray, ``I_RAY`` < 0, are not
-    weighed) and writes the rate of the dV/dt work into ``W_G + st`` (the first, ``W_G``, is the step's
+    (``I_PIECE`` of the lane state's int rows li; the weights of all stages found before the
+    first, :func:`tracer.motion.drive.weigh_steps`; lanes without a ray, ``I_RAY`` < 0, take no
+    cosines) and writes the rate of the dV/dt work into ``W_G + st`` (the first, ``W_G``, is the step's
     start's, as ``W_K``), whose integral :func:`stage_work` gives; in a static field (both
     ``None``) the stages read the static polynomial alone. With a ``magnet``
     (:class:`tracer.motion.bundles.Magnet`, else None) the force adds q v x B, A_theta's
@@ -181,7 +183,8 @@ def lane_next_rates(w, nodes, sym, mass, charge, drive, dw, magnet):
     for l in range(LANES):
         lane_rate(w, l, nodes, sym, mass, charge, W_NEXT, W_VN, magnet, W_BNEXT)
     if drive is not None:   # weighed as the step's last stage, at the same time
-        add_groups_lanes(w, dw, D_NEXT, W_NEXT, nodes, sym, charge, W_VN, W_GN)
+        add_groups_lanes(w, dw, D_NEXT, TIME_OF_STAGE[-1], W_NEXT, nodes, sym, charge, W_VN,
+                         W_GN)
     lanes_uniform(w, magnet, charge)
 
 
