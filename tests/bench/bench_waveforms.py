@@ -9,12 +9,22 @@ python tests/bench/bench_waveforms.py [--cpu] [TREE]).
 2. The cost of a waveform: the same rays with the lens electrode's voltage carrying a small 1 MHz
    sinusoid (one group map) and with a pulse that never switches in the traced time (a group with
    no cosine), against the static run in this process, the three taking turns: time and field
-   evaluations per ray (goal: at most one more map evaluation per stage per group).
+   evaluations per ray step. The goal, at most one more map evaluation per stage per group, as a
+   figure of the same run, two ways: the cost of one static field evaluation per lane alone (a
+   microbenchmark of the kernel's ``stepper.lane_rate``, force and potential from a cell's
+   polynomial, in a loop over the lanes of a workspace allocated where it runs, as the kernel's
+   is: SIMD), and its share of a static step (the static step's time over its field
+   evaluations); each times the field evaluations a step (stages and rates in the cell ahead),
+   against each group's time a step beyond the static run's. The ratio should be at most 1.
 3. A quadrupole ion trap (the tests' trap) holding an ion for 1000 RF periods (goal: seconds).
 
 ``--cpu`` times CPU seconds (time.process_time) on one numba thread instead of wall-clock
 seconds on numba's threads: on a machine shared with other work the wall clock follows the
 others' load, the CPU time of one thread far less.
+
+The rows' times depend on where the allocator puts the lane loop's arrays (measured: the same
+pulse row from 0.38 to 0.56 us a step after other allocations in between), which the best of the
+repeats leaves out as far as it can.
 
 Every timed trace starts after ``gc.collect()``: a collection of the interpreter's oldest
 generation (tens of milliseconds with numba loaded) otherwise falls into whichever row's trace
@@ -29,9 +39,12 @@ import sys
 import time
 from pathlib import Path
 
+import numpy as np
+
 HERE = Path(__file__).resolve().parents[2]
-REPEATS = 5
+REPEATS = 8
 RAYS = 1000
+EVALUATIONS = 200_000
 
 STATIC = """
 import gc, sys, time
@@ -69,10 +82,48 @@ def static_seconds(tree, cpu=False):
     return float(out[-2]), int(out[-1])
 
 
+def evaluation_ns(field, now):
+    """Nanoseconds of one static field evaluation per lane (the kernel's ``stepper.lane_rate``)
+    at points moving over a cell of the map ``field`` (the best of REPEATS loops of EVALUATIONS
+    rounds over the lanes)."""
+    from tracer.beam import symmetry_code
+    from tracer.jit import njit
+    from tracer.fieldmap import patch_coefficients
+    from tracer.motion.bundles import LANES, W_BPATCH, W_PATCH, W_ROWS, W_V1, W_Y1, nodes_of
+    from tracer.motion.stepper import lane_rate, put_patch
+
+    @njit(error_model="numpy")
+    def rounds(herm, nodes, sym, mass, charge, i, j, count):
+        w = np.zeros((W_ROWS, LANES))      # allocated here: its shape known, as in the kernel
+        a = patch_coefficients(herm, i, j, nodes.hz, nodes.hr, sym != 1)
+        for l in range(LANES):
+            put_patch(w, l, W_PATCH, a, nodes.z0 + i * nodes.hz, nodes.r0 + j * nodes.hr)
+        for n in range(count):
+            f = (n % 64) / 64.0         # every input moves: nothing to hoist out of the rounds
+            for l in range(LANES):
+                g = (l + 0.5) / LANES
+                w[W_Y1, l] = nodes.r0 + (j + 0.9 * g + 0.1 * f) * nodes.hr
+                w[W_Y1 + 1, l] = 0.1 * f * nodes.hr
+                w[W_Y1 + 2, l] = nodes.z0 + (i + 0.9 * f + 0.1 * g) * nodes.hz
+                w[W_Y1 + 5, l] = 1e-20 * (1.0 + f)
+                lane_rate(w, l, nodes, sym, mass, charge, W_PATCH, W_V1, None, W_BPATCH)
+        return w
+
+    nodes = nodes_of(field.grid)
+    sym = symmetry_code(field.grid)
+    i, j = nodes.nz // 2, 1
+    rounds(field.hermite, nodes, sym, 1.67e-27, 1.6e-19, i, j, 10)
+    best = float("inf")
+    for _ in range(REPEATS):
+        t0 = now()
+        rounds(field.hermite, nodes, sym, 1.67e-27, 1.6e-19, i, j, EVALUATIONS)
+        best = min(best, now() - t0)
+    return best / (EVALUATIONS * LANES) * 1e9
+
+
 def main():
     sys.path.insert(0, str(HERE / "tests"))
     import numba
-    import numpy as np
 
     from test_trace import three_tube
     from test_trace_time import RF_HZ, trap_run
@@ -123,11 +174,25 @@ def main():
             t0 = now()
             trace(f, beam)
             best_s[k] = min(best_s[k], now() - t0)
+    static_step = best_s[0] / runs[0].records["steps"].sum()
     for (name, _), t, run in zip(rows, best_s, runs):
         steps = run.records["steps"].sum()
         print(f"2. {name}: {t:.3f} s ({t / steps * 1e6:.3f} us a ray step, {t / best_s[0]:.2f}x static), "
               f"{steps / RAYS:.0f} steps and {run.records['evaluations'].sum() / steps:.2f} evaluations a "
               "step per ray")
+    ns = evaluation_ns(field, now)
+    per_step = runs[0].records["evaluations"].sum() / runs[0].records["steps"].sum()
+    strict = ns * per_step * 1e-3
+    share = static_step * 1e6 / per_step
+    print(f"   one more map evaluation at each of the {per_step:.2f} evaluations a step: "
+          f"{ns:.1f} ns a lane for the evaluation alone (stepper.lane_rate, SIMD), "
+          f"{share * 1e3:.1f} ns as its share of a static step ({static_step * 1e6:.3f} us / "
+          f"{per_step:.2f})")
+    for (name, _), t, run in zip(rows[1:], best_s[1:], runs[1:]):
+        extra = t / run.records["steps"].sum() * 1e6 - static_step * 1e6
+        print(f"   {name}: {extra:.3f} us a step more than static = {extra / strict:.2f} "
+              f"evaluations alone, {extra / (share * per_step):.2f} static-step shares per "
+              "evaluation (goal: at most 1)")
 
     from test_trace_time import trap_toml
 
