@@ -15,7 +15,7 @@ from tracer.beam import trace
 from tracer.measure import (PLANE_COLUMNS, CrossingRule, columns, landing_stats, landings, loss_reasons,
                             plane_stats, row)
 from tracer.report import format_summary
-from tracer.stats import rms_emittance
+from tracer.stats import containing_diameter, rms_emittance
 
 from test_trace import plates
 
@@ -326,6 +326,20 @@ def test_containing_diameters_of_a_uniform_disc():
     current = np.where(np.arange(4000) < 2000, 1e-6, 1e-12)
     w = plane_stats(rows_from(x, y, 0 * x, 0 * y, 100.0), PROTON, started(4000, weight_A=current))
     assert w.d90_m == pytest.approx(2e-3 * math.sqrt(0.5 * 0.9), rel=1e-3)
+
+
+def test_containing_diameter_is_the_order_statistic_of_the_radii():
+    """Counting rays, the circle holding a share p of n rays has the radius of the ceil(p n)-th
+    nearest ray: numpy's quantile of the radii by the inverted empirical distribution (Hyndman and
+    Fan 1996, type 1), ties and tiny beams included."""
+    rng = np.random.default_rng(7)
+    for n in (1, 2, 3, 7, 10, 99, 500, 1001):
+        dx, dy = rng.normal(size=(2, n))
+        dx[: n // 3], dy[: n // 3] = np.round(dx[: n // 3], 1), 0.0       # equal radii
+        r = np.hypot(dx, dy)
+        for share in (0.01, 0.1, 1 / 3, 0.5, 0.9, 1.0):
+            expected = 2.0 * np.quantile(r, share, method="inverted_cdf")
+            assert containing_diameter(dx, dy, share) == expected
 
 
 def test_fwhm_of_a_gaussian_spot():

@@ -255,9 +255,11 @@ def containing_diameter(dx, dy, share, weights=None):
     if not len(dx):
         return math.nan
     r = np.hypot(dx, dy)
+    if weights is None or not np.sum(weights) > 0:     # counting rays: the k-th smallest radius
+        k = min(max(math.ceil(share * float(len(r)) * (1 - 1e-12)) - 1, 0), len(r) - 1)
+        return 2.0 * float(np.partition(r, k)[k])
     order = np.argsort(r)
-    w = np.ones(len(r)) if weights is None or not np.sum(weights) > 0 else np.asarray(weights, float)
-    cumulative = np.cumsum(w[order])
+    cumulative = np.cumsum(np.asarray(weights, float)[order])
     k = min(int(np.searchsorted(cumulative, share * cumulative[-1] * (1 - 1e-12))), len(r) - 1)
     return 2.0 * float(r[order][k])
 
