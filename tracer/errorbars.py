@@ -21,12 +21,21 @@ cell), so the estimate costs a quarter of the solve plus a fraction of the traci
 
 The Monte Carlo error
 ---------------------
-The error of a figure from the finite number of rays is estimated apart by batch means: the rays
-are dealt into :data:`BATCHES` disjoint groups (every tenth ray), each figure is computed on each
-group, and the standard deviation of the group values over sqrt(BATCHES) is the standard error of
-the figure of all rays (common practice in Monte Carlo work).  It needs no second trace.  The
-extremes (smallest and largest landing energy and radius) have none: a batch's extreme is not the
-extreme of all rays.
+The error of a figure from the finite number of rays is estimated apart by the delete-a-group
+jackknife: the rays are dealt into :data:`BATCHES` disjoint groups (every tenth ray), the figure
+is computed on all rays but one group, for each group in turn, and the standard error of the figure
+of all rays is sqrt((G - 1) / G * sum of the squared deviations of those G values from their mean)
+(Quenouille 1956, Tukey 1958; Efron and Stein 1981).  For a mean over groups of equal size this is
+the standard deviation of the groups' own means over sqrt(G), the batch means of Monte Carlo
+work.  Unlike batch means, which take each figure on one group alone, it takes every figure on
+nine tenths of the rays, so a figure that needs many rays (an emittance, a width, a spot diameter)
+keeps a true error on a small beam: the emittance of a group of two rays is zero, so batch means
+would give a beam of 20 rays an emittance error of zero.  Leaving out a group of n / 10 rays, not
+one ray, keeps it consistent for quantiles too (Shao and Wu 1989).  It needs no second trace; it
+computes the summary ten times on nine tenths of the rays (0.8 s for 20 000 rays through the demo
+lens, whose run with error bars takes 5.6 s).  A figure some of the ten samples lack (a plane few
+rays cross) gets none, nor do the extremes (smallest and largest landing energy and radius): the
+extreme of a sample is not the extreme of all rays.
 
 Warnings
 --------
@@ -54,7 +63,7 @@ from tracer import gridcheck, ledger, measure
 from tracer.sources import START_DTYPE
 
 BATCHES = 10
-"""The disjoint groups of rays of the batch-means Monte Carlo error."""
+"""The disjoint groups of rays the jackknife leaves out in turn (the Monte Carlo error)."""
 
 SECTIONS = ("planes", "landing")
 """The parts of a beam summary whose figures get error bars: at planes, on electrodes."""
@@ -65,7 +74,7 @@ _SPREAD = {"centroid_x_m": "rms_x_m", "centroid_y_m": "rms_y_m", "energy_mean_eV
 spread, the largest landing radius or energy for the smallest."""
 
 EXTREMES = ("energy_min_eV", "energy_max_eV", "radius_min_m", "radius_max_m")
-"""Figures that are extremes of the rays: batch means tell nothing of them (no Monte Carlo error)."""
+"""Figures that are extremes of the rays: the jackknife tells nothing of them (no Monte Carlo error)."""
 
 _FRACTIONS = ("fraction",)
 """Figures that are fractions of the rays: their grid error is weighed against 1."""
@@ -86,7 +95,7 @@ class FigureBar:
         Its grid error from the re-traced rays (``grid.value`` is their figure on cell h,
         ``grid.coarse`` on 2h, ``grid.third`` on the third grid).
     monte_carlo : float
-        The standard error of ``value`` from the number of rays (batch means).
+        The standard error of ``value`` from the number of rays (the jackknife, module notes).
     """
 
     section: str
@@ -217,24 +226,32 @@ def figures(summary):
 
 
 def monte_carlo(run, batches=BATCHES):
-    """The batch-means standard error of each figure (module notes).
+    """The jackknife standard error of each figure from the number of rays (module notes).
 
     Returns
     -------
     dict of (str, str, str) to float
-        NaN for every figure when the run has fewer than 2 ``batches`` rays.
+        Empty when the run has fewer than 2 ``batches`` rays; NaN for a figure that some sample
+        leaving out a group lacks.
     """
     n = len(run.records)
     if n < 2 * batches:
         return {}
-    parts = [figures(subset(run, np.arange(b, n, batches)).summary()) for b in range(batches)]
+    group = np.arange(n) % batches
+    parts = [figures(subset(run, np.flatnonzero(group != b)).summary()) for b in range(batches)]
     keys = {key for part in parts for key in part if key[2] not in EXTREMES}
-    out = {}
-    for key in keys:
-        values = np.array([p.get(key, math.nan) for p in parts])
-        values = values[np.isfinite(values)]
-        out[key] = float(np.std(values, ddof=1) / math.sqrt(batches)) if len(values) > 1 else math.nan
-    return out
+    return {key: jackknife_error(np.array([p.get(key, math.nan) for p in parts])) for key in keys}
+
+
+def jackknife_error(values) -> float:
+    """The delete-a-group jackknife standard error from a figure's values on the G samples that
+    each leave out one group: sqrt((G - 1) / G * sum((values - mean)^2)) (Tukey 1958; Efron and
+    Stein 1981). NaN unless there are two or more values, all finite."""
+    values = np.asarray(values, dtype=np.float64)
+    g = len(values)
+    if g < 2 or not np.all(np.isfinite(values)):
+        return math.nan
+    return float(math.sqrt((g - 1) / g * np.sum((values - values.mean()) ** 2)))
 
 
 def _round_off(key, fig, extent_m):

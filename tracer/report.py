@@ -360,7 +360,7 @@ def format_error_bars(summary: dict) -> str:
                 rows.append([f"{label} {where}", short, _digits(values[name] * factor, bar["grid"] * factor),
                              bar["grid"] * factor, bar["monte_carlo"] * factor, unit, bar["observed_order"]])
     head = (f"error bars: grid from cells {cells} mm (Roache's GCI, p = 2), {u['rays']} rays traced "
-            f"again on each, {u['seconds']:.2g} s; rays: batch means over 10 groups")
+            f"again on each, {u['seconds']:.2g} s; rays: jackknife over 10 groups")
     header = ["where", "figure", "value", "± grid", "± rays", "unit"]
     if len(u["cells_m"]) > 2:
         header.append("order")

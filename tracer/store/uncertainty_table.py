@@ -3,7 +3,7 @@
 One row per figure of the beam summary's planes and landings that has error bars
 (:mod:`tracer.errorbars`): where it is (``section``, ``where``, ``figure``: the summary's
 ``summary[section][where][figure]``), its ``value`` (all rays, the config's cell), ``grid_error``
-(Roache's GCI), ``monte_carlo_error`` (batch means), the re-traced rays' figure on each grid
+(Roache's GCI), ``monte_carlo_error`` (the jackknife over ten groups of rays), the re-traced rays' figure on each grid
 (``value_h``, ``value_2h``, ``value_third``: NaN with two grids), ``observed_order``, ``safety``
 and ``flag``.  Strings are UTF-8.
 """
