@@ -34,7 +34,7 @@ import time
 import warnings
 from pathlib import Path
 
-#: A first run's compile on two cores (a cold tracer demo took 45.6 s and 43.4 s, 64.6 s and 64.0 s
+#: A first run's compile on two cores (a cold tracer demo took 41.3 s and 39.2 s, 60.0 s and 59.1 s
 #: in one process, in tests/bench/bench_coldstart.py on an idle machine).
 FIRST_COMPILE = "under a minute on two cores"
 
