@@ -26,10 +26,10 @@ import ast
 import contextlib
 import dataclasses
 import inspect
-import textwrap
 import os
 import subprocess
 import sys
+import textwrap
 import time
 import warnings
 from pathlib import Path
@@ -74,25 +74,21 @@ def notice() -> str | None:
 BESIDE_ENV = "TRACER_COMPILE_BESIDE"
 
 
-def _nodes(kernel):
-    """The syntax-tree nodes of the statements of ``kernel``'s Python function (not its
-    signature or decorators)."""
-    tree = ast.parse(textwrap.dedent(inspect.getsource(kernel.py_func)))
-    return [node for statement in tree.body[0].body for node in ast.walk(statement)]
-
-
-def _called_kernels(kernel) -> dict:
-    """The numba kernels ``kernel`` calls by name, with how many call sites each has."""
+def _parts(kernel) -> tuple[int, dict]:
+    """The syntax-tree nodes of the statements of ``kernel``'s Python function (not its signature
+    or decorators), and the numba kernels it calls by name with how many call sites each has."""
     from numba.core.dispatcher import Dispatcher
 
+    tree = ast.parse(textwrap.dedent(inspect.getsource(kernel.py_func)))
+    nodes = [node for statement in tree.body[0].body for node in ast.walk(statement)]
     names = kernel.py_func.__globals__
     sites: dict = {}
-    for node in _nodes(kernel):
+    for node in nodes:
         if isinstance(node, ast.Call) and isinstance(node.func, ast.Name):
             callee = names.get(node.func.id)
             if isinstance(callee, Dispatcher):
                 sites[callee] = sites.get(callee, 0) + 1
-    return sites
+    return len(nodes), sites
 
 
 def _copied(kernel) -> bool:
@@ -116,16 +112,22 @@ def typed_size(kernel) -> tuple[int, int]:
     -------
     (kernels, nodes) : tuple of int
     """
+    parts: dict = {}      # each kernel's source read and parsed once
     own: dict = {}
+
+    def part(k):
+        if k not in parts:
+            parts[k] = _parts(k)
+        return parts[k]
 
     def size(k) -> int:
         if k not in own:
-            own[k] = len(_nodes(k)) + sum(
-                n * size(c) for c, n in _called_kernels(k).items() if _copied(c))
+            nodes, calls = part(k)
+            own[k] = nodes + sum(n * size(c) for c, n in calls.items() if _copied(c))
         return own[k]
 
     def compiled_from(k):
-        for c in _called_kernels(k):
+        for c in part(k)[1]:
             yield from compiled_from(c) if _copied(c) else (c,)
 
     seen, todo = {kernel}, [kernel]
